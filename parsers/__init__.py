@@ -4,6 +4,7 @@ Nothing here opens a socket or file descriptor of its own, reads a clock, or log
 bytes (or lines) and receive typed, immutable messages.
 """
 
+from ._ephemeris import GlonassEphemeris, KeplerEphemeris
 from ._epoch import EPOCH_DTYPES, ObsEpoch
 from ._errors import ConfigError, DaemonError, OutputError, ParseError, TransportError
 from ._gnsstime import (
@@ -38,7 +39,9 @@ __all__ = [
     "SYSTEMS",
     "ConfigError",
     "DaemonError",
+    "GlonassEphemeris",
     "GpsTime",
+    "KeplerEphemeris",
     "ObsEpoch",
     "OutputError",
     "ParseError",

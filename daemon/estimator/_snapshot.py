@@ -1,0 +1,76 @@
+"""What the estimator publishes after each epoch: an immutable snapshot read by every output.
+
+Per-satellite figures are a structure of arrays over the ``m`` satellites that had data this epoch
+(STYLE rule 21); NaN means unknown. The outputs (MQTT, Prometheus, CSV, alarms) read only this.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import numpy.typing as npt
+from ionwarden.parsers import GpsTime
+
+__all__ = ["SatelliteFigures", "StationSnapshot"]
+
+F64 = npt.NDArray[np.float64]
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class SatelliteFigures:
+    """Per-satellite figures for one epoch (arrays of length m).
+
+    ``pair``: the frequency pair in use as "1C-2W" (RINEX codes), "" when single-frequency.
+    ``slip``: a new arc started at this epoch (slip, gap, lock reset, pair switch).
+    """
+
+    sat: npt.NDArray[np.int16]
+    pair: tuple[str, ...]
+    el_deg: F64
+    az_deg: F64
+    ipp_lat_deg: F64
+    ipp_lon_deg: F64
+    stec_tecu: F64
+    vtec_tecu: F64
+    rot_tecu_per_min: F64
+    roti_tecu_per_min: F64
+    iono_l1_m: F64
+    if_code_m: F64
+    if_phase_m: F64
+    if_code_smoothed_m: F64
+    slip: npt.NDArray[np.bool_]
+    arc_id: npt.NDArray[np.int32]
+
+    def __len__(self) -> int:
+        return int(self.sat.shape[0])
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class StationSnapshot:
+    """Station-level figures after one epoch, plus the per-satellite and per-cell detail.
+
+    ``cell_*`` arrays (length n, one per satellite × signal) carry what the CN0-baseline alarm
+    needs: satellite, packed signal code, elevation and C/N0.
+    """
+
+    station: str
+    time: GpsTime
+    n_sats: int
+    vtec_tecu: float
+    roti_max_tecu_per_min: float
+    roti_median_tecu_per_min: float
+    rot_max_abs_tecu_per_min: float
+    gradient_mm_per_km: float
+    gradient_tecu_per_km: float
+    gradient_azimuth_deg: float
+    dual_freq_fraction: float
+    receiver_bias_tecu: float
+    receiver_bias_sigma_tecu: float
+    satellites: SatelliteFigures
+    cell_sat: npt.NDArray[np.int16]
+    cell_sig: npt.NDArray[np.uint16]
+    cell_el_deg: F64
+    cell_cn0_dbhz: npt.NDArray[np.float32]
+    geometry_source: str = "ephemeris"  # "ephemeris", "gsv" (flagged fallback) or "none"
+    counters: dict[str, int] = field(default_factory=dict)
