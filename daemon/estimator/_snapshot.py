@@ -7,10 +7,13 @@ Per-satellite figures are a structure of arrays over the ``m`` satellites that h
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 import numpy as np
 import numpy.typing as npt
-from ionwarden.parsers import GpsTime
+
+if TYPE_CHECKING:
+    from ionwarden.parsers import GpsTime
 
 __all__ = ["SatelliteFigures", "StationSnapshot"]
 
