@@ -15,7 +15,7 @@ import numpy.typing as npt
 if TYPE_CHECKING:
     from ionwarden.parsers import GpsTime
 
-__all__ = ["SatelliteFigures", "StationSnapshot"]
+__all__ = ["FixStatus", "SatelliteFigures", "StationSnapshot"]
 
 F64 = npt.NDArray[np.float64]
 
@@ -77,3 +77,21 @@ class StationSnapshot:
     cell_cn0_dbhz: npt.NDArray[np.float32]
     geometry_source: str = "ephemeris"  # "ephemeris", "gsv" (flagged fallback) or "none"
     counters: dict[str, int] = field(default_factory=dict)
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class FixStatus:
+    """The receiver's own position fix quality, from NMEA GGA (and GST when present).
+
+    ``quality`` is the GGA fix quality indicator (NMEA 0183 v4.11: 0 invalid, 1 GPS, 2 DGPS,
+    4 RTK fixed, 5 RTK float, …); sigmas are GST 1-σ errors in metres (NaN when no GST).
+    """
+
+    station: str
+    time: GpsTime | None
+    quality: int
+    n_sats_used: int
+    hdop: float
+    sigma_lat_m: float = float("nan")
+    sigma_lon_m: float = float("nan")
+    sigma_alt_m: float = float("nan")
