@@ -1,0 +1,245 @@
+"""The alarms of one station: inputs from the estimator, the NMEA fix and the runtime.
+
+Pure and clock-free (STYLE rule 22): every ``observe_*`` call carries its own time — the epoch's
+GPS time for data alarms, the caller's wall time (as GPS time) for the stream-stall alarm — and
+returns the transitions it caused, in order. The caller logs, publishes and exports them.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+from dataclasses import dataclass
+from typing import TYPE_CHECKING
+
+import numpy as np
+
+from ._cn0 import N_BAND_KEYS, Cn0Baseline, band_label
+from ._debounce import Debouncer
+from ._types import AlarmKind, AlarmState, AlarmStatus, AlarmTransition, Severity
+
+if TYPE_CHECKING:
+    from ionwarden.daemon.config import AlarmSettings, ThresholdAlarm
+    from ionwarden.daemon.estimator import FixStatus, StationSnapshot
+    from ionwarden.parsers import GpsTime
+
+__all__ = ["UNITS", "StationAlarms"]
+
+log = logging.getLogger("ionwarden.daemon.alarms")
+
+#: Unit of each alarm's input value (also used in payload and metric docs).
+UNITS: dict[AlarmKind, str] = {
+    AlarmKind.ROTI: "TECU/min",
+    AlarmKind.ROT: "TECU/min",
+    AlarmKind.VTEC: "TECU",
+    AlarmKind.GRADIENT: "mm/km",
+    AlarmKind.DUAL_FREQUENCY_LOSS: "fraction",
+    AlarmKind.CN0_DROP: "dB",
+    AlarmKind.STREAM_STALL: "s",
+    AlarmKind.FIX_QUALITY: "flag",
+    AlarmKind.FIX_HDOP: "1",
+    AlarmKind.FIX_SIGMA: "m",
+}
+
+
+@dataclass(slots=True)
+class _Alarm:
+    key: str
+    kind: AlarmKind
+    band: str
+    severity: Severity
+    machine: Debouncer
+    value: float = math.nan
+    since: GpsTime | None = None
+
+
+class StationAlarms:
+    """Every alarm of one station, built from ``[alarms]`` settings."""
+
+    def __init__(self, station: str, settings: AlarmSettings) -> None:
+        self.station = station
+        self._settings = settings
+        self._seq = 0
+        self._alarms: dict[str, _Alarm] = {}
+        self._cn0_keys: dict[int, str] = {}
+        for kind, cfg in (
+            (AlarmKind.ROTI, settings.roti),
+            (AlarmKind.ROT, settings.rot),
+            (AlarmKind.VTEC, settings.vtec),
+            (AlarmKind.GRADIENT, settings.gradient),
+            (AlarmKind.DUAL_FREQUENCY_LOSS, settings.dual_frequency_loss),
+            (AlarmKind.FIX_QUALITY, settings.fix_quality),
+            (AlarmKind.FIX_HDOP, settings.fix_hdop),
+            (AlarmKind.FIX_SIGMA, settings.fix_sigma),
+        ):
+            if cfg.enabled:
+                self._add(kind.value, kind, "", cfg)
+        self._alarms[AlarmKind.STREAM_STALL.value] = _Alarm(
+            key=AlarmKind.STREAM_STALL.value,
+            kind=AlarmKind.STREAM_STALL,
+            band="",
+            severity=Severity.SEVERE,
+            machine=Debouncer(
+                raise_at=settings.stall_after_s,
+                clear_at=settings.stall_after_s,
+                raise_after_s=0.0,
+                clear_after_s=0.0,
+            ),
+        )
+        base = settings.cn0_baseline
+        self._cn0 = Cn0Baseline(
+            bin_deg=base.bin_deg, time_constant_s=base.time_constant_s, min_samples=base.min_samples
+        )
+
+    def _add(self, key: str, kind: AlarmKind, band: str, cfg: ThresholdAlarm) -> _Alarm:
+        alarm = _Alarm(
+            key=key,
+            kind=kind,
+            band=band,
+            severity=Severity(cfg.severity),
+            machine=Debouncer(
+                raise_at=cfg.raise_at,
+                clear_at=cfg.clear_at,
+                raise_after_s=cfg.raise_after_s,
+                clear_after_s=cfg.clear_after_s,
+            ),
+        )
+        self._alarms[key] = alarm
+        return alarm
+
+    def _step(
+        self, alarm: _Alarm, value: float, time: GpsTime, out: list[AlarmTransition]
+    ) -> None:
+        alarm.value = value
+        if not alarm.machine.step(value, time.total_s):
+            return
+        self._seq += 1
+        m = alarm.machine
+        state = AlarmState.ACTIVE if m.active else AlarmState.NORMAL
+        previous = AlarmState.NORMAL if m.active else AlarmState.ACTIVE
+        alarm.since = time
+        out.append(
+            AlarmTransition(
+                seq=self._seq,
+                station=self.station,
+                alarm=alarm.key,
+                kind=alarm.kind,
+                band=alarm.band,
+                severity=alarm.severity,
+                previous=previous,
+                state=state,
+                time=time,
+                value=value,
+                unit=UNITS[alarm.kind],
+                raise_at=m.raise_at,
+                clear_at=m.clear_at,
+            )
+        )
+        log.warning(
+            "alarm %s %s at station %s: %s → %s (value %.3g %s, raise at %g, clear below %g)",
+            alarm.key,
+            "raised" if m.active else "cleared",
+            self.station,
+            previous.value,
+            state.value,
+            value,
+            UNITS[alarm.kind],
+            m.raise_at,
+            m.clear_at,
+        )
+
+    def _maybe(
+        self, kind: AlarmKind, value: float, time: GpsTime, out: list[AlarmTransition]
+    ) -> None:
+        alarm = self._alarms.get(kind.value)
+        if alarm is not None:
+            self._step(alarm, value, time, out)
+
+    def observe_snapshot(self, snap: StationSnapshot) -> list[AlarmTransition]:
+        """Evaluate the ionosphere and CN0 alarms on one epoch's snapshot."""
+        out: list[AlarmTransition] = []
+        t = snap.time
+        s = self._settings
+        roti = (
+            snap.roti_median_tecu_per_min
+            if s.roti_statistic == "median"
+            else snap.roti_max_tecu_per_min
+        )
+        self._maybe(AlarmKind.ROTI, roti, t, out)
+        self._maybe(AlarmKind.ROT, snap.rot_max_abs_tecu_per_min, t, out)
+        self._maybe(AlarmKind.VTEC, snap.vtec_tecu, t, out)
+        self._maybe(AlarmKind.GRADIENT, abs(snap.gradient_mm_per_km), t, out)
+        self._maybe(AlarmKind.DUAL_FREQUENCY_LOSS, 1.0 - snap.dual_freq_fraction, t, out)
+        if s.cn0_drop.enabled and snap.cell_sat.size:
+            self._observe_cn0(snap, out)
+        return out
+
+    def _observe_cn0(self, snap: StationSnapshot, out: list[AlarmTransition]) -> None:
+        base = self._cn0
+        drop = base.drop_db(
+            snap.cell_sat,
+            snap.cell_sig,
+            snap.cell_el_deg,
+            snap.cell_cn0_dbhz,
+            min_cells=self._settings.cn0_baseline.min_cells,
+        )
+        # Bands evaluated this epoch (bounded: at most N_BAND_KEYS); this loop is per band.
+        for k in np.flatnonzero(np.isfinite(drop)).tolist():
+            key = self._cn0_keys.get(k)
+            if key is None:
+                label = band_label(k)
+                key = f"{AlarmKind.CN0_DROP.value}-{label.lower()}"
+                self._cn0_keys[k] = key
+                self._add(key, AlarmKind.CN0_DROP, label, self._settings.cn0_drop)
+            self._step(self._alarms[key], float(drop[k]), snap.time, out)
+        frozen = np.zeros(N_BAND_KEYS, np.bool_)
+        for k, key in self._cn0_keys.items():
+            m = self._alarms[key].machine
+            frozen[k] = m.active or m.pending
+        base.learn(
+            snap.cell_sat,
+            snap.cell_sig,
+            snap.cell_el_deg,
+            snap.cell_cn0_dbhz,
+            snap.time.total_s,
+            frozen=frozen,
+        )
+
+    def observe_fix(self, fix: FixStatus, time: GpsTime | None = None) -> list[AlarmTransition]:
+        """Evaluate the NMEA fix alarms; ``time`` is used when the fix carries none."""
+        out: list[AlarmTransition] = []
+        t = fix.time or time
+        if t is None:
+            return out
+        accepted = self._settings.fix_accepted_qualities
+        self._maybe(AlarmKind.FIX_QUALITY, 0.0 if fix.quality in accepted else 1.0, t, out)
+        self._maybe(AlarmKind.FIX_HDOP, fix.hdop, t, out)
+        self._maybe(AlarmKind.FIX_SIGMA, math.hypot(fix.sigma_lat_m, fix.sigma_lon_m), t, out)
+        return out
+
+    def observe_stall(self, age_s: float, time: GpsTime) -> list[AlarmTransition]:
+        """Evaluate the stream-stall alarm: ``age_s`` since the last valid epoch (monotonic),
+        ``time`` = now (wall clock as GPS time), used for the transition's time stamp."""
+        out: list[AlarmTransition] = []
+        self._step(self._alarms[AlarmKind.STREAM_STALL.value], age_s, time, out)
+        return out
+
+    def statuses(self) -> tuple[AlarmStatus, ...]:
+        """The current status of every alarm, in a stable order."""
+        return tuple(
+            AlarmStatus(
+                station=self.station,
+                alarm=a.key,
+                kind=a.kind,
+                band=a.band,
+                severity=a.severity,
+                state=AlarmState.ACTIVE if a.machine.active else AlarmState.NORMAL,
+                pending=a.machine.pending,
+                value=a.value,
+                unit=UNITS[a.kind],
+                raise_at=a.machine.raise_at,
+                clear_at=a.machine.clear_at,
+                since=a.since,
+            )
+            for a in self._alarms.values()
+        )

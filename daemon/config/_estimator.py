@@ -1,0 +1,52 @@
+"""The ``[estimator]`` section: how the rolling ionosphere estimator works."""
+
+from __future__ import annotations
+
+from pydantic import Field
+
+from ._base import Section
+
+__all__ = ["EstimatorSettings"]
+
+
+class EstimatorSettings(Section):
+    """Estimator parameters (defaults: SCIENCE.md §5–§9, common practice)."""
+
+    shell_height_km: float = Field(
+        default=350.0,
+        gt=50.0,
+        lt=2000.0,
+        description="Thin-shell height for pierce points and mapping.",
+    )
+    elevation_mask_deg: float = Field(
+        default=15.0,
+        ge=0.0,
+        lt=90.0,
+        description="Satellites below are tracked but excluded from station figures.",
+    )
+    rot_interval_s: float = Field(
+        default=30.0, gt=0.0, description="ROT difference interval (sliding)."
+    )
+    roti_window_s: float = Field(
+        default=300.0, gt=0.0, description="ROTI standard-deviation window."
+    )
+    hatch_window_s: float = Field(
+        default=100.0, gt=0.0, description="Hatch smoothing window of the iono-free code."
+    )
+    max_gap_s: float = Field(
+        default=15.0, gt=0.0, description="A data gap longer than this starts a new arc."
+    )
+    #: Frequency pairs per system in order of preference, as "band1-band2" RINEX codes; an
+    #: attribute "x" matches any tracking mode of that band.
+    pairs: dict[str, list[str]] = Field(
+        default_factory=lambda: {
+            "G": ["1C-2W", "1C-2L", "1C-2S", "1C-2X", "1C-5Q", "1C-5X"],
+            "J": ["1C-2L", "1C-2X", "1C-5Q", "1C-5X"],
+            "E": ["1C-5Q", "1C-5X", "1B-5Q", "1X-5X", "1C-7Q", "1X-7X", "1B-7I"],
+            "C": ["2I-6I", "2I-7I", "1P-5P", "1X-5X"],
+            "R": ["1C-2C", "1C-2P", "1P-2P"],
+        }
+    )
+    #: Satellite differential code biases overriding the broadcast group delays, ns, by satellite
+    #: ("G07") and pair ("1C-2W").
+    satellite_dcb_ns: dict[str, dict[str, float]] = Field(default_factory=dict)

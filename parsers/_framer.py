@@ -1,0 +1,295 @@
+"""Sans-IO framer for one receiver byte stream that interleaves NMEA 0183, RTCM 3 and vendor binary.
+
+``Framer.feed(data)`` takes bytes in arbitrary chunks and returns the complete, checked frames found
+so far: :class:`RtcmFrame` (RTCM 10403.3 §4 transport layer: 0xD3, 6 reserved zero bits, 10-bit
+length, message, CRC-24Q) and :class:`NmeaFrame` (NMEA 0183 §5.3: ``$`` or ``!``, printable ASCII,
+``*hh`` XOR checksum, CR LF). Everything else (u-blox UBX, other vendor binary, line noise) is skipped
+and counted. ``feed(b"")`` marks the end of the stream.
+
+Resynchronisation: a candidate that fails (reserved bits set, CRC or checksum mismatch, malformed
+sentence) is abandoned by ONE byte, never by its claimed length, so a false 0xD3 inside NMEA or binary
+cannot swallow the next real frame. The scanner keeps its position between calls: bytes already
+searched are not searched again while more data is awaited.
+"""
+
+from __future__ import annotations
+
+import enum
+import re
+from dataclasses import dataclass, field
+from types import MappingProxyType
+from typing import Final
+
+import numpy as np
+import numpy.typing as npt
+
+from ._errors import ParseError
+
+__all__ = [
+    "MAX_INCOMPLETE_FRAME",
+    "MAX_NMEA_SENTENCE",
+    "NEED_DATA",
+    "Frame",
+    "Framer",
+    "FramerStatistics",
+    "NeedData",
+    "NmeaFrame",
+    "RtcmFrame",
+    "crc24q_fast",
+]
+
+_PREAMBLE: Final = 0xD3
+#: RTCM 10403.3 Table 4-1: 3 header bytes + at most 1023 message bytes + 3 CRC bytes.
+_RTCM_MAX_FRAME: Final = 3 + 1023 + 3
+#: NMEA 0183 §5.3 caps a sentence at 82 characters; vendor sentences (Unicore "H" variants, PUBX)
+#: run longer, so we accept up to 255 before declaring the candidate malformed.
+MAX_NMEA_SENTENCE: Final = 255
+#: Largest incomplete frame the framer ever holds while waiting for more bytes: the RTCM 3 maximum
+#: frame (RTCM 10403.3 Table 4-1, 1029 bytes), which also covers the longest NMEA sentence we accept.
+MAX_INCOMPLETE_FRAME: Final = _RTCM_MAX_FRAME
+
+
+class NeedData(enum.Enum):
+    """Sentinel type: the buffer holds no complete frame yet (STYLE rule 4)."""
+
+    NEED_DATA = "NEED_DATA"
+
+
+NEED_DATA: Final = NeedData.NEED_DATA
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class RtcmFrame:
+    """One CRC-checked RTCM 3 message: ``payload`` excludes preamble, length and CRC."""
+
+    msg_type: int
+    payload: bytes
+    #: Byte offset of the 0xD3 preamble in the stream.
+    offset: int
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class NmeaFrame:
+    """One checksum-verified NMEA 0183 sentence, ``$`` … ``*hh`` plus the line ending as received."""
+
+    raw: bytes
+    #: Byte offset of the ``$``/``!`` in the stream.
+    offset: int
+
+
+Frame = RtcmFrame | NmeaFrame
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class FramerStatistics:
+    """Counters since the framer was created (all totals, never reset)."""
+
+    rtcm_frames: int = 0
+    nmea_frames: int = 0
+    #: RTCM frames by message number.
+    rtcm_by_type: MappingProxyType[int, int] = field(
+        default_factory=lambda: MappingProxyType({})
+    )
+    #: Empty RTCM frames (length 0: the caster keep-alive ``D3 00 00 47 EA 4B``).
+    rtcm_empty_frames: int = 0
+    crc_failures: int = 0
+    nmea_checksum_failures: int = 0
+    #: Candidates that were still incomplete when the stream ended.
+    truncated_at_eof: int = 0
+    #: Bytes that were not part of any good frame (vendor binary, garbage, failed candidates).
+    bytes_discarded: int = 0
+    bytes_total: int = 0
+
+
+# --- CRC-24Q, vectorised -------------------------------------------------------------------------
+# CRC-24Q (RTCM 10403.3 §4.2, polynomial 0x1864CFB, initial value 0, no final XOR) is linear over
+# GF(2), so the CRC of a message is the XOR of each byte's contribution, and a byte's contribution
+# depends only on its value and on how many bytes follow it. _CRC_TAB[k, v] is the CRC of byte v
+# followed by k zero bytes; one gather plus one XOR-reduce then checks a whole frame.
+_POLY: Final = 0x1864CFB
+
+
+def _crc_tables() -> npt.NDArray[np.uint32]:
+    base = np.zeros(256, np.uint32)
+    for i in range(256):
+        crc = i << 16
+        for _ in range(8):
+            crc <<= 1
+            if crc & 0x1000000:
+                crc ^= _POLY
+        base[i] = crc & 0xFFFFFF
+    tab = np.empty((_RTCM_MAX_FRAME, 256), np.uint32)
+    tab[0] = base
+    for k in range(1, _RTCM_MAX_FRAME):
+        prev = tab[k - 1]
+        tab[k] = ((prev << 8) & 0xFFFFFF) ^ base[prev >> 16]
+    return tab
+
+
+_CRC_TAB = _crc_tables()
+_CRC_FLAT = _CRC_TAB.ravel()
+# _CRC_ROW[_RTCM_MAX_FRAME - n:] gives (n-1-i)*256 for i = 0…n-1: the row of byte i in an n-byte run.
+_CRC_ROW = (np.arange(_RTCM_MAX_FRAME - 1, -1, -1, dtype=np.intp) * 256).astype(np.intp)
+
+
+def crc24q_fast(data: bytes | bytearray | memoryview) -> int:
+    """CRC-24Q of up to 1029 bytes (equal to ``_crc.crc24q``; a whole frame with its CRC gives 0)."""
+    n = len(data)
+    if n == 0:
+        return 0
+    if n > _RTCM_MAX_FRAME:
+        raise ValueError(f"crc24q_fast handles at most {_RTCM_MAX_FRAME} bytes, got {n}")
+    idx = _CRC_ROW[_RTCM_MAX_FRAME - n :] + np.frombuffer(data, np.uint8)
+    return int(np.bitwise_xor.reduce(_CRC_FLAT[idx]))
+
+
+# NMEA 0183 §5.3: a sentence is printable ASCII (0x20–0x7E) between the start character and CR LF.
+_SYNC = re.compile(rb"[\xd3$!]")
+_PRINTABLE_RUN = re.compile(rb"[\x20-\x7e]{0,%d}" % MAX_NMEA_SENTENCE)
+_HEX = frozenset(b"0123456789ABCDEFabcdef")
+
+
+def _nmea_checksum(body: bytes | bytearray) -> int:
+    """XOR of every byte between the start character and ``*`` (NMEA 0183 §5.3.1)."""
+    return int(np.bitwise_xor.reduce(np.frombuffer(body, np.uint8))) if body else 0
+
+
+class Framer:
+    """Splits one byte stream into RTCM 3 and NMEA 0183 frames; see the module docstring."""
+
+    __slots__ = (
+        "_base",
+        "_buf",
+        "_by_type",
+        "_counts",
+        "_eof",
+        "_pos",
+    )
+
+    def __init__(self) -> None:
+        self._buf = bytearray()
+        self._pos = 0  # next index of _buf to scan; everything before it is consumed
+        self._base = 0  # stream offset of _buf[0]
+        self._eof = False
+        self._by_type: dict[int, int] = {}
+        # rtcm, nmea, empty, crc_fail, nmea_fail, truncated, discarded, total
+        self._counts = [0, 0, 0, 0, 0, 0, 0, 0]
+
+    def feed(self, data: bytes | bytearray | memoryview) -> list[Frame]:
+        """Add bytes and return every complete frame they finish; ``b""`` ends the stream."""
+        if self._eof:
+            raise ParseError("data fed after end of stream", offset=self._base + len(self._buf))
+        if not data:
+            self._eof = True
+        else:
+            self._buf += data
+            self._counts[7] += len(data)
+        frames: list[Frame] = []
+        while True:
+            frame = self._next_frame()
+            if frame is NEED_DATA:
+                break
+            frames.append(frame)
+        # Drop consumed bytes; what remains is one incomplete candidate (≤ MAX_INCOMPLETE_FRAME).
+        if self._pos:
+            del self._buf[: self._pos]
+            self._base += self._pos
+            self._pos = 0
+        return frames
+
+    def statistics(self) -> FramerStatistics:
+        c = self._counts
+        return FramerStatistics(
+            rtcm_frames=c[0],
+            nmea_frames=c[1],
+            rtcm_by_type=MappingProxyType(dict(self._by_type)),
+            rtcm_empty_frames=c[2],
+            crc_failures=c[3],
+            nmea_checksum_failures=c[4],
+            truncated_at_eof=c[5],
+            bytes_discarded=c[6],
+            bytes_total=c[7],
+        )
+
+    def _skip(self, n: int) -> None:
+        self._pos += n
+        self._counts[6] += n
+
+    def _incomplete(self) -> NeedData | None:
+        """Wait for more data, or at end of stream abandon the candidate by one byte."""
+        if not self._eof:
+            return NEED_DATA
+        self._counts[5] += 1
+        self._skip(1)
+        return None
+
+    def _next_frame(self) -> Frame | NeedData:
+        buf = self._buf
+        while True:
+            m = _SYNC.search(buf, self._pos)
+            if m is None:
+                self._skip(len(buf) - self._pos)
+                return NEED_DATA
+            i = m.start()
+            if i > self._pos:
+                self._skip(i - self._pos)
+            if buf[i] == _PREAMBLE:
+                frame = self._rtcm_at(i)
+            else:
+                frame = self._nmea_at(i)
+            if frame is not None:
+                return frame
+
+    def _rtcm_at(self, i: int) -> RtcmFrame | NeedData | None:
+        buf = self._buf
+        avail = len(buf) - i
+        if avail < 3:
+            return self._incomplete()
+        # RTCM 10403.3 Table 4-1: 6 reserved bits (zero) then the 10-bit message length.
+        if buf[i + 1] & 0xFC:
+            self._skip(1)
+            return None
+        length = ((buf[i + 1] & 0x03) << 8) | buf[i + 2]
+        end = i + 6 + length
+        if len(buf) < end:
+            return self._incomplete()
+        if crc24q_fast(memoryview(buf)[i:end]) != 0:
+            self._counts[3] += 1
+            self._skip(1)  # resync by one byte, never by the claimed length
+            return None
+        self._pos = end
+        if length < 2:  # no room for the 12-bit message number (DF002)
+            self._counts[2] += 1
+            return None
+        payload = bytes(buf[i + 3 : end - 3])
+        msg_type = (payload[0] << 4) | (payload[1] >> 4)
+        self._counts[0] += 1
+        self._by_type[msg_type] = self._by_type.get(msg_type, 0) + 1
+        return RtcmFrame(msg_type=msg_type, payload=payload, offset=self._base + i)
+
+    def _nmea_at(self, i: int) -> NmeaFrame | NeedData | None:
+        buf = self._buf
+        run = _PRINTABLE_RUN.match(buf, i + 1)
+        assert run is not None  # {0,N} always matches
+        e = run.end()
+        if e == len(buf) or (e == len(buf) - 1 and buf[e] == 0x0D):
+            if e - i <= MAX_NMEA_SENTENCE:
+                return self._incomplete()
+        # NMEA 0183 §5.3: "*hh" then CR LF (a bare LF is accepted: some loggers strip the CR).
+        if buf[e : e + 2] == b"\r\n":
+            end = e + 2
+        elif buf[e : e + 1] == b"\n":
+            end = e + 1
+        else:
+            self._skip(1)
+            return None
+        if e - i < 4 or buf[e - 3] != 0x2A or buf[e - 2] not in _HEX or buf[e - 1] not in _HEX:
+            self._skip(1)
+            return None
+        if _nmea_checksum(buf[i + 1 : e - 3]) != int(buf[e - 2 : e], 16):
+            self._counts[4] += 1
+            self._skip(1)
+            return None
+        self._pos = end
+        self._counts[1] += 1
+        return NmeaFrame(raw=bytes(buf[i:end]), offset=self._base + i)

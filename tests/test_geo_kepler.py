@@ -1,0 +1,195 @@
+"""Keplerian broadcast orbits against an independent scalar IS-GPS-200 implementation and real data."""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import warnings
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from ionwarden.daemon.geo import KeplerBatch, kepler_state, sagnac_rotate
+from ionwarden.parsers import KeplerEphemeris, sat_id
+
+NAV = "rinex/brdc0010.19n"
+OBS = "rinex/P43300USA_R_20190012056_17M_15S_MO.rnx"
+WEEK_S = 604800.0
+C = 299792458.0
+
+
+def _load_nav(real_data: Path) -> list[KeplerEphemeris]:
+    """Every GPS record of the brdc file as KeplerEphemeris (georinex as the loader)."""
+    import georinex as gr
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        nav = gr.load(real_data / NAV)
+    out = []
+    for sv in nav.sv.values:
+        d = nav.sel(sv=sv).dropna("time", how="all")
+        for i in range(d.time.size):
+            r = d.isel(time=i)
+            t = np.datetime64(r.time.values, "s").astype(object)
+            toc = (t.weekday() + 1) % 7 * 86400 + t.hour * 3600 + t.minute * 60 + t.second
+            out.append(
+                KeplerEphemeris(
+                    sat=sat_id("G", int(sv[1:])),
+                    week=int(r.GPSWeek),
+                    toe_s=float(r.Toe),
+                    toc_s=float(toc),
+                    sqrt_a=float(r.sqrtA),
+                    e=float(r.Eccentricity),
+                    i0=float(r.Io),
+                    omega0=float(r.Omega0),
+                    omega=float(r.omega),
+                    m0=float(r.M0),
+                    delta_n=float(r.DeltaN),
+                    idot=float(r.IDOT),
+                    omega_dot=float(r.OmegaDot),
+                    cuc=float(r.Cuc),
+                    cus=float(r.Cus),
+                    crc=float(r.Crc),
+                    crs=float(r.Crs),
+                    cic=float(r.Cic),
+                    cis=float(r.Cis),
+                    af0=float(r.SVclockBias),
+                    af1=float(r.SVclockDrift),
+                    af2=float(r.SVclockDriftRate),
+                    iode=int(r.IODE),
+                    iodc=int(r.IODC),
+                    tgd_s=(float(r.TGD), math.nan),
+                    health=int(r.health),
+                    fit_interval_h=float(r.FitIntvl),
+                    accuracy_m=float(r.SVacc),
+                    source="RINEX",
+                )
+            )
+    return out
+
+
+@pytest.fixture(scope="module")
+def nav(real_data: Path) -> list[KeplerEphemeris]:
+    return _load_nav(real_data)
+
+
+def scalar_gps(eph: KeplerEphemeris, t: float, mu: float = 3.986005e14, we: float = 7.2921151467e-5):
+    """Straight transcription of IS-GPS-200 Table 20-IV for one satellite (reference, not fast)."""
+    a = eph.sqrt_a**2
+    n = math.sqrt(mu / a**3) + eph.delta_n
+    tk = t - (eph.week * WEEK_S + eph.toe_s)
+    if tk > 302400:
+        tk -= WEEK_S
+    elif tk < -302400:
+        tk += WEEK_S
+    mk = eph.m0 + n * tk
+    ek = mk
+    for _ in range(30):
+        ek = mk + eph.e * math.sin(ek)
+    nu = math.atan2(math.sqrt(1 - eph.e**2) * math.sin(ek), math.cos(ek) - eph.e)
+    phi = nu + eph.omega
+    du = eph.cus * math.sin(2 * phi) + eph.cuc * math.cos(2 * phi)
+    dr = eph.crs * math.sin(2 * phi) + eph.crc * math.cos(2 * phi)
+    di = eph.cis * math.sin(2 * phi) + eph.cic * math.cos(2 * phi)
+    u = phi + du
+    r = a * (1 - eph.e * math.cos(ek)) + dr
+    i = eph.i0 + di + eph.idot * tk
+    xp, yp = r * math.cos(u), r * math.sin(u)
+    om = eph.omega0 + (eph.omega_dot - we) * tk - we * eph.toe_s
+    x = xp * math.cos(om) - yp * math.cos(i) * math.sin(om)
+    y = xp * math.sin(om) + yp * math.cos(i) * math.cos(om)
+    z = yp * math.sin(i)
+    dt = t - (eph.week * WEEK_S + eph.toc_s)
+    f = -2 * math.sqrt(mu) / C**2  # IS-GPS-200 §20.3.3.3.3.1
+    clk = eph.af0 + eph.af1 * dt + eph.af2 * dt**2 + f * eph.e * eph.sqrt_a * math.sin(ek)
+    return np.array([x, y, z]), clk
+
+
+def test_kepler_state_matches_scalar_table_20_iv(nav):
+    """kepler_state equals a scalar IS-GPS-200 Table 20-IV transcription for every brdc record."""
+    # Source: brdc0010.19n (real), reference = scalar_gps above (IS-GPS-200 Table 20-IV).
+    batch = KeplerBatch.from_ephemerides(nav)
+    toe = np.array([e.week * WEEK_S + e.toe_s for e in nav])
+    for offset in (-7000.0, 0.0, 3600.0, 7100.0):
+        pos, _, clk = kepler_state(batch, toe + offset)
+        for k, eph in enumerate(nav):
+            ref_pos, ref_clk = scalar_gps(eph, float(toe[k] + offset))
+            np.testing.assert_allclose(pos[k], ref_pos, rtol=0, atol=1e-6)
+            assert clk[k] == pytest.approx(ref_clk, abs=1e-15)
+
+
+def test_kepler_state_velocity_is_position_derivative(nav):
+    """kepler_state velocity equals the central difference of its positions when t varies."""
+    # Source: self-consistency (common practice), brdc0010.19n.
+    batch = KeplerBatch.from_ephemerides(nav)
+    t = np.array([e.week * WEEK_S + e.toe_s for e in nav]) + 1234.5
+    pos_p, _, _ = kepler_state(batch, t + 0.5)
+    pos_m, _, _ = kepler_state(batch, t - 0.5)
+    _, vel, _ = kepler_state(batch, t)
+    np.testing.assert_allclose(vel, pos_p - pos_m, rtol=0, atol=1e-4)
+
+
+def test_kepler_state_week_crossover_folds_half_week(nav):
+    """kepler_state gives the same result when toe is labelled one week off (t − toe folded)."""
+    # Source: IS-GPS-200 Table 20-IV (t_k folded into ±302400 s).
+    eph = nav[0]
+    shifted = dataclasses.replace(eph, week=eph.week + 1)
+    t = eph.week * WEEK_S + eph.toe_s + 600.0
+    a = kepler_state(KeplerBatch.from_ephemerides([eph]), t)
+    b = kepler_state(KeplerBatch.from_ephemerides([shifted]), t)
+    for x, y in zip(a, b, strict=True):
+        np.testing.assert_array_equal(x, y)
+
+
+def test_kepler_state_gps_orbit_radius_and_speed_are_physical(nav):
+    """kepler_state puts GPS satellites at 26,560 km ± 2.5% moving ~3.9 km/s inertial."""
+    # Source: IS-GPS-200 §3.3 nominal orbit (semi-major axis 26,559.7 km, from memory).
+    batch = KeplerBatch.from_ephemerides(nav)
+    t = np.array([e.week * WEEK_S + e.toe_s for e in nav])
+    pos, vel, _ = kepler_state(batch, t)
+    r = np.linalg.norm(pos, axis=1)
+    assert np.all(np.abs(r / 26_560e3 - 1) < 0.025)  # e ≤ 0.02 in this file
+    inertial = vel + np.cross([0.0, 0.0, 7.2921151467e-5], pos)
+    assert np.all(np.abs(np.linalg.norm(inertial, axis=1) / 3874.0 - 1) < 0.03)
+
+
+def test_kepler_state_range_residuals_match_p433_pseudoranges(nav, real_data):
+    """Broadcast orbit + clock ranges agree with P433 C1C up to a common receiver clock (< 10 m)."""
+    # Source: P43300USA_R_20190012056_17M_15S_MO.rnx (header approx position) + brdc0010.19n.
+    import georinex as gr
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        obs = gr.load(real_data / OBS, meas=["C1C"], use="G")
+    rx = np.array(obs.attrs["position"])
+    by_sat: dict[int, list[KeplerEphemeris]] = {}
+    for e in nav:
+        by_sat.setdefault(e.sat, []).append(e)
+    t0 = np.datetime64("1980-01-06T00:00:00")
+    scatter = []
+    for ti in range(obs.time.size):
+        row = obs.C1C.isel(time=ti)
+        t = float((row.time.values - t0) / np.timedelta64(1, "s"))  # GPS time (file is GPS)
+        ok = np.isfinite(row.values)
+        svs = [sat_id("G", int(s[1:])) for s in row.sv.values[ok]]
+        pr = row.values[ok]
+        ephs = [
+            min(by_sat[s], key=lambda e, t=t: abs(e.week * WEEK_S + e.toe_s - t)) for s in svs
+        ]
+        batch = KeplerBatch.from_ephemerides(ephs)
+        t_tx = t - pr / C
+        for _ in range(2):
+            pos, _, clk = kepler_state(batch, t_tx)
+            t_tx = t - pr / C - clk
+        pos, _, clk = kepler_state(batch, t_tx)
+        rho = np.linalg.norm(sagnac_rotate(pos, t - t_tx) - rx, axis=1)
+        # T_GD (IS-GPS-200 §20.3.3.3.3.2) applies to L1 C/A: Δt_sv(L1) = Δt_sv − T_GD.
+        tgd = np.array([e.tgd_s[0] for e in ephs])
+        res = pr - (rho - C * (clk - tgd))
+        res -= np.median(res)
+        scatter.append(res)
+    allres = np.concatenate(scatter)
+    # Remaining: troposphere + ionosphere (elevation-dependent, metres), multipath, orbit errors.
+    print("P433 C1C residual scatter (m):", np.std(allres), np.abs(allres).max())
+    assert np.std(allres) < 10.0
