@@ -393,8 +393,8 @@ def decode_1019(body: bytes, ctx: DecodeContext) -> KeplerEphemeris:
     """GPS ephemeris (RTCM 10403.3 Table 3.5-21)."""
     v = read_fields(body, LAYOUT_1019, 1019)
     prn = int(v["prn"])
-    if not 1 <= prn <= 32:
-        raise ParseError(f"DF009 GPS satellite id {prn} out of range 1…32", message_id=1019)
+    if prn == 0:
+        raise ParseError("DF009 GPS satellite id 0 is not a satellite", message_id=1019)
     return _kepler(
         v,
         sat=prn,
@@ -411,8 +411,8 @@ def decode_1044(body: bytes, ctx: DecodeContext) -> KeplerEphemeris:
     """QZSS ephemeris (RTCM 10403.3 QZSS table; IS-QZSS-PNT). Satellite id 1…10 → J01…J10."""
     v = read_fields(body, LAYOUT_1044, 1044)
     prn = int(v["prn"])
-    if not 1 <= prn <= 10:
-        raise ParseError(f"DF429 QZSS satellite id {prn} out of range 1…10", message_id=1044)
+    if prn == 0:
+        raise ParseError("DF429 QZSS satellite id 0 is not a satellite", message_id=1044)
     return _kepler(
         v,
         sat=400 + prn,
@@ -430,8 +430,8 @@ def decode_1042(body: bytes, ctx: DecodeContext) -> KeplerEphemeris:
     """BeiDou ephemeris; week → GPS week (BDT week + 1356), toe/toc stay BDT seconds."""
     v = read_fields(body, LAYOUT_1042, 1042)
     prn = int(v["prn"])
-    if not 1 <= prn <= 63:
-        raise ParseError(f"DF488 BDS satellite id {prn} out of range 1…63", message_id=1042)
+    if prn == 0:
+        raise ParseError("DF488 BDS satellite id 0 is not a satellite", message_id=1042)
     week = BDT_WEEK_OFFSET + int(v["week"])
     week = _adjust_to_toe(week, v["toe"] + BDS_GPS_OFFSET_S, ctx.reference_time)
     return _kepler(
@@ -448,8 +448,8 @@ def decode_1042(body: bytes, ctx: DecodeContext) -> KeplerEphemeris:
 
 def _galileo(v: dict[str, float], ctx: DecodeContext, msg: int, health: int) -> KeplerEphemeris:
     prn = int(v["prn"])
-    if not 1 <= prn <= 36:
-        raise ParseError(f"DF252 Galileo satellite id {prn} out of range 1…36", message_id=msg)
+    if prn == 0:  # ids above 36 occur (test/spare satellites in RTK134): decoded, not judged
+        raise ParseError("DF252 Galileo satellite id 0 is not a satellite", message_id=msg)
     week = _adjust_to_toe(GST_WEEK_OFFSET + int(v["week"]), v["toe"], ctx.reference_time)
     return _kepler(
         {**v, "iodc": v["iode"], "health": health},

@@ -62,7 +62,9 @@ class FileTransport:
 
 
 class _PipeTransport:
-    def __init__(self, reader: asyncio.StreamReader, transport: asyncio.ReadTransport, *, what: str):
+    def __init__(
+        self, reader: asyncio.StreamReader, transport: asyncio.ReadTransport, *, what: str
+    ):
         self._reader = reader
         self._transport = transport
         self._what = what

@@ -15,7 +15,6 @@ from __future__ import annotations
 import asyncio
 import base64
 import math
-from collections.abc import Callable
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from typing import TYPE_CHECKING, Self
@@ -26,6 +25,8 @@ from ._net import TcpTransport
 from ._transport import SourceRejectedError, SourceUnavailableError
 
 if TYPE_CHECKING:
+    from collections.abc import Callable
+
     from ._source import NtripSource
 
 __all__ = ["ChunkedDecoder", "MountEntry", "NtripTransport", "fetch_sourcetable", "format_gga"]
@@ -145,14 +146,17 @@ async def _read_head(tcp: TcpTransport, what: str) -> _Response:
     while True:
         # NTRIP 1.0 data answers are "ICY 200 OK\r\n" then data, with no blank line (10410.1 Annex).
         if buf.startswith(b"ICY 200") and b"\r\n" in buf:
-            line, _, rest = buf.partition(b"\r\n")
-            rest = rest.removeprefix(b"\r\n")
-            return _Response(status=200, reason="OK", headers={}, sourcetable=False, chunked=False, rest=rest)
+            rest = buf.partition(b"\r\n")[2].removeprefix(b"\r\n")
+            return _Response(
+                status=200, reason="OK", headers={}, sourcetable=False, chunked=False, rest=rest
+            )
         end = buf.find(b"\r\n\r\n")
         if end >= 0:
             break
         if len(buf) > MAX_HEADER_BYTES:
-            raise SourceUnavailableError(f"{what}: response header longer than {MAX_HEADER_BYTES} bytes")
+            raise SourceUnavailableError(
+                f"{what}: response header longer than {MAX_HEADER_BYTES} bytes"
+            )
         data = await tcp.read(4096)
         if not data:
             raise SourceUnavailableError(f"{what}: caster closed the connection before answering")
@@ -166,13 +170,20 @@ async def _read_head(tcp: TcpTransport, what: str) -> _Response:
         status, reason, sourcetable = int(parts[1]), parts[2] if len(parts) > 2 else "", False
     else:
         raise SourceUnavailableError(f"{what}: not an NTRIP answer: {status_line[:60]!r}")
-    headers = {}
+    headers: dict[str, str] = {}
     for line in lines:
         key, _, value = line.partition(":")
         headers[key.strip().lower()] = value.strip()
     sourcetable = sourcetable or headers.get("content-type", "").startswith("gnss/sourcetable")
     chunked = "chunked" in headers.get("transfer-encoding", "").lower()
-    return _Response(status=status, reason=reason, headers=headers, sourcetable=sourcetable, chunked=chunked, rest=rest)
+    return _Response(
+        status=status,
+        reason=reason,
+        headers=headers,
+        sourcetable=sourcetable,
+        chunked=chunked,
+        rest=rest,
+    )
 
 
 def _check(resp: _Response, what: str, mount: str) -> None:
@@ -193,8 +204,15 @@ def _check(resp: _Response, what: str, mount: str) -> None:
 class NtripTransport:
     """The data stream of one mountpoint."""
 
-    def __init__(self, tcp: TcpTransport, resp: _Response, spec: NtripSource, *, what: str,
-                 utc_now: Callable[[], datetime]):
+    def __init__(
+        self,
+        tcp: TcpTransport,
+        resp: _Response,
+        spec: NtripSource,
+        *,
+        what: str,
+        utc_now: Callable[[], datetime],
+    ):
         self._tcp = tcp
         self._spec = spec
         self._what = what
@@ -205,12 +223,20 @@ class NtripTransport:
         self.gga_sent = 0
 
     @classmethod
-    async def connect(cls, spec: NtripSource, *, password: str = "", timeout_s: float = 10.0,
-                      utc_now: Callable[[], datetime] | None = None) -> Self:
+    async def connect(
+        cls,
+        spec: NtripSource,
+        *,
+        password: str = "",
+        timeout_s: float = 10.0,
+        utc_now: Callable[[], datetime] | None = None,
+    ) -> Self:
         what = f"ntrip://{spec.host}:{spec.port}/{spec.mount}"
         tcp = await TcpTransport.connect(spec.host, spec.port, timeout_s=timeout_s)
         try:
-            req = _request(spec.host, spec.mount, version=spec.version, user=spec.user, password=password)
+            req = _request(
+                spec.host, spec.mount, version=spec.version, user=spec.user, password=password
+            )
             await tcp.write(req)
             async with asyncio.timeout(timeout_s):
                 resp = await _read_head(tcp, what)
@@ -224,7 +250,9 @@ class NtripTransport:
         return self
 
     async def _send_gga(self) -> None:
-        gga = format_gga(self._spec.lat_deg, self._spec.lon_deg, self._spec.height_m, self._utc_now())
+        gga = format_gga(
+            self._spec.lat_deg, self._spec.lon_deg, self._spec.height_m, self._utc_now()
+        )
         await self._tcp.write(gga)
         self.gga_sent += 1
         self._next_gga = asyncio.get_running_loop().time() + self._spec.gga_interval_s
@@ -250,9 +278,7 @@ class NtripTransport:
                 return b""
             raw = await self._raw(max_bytes)
             if not raw:
-                if not self._chunks.done:
-                    raise SourceUnavailableError(f"{self._what}: stream cut inside a chunk")
-                return b""
+                raise SourceUnavailableError(f"{self._what}: stream cut before the last chunk")
             data = self._chunks.feed(raw)
             if data:
                 return data
@@ -291,8 +317,15 @@ def parse_sourcetable(text: str) -> list[MountEntry]:
     return out
 
 
-async def fetch_sourcetable(host: str, port: int = 2101, *, user: str = "", password: str = "",
-                            version: int = 2, timeout_s: float = 10.0) -> list[MountEntry]:
+async def fetch_sourcetable(
+    host: str,
+    port: int = 2101,
+    *,
+    user: str = "",
+    password: str = "",
+    version: int = 2,
+    timeout_s: float = 10.0,
+) -> list[MountEntry]:
     """Ask the caster for its sourcetable (``GET /``) and parse its mount records."""
     what = f"ntrip://{host}:{port}/"
     tcp = await TcpTransport.connect(host, port, timeout_s=timeout_s)
@@ -311,7 +344,9 @@ async def fetch_sourcetable(host: str, port: int = 2101, *, user: str = "", pass
                     break
                 body += dechunk.feed(data) if dechunk is not None else data
                 if len(body) > MAX_SOURCETABLE_BYTES:
-                    raise TransportError(f"{what}: sourcetable larger than {MAX_SOURCETABLE_BYTES} bytes")
+                    raise TransportError(
+                        f"{what}: sourcetable larger than {MAX_SOURCETABLE_BYTES} bytes"
+                    )
     finally:
         await tcp.aclose()
     return parse_sourcetable(body.decode("latin-1"))

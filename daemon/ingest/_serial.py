@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import asyncio
 import logging
-from collections.abc import Iterator
 from contextlib import contextmanager
 from typing import TYPE_CHECKING, Self
 
@@ -23,6 +22,8 @@ from ._net import TcpTransport
 from ._transport import SourceUnavailableError, map_transport_errors
 
 if TYPE_CHECKING:
+    from collections.abc import Iterator
+
     from ._source import SerialSource
 
 __all__ = ["SerialTransport"]
@@ -67,7 +68,9 @@ class SerialTransport:
                 rtscts=spec.flow == "rtscts",
                 xonxoff=spec.flow == "xonxoff",
             )
-        log.info("%s: open at %d baud %d%s%g", what, spec.baud, spec.bytesize, spec.parity, spec.stopbits)
+        log.info(
+            "%s: open at %d baud %d%s%g", what, spec.baud, spec.bytesize, spec.parity, spec.stopbits
+        )
         return cls(TcpTransport(reader, writer, what=what), what=what)
 
     async def read(self, max_bytes: int) -> bytes:

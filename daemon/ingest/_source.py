@@ -113,7 +113,9 @@ def _query(query: str, allowed: set[str], url: str) -> dict[str, str]:
     params = dict(parse_qsl(query, keep_blank_values=True))
     unknown = sorted(set(params) - allowed)
     if unknown:
-        raise _bad(f"unknown option {unknown[0]!r} in {url!r} (allowed: {', '.join(sorted(allowed))})")
+        raise _bad(
+            f"unknown option {unknown[0]!r} in {url!r} (allowed: {', '.join(sorted(allowed))})"
+        )
     return params
 
 
@@ -182,13 +184,18 @@ def parse_source(url: str) -> SourceSpec:
     if scheme in {"tcp", "tcp-listen", "udp"}:
         _query(parts.query, set(), url)
         host, port = _host_port(url, None)
-        cls = {"tcp": TcpSource, "tcp-listen": TcpListenSource, "udp": UdpSource}[scheme]
-        return cls(host=host, port=port)
+        if scheme == "tcp":
+            return TcpSource(host=host, port=port)
+        if scheme == "udp":
+            return UdpSource(host=host, port=port)
+        return TcpListenSource(host=host, port=port)
     if scheme == "ntrip":
         params = _query(parts.query, {"version", "gga_interval", "lat", "lon", "height"}, url)
         host, port = _host_port(url, 2101)
         if parts.password is not None:
-            raise _bad("put the NTRIP password in a secret (config or systemd credential), not the URL")
+            raise _bad(
+                "put the NTRIP password in a secret (config or systemd credential), not the URL"
+            )
         mount = unquote(parts.path.lstrip("/"))
         if not mount or "/" in mount:
             raise _bad(f"ntrip needs one mountpoint, e.g. ntrip://user@caster:2101/MOUNT: {url!r}")

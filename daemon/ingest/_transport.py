@@ -13,11 +13,13 @@ exactly ``TransportError`` (and nothing else) after a backoff delay.
 from __future__ import annotations
 
 import errno
-from collections.abc import Iterable, Iterator
 from contextlib import contextmanager
-from typing import Protocol, runtime_checkable
+from typing import TYPE_CHECKING, Protocol, runtime_checkable
 
 from ionwarden.daemon.errors import TransportError
+
+if TYPE_CHECKING:
+    from collections.abc import Iterable, Iterator
 
 __all__ = [
     "TRANSIENT_ERRNOS",

@@ -7,7 +7,10 @@ logs it, and waits on the event loop's clock. Tests drive it with a seeded ``ran
 from __future__ import annotations
 
 import random
-from collections.abc import Iterator
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    from collections.abc import Iterator
 
 __all__ = ["BACKOFF_CAP_S", "BACKOFF_INITIAL_S", "backoff_delays", "max_delay_s"]
 
@@ -42,7 +45,12 @@ def backoff_delays(
         base = min(cap_s, base * factor)
 
 
-def max_delay_s(attempt: int, *, initial_s: float = BACKOFF_INITIAL_S, cap_s: float = BACKOFF_CAP_S,
-                factor: float = 2.0) -> float:
+def max_delay_s(
+    attempt: int,
+    *,
+    initial_s: float = BACKOFF_INITIAL_S,
+    cap_s: float = BACKOFF_CAP_S,
+    factor: float = 2.0,
+) -> float:
     """Upper bound of the delay before reconnect attempt ``attempt`` (0-based), without jitter."""
     return min(cap_s, initial_s * factor ** max(0, attempt))
