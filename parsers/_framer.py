@@ -87,10 +87,8 @@ class FramerStatistics:
     rtcm_frames: int = 0
     nmea_frames: int = 0
     #: RTCM frames by message number.
-    rtcm_by_type: MappingProxyType[int, int] = field(
-        default_factory=lambda: MappingProxyType({})
-    )
-    #: Empty RTCM frames (length 0: the caster keep-alive ``D3 00 00 47 EA 4B``).
+    rtcm_by_type: MappingProxyType[int, int] = field(default_factory=lambda: MappingProxyType({}))
+    #: Empty RTCM frames (length 0: the caster keep-alive ``D3 00 00 47 EA 4B``), 6 bytes each.
     rtcm_empty_frames: int = 0
     crc_failures: int = 0
     nmea_checksum_failures: int = 0
@@ -176,8 +174,13 @@ class Framer:
         self._counts = [0, 0, 0, 0, 0, 0, 0, 0]
 
     def feed(self, data: bytes | bytearray | memoryview) -> list[Frame]:
-        """Add bytes and return every complete frame they finish; ``b""`` ends the stream."""
+        """Add bytes and return every complete frame they finish; ``b""`` ends the stream.
+
+        Bytes fed after the end of the stream raise :class:`ParseError`.
+        """
         if self._eof:
+            if not data:  # repeated EOF is harmless
+                return []
             raise ParseError("data fed after end of stream", offset=self._base + len(self._buf))
         if not data:
             self._eof = True
@@ -233,10 +236,7 @@ class Framer:
             i = m.start()
             if i > self._pos:
                 self._skip(i - self._pos)
-            if buf[i] == _PREAMBLE:
-                frame = self._rtcm_at(i)
-            else:
-                frame = self._nmea_at(i)
+            frame = self._rtcm_at(i) if buf[i] == _PREAMBLE else self._nmea_at(i)
             if frame is not None:
                 return frame
 
@@ -257,10 +257,14 @@ class Framer:
             self._counts[3] += 1
             self._skip(1)  # resync by one byte, never by the claimed length
             return None
-        self._pos = end
-        if length < 2:  # no room for the 12-bit message number (DF002)
+        if length == 0:  # keep-alive: counted, not a message
+            self._pos = end
             self._counts[2] += 1
             return None
+        if length == 1:  # no room for the 12-bit message number (DF002): discard
+            self._skip(end - i)
+            return None
+        self._pos = end
         payload = bytes(buf[i + 3 : end - 3])
         msg_type = (payload[0] << 4) | (payload[1] >> 4)
         self._counts[0] += 1
@@ -272,9 +276,9 @@ class Framer:
         run = _PRINTABLE_RUN.match(buf, i + 1)
         assert run is not None  # {0,N} always matches
         e = run.end()
-        if e == len(buf) or (e == len(buf) - 1 and buf[e] == 0x0D):
-            if e - i <= MAX_NMEA_SENTENCE:
-                return self._incomplete()
+        at_end = e == len(buf) or (e == len(buf) - 1 and buf[e] == 0x0D)
+        if at_end and e - i <= MAX_NMEA_SENTENCE:
+            return self._incomplete()
         # NMEA 0183 §5.3: "*hh" then CR LF (a bare LF is accepted: some loggers strip the CR).
         if buf[e : e + 2] == b"\r\n":
             end = e + 2

@@ -1,19 +1,408 @@
-"""NMEA 0183 sentences (through pynmeagps) to typed, immutable values; GSV group assembly."""
+"""NMEA 0183 sentences to typed, immutable values, through pynmeagps; GSV group assembly.
+
+:func:`decode_sentence` takes one ``$...*hh`` sentence. It checks the checksum itself (NMEA 0183
+§5.2.1: XOR of the bytes between ``$`` and ``*``, two hex digits), so a bad checksum is a
+:class:`ParseError` that the framer counts. Sentences we use (GGA, RMC, GSA, GSV, GST, GNS, VTG, ZDA,
+and the Unicore high-precision ``…H`` variants that pynmeagps reads with the same fields) are parsed
+by ``pynmeagps.NMEAReader.parse``; every other sentence passes through raw as :class:`NmeaOther`
+without calling pynmeagps (it costs tens of µs per sentence). pynmeagps exceptions become
+:class:`ParseError` (``raise … from exc``).
+
+Units are in field names; absent numeric fields are NaN (floats) or ``None`` (integers, times).
+Satellite numbers become our satellite ids (``parsers._signals``) through :func:`nmea_sat_id`.
+"""
 
 from __future__ import annotations
 
-__all__ = ["GsvAssembler", "NmeaMessage", "decode_sentence"]
+import datetime as dt
+import math
+from dataclasses import dataclass
+from typing import Any
 
-NmeaMessage = object
+from pynmeagps import NMEAReader
+from pynmeagps import exceptions as nmea_exc
+from pynmeagps.nmeatypes_core import VALNONE
+
+from ._errors import ParseError
+from ._nmea_gsv import (
+    SYSTEM_ID,
+    TALKER_SYSTEM,
+    GsvAssembler,
+    GsvPart,
+    SatellitesInView,
+    nmea_sat_id,
+)
+
+__all__ = [
+    "GgaFix",
+    "GnsFix",
+    "GsaDop",
+    "GstErrors",
+    "GsvAssembler",
+    "GsvPart",
+    "NmeaMessage",
+    "NmeaOther",
+    "RmcFix",
+    "SatellitesInView",
+    "VtgVelocity",
+    "ZdaTime",
+    "decode_sentence",
+    "nmea_checksum",
+    "nmea_sat_id",
+]
+
+NAN = math.nan
+KNOT_MPS = 1852.0 / 3600.0  # international knot (NMEA 0183 speeds are in knots and km/h)
+#: Longest sentence we accept: NMEA 0183 §5.3 allows 82 characters; vendor variants (Unicore
+#: "H" sentences, PUBX) run longer, so allow a margin.
+MAX_SENTENCE_BYTES = 256
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class GgaFix:
+    """GGA: time, position and fix quality (NMEA 0183 §6.3 GGA)."""
+
+    talker: str
+    time_utc: dt.time | None
+    lat_deg: float
+    lon_deg: float
+    quality: int  # 0 invalid, 1 GPS, 2 DGPS, 4 RTK fixed, 5 RTK float, 6 dead reckoning
+    n_sats_used: int | None
+    hdop: float
+    alt_msl_m: float
+    geoid_sep_m: float
+    dgps_age_s: float
+    dgps_station: int | None
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class RmcFix:
+    """RMC: recommended minimum data (NMEA 0183 §6.3 RMC); speed converted from knots."""
+
+    talker: str
+    time_utc: dt.time | None
+    date_utc: dt.date | None
+    valid: bool  # status "A"
+    lat_deg: float
+    lon_deg: float
+    speed_mps: float
+    course_deg: float
+    mag_var_deg: float  # east positive
+    mode: str
+    nav_status: str
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class GsaDop:
+    """GSA: satellites used and DOPs (NMEA 0183 §6.3 GSA; ``system_id`` from NMEA 4.10+)."""
+
+    talker: str
+    selection: str  # "M" manual, "A" automatic 2D/3D
+    fix_type: int  # 1 none, 2 2D, 3 3D (0 if absent)
+    svids: tuple[int, ...]  # NMEA satellite numbers as sent
+    sats: tuple[int, ...]  # our satellite ids (numbers we cannot place are left out)
+    pdop: float
+    hdop: float
+    vdop: float
+    system_id: int | None
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class GstErrors:
+    """GST: pseudorange error statistics (NMEA 0183 §6.3 GST), 1σ in metres."""
+
+    talker: str
+    time_utc: dt.time | None
+    rms_m: float
+    major_m: float
+    minor_m: float
+    orient_deg: float
+    lat_sigma_m: float
+    lon_sigma_m: float
+    alt_sigma_m: float
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class GnsFix:
+    """GNS: multi-constellation fix (NMEA 0183 §6.3 GNS); ``mode`` has one letter per system."""
+
+    talker: str
+    time_utc: dt.time | None
+    lat_deg: float
+    lon_deg: float
+    mode: str
+    n_sats_used: int | None
+    hdop: float
+    alt_msl_m: float
+    geoid_sep_m: float
+    dgps_age_s: float
+    dgps_station: int | None
+    nav_status: str
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class VtgVelocity:
+    """VTG: course and speed over ground (NMEA 0183 §6.3 VTG); speed from knots (else km/h)."""
+
+    talker: str
+    course_true_deg: float
+    course_mag_deg: float
+    speed_mps: float
+    mode: str
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class ZdaTime:
+    """ZDA: UTC date and time with local zone (NMEA 0183 §6.3 ZDA)."""
+
+    talker: str
+    time_utc: dt.time | None
+    date_utc: dt.date | None
+    zone_hours: int | None
+    zone_minutes: int | None
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class NmeaOther:
+    """A valid sentence of a type we do not decode, passed through raw (checksum verified)."""
+
+    talker: str
+    sentence_id: str
+    raw: bytes
+
+
+NmeaMessage = (
+    GgaFix | RmcFix | GsaDop | GsvPart | GstErrors | GnsFix | VtgVelocity | ZdaTime | NmeaOther
+)
+
+# --- helpers over pynmeagps attribute values ("" when the field is empty) -----------------------
+
+
+def _f(v: Any) -> float:
+    return NAN if v == "" or v is None else float(v)
+
+
+def _i(v: Any) -> int | None:
+    return None if v == "" or v is None else int(v)
+
+
+def _t(v: Any) -> dt.time | None:
+    return v if isinstance(v, dt.time) else None
+
+
+def _d(v: Any) -> dt.date | None:
+    return v if isinstance(v, dt.date) else None
+
+
+def _s(v: Any) -> str:
+    return "" if v is None else str(v)
+
+
+# --- builders: pynmeagps message → our value --------------------------------------------------
+
+
+def _gga(t: str, m: Any) -> GgaFix:
+    return GgaFix(
+        talker=t,
+        time_utc=_t(m.time),
+        lat_deg=_f(m.lat),
+        lon_deg=_f(m.lon),
+        quality=_i(m.quality) or 0,
+        n_sats_used=_i(m.numSV),
+        hdop=_f(m.HDOP),
+        alt_msl_m=_f(m.alt),
+        geoid_sep_m=_f(m.sep),
+        dgps_age_s=_f(m.diffAge),
+        dgps_station=_i(m.diffStation),
+    )
+
+
+def _rmc(t: str, m: Any) -> RmcFix:
+    mv = _f(m.mv)
+    return RmcFix(
+        talker=t,
+        time_utc=_t(m.time),
+        date_utc=_d(m.date),
+        valid=m.status == "A",
+        lat_deg=_f(m.lat),
+        lon_deg=_f(m.lon),
+        speed_mps=_f(m.spd) * KNOT_MPS,
+        course_deg=_f(m.cog),
+        mag_var_deg=-mv if m.mvEW == "W" else mv,
+        mode=_s(m.posMode),
+        nav_status=_s(getattr(m, "navStatus", "")),
+    )
+
+
+def _gsa(t: str, m: Any) -> GsaDop:
+    d = m.__dict__
+    svids = tuple(int(v) for k in range(1, 13) if (v := d.get(f"svid_{k:02d}", "")) != "")
+    raw_id = d.get("systemId", "")  # NMEA 4.10+: one hex digit
+    sys_id = int(raw_id, 16) if raw_id != "" else None
+    system = SYSTEM_ID.get(sys_id) if sys_id is not None else TALKER_SYSTEM.get(t)
+    sats = tuple(s for n in svids if (s := nmea_sat_id(system, n)) is not None)
+    return GsaDop(
+        talker=t,
+        selection=_s(m.opMode),
+        fix_type=_i(m.navMode) or 0,
+        svids=svids,
+        sats=sats,
+        pdop=_f(m.PDOP),
+        hdop=_f(m.HDOP),
+        vdop=_f(m.VDOP),
+        system_id=sys_id,
+    )
+
+
+def _gsv(t: str, m: Any) -> GsvPart:
+    d = m.__dict__  # pynmeagps stores fields as instance attributes: one dict, no getattr chain
+    svids: list[int] = []
+    elv: list[float] = []
+    az: list[float] = []
+    cn0: list[float] = []
+    k = 1
+    while (sv := d.get(f"svid_{k:02d}")) is not None:
+        svids.append(int(sv) if sv != "" else 0)
+        elv.append(_f(d[f"elv_{k:02d}"]))
+        az.append(_f(d[f"az_{k:02d}"]))
+        cn0.append(_f(d[f"cno_{k:02d}"]))
+        k += 1
+    sig = d.get("signalID", "")
+    return GsvPart(
+        talker=t,
+        n_msgs=int(m.numMsg),
+        msg_num=int(m.msgNum),
+        n_in_view=_i(m.numSV) or 0,
+        signal_id=str(sig).upper() if sig != "" else None,
+        svids=tuple(svids),
+        elevation_deg=tuple(elv),
+        azimuth_deg=tuple(az),
+        cn0_dbhz=tuple(cn0),
+    )
+
+
+def _gst(t: str, m: Any) -> GstErrors:
+    return GstErrors(
+        talker=t,
+        time_utc=_t(m.time),
+        rms_m=_f(m.rangeRms),
+        major_m=_f(m.stdMajor),
+        minor_m=_f(m.stdMinor),
+        orient_deg=_f(m.orient),
+        lat_sigma_m=_f(m.stdLat),
+        lon_sigma_m=_f(m.stdLong),
+        alt_sigma_m=_f(m.stdAlt),
+    )
+
+
+def _gns(t: str, m: Any) -> GnsFix:
+    return GnsFix(
+        talker=t,
+        time_utc=_t(m.time),
+        lat_deg=_f(m.lat),
+        lon_deg=_f(m.lon),
+        mode=_s(m.posMode),
+        n_sats_used=_i(m.numSV),
+        hdop=_f(m.HDOP),
+        alt_msl_m=_f(m.alt),
+        geoid_sep_m=_f(m.sep),
+        dgps_age_s=_f(m.diffAge),
+        dgps_station=_i(m.diffStation),
+        nav_status=_s(getattr(m, "navStatus", "")),
+    )
+
+
+def _vtg(t: str, m: Any) -> VtgVelocity:
+    knots, kmh = _f(m.sogn), _f(m.sogk)
+    return VtgVelocity(
+        talker=t,
+        course_true_deg=_f(m.cogt),
+        course_mag_deg=_f(m.cogm),
+        speed_mps=knots * KNOT_MPS if not math.isnan(knots) else kmh / 3.6,
+        mode=_s(getattr(m, "posMode", "")),
+    )
+
+
+def _zda(t: str, m: Any) -> ZdaTime:
+    day, month, year = _i(m.day), _i(m.month), _i(m.year)
+    try:
+        date = dt.date(year, month, day) if day and month and year else None
+    except ValueError as exc:
+        raise ParseError(f"ZDA date {year}-{month}-{day} does not exist", message_id="ZDA") from exc
+    return ZdaTime(
+        talker=t,
+        time_utc=_t(m.time),
+        date_utc=date,
+        zone_hours=_i(m.ltzh),
+        zone_minutes=_i(m.ltzn),
+    )
+
+
+#: Sentence formatter → builder (NMEA 0183 §6.3); "…H" are Unicore high-precision variants with
+#: the same fields in pynmeagps.
+BUILDERS: dict[str, Any] = {
+    "GGA": _gga,
+    "RMC": _rmc,
+    "GSA": _gsa,
+    "GSV": _gsv,
+    "GST": _gst,
+    "GNS": _gns,
+    "VTG": _vtg,
+    "ZDA": _zda,
+}
+BUILDERS.update({k + "H": v for k, v in list(BUILDERS.items())})
+
+_PYNMEAGPS_ERRORS = (
+    nmea_exc.NMEAParseError,
+    nmea_exc.NMEAMessageError,
+    nmea_exc.NMEATypeError,
+    ValueError,
+    TypeError,
+    IndexError,
+    KeyError,
+    AttributeError,
+)
+
+
+def nmea_checksum(body: bytes) -> int:
+    """XOR of the bytes between ``$`` and ``*`` (NMEA 0183 §5.2.1)."""
+    c = 0
+    for b in body:
+        c ^= b
+    return c
 
 
 def decode_sentence(raw: bytes) -> NmeaMessage:
     """Decode one ``$...*hh`` sentence (CRLF optional); ParseError on bad checksum or content."""
-    raise NotImplementedError
-
-
-class GsvAssembler:
-    """Assembles multi-sentence GSV groups per talker and NMEA 4.11 signal id."""
-
-    def push(self, msg: NmeaMessage) -> object | None:
-        raise NotImplementedError
+    s = raw.rstrip(b"\r\n")
+    if len(s) > MAX_SENTENCE_BYTES:
+        raise ParseError(f"sentence longer than {MAX_SENTENCE_BYTES} bytes", message_id="NMEA")
+    star = len(s) - 3
+    if len(s) < 7 or s[:1] != b"$" or s[star : star + 1] != b"*":
+        raise ParseError("not a $...*hh sentence", message_id="NMEA")
+    comma = s.find(b",", 1, star)
+    address = s[1 : comma if comma >= 0 else star]
+    if not address.isalnum() or not address.isascii():
+        raise ParseError(f"bad address field {address[:16]!r}", message_id="NMEA")
+    name = address.decode("ascii")
+    try:
+        sent = int(s[star + 1 :], 16)
+    except ValueError as exc:
+        raise ParseError(f"checksum {s[star + 1 :]!r} is not hex", message_id=name) from exc
+    calc = nmea_checksum(s[1:star])
+    if sent != calc:
+        raise ParseError(f"bad checksum {sent:02X}, computed {calc:02X}", message_id=name)
+    if name[:1] == "P":  # proprietary: "P" + manufacturer (NMEA 0183 §5.3.3)
+        return NmeaOther(talker="P", sentence_id=name[1:], raw=bytes(s))
+    talker, formatter = name[:2], name[2:]
+    builder = BUILDERS.get(formatter)
+    if builder is None:
+        return NmeaOther(talker=talker, sentence_id=formatter, raw=bytes(s))
+    try:
+        msg = NMEAReader.parse(bytes(s), validate=VALNONE)
+        if msg is None:
+            raise ParseError(f"pynmeagps does not know {name}", message_id=name)
+        out: NmeaMessage = builder(talker, msg)
+    except _PYNMEAGPS_ERRORS as exc:
+        raise ParseError(f"unparseable {name}: {exc}", message_id=name) from exc
+    return out

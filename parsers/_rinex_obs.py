@@ -28,7 +28,7 @@ from ._epoch import ObsEpoch
 from ._errors import ParseError
 from ._rinex_obs_header import RinexObsHeader, _ObsHeaderBuilder
 from ._rinex_open import open_rinex_text
-from ._rinex_time import civil_to_gps
+from ._rinex_time import Civil, civil_to_gps
 from ._signals import GLO_NO_CHANNEL, MAX_SAT_ID, SYSTEMS, frequencies_hz, signal_code
 
 if TYPE_CHECKING:
@@ -78,11 +78,15 @@ class _Layout:
     sig: npt.NDArray[np.uint16]  # (systems, max signals) packed signal code
     valid: npt.NDArray[np.bool_]  # (systems, max signals)
     has_types: npt.NDArray[np.bool_]  # (systems,)
+    scale: npt.NDArray[np.float64] | None  # (systems, columns + 1) divisors, None if all 1
 
 
 def _layout(header: RinexObsHeader) -> _Layout:
     columns = max((len(v) for v in header.obs_types.values()), default=0)
-    signals = {s: list(dict.fromkeys(c[1:3] for c in t if c[0] in _KINDS)) for s, t in header.obs_types.items()}
+    signals = {
+        s: list(dict.fromkeys(c[1:3] for c in t if c[0] in _KINDS))
+        for s, t in header.obs_types.items()
+    }
     nsig = max((len(v) for v in signals.values()), default=0) or 1
     gather = np.full((len(SYSTEMS), 4, nsig), columns, np.intp)
     sig = np.zeros((len(SYSTEMS), nsig), np.uint16)
@@ -99,12 +103,23 @@ def _layout(header: RinexObsHeader) -> _Layout:
         for col, code in enumerate(codes):
             if code[0] in _KINDS:
                 gather[s, _KINDS.index(code[0]), signals[system].index(code[1:3])] = col
-    return _Layout(3 + _FIELD * columns, columns, gather, sig, valid, has_types)
+    scale = np.ones((len(SYSTEMS), columns + 1))
+    for system, factors in header.scale_factors.items():  # RINEX 3.05 Table A2 SYS / SCALE FACTOR
+        if system in SYSTEMS and system in header.obs_types:
+            for col, code in enumerate(header.obs_types[system]):
+                scale[SYSTEMS.index(system), col] = factors.get(code, factors.get("*", 1))
+    return _Layout(
+        3 + _FIELD * columns,
+        columns,
+        gather,
+        sig,
+        valid,
+        has_types,
+        None if (scale == 1.0).all() else scale,
+    )
 
 
-def _decode_f14_3(
-    digits: npt.NDArray[np.uint8], rows: list[str], first_line: int, width: int
-) -> npt.NDArray[np.float64]:
+def _decode_f14_3(digits: npt.NDArray[np.uint8], first_line: int) -> npt.NDArray[np.float64]:
     """Vectorised F14.3 read of ``digits`` (..., 14) bytes; blank → NaN; odd layouts via float()."""
     d = digits - np.uint8(48)
     is_digit = d <= 9
@@ -118,7 +133,7 @@ def _decode_f14_3(
     int_part |= minus[..., :10] & ~lead[..., :10]
     ok &= int_part.all(axis=-1)
     n = (np.where(is_digit, d, 0).astype(np.int64) * _PLACE).sum(axis=-1)
-    out = n / 1000.0
+    out: npt.NDArray[np.float64] = n / 1000.0
     out[minus.any(axis=-1)] *= -1.0
     empty = blank.all(axis=-1)
     out[empty] = np.nan
@@ -156,7 +171,8 @@ class RinexObsParser:
         self._rows: list[str] = []
         self._pending = 0
         self._epoch_line = 0
-        self._epoch_fields: tuple[int, int, int, int, int, float, int] = (0, 0, 0, 0, 0, 0.0, 0)
+        self._epoch_fields: Civil = (0, 0, 0, 0, 0, 0.0)
+        self._epoch_flag = 0
         self._special_is_header = False
         self._epochs = self._events = self._slips = self._blank = 0
 
@@ -194,8 +210,8 @@ class RinexObsParser:
             self._eof()
             return []
         if state == _EPOCH:
-            self._epoch_record(line)
-        elif state == _HEADER:
+            return self._epoch_record(line)
+        if state == _HEADER:
             if self._builder.feed(line, self._line_no):
                 self._set_header()
                 self._state = _EPOCH
@@ -216,7 +232,9 @@ class RinexObsParser:
 
     def _eof(self) -> None:
         if self._state == _HEADER:
-            raise self._fail("end of input inside the header (no END OF HEADER)", "RINEX obs header")
+            raise self._fail(
+                "end of input inside the header (no END OF HEADER)", "RINEX obs header"
+            )
         if self._state in (_SATS, _SPECIAL):
             raise self._fail(
                 f"end of input inside the epoch record of line {self._epoch_line}: "
@@ -235,16 +253,19 @@ class RinexObsParser:
             )
         self._header = header
         self._layout = _layout(header)
+        self._builder.lines = 0  # the header bound applies to each header block
         self._glo[:] = GLO_NO_CHANNEL
         for sat, k in header.glonass_channels.items():
             self._glo[sat] = k
 
-    def _epoch_record(self, line: str) -> None:
+    def _epoch_record(self, line: str) -> list[ObsEpoch]:
         if not line.strip():
             self._blank += 1
-            return
+            return []
         if line[0] != ">":
-            raise self._fail(f"expected an epoch record starting with '>', got {line[:20].rstrip()!r}")
+            raise self._fail(
+                f"expected an epoch record starting with '>', got {line[:20].rstrip()!r}"
+            )
         try:
             flag = int(line[31])
             count = int(line[32:35])
@@ -255,7 +276,6 @@ class RinexObsParser:
                 int(line[13:15]),
                 int(line[16:18]),
                 float(line[18:29]),
-                flag,
             )
         except (ValueError, IndexError) as exc:
             raise self._fail(f"bad epoch record {line.rstrip()!r}") from exc
@@ -264,12 +284,13 @@ class RinexObsParser:
         self._epoch_line = self._line_no
         if flag <= 1:
             self._epoch_fields = fields
+            self._epoch_flag = flag
             self._rows = []
             self._pending = count
             if count:
                 self._state = _SATS
-            else:
-                self._epochs += 1  # an epoch without satellites is valid but carries nothing
+            else:  # an epoch without satellites is valid: hand it on, empty
+                return [self._finish()]
         elif flag <= 6:
             if flag == 6:
                 self._slips += count
@@ -281,13 +302,15 @@ class RinexObsParser:
                 self._state = _SPECIAL
         else:
             raise self._fail(f"bad epoch flag {flag}")
+        return []
 
     def _finish(self) -> ObsEpoch:
         header, lay = self._header, self._layout
-        assert header is not None and lay is not None
-        y, mo, d, h, mi, sec, flag = self._epoch_fields
+        assert header is not None
+        assert lay is not None
+        flag = self._epoch_flag
         try:
-            time = civil_to_gps(y, mo, d, h, mi, sec, header.time_system)
+            time = civil_to_gps(self._epoch_fields, header.time_system)
         except ValueError as exc:
             raise ParseError(
                 f"bad epoch time: {exc}", message_id="RINEX obs epoch", offset=self._epoch_line
@@ -312,7 +335,9 @@ class RinexObsParser:
         sat_row = (sys_idx * 100 + prn_d[:, 0] * 10 + prn_d[:, 1]).astype(np.int16)
         body = raw[:, 3:].reshape(n, lay.columns, _FIELD)
         values = np.empty((n, lay.columns + 1), np.float64)
-        values[:, :-1] = _decode_f14_3(body[:, :, :14], rows, first, width)
+        values[:, :-1] = _decode_f14_3(body[:, :, :14], first)
+        if lay.scale is not None:
+            values[:, :-1] /= lay.scale[sys_idx, :-1]
         values[:, -1] = np.nan
         lli_raw = body[:, :, 14]
         lli_col = np.zeros((n, lay.columns + 1), np.uint8)

@@ -20,7 +20,11 @@ if TYPE_CHECKING:
 
     from ._gnsstime import GpsTime
 
-__all__ = ["RinexObsHeader", "_ObsHeaderBuilder"]
+__all__ = ["MAX_HEADER_LINES", "RinexObsHeader", "_ObsHeaderBuilder"]
+
+#: Bound on header lines (including header records inside epoch-flag 3/4 events): real headers
+#: hold well under 200 lines; past this the input is not a RINEX header (bounded memory, rule 5).
+MAX_HEADER_LINES = 5000
 
 #: Default time system of single-system files (RINEX 3.05 Table A2, TIME OF FIRST OBS note).
 _DEFAULT_TIME_SYSTEM = {"R": "GLO", "E": "GAL", "C": "BDT", "J": "QZS", "I": "IRN"}
@@ -58,6 +62,10 @@ class RinexObsHeader:
     time_of_first_obs: GpsTime | None = None
     time_system: str = "GPS"
     glonass_channels: Mapping[int, int] = field(default_factory=lambda: MappingProxyType({}))
+    #: SYS / SCALE FACTOR: per system, observation code → divisor applied on reading (1 if absent).
+    scale_factors: Mapping[str, Mapping[str, int]] = field(
+        default_factory=lambda: MappingProxyType({})
+    )
     signal_strength_unit: str = "DBHZ"
     leap_seconds: int | None = None
     comments: tuple[str, ...] = ()
@@ -77,6 +85,11 @@ class _ObsHeaderBuilder:
         self.glonass_channels: dict[int, int] = {}
         self.comments: list[str] = []
         self.other: list[str] = []
+        self.scale: dict[str, dict[str, int]] = {}
+        self._scale_sys = ""  # SYS / SCALE FACTOR record being continued
+        self._scale_factor = 1
+        self._scale_left = 0
+        self.lines = 0
         self._obs_sys = ""  # system of the SYS / # / OBS TYPES record being continued
         self._obs_left = 0
         self._first_obs: tuple[int, int, int, int, int, float] | None = None
@@ -85,6 +98,13 @@ class _ObsHeaderBuilder:
         """Take one header line; True once END OF HEADER is seen."""
         label = line[60:80].strip()
         handler = _HANDLERS.get(label)
+        self.lines += 1
+        if self.lines > MAX_HEADER_LINES:
+            raise ParseError(
+                f"header longer than {MAX_HEADER_LINES} lines (no END OF HEADER?)",
+                message_id="RINEX obs header",
+                offset=line_no,
+            )
         try:
             if label == "END OF HEADER":
                 return True
@@ -175,6 +195,23 @@ class _ObsHeaderBuilder:
     def _leap(self, line: str) -> None:  # I6 (then optional future/week/day fields)
         self.fields["leap_seconds"] = int(line[0:6])
 
+    def _scale(self, line: str) -> None:  # A1,1X,I4,2X,I2,12(1X,A3); continuation 10X,12(1X,A3)
+        if line[0] != " ":
+            self._scale_sys = line[0]
+            self._scale_factor = int(line[2:6])
+            self._scale_left = int(line[8:10] or 0)
+            if self._scale_left == 0:  # 0 = every observation type of the system
+                self.scale[self._scale_sys] = {"*": self._scale_factor}
+                return
+        elif not self._scale_sys:
+            raise ValueError("continuation line without a system")
+        for i in range(12):
+            if self._scale_left == 0:
+                break
+            code = line[11 + 4 * i : 14 + 4 * i].strip()
+            self.scale.setdefault(self._scale_sys, {})[code] = self._scale_factor
+            self._scale_left -= 1
+
     def _comment(self, line: str) -> None:  # A60
         self.comments.append(line[0:60].rstrip())
 
@@ -187,11 +224,14 @@ class _ObsHeaderBuilder:
                 str(fields.get("satellite_system", "G")), "GPS"
             )
         if self._first_obs is not None:
-            fields["time_of_first_obs"] = civil_to_gps(*self._first_obs, str(fields["time_system"]))
+            fields["time_of_first_obs"] = civil_to_gps(self._first_obs, str(fields["time_system"]))
         obs = {k: tuple(v) for k, v in self.obs_types.items()}
         return RinexObsHeader(
             obs_types=MappingProxyType(obs),
             glonass_channels=MappingProxyType(dict(self.glonass_channels)),
+            scale_factors=MappingProxyType(
+                {k: MappingProxyType(dict(v)) for k, v in self.scale.items()}
+            ),
             comments=tuple(self.comments),
             other=tuple(self.other),
             **fields,  # type: ignore[arg-type]
@@ -215,5 +255,6 @@ _HANDLERS: dict[str, Callable[[_ObsHeaderBuilder, str], None]] = {
     "GLONASS SLOT / FRQ #": _ObsHeaderBuilder._glonass_slots,
     "SIGNAL STRENGTH UNIT": _ObsHeaderBuilder._ss_unit,
     "LEAP SECONDS": _ObsHeaderBuilder._leap,
+    "SYS / SCALE FACTOR": _ObsHeaderBuilder._scale,
     "COMMENT": _ObsHeaderBuilder._comment,
 }

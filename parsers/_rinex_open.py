@@ -7,10 +7,12 @@ path into lines for them. The packing is recognised from the content, not the fi
 * Unix ``compress`` (``1f 9d``, old ``.Z`` archives): ``ncompress`` (a dependency of ``hatanaka``)
   only decompresses whole buffers, so the *compressed and the decompressed* file are held in memory.
 * Hatanaka Compact RINEX (first line labelled ``CRINEX VERS   / TYPE``, RNXCMP format): streamed
-  through the ``crx2rnx`` executable that ships inside the ``hatanaka`` package, fed by a helper
-  thread, so memory stays bounded by the pipe buffers. If that executable is missing we fall back to
-  ``hatanaka.decompress`` on the whole content: then the full decompressed file is in memory
-  (about 3–4× the .crx size; roughly 0.5–1 GB for a 24 h 1 Hz multi-GNSS file).
+  through the ``crx2rnx`` executable that ships inside the ``hatanaka`` package (``hatanaka``'s
+  own API only takes whole buffers). A packed ``.crx.gz``/``.crx.bz2`` is unpacked by a child
+  Python process piped into crx2rnx, so memory stays bounded by the pipe buffers. If the
+  executable is missing we fall back to ``hatanaka.crx2rnx`` on the whole content: then the full
+  decompressed file is in memory (about 3–4× the .crx size; roughly 0.5–1 GB for a 24 h 1 Hz
+  multi-GNSS file).
 
 Lines are decoded as Latin-1 so that stray non-ASCII bytes in comments never stop a replay.
 """
@@ -20,18 +22,17 @@ from __future__ import annotations
 import bz2
 import gzip
 import io
-import shutil
 import subprocess
+import sys
 import tempfile
-import threading
 from contextlib import contextmanager
 from importlib import resources
-from typing import IO, TYPE_CHECKING
+from typing import IO, TYPE_CHECKING, cast
 
 from ._errors import ParseError
 
 if TYPE_CHECKING:
-    from collections.abc import Iterator
+    from collections.abc import Generator, Iterator
     from os import PathLike
 
 __all__ = ["open_rinex_text"]
@@ -50,87 +51,123 @@ def _crx2rnx_path() -> str | None:
     return str(exe) if exe.is_file() else None
 
 
+def _packing(path: str | PathLike[str]) -> str:
+    """ "gz", "bz2", "Z" or "" (plain), from the first bytes of the file."""
+    with open(path, "rb") as f:
+        magic = f.read(3)
+    if magic[:2] == b"\x1f\x8b":
+        return "gz"
+    if magic == b"BZh":
+        return "bz2"
+    if magic[:2] == b"\x1f\x9d":
+        return "Z"
+    return ""
+
+
 def _open_binary(path: str | PathLike[str]) -> IO[bytes]:
     """The file, decompressed if it is gzip/bzip2/compress (by magic bytes), positioned at 0."""
-    f: IO[bytes] = open(path, "rb")  # noqa: SIM115 - returned to the caller, who closes it
-    magic = f.read(3)
-    f.seek(0)
-    if magic[:2] == b"\x1f\x8b":
-        return gzip.GzipFile(fileobj=f, mode="rb")
-    if magic == b"BZh":
-        return bz2.BZ2File(f, mode="rb")
-    if magic[:2] == b"\x1f\x9d":
-        import ncompress  # type: ignore[import-not-found, unused-ignore]  # noqa: PLC0415
+    packing = _packing(path)
+    if packing == "gz":
+        return cast("IO[bytes]", gzip.open(path, "rb"))
+    if packing == "bz2":
+        return cast("IO[bytes]", bz2.open(path, "rb"))
+    if packing == "Z":
+        import ncompress  # type: ignore[import-untyped, unused-ignore]  # noqa: PLC0415
 
-        try:
-            data = ncompress.decompress(f.read())
-        finally:
-            f.close()
-        return io.BytesIO(data)
-    return f
+        with open(path, "rb") as f:
+            return io.BytesIO(ncompress.decompress(f.read()))
+    return open(path, "rb")
 
 
-def _feed(src: IO[bytes], dst: IO[bytes]) -> None:
-    """Helper-thread body: copy the Compact RINEX bytes into crx2rnx's stdin, then close it."""
-    try:
-        shutil.copyfileobj(src, dst, 1 << 16)
-    except (BrokenPipeError, OSError, EOFError, ValueError):
-        pass  # the reader stopped early (or the input is corrupt); crx2rnx's exit code tells
-    finally:
-        try:
-            dst.close()
-        except OSError:
-            pass
+#: Decompressor run as a child process that pipes Compact RINEX into crx2rnx, so that both stages
+#: stream without a helper thread in this package (STYLE rule 3 keeps threads out of parsers/).
+_UNPACK_SCRIPT = """\
+import shutil, sys
+from ionwarden.parsers._rinex_open import _open_binary
+try:
+    with _open_binary(sys.argv[1]) as src:
+        shutil.copyfileobj(src, sys.stdout.buffer, 1 << 16)
+    sys.stdout.flush()
+except BrokenPipeError:
+    sys.exit(0)  # the reader stopped early
+"""
 
 
-def _hatanaka_lines(src: IO[bytes], path: str) -> Iterator[str]:
+def _hatanaka_lines(path: str, packing: str) -> Generator[str, None, None]:
     exe = _crx2rnx_path()
-    if exe is None:  # documented fallback: whole file in memory
+    if exe is None:  # documented fallback: the whole decompressed file in memory
         import hatanaka  # noqa: PLC0415
 
-        try:
-            text = hatanaka.crx2rnx(src.read())
-        except hatanaka.HatanakaException as exc:
-            raise ParseError(f"{path}: Hatanaka decompression failed: {exc}") from exc
+        with _open_binary(path) as src:
+            try:
+                text = hatanaka.crx2rnx(src.read())
+            except hatanaka.HatanakaException as exc:
+                raise ParseError(f"{path}: Hatanaka decompression failed: {exc}") from exc
         yield from io.StringIO(text.decode(_ENCODING))
         return
     with tempfile.TemporaryFile() as err:
-        proc = subprocess.Popen(  # noqa: S603 - fixed executable from the hatanaka package
-            [exe, "-"], stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=err
-        )
-        assert proc.stdin is not None and proc.stdout is not None
-        feeder = threading.Thread(
-            target=_feed, args=(src, proc.stdin), name="rinex.crx2rnx-feed", daemon=True
-        )
-        feeder.start()
+        unpack: subprocess.Popen[bytes] | None = None
+        if packing:
+            unpack = subprocess.Popen(  # noqa: S603 - our own interpreter and script
+                [sys.executable, "-c", _UNPACK_SCRIPT, path],
+                stdout=subprocess.PIPE,
+                stderr=subprocess.DEVNULL,
+            )
+            assert unpack.stdout is not None
+            stdin: IO[bytes] = unpack.stdout
+        else:
+            stdin = open(path, "rb")  # noqa: SIM115 - closed right after the child inherits it
+        try:
+            proc = subprocess.Popen(  # noqa: S603 - fixed executable from the hatanaka package
+                [exe, "-"], stdin=stdin, stdout=subprocess.PIPE, stderr=err
+            )
+        finally:
+            stdin.close()  # the child holds its own descriptor
+        assert proc.stdout is not None
+        text = io.TextIOWrapper(proc.stdout, encoding=_ENCODING, newline="")
         finished = False
         try:
-            yield from io.TextIOWrapper(proc.stdout, encoding=_ENCODING, newline="")
+            yield from text
             finished = True
         finally:
-            if not finished and proc.poll() is None:
-                proc.kill()
-            proc.stdout.close()
+            for child in (proc, unpack):
+                if child is not None and not finished and child.poll() is None:
+                    child.kill()
+            text.close()
             code = proc.wait()
-            feeder.join()
+            unpack_code = unpack.wait() if unpack is not None else 0
         if code not in _CRX2RNX_OK:
             err.seek(0)
             msg = err.read().decode(_ENCODING, "replace").strip().splitlines()
             reason = msg[0] if msg else f"exit code {code}"
             raise ParseError(f"{path}: Hatanaka decompression failed: {reason}")
+        if unpack_code != 0:
+            raise ParseError(f"{path}: {packing} decompression failed (exit code {unpack_code})")
 
 
 @contextmanager
 def open_rinex_text(path: str | PathLike[str]) -> Iterator[Iterator[str]]:
     """Context manager yielding the lines (with newlines) of a plain or packed RINEX file."""
-    src = _open_binary(path)
+    try:
+        src = _open_binary(path)
+    except OSError as exc:
+        raise ParseError(f"{path}: cannot read: {exc}") from exc
     try:
         first = src.readline(256).decode(_ENCODING)
-        src.seek(0)
-        if first[60:80].strip() == _CRINEX_LABEL.strip() or first.startswith("1.0 ", 5):
-            yield _hatanaka_lines(src, str(path))
+        if first[60:80].strip() == _CRINEX_LABEL.strip():
+            src.close()
+            lines = _hatanaka_lines(str(path), _packing(path))
+            try:
+                yield lines
+            finally:
+                lines.close()  # stops crx2rnx if the reader left early
         else:
-            yield io.TextIOWrapper(src, encoding=_ENCODING, newline="")  # type: ignore[arg-type]
+            src.seek(0)
+            text = io.TextIOWrapper(src, encoding=_ENCODING, newline="")
+            try:
+                yield text
+            finally:
+                text.detach()  # src is closed below
     except (OSError, EOFError) as exc:
         raise ParseError(f"{path}: cannot read: {exc}") from exc
     finally:

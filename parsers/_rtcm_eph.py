@@ -216,7 +216,7 @@ LAYOUT_1045: tuple[Field, ...] = (
     ("e5a_dvs", 1, U, None),  # DF315 E5a data validity
     ("reserved", 7, U, None),  # DF001
 )
-# 1046 (I/NAV): total 496 bits (62 bytes).
+# 1046 (I/NAV): total 504 bits (63 bytes).
 LAYOUT_1046: tuple[Field, ...] = (
     *_GAL_COMMON,
     ("bgd_e5b", 10, S, 2.0**-32),  # DF313 BGD(E1,E5b)
@@ -324,7 +324,9 @@ def read_fields(body: bytes, layout: Sequence[Field], message_id: int) -> dict[s
         v = r.u(bits) if kind == U else r.s(bits) if kind == S else r.sm(bits)
         out[key] = v if scale is None else v * scale
     if out["msg"] != message_id:
-        raise ParseError(f"DF002 is {int(out['msg'])}, expected {message_id}", message_id=message_id)
+        raise ParseError(
+            f"DF002 is {int(out['msg'])}, expected {message_id}", message_id=message_id
+        )
     return out
 
 
@@ -493,10 +495,12 @@ def decode_1020(body: bytes, ctx: DecodeContext) -> GlonassEphemeris:
     del ctx
     v = read_fields(body, LAYOUT_1020, 1020)
     slot, channel = int(v["slot"]), int(v["channel"])
-    if not 1 <= slot <= 24:
-        raise ParseError(f"DF038 GLONASS slot {slot} out of range 1…24", message_id=1020)
+    if slot == 0:
+        raise ParseError("DF038 GLONASS slot 0 is not a satellite", message_id=1020)
     if channel > 13:
-        raise ParseError(f"DF040 frequency channel code {channel} out of range 0…13", message_id=1020)
+        raise ParseError(
+            f"DF040 frequency channel code {channel} out of range 0…13", message_id=1020
+        )
     nt, n4 = int(v["nt"]), int(v["n4"])
     return GlonassEphemeris(
         sat=100 + slot,

@@ -8,7 +8,7 @@ never any other exception. Types not in the table are the caller's to count and 
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from typing import TYPE_CHECKING
 
 from ._rtcm_eph import (
     DecodeContext,
@@ -20,6 +20,9 @@ from ._rtcm_eph import (
     decode_1046,
 )
 from ._rtcm_station import decode_1005, decode_1006, decode_descriptor
+
+if TYPE_CHECKING:
+    from collections.abc import Callable
 
 __all__ = ["DECODERS", "DecodeContext"]
 

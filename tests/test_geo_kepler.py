@@ -12,69 +12,20 @@ import pytest
 
 from ionwarden.daemon.geo import KeplerBatch, kepler_state, sagnac_rotate
 from ionwarden.parsers import KeplerEphemeris, sat_id
+from tests._geo_support import OBS, load_gps_nav
 
-NAV = "rinex/brdc0010.19n"
-OBS = "rinex/P43300USA_R_20190012056_17M_15S_MO.rnx"
 WEEK_S = 604800.0
 C = 299792458.0
 
 
-def _load_nav(real_data: Path) -> list[KeplerEphemeris]:
-    """Every GPS record of the brdc file as KeplerEphemeris (georinex as the loader)."""
-    import georinex as gr
-
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        nav = gr.load(real_data / NAV)
-    out = []
-    for sv in nav.sv.values:
-        d = nav.sel(sv=sv).dropna("time", how="all")
-        for i in range(d.time.size):
-            r = d.isel(time=i)
-            t = np.datetime64(r.time.values, "s").astype(object)
-            toc = (t.weekday() + 1) % 7 * 86400 + t.hour * 3600 + t.minute * 60 + t.second
-            out.append(
-                KeplerEphemeris(
-                    sat=sat_id("G", int(sv[1:])),
-                    week=int(r.GPSWeek),
-                    toe_s=float(r.Toe),
-                    toc_s=float(toc),
-                    sqrt_a=float(r.sqrtA),
-                    e=float(r.Eccentricity),
-                    i0=float(r.Io),
-                    omega0=float(r.Omega0),
-                    omega=float(r.omega),
-                    m0=float(r.M0),
-                    delta_n=float(r.DeltaN),
-                    idot=float(r.IDOT),
-                    omega_dot=float(r.OmegaDot),
-                    cuc=float(r.Cuc),
-                    cus=float(r.Cus),
-                    crc=float(r.Crc),
-                    crs=float(r.Crs),
-                    cic=float(r.Cic),
-                    cis=float(r.Cis),
-                    af0=float(r.SVclockBias),
-                    af1=float(r.SVclockDrift),
-                    af2=float(r.SVclockDriftRate),
-                    iode=int(r.IODE),
-                    iodc=int(r.IODC),
-                    tgd_s=(float(r.TGD), math.nan),
-                    health=int(r.health),
-                    fit_interval_h=float(r.FitIntvl),
-                    accuracy_m=float(r.SVacc),
-                    source="RINEX",
-                )
-            )
-    return out
-
-
 @pytest.fixture(scope="module")
 def nav(real_data: Path) -> list[KeplerEphemeris]:
-    return _load_nav(real_data)
+    return load_gps_nav(real_data)
 
 
-def scalar_gps(eph: KeplerEphemeris, t: float, mu: float = 3.986005e14, we: float = 7.2921151467e-5):
+def scalar_gps(
+    eph: KeplerEphemeris, t: float, mu: float = 3.986005e14, we: float = 7.2921151467e-5
+):
     """Straight transcription of IS-GPS-200 Table 20-IV for one satellite (reference, not fast)."""
     a = eph.sqrt_a**2
     n = math.sqrt(mu / a**3) + eph.delta_n
@@ -174,9 +125,7 @@ def test_kepler_state_range_residuals_match_p433_pseudoranges(nav, real_data):
         ok = np.isfinite(row.values)
         svs = [sat_id("G", int(s[1:])) for s in row.sv.values[ok]]
         pr = row.values[ok]
-        ephs = [
-            min(by_sat[s], key=lambda e, t=t: abs(e.week * WEEK_S + e.toe_s - t)) for s in svs
-        ]
+        ephs = [min(by_sat[s], key=lambda e, t=t: abs(e.week * WEEK_S + e.toe_s - t)) for s in svs]
         batch = KeplerBatch.from_ephemerides(ephs)
         t_tx = t - pr / C
         for _ in range(2):

@@ -43,7 +43,7 @@ def band_key(sat: npt.NDArray[np.int16], sig: npt.NDArray[np.uint16]) -> npt.NDA
 
 
 def band_label(key: int) -> str:
-    """"G2" for key 2, "E5" for key 25."""
+    """ "G2" for key 2, "E5" for key 25."""
     return f"{_SYSTEMS[key // 10]}{key % 10}"
 
 

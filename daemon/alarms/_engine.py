@@ -107,9 +107,7 @@ class StationAlarms:
         self._alarms[key] = alarm
         return alarm
 
-    def _step(
-        self, alarm: _Alarm, value: float, time: GpsTime, out: list[AlarmTransition]
-    ) -> None:
+    def _step(self, alarm: _Alarm, value: float, time: GpsTime, out: list[AlarmTransition]) -> None:
         alarm.value = value
         if not alarm.machine.step(value, time.total_s):
             return

@@ -1,15 +1,24 @@
-"""``ionwarden run``: the daemon (filled in by the runtime work)."""
+"""``ionwarden run``: the daemon. Without ``--config`` it replays the bundled demo capture."""
 
 from __future__ import annotations
 
+import asyncio
+import sys
+from dataclasses import replace
+from importlib import resources
+from pathlib import Path
 from typing import TYPE_CHECKING
 
-from ._common import die
+from ionwarden.daemon.errors import ConfigError, OutputError
+
+from ._common import SAFETY_LINE, apply_logging_settings, config_path, die, load_or_die
 
 if TYPE_CHECKING:
     import argparse
 
-__all__ = ["add_parser", "run"]
+    from ionwarden.daemon.config import Settings
+
+__all__ = ["add_parser", "demo_capture", "run"]
 
 
 def add_parser(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
@@ -17,10 +26,122 @@ def add_parser(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None
         "run",
         help="run the monitor (no config: replay the bundled demo)",
         description="Read each configured station's receiver stream, estimate the ionosphere live "
-        "and publish to MQTT and Prometheus. Without --config, replays the bundled demo.",
+        "and publish to MQTT and Prometheus. Without --config, replays the bundled demo capture "
+        "accelerated, with MQTT and the exporter off, printing a summary line per station. "
+        "Under systemd (Type=notify) it reports readiness, health and watchdog pings; SIGHUP "
+        "reloads the config, SIGTERM stops gracefully.",
+        epilog=SAFETY_LINE,
     )
     p.add_argument("--config", help="TOML configuration file")
+    p.add_argument(
+        "--speed",
+        type=float,
+        default=None,
+        help="demo replay speed, x real time (0 = as fast as possible; default: [runtime] demo_speed)",
+    )
+    p.add_argument(
+        "--summary-every",
+        type=float,
+        default=None,
+        metavar="SECONDS",
+        help="seconds between summary lines (0 = none; default: [runtime] summary_interval_s)",
+    )
+
+
+def demo_capture() -> Path | None:
+    """The bundled demo capture, when this build has it."""
+    path = Path(str(resources.files("ionwarden.daemon") / "data" / "demo.bin"))
+    return path if path.is_file() else None
+
+
+def _demo_settings(base: Settings, speed: float) -> Settings | str:
+    demo = demo_capture()
+    if demo is None:
+        return (
+            "run: the bundled demo capture (ionwarden/daemon/data/demo.bin) is missing from this "
+            "build; pass --config FILE with your own stations"
+        )
+    data = base.model_dump()
+    data["stations"] = [{"name": "demo", "source": f"file://{demo}?speed={speed:g}"}]
+    data["mqtt"] = {**data["mqtt"], "enabled": False}
+    data["prometheus"] = {**data["prometheus"], "enabled": False}
+    return type(base).model_validate(data)
+
+
+def _print_line(line: str) -> None:
+    print(line, flush=True)
+
+
+async def _serve(settings: Settings, path: Path | None, summary_every: float | None) -> int:
+    from prometheus_client import CollectorRegistry  # noqa: PLC0415
+
+    from ionwarden.daemon.outputs import Exporter, MqttPublisher  # noqa: PLC0415
+    from ionwarden.daemon.runtime import SdNotifier  # noqa: PLC0415
+    from ionwarden.daemon.runtime._app import (  # noqa: PLC0415
+        build_daemon_snapshot,
+        make_factory,
+        options_from_settings,
+    )
+    from ionwarden.daemon.runtime._supervisor import Daemon, DaemonOptions  # noqa: PLC0415
+
+    loop = asyncio.get_running_loop()
+    options = options_from_settings(settings)
+    if summary_every is not None:
+        options = replace(options, summary_interval_s=summary_every)
+    exporter = (
+        Exporter(settings.prometheus, registry=CollectorRegistry(), monotonic=loop.time)
+        if settings.prometheus.enabled
+        else None
+    )
+    publisher = MqttPublisher(settings.mqtt, monotonic=loop.time) if settings.mqtt.enabled else None
+    started = loop.time()
+
+    def reload() -> DaemonOptions:
+        if path is None:
+            raise ConfigError("", "no configuration file to reload")
+        from ionwarden.daemon.config import load_settings  # noqa: PLC0415
+
+        new = options_from_settings(load_settings(path))
+        return replace(new, summary_interval_s=options.summary_interval_s)
+
+    daemon = Daemon(
+        options,
+        factory=make_factory(settings),
+        notifier=SdNotifier(),
+        exporter=exporter,
+        publisher=publisher,
+        build_snapshot=lambda d: build_daemon_snapshot(d, publisher, started),
+        summary=_print_line if options.summary_interval_s else None,
+        reload=reload if path is not None else None,
+        utc_now=None,
+    )
+    return await daemon.run()
 
 
 def run(args: argparse.Namespace) -> int:
-    return die("run: not yet available in this build", 1)
+    path = config_path(args)
+    settings = load_or_die(path)
+    if settings is None:
+        return 2
+    apply_logging_settings(args, settings)
+    if path is None:
+        speed = settings.runtime.demo_speed if args.speed is None else args.speed
+        if speed < 0:
+            return die("run: --speed must be >= 0")
+        demo = _demo_settings(settings, speed)
+        if isinstance(demo, str):
+            return die(demo)
+        settings = demo
+        print(
+            f"ionwarden: replaying the bundled demo at {speed:g}x (MQTT and exporter off); "
+            "Ctrl-C stops",
+            file=sys.stderr,
+        )
+    elif not settings.stations:
+        return die(f"run: {path}: no [[stations]] configured")
+    try:
+        return asyncio.run(_serve(settings, path, args.summary_every))
+    except ConfigError as exc:
+        return die(f"config: {exc}")
+    except OutputError as exc:
+        return die(f"run: {exc}", 1)

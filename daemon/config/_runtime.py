@@ -17,3 +17,23 @@ class RuntimeSettings(Section):
     queue_size: int = Field(default=256, ge=1, description="Bound of each inter-stage queue.")
     #: Replay speed of the bundled demo when run without a config (× real time; 0 = flat out).
     demo_speed: float = Field(default=60.0, ge=0.0)
+    # -- supervision of sources (daemon/runtime) --
+    #: A source that sends no byte for this long is "stalled": status + alarm event, then reconnect.
+    stall_no_data_s: float = Field(default=10.0, gt=0.0)
+    #: Bytes arrive but no valid frame (CRC/checksum good) for this long: stalled (garbage).
+    stall_no_frame_s: float = Field(default=30.0, gt=0.0)
+    #: Frames arrive but no observation epoch for this long: stalled (e.g. MSM output switched off).
+    stall_no_epoch_s: float = Field(default=60.0, gt=0.0)
+    #: Reconnect backoff: first delay and ceiling (s); delays double and are jittered down by 20%.
+    backoff_initial_s: float = Field(default=1.0, gt=0.0)
+    backoff_cap_s: float = Field(default=30.0, gt=0.0)
+    #: Bytes asked of a source per read.
+    read_size_bytes: int = Field(default=65536, ge=512, le=1 << 22)
+    #: Seconds between checkpoints of long-to-build estimator state (0 = only at shutdown).
+    checkpoint_interval_s: float = Field(default=300.0, ge=0.0)
+    #: A checkpoint older than this (wall clock) is ignored on start.
+    checkpoint_max_age_s: float = Field(default=6 * 3600.0, gt=0.0)
+    #: Seconds between the human-readable summary lines `ionwarden run` prints (0 = none).
+    summary_interval_s: float = Field(default=10.0, ge=0.0)
+    #: Graceful-stop budget after SIGTERM (s): outputs are flushed within it.
+    stop_timeout_s: float = Field(default=4.0, gt=0.0, le=30.0)

@@ -20,6 +20,9 @@ from urllib.parse import parse_qsl, urlsplit
 
 from pydantic import Field, SecretStr, field_validator
 
+from ionwarden.daemon.errors import ConfigError
+from ionwarden.daemon.ingest._source import parse_source as parse_transport_source
+
 from ._base import Section
 
 __all__ = ["SOURCE_SCHEMES", "SourceSpec", "StationSettings", "parse_source"]
@@ -118,6 +121,10 @@ class StationSettings(Section):
     @classmethod
     def _check_source(cls, value: str) -> str:
         parse_source(value)
+        try:  # the transport layer's own, stricter check (options, ranges, secrets not in URLs)
+            parse_transport_source(value)
+        except ConfigError as exc:
+            raise ValueError(exc.reason) from exc
         return value
 
     @property

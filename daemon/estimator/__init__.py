@@ -1,5 +1,16 @@
 """The rolling ionosphere estimator: pure, vectorised, time from the data (STYLE rules 21–23)."""
 
+from ._estimator import StationEstimator
+from ._pairs import IonoCoefficients, PairTable, band_delays_s, iono_coefficients
 from ._snapshot import FixStatus, SatelliteFigures, StationSnapshot
 
-__all__ = ["FixStatus", "SatelliteFigures", "StationSnapshot"]
+__all__ = [
+    "FixStatus",
+    "IonoCoefficients",
+    "PairTable",
+    "SatelliteFigures",
+    "StationEstimator",
+    "StationSnapshot",
+    "band_delays_s",
+    "iono_coefficients",
+]

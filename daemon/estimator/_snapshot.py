@@ -44,6 +44,13 @@ class SatelliteFigures:
     if_code_smoothed_m: F64
     slip: npt.NDArray[np.bool_]
     arc_id: npt.NDArray[np.int32]
+    #: Optional extras (empty arrays when a producer does not fill them): code-minus-carrier
+    #: multipath of band 1 and band 2 of the pair (arc mean removed, m), the iono-free noise
+    #: amplification √(α²+β²), and "this new arc is a frequency-pair switch".
+    mp1_m: F64 = field(default_factory=lambda: np.zeros(0))
+    mp2_m: F64 = field(default_factory=lambda: np.zeros(0))
+    if_noise_factor: F64 = field(default_factory=lambda: np.zeros(0))
+    pair_switch: npt.NDArray[np.bool_] = field(default_factory=lambda: np.zeros(0, np.bool_))
 
     def __len__(self) -> int:
         return int(self.sat.shape[0])

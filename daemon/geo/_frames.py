@@ -80,7 +80,8 @@ def az_el(rx_ecef: ArrayLike, sat_ecef: ArrayLike) -> tuple[F64, F64]:
     rx = np.asarray(rx_ecef, dtype=np.float64)
     sat = np.asarray(sat_ecef, dtype=np.float64)
     assert rx.shape == (3,), rx.shape
-    assert sat.ndim == 2 and sat.shape[1] == 3, sat.shape
+    assert sat.ndim == 2, sat.shape
+    assert sat.shape[1] == 3, sat.shape
     lat, lon, _ = ecef_to_geodetic(rx)
     return az_el_enu(enu_basis(float(lat), float(lon)), rx, sat)
 
@@ -100,7 +101,8 @@ def sagnac_rotate(sat_ecef: ArrayLike, tau_s: ArrayLike) -> F64:
     relative to the satellite (IS-GPS-200 §20.3.3.4.3.3.2, Earth rotation correction; WGS 84 Ω̇e).
     """
     sat = np.asarray(sat_ecef, dtype=np.float64)
-    assert sat.ndim == 2 and sat.shape[1] == 3, sat.shape
+    assert sat.ndim == 2, sat.shape
+    assert sat.shape[1] == 3, sat.shape
     theta = OMEGA_E_GPS_RADPS * np.asarray(tau_s, dtype=np.float64)
     c = np.cos(theta)
     s = np.sin(theta)

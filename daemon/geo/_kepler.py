@@ -14,8 +14,8 @@ Python branch.
 
 from __future__ import annotations
 
-from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import numpy.typing as npt
@@ -35,12 +35,24 @@ from ._constants import (
     relativistic_f,
 )
 
+if TYPE_CHECKING:
+    from collections.abc import Sequence
+
 __all__ = ["KeplerBatch", "is_bds_geo", "kepler_state", "orbit_constants"]
 
 F64 = npt.NDArray[np.float64]
-#: Newton steps for Kepler's equation, started from M + e·sin M: the error after k steps is about
-#: e^(2^k), so 4 steps reach double precision up to e ≈ 0.1 (QZSS IGSO e ≈ 0.075).
-_KEPLER_ITERATIONS = 4
+
+
+def _newton_steps(e_max: float) -> int:
+    """Newton steps for Kepler's equation started from M + e·sin M (error ≈ e²/2): each step
+    squares the error (times ≈ e/2), so 2 steps reach double precision up to e ≈ 0.1 (GPS,
+    BeiDou, QZSS IGSO e ≈ 0.075) and 3 steps up to e ≈ 0.3 (Galileo E14/E18: e ≈ 0.16)."""
+    if e_max < 0.1:
+        return 2
+    if e_max < 0.3:
+        return 3
+    return 6
+
 
 # System index (parsers._signals.SYSTEMS "GRECJSI") → (μ, Ω̇e).
 _CONSTANTS_BY_SYSTEM: dict[int, tuple[float, float]] = {
@@ -104,6 +116,11 @@ class KeplerBatch:
     af1: F64
     af2: F64
     rel_coef_s: F64  # F·e·√A, multiplies sin E
+    tgd_s: F64  # (n, 2) broadcast group delays as in KeplerEphemeris.tgd_s (not applied here)
+    harm_sin: F64  # (3, n) rows C_us, C_rs, C_is: the sin 2Φ harmonic corrections
+    harm_cos: F64  # (3, n) rows C_uc, C_rc, C_ic: the cos 2Φ harmonic corrections
+    toc_minus_toe_s: F64  # t_oc − t_oe folded into ±half a week
+    kepler_iterations: int = 3  # Newton steps needed for the largest e of the batch
 
     def __len__(self) -> int:
         return int(self.sat.shape[0])
@@ -167,6 +184,11 @@ class KeplerBatch:
             af1=col("af1"),
             af2=col("af2"),
             rel_coef_s=rel_f * e * sqrt_a,
+            tgd_s=np.array([x.tgd_s for x in ephemerides], dtype=np.float64).reshape(n, 2),
+            harm_sin=np.stack([col("cus"), col("crs"), col("cis")]).reshape(3, n),
+            harm_cos=np.stack([col("cuc"), col("crc"), col("cic")]).reshape(3, n),
+            toc_minus_toe_s=_fold_half_week(col("toc_s") - toe),
+            kepler_iterations=_newton_steps(float(np.max(e, initial=0.0))),
         )
         for name in cls.__slots__:
             arr = getattr(batch, name)
@@ -177,7 +199,15 @@ class KeplerBatch:
     def take(self, index: npt.ArrayLike) -> KeplerBatch:
         """Sub-batch of the rows ``index`` (integer array or boolean mask)."""
         idx = np.asarray(index)
-        return KeplerBatch(**{name: getattr(self, name)[idx] for name in self.__slots__})
+        parts: dict[str, Any] = {}
+        for name in self.__slots__:
+            value = getattr(self, name)
+            if name in {"harm_sin", "harm_cos"}:
+                value = value[:, idx]
+            elif isinstance(value, np.ndarray):
+                value = value[idx]
+            parts[name] = value
+        return KeplerBatch(**parts)
 
 
 def _fold_half_week(dt_s: F64) -> F64:
@@ -195,73 +225,69 @@ def kepler_state(batch: KeplerBatch, t_gps_s: npt.ArrayLike) -> tuple[F64, F64, 
     relativistic term F·e·√A·sin E (IS-GPS-200 §20.3.3.3.3.1); group delays are not applied.
     """
     n = len(batch)
-    t = np.broadcast_to(np.asarray(t_gps_s, dtype=np.float64), (n,))
+    t = np.asarray(t_gps_s, dtype=np.float64)
+    assert t.ndim == 0 or t.shape == (n,), t.shape
+    # Numpy calls on ~40-element arrays cost about a microsecond each whatever the size, so the
+    # sin/cos of independent angles and the three harmonic corrections are evaluated stacked.
     tk = _fold_half_week(t - batch.toe_gps_s)
     e = batch.e
     m = batch.m0 + batch.n_radps * tk
     ek = m + e * np.sin(m)
-    for _ in range(_KEPLER_ITERATIONS):
-        ek = ek - (ek - e * np.sin(ek) - m) / (1.0 - e * np.cos(ek))
+    for _ in range(batch.kepler_iterations):
+        ek -= (ek - e * np.sin(ek) - m) / (1.0 - e * np.cos(ek))
     sin_e = np.sin(ek)
     cos_e = np.cos(ek)
     one_m_ecos = 1.0 - e * cos_e
-    nu = np.arctan2(batch.sqrt_1me2 * sin_e, cos_e - e)
-    phi = nu + batch.omega
-    s2 = np.sin(2.0 * phi)
-    c2 = np.cos(2.0 * phi)
-    u = phi + batch.cus * s2 + batch.cuc * c2
-    r = batch.a_m * one_m_ecos + batch.crs * s2 + batch.crc * c2
-    inc = batch.i0 + batch.cis * s2 + batch.cic * c2 + batch.idot * tk
-    # Rates (derivatives of the lines above).
+    phi = np.arctan2(batch.sqrt_1me2 * sin_e, cos_e - e) + batch.omega
+    two_phi = 2.0 * phi
+    s2 = np.sin(two_phi)
+    c2 = np.cos(two_phi)
+    corr = batch.harm_sin * s2 + batch.harm_cos * c2  # δu, δr, δi
+    # Rates (derivatives of the lines above): dE/dt, dΦ/dt, then d(δu, δr, δi)/dt.
     e_dot = batch.n_radps / one_m_ecos
     phi_dot = batch.sqrt_1me2 * e_dot / one_m_ecos
-    u_dot = phi_dot * (1.0 + 2.0 * (batch.cus * c2 - batch.cuc * s2))
-    r_dot = batch.a_m * e * sin_e * e_dot + 2.0 * phi_dot * (batch.crs * c2 - batch.crc * s2)
-    inc_dot = batch.idot + 2.0 * phi_dot * (batch.cis * c2 - batch.cic * s2)
+    corr_dot = (2.0 * phi_dot) * (batch.harm_sin * c2 - batch.harm_cos * s2)
+    u = phi + corr[0]
+    r = batch.a_m * one_m_ecos + corr[1]
+    inc = batch.i0 + corr[2] + batch.idot * tk
+    u_dot = phi_dot + corr_dot[0]
+    r_dot = batch.a_m * e * sin_e * e_dot + corr_dot[1]
+    inc_dot = batch.idot + corr_dot[2]
+    # Angles: u, i, Ω_k in the frame fixed at t_k = 0, and θ = Ω̇e·t_k of the Earth since t_oe.
+    w = batch.omega_e_radps
+    ang = np.stack((u, inc, batch.omega_gk0 + batch.omega_dot * tk, w * tk))
+    cs = np.cos(ang)
+    sn = np.sin(ang)
+    cu, ci, co, cth = cs
+    su, si, so, sth = sn
     # In-plane position and velocity.
-    cu = np.cos(u)
-    su = np.sin(u)
     xp = r * cu
     yp = r * su
-    xp_dot = r_dot * cu - r * u_dot * su
-    yp_dot = r_dot * su + r * u_dot * cu
-    # Node in the frame fixed at t_k = 0, then rotate to ECEF at t.
-    om = batch.omega_gk0 + batch.omega_dot * tk
-    co = np.cos(om)
-    so = np.sin(om)
-    ci = np.cos(inc)
-    si = np.sin(inc)
+    xp_dot = r_dot * cu - yp * u_dot
+    yp_dot = r_dot * su + xp * u_dot
     yci = yp * ci
     x0 = xp * co - yci * so
     y0 = xp * so + yci * co
     z0 = yp * si
-    ys_idot = yp * si * inc_dot
+    ys_idot = z0 * inc_dot
     yd_ci = yp_dot * ci
-    vx0 = xp_dot * co - yd_ci * so + ys_idot * so - y0 * batch.omega_dot
-    vy0 = xp_dot * so + yd_ci * co - ys_idot * co + x0 * batch.omega_dot
-    vz0 = yp_dot * si + yp * ci * inc_dot
+    vx0 = xp_dot * co - (yd_ci - ys_idot) * so - y0 * batch.omega_dot
+    vy0 = xp_dot * so + (yd_ci - ys_idot) * co + x0 * batch.omega_dot
+    vz0 = yp_dot * si + yci * inc_dot
     # Tilt about x (BDS GEO: −5°; identity otherwise).
     ct = batch.cos_tilt
     st = batch.sin_tilt
     y1 = ct * y0 + st * z0
-    z1 = ct * z0 - st * y0
     vy1 = ct * vy0 + st * vz0
-    vz1 = ct * vz0 - st * vy0
-    # Earth rotation since t_oe: frame rotation about z by θ = Ω̇e·t_k.
-    w = batch.omega_e_radps
-    theta = w * tk
-    cth = np.cos(theta)
-    sth = np.sin(theta)
     pos = np.empty((n, 3), dtype=np.float64)
     vel = np.empty((n, 3), dtype=np.float64)
+    pos[:, 2] = ct * z0 - st * y0
+    vel[:, 2] = ct * vz0 - st * vy0
+    # Earth rotation since t_oe: frame rotation about z by θ.
     pos[:, 0] = cth * x0 + sth * y1
     pos[:, 1] = cth * y1 - sth * x0
-    pos[:, 2] = z1
     vel[:, 0] = cth * vx0 + sth * vy1 + w * pos[:, 1]
     vel[:, 1] = cth * vy1 - sth * vx0 - w * pos[:, 0]
-    vel[:, 2] = vz1
-    dtc = _fold_half_week(t - batch.toc_gps_s)
+    dtc = tk - batch.toc_minus_toe_s
     clock = batch.af0 + dtc * (batch.af1 + dtc * batch.af2) + batch.rel_coef_s * sin_e
     return pos, vel, clock
-
-

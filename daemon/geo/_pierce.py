@@ -28,7 +28,7 @@ def mapping_factor(
     return np.asarray(1.0 / np.sqrt(1.0 - s * s), dtype=np.float64)
 
 
-def pierce_point(
+def pierce_point(  # noqa: PLR0917 - signature shared with the estimator and simulator
     lat_rad: float | npt.ArrayLike,
     lon_rad: float | npt.ArrayLike,
     az_rad: npt.ArrayLike,

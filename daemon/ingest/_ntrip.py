@@ -220,6 +220,7 @@ class NtripTransport:
         self._chunks = ChunkedDecoder() if resp.chunked else None
         self._pending = resp.rest
         self._next_gga = math.inf
+        self._closed = False
         self.gga_sent = 0
 
     @classmethod
@@ -271,6 +272,8 @@ class NtripTransport:
                 await self._send_gga()
 
     async def read(self, max_bytes: int) -> bytes:
+        if self._closed:
+            raise TransportError(f"{self._what}: read after close")
         if self._chunks is None:
             return await self._raw(max_bytes)
         while True:
@@ -284,6 +287,7 @@ class NtripTransport:
                 return data
 
     async def aclose(self) -> None:
+        self._closed = True
         await self._tcp.aclose()
 
 

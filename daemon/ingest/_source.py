@@ -113,9 +113,8 @@ def _query(query: str, allowed: set[str], url: str) -> dict[str, str]:
     params = dict(parse_qsl(query, keep_blank_values=True))
     unknown = sorted(set(params) - allowed)
     if unknown:
-        raise _bad(
-            f"unknown option {unknown[0]!r} in {url!r} (allowed: {', '.join(sorted(allowed))})"
-        )
+        hint = f"allowed: {', '.join(sorted(allowed))}" if allowed else "this scheme takes none"
+        raise _bad(f"unknown option {unknown[0]!r} in {url!r} ({hint})")
     return params
 
 

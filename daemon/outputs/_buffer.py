@@ -14,8 +14,10 @@ from __future__ import annotations
 
 from collections import deque
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
-from ._topics import Topic
+if TYPE_CHECKING:
+    from ._topics import Topic
 
 __all__ = ["OutboundBuffer", "OutboundMessage"]
 
@@ -41,9 +43,8 @@ class OutboundBuffer:
 
     def __init__(self, *, alarm_bound: int, epoch_bound: int) -> None:
         self._alarm: deque[OutboundMessage] = deque()
-        self._epoch: deque[OutboundMessage] = deque()
         self.alarm_bound = alarm_bound
-        self._epoch = deque(maxlen=epoch_bound)
+        self._epoch: deque[OutboundMessage] = deque(maxlen=epoch_bound)
         self.dropped_alarm = 0
         self.dropped_epoch = 0
 

@@ -91,7 +91,10 @@ def _num(x: float, digits: int) -> float | None:
 def _col(a: npt.NDArray[Any], digits: int) -> list[float | None]:
     """An array column as a JSON list, rounded, NaN → null (vectorised)."""
     r = np.round(a.astype(np.float64), digits)
-    return np.where(np.isfinite(r), r, None).tolist()  # type: ignore[no-any-return]
+    out = r.astype(object)
+    out[~np.isfinite(r)] = None
+    values: list[float | None] = out.tolist()
+    return values
 
 
 def summary_payload(snap: StationSnapshot) -> bytes:

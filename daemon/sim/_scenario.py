@@ -179,9 +179,7 @@ class Scenario:
 # "Harlowe Cut" is an invented road-cutting construction site in an invented county; the rovers
 # are placed due east/north-east of it at the stated distances (km along the WGS 84 surface,
 # spherical approximation, R = 6371 km).
-_BASE = Station(
-    name="HARC", station_id=41, lat_deg=48.6150, lon_deg=10.4230, height_m=512.0
-)
+_BASE = Station(name="HARC", station_id=41, lat_deg=48.6150, lon_deg=10.4230, height_m=512.0)
 
 
 def _offset(name: str, sid: int, km_east: float, km_north: float) -> Station:

@@ -1,0 +1,171 @@
+"""Throughput of the rolling estimator: 40 satellites × 3 signals at 1 Hz, decode + estimate.
+
+    .venv/bin/python bench/bench_estimator.py [--epochs N] [--rounds R] [--profile]
+
+The input is our own invented scenario: broadcast ephemerides from the simulator's constellation
+builder (GPS + Galileo + BeiDou), the 40 highest satellites over an invented site, three signals
+each (G 1C/2W/5Q, E 1C/5Q/7Q, C 2I/6I/7I), code/phase from the true ranges with a smooth
+ionosphere and white noise, encoded as RTCM MSM7 with our encoder. Timed, best of R rounds, one
+thread:
+
+* estimate only: ``StationEstimator.update`` over pre-decoded ``ObsEpoch`` s;
+* decode only: ``StreamDecoder.feed`` over the MSM7 bytes;
+* decode + estimate: ``StationPipeline.feed`` over the same bytes (what the daemon does).
+
+Memory: tracemalloc peak and the traced size after the first and the last third of the epochs
+(no per-epoch growth means the two are equal up to noise).
+"""
+
+from __future__ import annotations
+
+import argparse
+import cProfile
+import io
+import os
+import platform
+import pstats
+import time
+import tracemalloc
+
+import numpy as np
+
+from ionwarden.daemon.estimator import StationEstimator
+from ionwarden.daemon.estimator._pipeline import StationPipeline
+from ionwarden.daemon.geo import EphemerisStore, geodetic_to_ecef, satellite_geometry
+from ionwarden.daemon.sim._constellation import build_constellation
+from ionwarden.parsers import EPOCH_DTYPES, GpsTime, ObsEpoch, carrier_frequency_hz, signal_code
+from ionwarden.parsers._msm_encode import encode_msm
+from ionwarden.parsers._stream import StreamDecoder
+
+C = 299_792_458.0
+SIGNALS = {"G": ("1C", "2W", "5Q"), "E": ("1C", "5Q", "7Q"), "C": ("2I", "6I", "7I")}
+T0 = GpsTime(2350, 200_000.0)
+RX = geodetic_to_ecef(np.radians(46.5), np.radians(7.5), 600.0)  # invented site
+
+
+def make_scenario(n_epochs: int) -> tuple[list[object], list[ObsEpoch], bytes]:
+    t0 = T0.total_s
+    cons = build_constellation("GEC", 7, t0 - 3600.0, t0 + n_epochs + 3600.0)
+    ephs = [e for s in cons.series.values() for group in s.ephemerides for e in group]
+    store = EphemerisStore(keep_per_sat=100)
+    for e in ephs:
+        store.add(e)
+    geo0 = satellite_geometry(t0, RX, cons.sats, store)
+    sats = np.sort(cons.sats[np.argsort(-np.nan_to_num(geo0.el_rad, nan=-9.0))[:40]])
+    rng = np.random.default_rng(1)
+    cell_sat = np.repeat(sats, 3).astype(np.int16)
+    letters = ["GRECJSI"[s // 100] for s in sats]
+    cell_sig = np.array([signal_code(c) for ltr in letters for c in SIGNALS[ltr]], np.uint16)
+    freq = np.array([carrier_frequency_hz(ltr, int(c[0])) for ltr in letters for c in SIGNALS[ltr]])
+    n_amb = rng.integers(-500, 500, cell_sat.shape[0])
+    epochs: list[ObsEpoch] = []
+    for k in range(n_epochs):
+        t = t0 + k
+        g = satellite_geometry(t, RX, sats, store)
+        rho = np.repeat(np.nan_to_num(g.range_m, nan=2.2e7), 3)
+        el = np.repeat(np.nan_to_num(g.el_rad), 3)
+        stec = 25.0 / np.sqrt(1.0 - (0.948 * np.cos(el)) ** 2)
+        iono = 40.3e16 * stec / freq**2
+        m = cell_sat.shape[0]
+        arrays = {
+            "sat": cell_sat,
+            "sig": cell_sig,
+            "pseudorange_m": rho + iono + rng.normal(0.0, 0.3, m),
+            "phase_cycles": (rho - iono + rng.normal(0.0, 0.002, m)) * freq / C + n_amb,
+            "range_rate_mps": np.zeros(m),
+            "cn0_dbhz": np.full(m, 45.0, np.float32),
+            "lock_time_s": np.full(m, 600.0 + k, np.float32),
+            "lock_indicator": np.full(m, 500, np.int16),
+            "half_cycle": np.zeros(m, np.bool_),
+            "lli": np.zeros(m, np.uint8),
+            "freq_hz": freq,
+        }
+        assert all(arrays[n].dtype == d for n, d in EPOCH_DTYPES.items())
+        epochs.append(ObsEpoch(time=GpsTime.from_total(t), **arrays))  # type: ignore[arg-type]
+    stream = b"".join(b"".join(encode_msm(ep, level=7, station_id=1)) for ep in epochs)
+    nav = [e for e in ephs if abs(e.week * 604800.0 + e.toe_s - t0) < 4 * 3600.0]
+    return nav, epochs, stream
+
+
+def best_of(rounds: int, fn: object) -> float:
+    best = float("inf")
+    for _ in range(rounds):
+        t = time.perf_counter()
+        fn()  # type: ignore[operator]
+        best = min(best, time.perf_counter() - t)
+    return best
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--epochs", type=int, default=1800)
+    ap.add_argument("--rounds", type=int, default=3)
+    ap.add_argument("--profile", action="store_true", help="print the top cProfile entries")
+    args = ap.parse_args()
+    n = args.epochs
+    print(f"python {platform.python_version()} numpy {np.__version__} on {platform.machine()}, "
+          f"{os.cpu_count()} CPUs (shared with other developers: figures are under contention)")  # fmt: skip
+    t = time.perf_counter()
+    nav, epochs, stream = make_scenario(n)
+    cells = sum(len(e) for e in epochs) / n
+    print(f"scenario: {n} epochs, {cells:.0f} cells/epoch (40 sats × 3 signals), "
+          f"{len(stream) / n:.0f} bytes/epoch MSM7, {len(nav)} ephemerides; built in {time.perf_counter() - t:.1f} s")  # fmt: skip
+
+    def estimate_only() -> None:
+        est = StationEstimator(station="BENCH")
+        est.set_receiver_position(RX, "config")
+        for e in nav:
+            est.add_ephemeris(e)  # type: ignore[arg-type]
+        for ep in epochs:
+            est.update(ep)
+
+    def decode_only() -> None:
+        d = StreamDecoder(T0)
+        for i in range(0, len(stream), 4096):
+            d.feed(stream[i : i + 4096])
+        d.feed(b"")
+
+    def decode_estimate() -> int:
+        p = StationPipeline("BENCH", position_ecef_m=RX, reference_time=T0)
+        p.handle(nav)
+        count = 0
+        for i in range(0, len(stream), 4096):
+            count += len(p.feed(stream[i : i + 4096]))
+        return count + len(p.feed(b""))
+
+    assert decode_estimate() == n, "every epoch must come out"
+    for label, fn in (("estimate only", estimate_only), ("decode only", decode_only),
+                      ("decode + estimate", decode_estimate)):  # fmt: skip
+        dt = best_of(args.rounds, fn)
+        print(f"{label:18s} {n / dt:8.0f} epochs/s  ({1e6 * dt / n:6.0f} µs/epoch)")
+
+    est = StationEstimator(station="BENCH")
+    est.set_receiver_position(RX, "config")
+    for e in nav:
+        est.add_ephemeris(e)  # type: ignore[arg-type]
+    third = n // 3
+    for ep in epochs[:third]:
+        est.update(ep)  # warm-up: rings filled, arrays allocated
+    tracemalloc.start()
+    for ep in epochs[third : 2 * third]:
+        est.update(ep)
+    mid, _ = tracemalloc.get_traced_memory()
+    for ep in epochs[2 * third :]:
+        est.update(ep)
+    end, peak = tracemalloc.get_traced_memory()
+    tracemalloc.stop()
+    print(f"memory (tracemalloc, after warm-up): {mid / 1024:.0f} KiB at 2/3, {end / 1024:.0f} KiB at the end "
+          f"(growth {(end - mid) / max(n - 2 * third, 1):.1f} B/epoch), peak {peak / 1024:.0f} KiB")  # fmt: skip
+
+    if args.profile:
+        pr = cProfile.Profile()
+        pr.enable()
+        decode_estimate()
+        pr.disable()
+        out = io.StringIO()
+        pstats.Stats(pr, stream=out).sort_stats("tottime").print_stats(15)
+        print(out.getvalue())
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,460 @@
+"""The rolling ionosphere estimator of one station: ObsEpoch in, StationSnapshot out.
+
+Pure and vectorised (STYLE rules 21–22): ``update(epoch)`` takes time from the epoch and never
+reads a clock; per-satellite state is a set of preallocated arrays indexed by satellite id
+(``S = MAX_SAT_ID`` slots); each epoch works on the ``m`` satellites present with numpy fancy
+indexing, never a per-satellite Python branch.
+
+Symbols per satellite (SCIENCE.md §2–§9): P1, P2 code (m); L1, L2 phase (m = cycles·c/f); K
+(TECU/m); GF = L1 − L2; MW Melbourne–Wübbena; STEC_raw = K·GF + levelling offset (TECU), the
+offset the sin²el-weighted running mean over the arc of K·(P2 − P1) − K·GF; STEC = STEC_raw −
+B_sat − B_rcv; VTEC = STEC/M(el); ROT = ΔSTEC/Δt over ``rot_interval_s`` (TECU/min, sliding);
+ROTI = std of ROT over ``roti_window_s``; IF = α·X1 + β·X2; Hatch-smoothed IF code with
+N = min(samples in arc, window/interval); MP1/MP2 code-minus-carrier with the arc mean removed.
+"""
+
+from __future__ import annotations
+
+import copy
+import math
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+import numpy.typing as npt
+
+from ionwarden.daemon.config import EstimatorSettings
+from ionwarden.daemon.geo import mapping_factor, pierce_point
+from ionwarden.parsers import MAX_SAT_ID, SYSTEMS, sat_id
+
+from ._arcs import REASON_NAMES, REASON_PAIR, ArcState, SlipThresholds
+from ._geometry import Geometry
+from ._pairs import C_MPS, PairTable, band_delays_s, iono_coefficients, satellite_bias_tecu
+from ._rxbias import ReceiverBias
+from ._snapshot import SatelliteFigures, StationSnapshot
+from ._station import pierce_offsets_km, station_figures
+from ._windows import LagRing, SlotStd
+
+if TYPE_CHECKING:
+    from ionwarden.parsers import GlonassEphemeris, GpsTime, KeplerEphemeris, ObsEpoch
+
+__all__ = ["StationEstimator"]
+
+F64 = npt.NDArray[np.float64]
+Idx = npt.NDArray[np.intp]
+N_SIG = 10 * 32  # packed signal codes are band*32 + attribute, bands 0–9
+#: Epoch intervals remembered to estimate the sampling interval (median).
+_INTERVAL_HISTORY = 9
+
+
+class StationEstimator:
+    """Rolling TEC/ROT/ROTI/VTEC/iono-free estimator for one receiver."""
+
+    def __init__(
+        self, settings: EstimatorSettings | None = None, *, station: str = "", ephemerides_per_sat: int = 3
+    ) -> None:
+        """``ephemerides_per_sat``: newest broadcast sets kept per satellite (raise it when a whole
+        day's navigation file is loaded up front, as ``ionwarden process`` does)."""
+        cfg = settings or EstimatorSettings()
+        self.settings = cfg
+        self.station = station
+        self.pairs = PairTable.from_config(cfg.pairs)
+        w = self.pairs.width
+        self._shell_m = cfg.shell_height_km * 1000.0
+        self._mask_rad = math.radians(cfg.elevation_mask_deg)
+        S = MAX_SAT_ID
+        self.arcs = ArcState(
+            S,
+            SlipThresholds(mw_k_sigma=cfg.slip_mw_k_sigma, gf_floor_m=cfg.slip_gf_floor_m),
+        )
+        self.geometry = Geometry(S, cfg.geometry_refresh_s, keep_per_sat=ephemerides_per_sat)
+        self.rot_ring = LagRing(S, cfg.rot_interval_s)
+        self.roti_window = SlotStd(S, cfg.roti_window_s, cfg.roti_sample_s)
+        labels = [f"{SYSTEMS[s]}:{lab}" if lab else "" for s in range(len(SYSTEMS)) for lab in
+                  (*self.pairs.labels[s], *([""] * (w - len(self.pairs.labels[s]))))]  # fmt: skip
+        self.rx_bias = ReceiverBias(labels, cfg.receiver_bias_memory_s)
+        # Per-satellite state (S slots).
+        self._band_delay_s = np.full((S, 10), np.nan)
+        self._dcb_override_ns = np.full((S, w), np.nan)
+        self._lev_mean = np.zeros(S)
+        self._lev_sw = np.zeros(S)
+        self._gf0_tecu = np.zeros(S)
+        self._hatch_m = np.full(S, np.nan)
+        self._if_phase_prev = np.full(S, np.nan)
+        self._mp1_mean = np.zeros(S)
+        self._mp2_mean = np.zeros(S)
+        # Per-cell lookup by (satellite, signal), stamped per epoch instead of cleared.
+        self._cell_stamp = np.zeros((S, N_SIG), np.int64)
+        self._cell_index = np.zeros((S, N_SIG), np.intp)
+        self._stamp = 0
+        self._last_epoch_t = -math.inf
+        self._intervals = np.full(_INTERVAL_HISTORY, np.nan)
+        self._interval = 1.0  # s, median of the recent epoch intervals
+        self._last_eph: dict[int, KeplerEphemeris | GlonassEphemeris] = {}
+        self._n_epochs = 0
+        self._rb_last_t = -math.inf
+        self._last_roti_median = math.nan
+        self._ref_group = -1
+        self._last: StationSnapshot | None = None
+        self.counters: dict[str, int] = {"epochs": 0, "epochs_out_of_order": 0, "cells_unusable": 0}
+        for name in REASON_NAMES.values():
+            self.counters[f"arcs_{name}"] = 0
+        self._apply_dcb_overrides(cfg.satellite_dcb_ns)
+
+    # -- inputs other than observations -----------------------------------------------------------
+    def _apply_dcb_overrides(self, table: dict[str, dict[str, float]]) -> None:
+        for sat_name, per_pair in table.items():
+            sat = sat_id(sat_name[0], int(sat_name[1:]))
+            labels = self.pairs.labels[sat // 100]
+            for label, ns in per_pair.items():
+                if label not in labels:
+                    raise ValueError(f"satellite_dcb_ns.{sat_name}: pair {label!r} not configured")
+                self._dcb_override_ns[sat, labels.index(label)] = ns
+
+    def add_ephemeris(self, eph: KeplerEphemeris | GlonassEphemeris) -> None:
+        """Use a broadcast ephemeris for geometry and its group delays for the satellite bias."""
+        if not 0 <= eph.sat < MAX_SAT_ID or self._last_eph.get(eph.sat) == eph:
+            return  # receivers repeat the same set every few seconds
+        self._last_eph[eph.sat] = eph
+        t = self._last_epoch_t if math.isfinite(self._last_epoch_t) else None
+        self.geometry.add_ephemeris(eph, t)
+        delays = band_delays_s(eph)
+        if np.isfinite(delays).any():
+            self._band_delay_s[eph.sat] = delays
+
+    def set_receiver_position(self, ecef_m: npt.ArrayLike, source: str) -> None:
+        """Receiver antenna position (ECEF m) from config, RTCM 1005/1006 or GGA."""
+        self.geometry.set_receiver_position(ecef_m, source)
+
+    def set_gsv(self, time: GpsTime, sats: npt.ArrayLike, el_deg: npt.ArrayLike, az_deg: npt.ArrayLike) -> None:
+        """Fallback elevations/azimuths from NMEA GSV (used only where no orbit is known)."""
+        self.geometry.set_gsv(time.total_s, sats, el_deg, az_deg)
+
+    # -- the hot path -------------------------------------------------------------------------------
+    def update(self, epoch: ObsEpoch) -> StationSnapshot:
+        """Process one epoch (time from the epoch) and return the station snapshot."""
+        t = epoch.time.total_s
+        if t <= self._last_epoch_t:
+            self.counters["epochs_out_of_order"] += 1
+            return self._last if self._last is not None else self._empty(epoch)
+        if math.isfinite(self._last_epoch_t):
+            dt = t - self._last_epoch_t
+            self._intervals[self._n_epochs % _INTERVAL_HISTORY] = dt
+            if abs(dt - self._interval) > 1e-6:
+                self._interval = float(np.nanmedian(self._intervals))
+                self.rot_ring.ensure_interval(self._interval)
+        self._last_epoch_t = t
+        self._n_epochs += 1
+        self.counters["epochs"] += 1
+        # NaN marks "unknown" throughout: silence the invalid/0-division warnings it causes.
+        with np.errstate(invalid="ignore", divide="ignore"):
+            snap = self._update(epoch, t, self._interval)
+        self._last = snap
+        return snap
+
+    def _update(self, epoch: ObsEpoch, t: float, interval: float) -> StationSnapshot:
+
+        sat = epoch.sat.astype(np.intp)
+        sig = epoch.sig.astype(np.intp)
+        in_range = (sat >= 0) & (sat < MAX_SAT_ID) & (sig < N_SIG)
+        usable = (
+            in_range
+            & (sig >= 32)
+            & np.isfinite(epoch.pseudorange_m)
+            & np.isfinite(epoch.phase_cycles)
+            & np.isfinite(epoch.freq_hz)
+            & (epoch.pseudorange_m > 0.0)
+        )
+        self.counters["cells_unusable"] += int(in_range.sum() - usable.sum())
+        self._stamp += 1
+        cells = np.flatnonzero(usable)
+        self._cell_stamp[sat[cells], sig[cells]] = self._stamp
+        self._cell_index[sat[cells], sig[cells]] = cells
+
+        present = np.unique(sat[in_range])
+        sysi = present // 100
+        c1 = self.pairs.sig1[sysi]
+        c2 = self.pairs.sig2[sysi]
+        col = present[:, None]
+        avail = (self._cell_stamp[col, c1] == self._stamp) & (self._cell_stamp[col, c2] == self._stamp)
+        has = avail.any(axis=1)
+        rank_all = avail.argmax(axis=1)
+        idx = present[has]
+        rank = rank_all[has]
+        rows = np.flatnonzero(has)
+        s1 = c1[rows, rank]
+        s2 = c2[rows, rank]
+        i1 = self._cell_index[idx, s1]
+        i2 = self._cell_index[idx, s2]
+
+        el_all, az_all, geo_source = self.geometry.lookup(present, t)
+        el = el_all[has]
+        figs = self._dual(epoch, t, interval, idx, rank.astype(np.int16), s1, s2, i1, i2, el)
+
+        # Assemble per-satellite output over every satellite present (NaN where single-frequency).
+        m = present.shape[0]
+
+        fields = ("stec", "rot", "roti", "iono_l1", "if_code", "if_phase", "hatch", "mp1", "mp2", "noise_factor")
+        block = np.full((len(fields), m), np.nan)
+        for j, name in enumerate(fields):
+            block[j, has] = figs[name]
+        row = dict(zip(fields, block, strict=True))
+
+        def spread(name: str) -> F64:
+            return row[name]
+
+        mapping = mapping_factor(el_all, self._shell_m)
+        ipp_lat = np.full(m, np.nan)
+        ipp_lon = np.full(m, np.nan)
+        if math.isfinite(self.geometry.lat_rad):
+            ipp_lat, ipp_lon = pierce_point(
+                self.geometry.lat_rad, self.geometry.lon_rad, az_all, el_all, self._shell_m
+            )
+        stec = spread("stec")
+        vtec = np.where(el_all > 0.0, stec / mapping, np.nan)
+        rot = spread("rot")
+        roti = spread("roti")
+        x_km, y_km = pierce_offsets_km(
+            self.geometry.lat_rad, self.geometry.lon_rad, ipp_lat, ipp_lon, self._shell_m
+        )
+        st = station_figures(
+            el_rad=el_all, vtec=vtec, rot=rot, roti=roti, x_km=x_km, y_km=y_km, mask_rad=self._mask_rad
+        )
+        self._last_roti_median = st.roti_median
+        self._update_receiver_bias(t, figs, has, el_all, mapping, x_km, y_km, idx, rank)
+
+        slip = np.zeros(m, np.bool_)
+        slip[has] = figs["new"]
+        arc_id = np.full(m, -1, np.int32)
+        arc_id[has] = figs["arc"]
+        switch = np.zeros(m, np.bool_)
+        switch[has] = figs["pair_switch"]
+        codes = sysi * self.pairs.width + rank_all
+        labels = np.where(has, self.pairs.label_of_code[codes], "")
+        sats = SatelliteFigures(
+            sat=present.astype(np.int16),
+            pair=tuple(labels.tolist()),
+            el_deg=np.degrees(el_all),
+            az_deg=np.degrees(az_all),
+            ipp_lat_deg=np.degrees(ipp_lat),
+            ipp_lon_deg=np.degrees(ipp_lon),
+            stec_tecu=stec,
+            vtec_tecu=vtec,
+            rot_tecu_per_min=rot,
+            roti_tecu_per_min=roti,
+            iono_l1_m=spread("iono_l1"),
+            if_code_m=spread("if_code"),
+            if_phase_m=spread("if_phase"),
+            if_code_smoothed_m=spread("hatch"),
+            slip=slip,
+            arc_id=arc_id,
+            mp1_m=spread("mp1"),
+            mp2_m=spread("mp2"),
+            if_noise_factor=spread("noise_factor"),
+            pair_switch=switch,
+        )
+        ref = self._ref_group
+        el_slot = np.full(MAX_SAT_ID, np.nan)
+        el_slot[present] = el_all
+        cell_el = np.full(sat.shape[0], np.nan)
+        cell_el[in_range] = np.degrees(el_slot[sat[in_range]])
+        return StationSnapshot(
+            station=self.station,
+            time=epoch.time,
+            n_sats=m,
+            vtec_tecu=st.vtec_tecu,
+            roti_max_tecu_per_min=st.roti_max,
+            roti_median_tecu_per_min=st.roti_median,
+            rot_max_abs_tecu_per_min=st.rot_max_abs,
+            gradient_mm_per_km=st.gradient_mm_per_km,
+            gradient_tecu_per_km=st.gradient_tecu_per_km,
+            gradient_azimuth_deg=st.gradient_azimuth_deg,
+            dual_freq_fraction=float(idx.shape[0] / m) if m else math.nan,
+            receiver_bias_tecu=float(self.rx_bias.bias[ref]) if ref >= 0 else math.nan,
+            receiver_bias_sigma_tecu=float(self.rx_bias.sigma[ref]) if ref >= 0 else math.nan,
+            satellites=sats,
+            cell_sat=epoch.sat,
+            cell_sig=epoch.sig,
+            cell_el_deg=cell_el,
+            cell_cn0_dbhz=epoch.cn0_dbhz,
+            geometry_source=geo_source if m else "none",
+            counters=self._counters(),
+        )
+
+    def _dual(
+        self,
+        epoch: ObsEpoch,
+        t: float,
+        interval: float,
+        idx: Idx,
+        rank: npt.NDArray[np.int16],
+        s1: Idx,
+        s2: Idx,
+        i1: Idx,
+        i2: Idx,
+        el: F64,
+    ) -> dict[str, Any]:
+        """All dual-frequency figures of the satellites ``idx`` (arrays of length m)."""
+        f1 = epoch.freq_hz[i1]
+        f2 = epoch.freq_hz[i2]
+        co = iono_coefficients(f1, f2)
+        p1 = epoch.pseudorange_m[i1]
+        p2 = epoch.pseudorange_m[i2]
+        l1 = epoch.phase_cycles[i1] * (C_MPS / f1)
+        l2 = epoch.phase_cycles[i2] * (C_MPS / f2)
+        gf = l1 - l2
+        mw = (f1 * l1 - f2 * l2) / (f1 - f2) - (f1 * p1 + f2 * p2) / (f1 + f2)
+        lli_lost = ((epoch.lli[i1] | epoch.lli[i2]) & 1) != 0
+        gap_s = max(self.settings.max_gap_s, self.settings.gap_samples * interval)
+        arc, new, reason = self.arcs.detect(
+            t=t, idx=idx, rank=rank, mw_m=mw, gf_m=gf, lambda_wl_m=co.lambda_wl_m, el_rad=el,
+            lock1=epoch.lock_indicator[i1], lock2=epoch.lock_indicator[i2],
+            locktime1=epoch.lock_time_s[i1], locktime2=epoch.lock_time_s[i2],
+            half1=epoch.half_cycle[i1], half2=epoch.half_cycle[i2], lli_lost=lli_lost, gap_s=gap_s,
+        )  # fmt: skip
+        for bit, name in REASON_NAMES.items():
+            self.counters[f"arcs_{name}"] += int(np.count_nonzero(reason & bit))
+        inew = idx[new]
+        k = co.k_tecu_per_m
+        gf_tecu = k * gf
+        # Arc starts: reset every per-arc accumulator.
+        self._lev_mean[inew] = 0.0
+        self._lev_sw[inew] = 0.0
+        self._gf0_tecu[inew] = gf_tecu[new]
+        self._mp1_mean[inew] = 0.0
+        self._mp2_mean[inew] = 0.0
+        n_arc = self.arcs.n[idx].astype(np.float64)
+
+        # Levelling: running sin²el-weighted mean of K·(P2 − P1) − K·GF over the arc.
+        w = np.where(np.isfinite(el), np.maximum(np.sin(el), 0.1) ** 2, 1.0)
+        self._lev_sw[idx] += w
+        x = k * (p2 - p1) - gf_tecu
+        self._lev_mean[idx] += (w / self._lev_sw[idx]) * (x - self._lev_mean[idx])
+        stec_raw = gf_tecu + self._lev_mean[idx]
+        b_sat = satellite_bias_tecu(self._band_delay_s[idx], s1 // 32, s2 // 32, k)
+        over = self._dcb_override_ns[idx, rank]
+        b_sat = np.where(np.isfinite(over), -k * C_MPS * over * 1e-9, b_sat)
+        group = (idx // 100) * self.pairs.width + rank
+        stec = stec_raw - b_sat - self.rx_bias.bias[group]
+
+        # ROT over the lag, from the arc-relative levelled phase; ROTI over the window.
+        rel = gf_tecu - self._gf0_tecu[idx]
+        lagged, t_lag = self.rot_ring.lagged(t, idx, arc, interval)
+        rot = (rel - lagged) / ((t - t_lag) / 60.0) if math.isfinite(t_lag) else np.full(idx.shape, np.nan)
+        self.rot_ring.push(t, idx, rel, arc)
+        self.roti_window.push(t, idx, rot)
+        roti = self.roti_window.std(idx, self.settings.roti_min_samples)
+
+        # Iono-free code/phase, Hatch filter (reset per arc), code-minus-carrier multipath.
+        if_code = co.alpha * p1 + co.beta * p2
+        if_phase = co.alpha * l1 + co.beta * l2
+        n_h = np.minimum(n_arc, max(self.settings.hatch_window_s / interval, 1.0))
+        prev = self._hatch_m[idx] + if_phase - self._if_phase_prev[idx]
+        hatch = np.where(new, if_code, if_code / n_h + (n_h - 1.0) / n_h * prev)
+        self._hatch_m[idx] = hatch
+        self._if_phase_prev[idx] = if_phase
+        g1 = 2.0 / (co.gamma - 1.0)
+        mp1_raw = p1 - (1.0 + g1) * l1 + g1 * l2
+        mp2_raw = p2 - co.gamma * g1 * l1 + (co.gamma * g1 - 1.0) * l2
+        self._mp1_mean[idx] += (mp1_raw - self._mp1_mean[idx]) / n_arc
+        self._mp2_mean[idx] += (mp2_raw - self._mp2_mean[idx]) / n_arc
+        return {
+            "stec": stec,
+            "stec_raw": stec_raw,
+            "b_sat": b_sat,
+            "group": group,
+            "n_arc": n_arc,
+            "rot": rot,
+            "roti": roti,
+            "iono_l1": stec * co.l1_m_per_tecu,
+            "if_code": if_code,
+            "if_phase": if_phase,
+            "hatch": hatch,
+            "mp1": mp1_raw - self._mp1_mean[idx],
+            "mp2": mp2_raw - self._mp2_mean[idx],
+            "noise_factor": co.noise_factor,
+            "arc": arc,
+            "new": new,
+            "pair_switch": (reason & REASON_PAIR) != 0,
+        }
+
+    def _update_receiver_bias(
+        self, t: float, figs: dict[str, Any], has: npt.NDArray[np.bool_], el_all: F64,
+        mapping: F64, x_km: F64, y_km: F64, idx: Idx, rank: Idx,
+    ) -> None:  # fmt: skip
+        if t - self._rb_last_t < self.settings.receiver_bias_update_s:
+            return
+        el = el_all[has]
+        interval = self._interval
+        use = (
+            (el >= self._mask_rad)
+            & (figs["n_arc"] * interval >= self.settings.receiver_bias_min_arc_s)
+            & np.isfinite(x_km[has])
+            & np.isfinite(figs["stec_raw"])
+        )
+        if int(use.sum()) < 5:
+            return
+        self._rb_last_t = t
+        roti_med = self._last_roti_median
+        quiet = 1.0 / (1.0 + (roti_med / 0.25) ** 2) if math.isfinite(roti_med) else 1.0
+        y = (figs["stec_raw"] - figs["b_sat"])[use]
+        self._ref_group = -1  # recomputed below
+        self.rx_bias.add_epoch(
+            t, y, mapping[has][use], x_km[has][use], y_km[has][use], figs["group"][use],
+            quiet * np.sin(el[use]) ** 2,
+        )  # fmt: skip
+        self._ref_group = self._reference_group()
+
+    def _counters(self) -> dict[str, int]:
+        """Counters for the snapshot; the ephemeris store's are refreshed every 32 epochs (its
+        statistics walk the whole store)."""
+        if self._n_epochs % 32 == 1:
+            st = self.geometry.store.statistics()
+            self.counters["ephemerides_stored"] = st.stored
+            self.counters["ephemerides_stale"] = st.stale
+            self.counters["ephemerides_future"] = st.future
+            self.counters["ephemerides_unhealthy"] = st.unhealthy
+            self.counters["ephemerides_inconsistent"] = st.inconsistent
+            self.counters.update(self.geometry.counters)
+        return dict(self.counters)
+
+    def _reference_group(self) -> int:
+        """The group whose receiver bias the snapshot reports: the best-determined one."""
+        sig = self.rx_bias.sigma
+        if not np.isfinite(sig).any():
+            return -1
+        return int(np.nanargmin(sig))
+
+    def _empty(self, epoch: ObsEpoch) -> StationSnapshot:
+        e = np.zeros(0)
+        return StationSnapshot(
+            station=self.station, time=epoch.time, n_sats=0, vtec_tecu=math.nan,
+            roti_max_tecu_per_min=math.nan, roti_median_tecu_per_min=math.nan,
+            rot_max_abs_tecu_per_min=math.nan, gradient_mm_per_km=math.nan,
+            gradient_tecu_per_km=math.nan, gradient_azimuth_deg=math.nan,
+            dual_freq_fraction=math.nan, receiver_bias_tecu=math.nan,
+            receiver_bias_sigma_tecu=math.nan,
+            satellites=SatelliteFigures(
+                sat=np.zeros(0, np.int16), pair=(), el_deg=e, az_deg=e, ipp_lat_deg=e,
+                ipp_lon_deg=e, stec_tecu=e, vtec_tecu=e, rot_tecu_per_min=e,
+                roti_tecu_per_min=e, iono_l1_m=e, if_code_m=e, if_phase_m=e,
+                if_code_smoothed_m=e, slip=np.zeros(0, np.bool_), arc_id=np.zeros(0, np.int32),
+            ),
+            cell_sat=np.zeros(0, np.int16), cell_sig=np.zeros(0, np.uint16), cell_el_deg=e,
+            cell_cn0_dbhz=np.zeros(0, np.float32), geometry_source="none",
+            counters=dict(self.counters),
+        )  # fmt: skip
+
+    # -- persistence --------------------------------------------------------------------------------
+    def state_dict(self) -> dict[str, Any]:
+        """What survives a restart: the receiver-bias normal equations (plain JSON types)."""
+        return {"version": 1, "station": self.station, "receiver_bias": self.rx_bias.state_dict()}
+
+    def load_state(self, state: dict[str, Any]) -> None:
+        if state.get("version") != 1:
+            raise ValueError(f"unknown estimator state version {state.get('version')!r}")
+        self.rx_bias.load_state(state["receiver_bias"])
+        self._ref_group = self._reference_group()
+
+    def copy(self) -> StationEstimator:
+        """An independent deep copy (the whole rolling state)."""
+        return copy.deepcopy(self)

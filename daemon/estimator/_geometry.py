@@ -1,0 +1,130 @@
+"""Where each satellite is in the sky: broadcast ephemerides first, NMEA GSV as a flagged fallback.
+
+Axes: ``S`` satellite slots (``MAX_SAT_ID``); angles in radians inside, degrees only at the edges
+(GSV input). Elevation changes by less than 0.01° per second, so a satellite's geometry is
+recomputed from its orbit only when it is older than ``refresh_s`` (all satellites of the epoch
+in one vectorised call) and in between extrapolated linearly from the per-slot cache (rates from
+the last two refreshes).
+"""
+
+from __future__ import annotations
+
+import math
+from typing import TYPE_CHECKING
+
+import numpy as np
+import numpy.typing as npt
+
+from ionwarden.daemon.geo import EphemerisStore, ecef_to_geodetic, satellite_geometry
+
+if TYPE_CHECKING:
+    from ionwarden.parsers import GlonassEphemeris, KeplerEphemeris
+
+__all__ = ["Geometry"]
+
+F64 = npt.NDArray[np.float64]
+Idx = npt.NDArray[np.intp]
+#: A GSV elevation older than this is not used (s of data time): receivers send GSV every epoch.
+GSV_MAX_AGE_S = 30.0
+
+
+class Geometry:
+    """Per-satellite elevation/azimuth cache fed by orbits (preferred) or GSV (fallback)."""
+
+    def __init__(self, n_slots: int, refresh_s: float, *, keep_per_sat: int = 3) -> None:
+        self.refresh_s = float(refresh_s)
+        self.el = np.full(n_slots, np.nan)
+        self.az = np.full(n_slots, np.nan)
+        self.t_orbit = np.full(n_slots, np.nan)  # time of the cached orbit geometry
+        self.el_rate = np.zeros(n_slots)  # rad/s, from the last two refreshes
+        self.az_rate = np.zeros(n_slots)
+        self.gsv_el = np.full(n_slots, np.nan)
+        self.gsv_az = np.full(n_slots, np.nan)
+        self.gsv_t = np.full(n_slots, np.nan)
+        self.rx_ecef: F64 | None = None
+        self.rx_source = ""
+        self.lat_rad = math.nan
+        self.lon_rad = math.nan
+        self.store = EphemerisStore(keep_per_sat=keep_per_sat)
+        self.has_ephemeris = False
+        self.counters: dict[str, int] = {}
+
+    # -- inputs ---------------------------------------------------------------------------------
+    def set_receiver_position(self, ecef_m: npt.ArrayLike, source: str) -> None:
+        xyz = np.asarray(ecef_m, dtype=np.float64).reshape(3)
+        if not np.isfinite(xyz).all() or float(np.linalg.norm(xyz)) < 6.0e6:
+            raise ValueError(f"receiver position from {source} is not near the Earth's surface")
+        moved = self.rx_ecef is None or float(np.linalg.norm(xyz - self.rx_ecef)) > 100.0
+        self.rx_ecef = xyz
+        self.rx_source = source
+        lat, lon, _ = ecef_to_geodetic(xyz)
+        self.lat_rad, self.lon_rad = float(lat), float(lon)
+        if moved:
+            self.t_orbit.fill(np.nan)
+
+    def set_gsv(self, t_s: float, sats: npt.ArrayLike, el_deg: npt.ArrayLike, az_deg: npt.ArrayLike) -> None:
+        s = np.asarray(sats, dtype=np.intp)
+        e = np.asarray(el_deg, dtype=np.float64)
+        a = np.asarray(az_deg, dtype=np.float64)
+        assert s.shape == e.shape == a.shape, (s.shape, e.shape, a.shape)
+        keep = (s >= 0) & (s < self.el.shape[0]) & np.isfinite(e)
+        s, e, a = s[keep], e[keep], a[keep]
+        self.gsv_el[s] = np.radians(e)
+        self.gsv_az[s] = np.radians(np.where(np.isfinite(a), a, np.nan))
+        self.gsv_t[s] = t_s
+
+    def add_ephemeris(self, eph: KeplerEphemeris | GlonassEphemeris, t_s: float | None) -> None:
+        """Store a broadcast ephemeris (``t_s``: data time of reception, places GLONASS t_b)."""
+        try:
+            added = self.store.add(eph, t_received_gps_s=t_s)
+        except ValueError:
+            self.counters["ephemerides_unusable"] = self.counters.get("ephemerides_unusable", 0) + 1
+            return
+        if added:
+            self.has_ephemeris = True
+            self.t_orbit[eph.sat] = np.nan
+
+    # -- lookup ---------------------------------------------------------------------------------
+    def lookup(self, sats: Idx, t_s: float) -> tuple[F64, F64, str]:
+        """(el_rad, az_rad, source) for the satellites at time ``t_s`` (NaN where unknown).
+
+        Orbit geometry is recomputed for all ``sats`` at once when the last refresh is older
+        than ``refresh_s`` or a satellite has no cached value yet (one vectorised call; the
+        ephemeris store's selection cache then hits for the unchanged satellite list).
+        """
+        if self.rx_ecef is not None and self.has_ephemeris:
+            fresh = np.abs(t_s - self.t_orbit[sats]) <= self.refresh_s
+            if not fresh.all():
+                self._refresh(sats, t_s)
+        # Linear extrapolation from the last refresh: second-order error < 0.001° over 30 s.
+        dt = t_s - self.t_orbit[sats]
+        el = self.el[sats] + self.el_rate[sats] * dt
+        az = (self.az[sats] + self.az_rate[sats] * dt) % (2.0 * np.pi)
+        have = np.isfinite(el)
+        if have.all() and sats.size:
+            return el, az, "ephemeris"
+        gsv_ok = ~have & (np.abs(t_s - self.gsv_t[sats]) <= GSV_MAX_AGE_S)
+        if gsv_ok.any():
+            el[gsv_ok] = self.gsv_el[sats[gsv_ok]]
+            az[gsv_ok] = self.gsv_az[sats[gsv_ok]]
+            return el, az, "gsv" if not have.any() else "ephemeris+gsv"
+        return el, az, "ephemeris" if have.any() else "none"
+
+    def _refresh(self, sats: Idx, t_s: float) -> None:
+        """Recompute orbit geometry for ``sats`` (slots without a usable ephemeris become NaN)."""
+        assert self.rx_ecef is not None
+        geo = satellite_geometry(t_s, self.rx_ecef, sats, self.store)
+        ok = geo.valid
+        el = np.where(ok, geo.el_rad, np.nan)
+        az = np.where(ok, geo.az_rad, np.nan)
+        span = t_s - self.t_orbit[sats]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            usable = (span > 0.0) & (span < 4.0 * self.refresh_s)
+            d_az = (az - self.az[sats] + np.pi) % (2.0 * np.pi) - np.pi
+            self.el_rate[sats] = np.where(usable & ok, (el - self.el[sats]) / span, 0.0)
+            self.az_rate[sats] = np.where(usable & ok, d_az / span, 0.0)
+        self.el_rate[sats] = np.nan_to_num(self.el_rate[sats])
+        self.az_rate[sats] = np.nan_to_num(self.az_rate[sats])
+        self.el[sats] = el
+        self.az[sats] = az
+        self.t_orbit[sats] = t_s

@@ -1,0 +1,181 @@
+"""One station's synchronous pipeline: decoded messages (or raw bytes) in, snapshots out.
+
+The daemon runtime and ``ionwarden process`` both use exactly this, so a capture processed offline
+gives the figures the daemon would have published. Routing (table-driven by message type):
+
+* :class:`ObsEpoch` → :meth:`StationEstimator.update` → :class:`StationSnapshot`;
+* Keplerian / GLONASS ephemerides → the estimator's ephemeris store and satellite group delays;
+* RTCM 1005/1006 station reference → receiver position (unless configured), then GGA as a last
+  resort (precedence: config > 1005/1006 > GGA);
+* GSV groups → fallback elevations (flagged ``geometry_source="gsv"``);
+* GGA (+ GST of the same second) → :class:`FixStatus`.
+
+Everything else (RMC, GSA, proprietary RTCM, …) is ignored here. Pure: no clock, no I/O.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import math
+from collections.abc import Callable, Iterable
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+from ionwarden.daemon.geo import geodetic_to_ecef
+from ionwarden.parsers import GlonassEphemeris, GpsTime, KeplerEphemeris, ObsEpoch, utc_to_gps
+from ionwarden.parsers._nmea import GgaFix, GstErrors, GsvAssembler, GsvPart
+from ionwarden.parsers._rtcm_station import StationReference
+from ionwarden.parsers._stream import StreamDecoder
+
+from ._estimator import StationEstimator
+from ._snapshot import FixStatus, StationSnapshot
+
+if TYPE_CHECKING:
+    import numpy.typing as npt
+
+    from ionwarden.daemon.config import EstimatorSettings
+
+__all__ = ["PipelineOutput", "StationPipeline"]
+
+PipelineOutput = StationSnapshot | FixStatus
+_SOURCE_RANK = {"config": 3, "rtcm": 2, "rinex": 2, "gga": 1, "": 0}
+
+
+class StationPipeline:
+    """Routes one receiver's decoded messages to its estimator (see module doc)."""
+
+    def __init__(
+        self,
+        station: str,
+        settings: EstimatorSettings | None = None,
+        *,
+        position_ecef_m: npt.ArrayLike | None = None,
+        reference_time: GpsTime | None = None,
+        ephemerides_per_sat: int = 3,
+    ) -> None:
+        """``reference_time`` helps the byte decoder place MSM times of week (the daemon passes
+        its clock's reading at start; offline processing leaves it None)."""
+        self.station = station
+        self.estimator = StationEstimator(settings, station=station, ephemerides_per_sat=ephemerides_per_sat)
+        self.decoder = StreamDecoder(reference_time)
+        self._gsv = GsvAssembler()
+        self._position_source = ""
+        self._last_t: GpsTime | None = None
+        self._gga: GgaFix | None = None
+        self._gga_time: GpsTime | None = None
+        self._gst: GstErrors | None = None
+        self.counters: dict[str, int] = {"messages": 0, "ignored": 0, "positions_rejected": 0}
+        if position_ecef_m is not None:
+            self.set_position(position_ecef_m, "config")
+        self._routes: dict[type, Callable[[Any], PipelineOutput | None]] = {
+            ObsEpoch: self._on_epoch,
+            KeplerEphemeris: self._on_ephemeris,
+            GlonassEphemeris: self._on_ephemeris,
+            StationReference: self._on_station,
+            GsvPart: self._on_gsv,
+            GgaFix: self._on_gga,
+            GstErrors: self._on_gst,
+        }
+
+    # -- entry points ---------------------------------------------------------------------------
+    def feed(self, data: bytes | bytearray | memoryview) -> list[PipelineOutput]:
+        """Decode stream bytes (RTCM 3 and/or NMEA) and route them; ``b""`` ends the stream."""
+        return self.handle(self.decoder.feed(data))
+
+    def handle(self, messages: Iterable[object]) -> list[PipelineOutput]:
+        """Route already-decoded messages; returns the snapshots and fix reports they produce."""
+        out: list[PipelineOutput] = []
+        for msg in messages:
+            res = self.handle_one(msg)
+            if res is not None:
+                out.append(res)
+        return out
+
+    def handle_one(self, msg: object) -> PipelineOutput | None:
+        self.counters["messages"] += 1
+        route = self._routes.get(type(msg))
+        if route is None:
+            self.counters["ignored"] += 1
+            return None
+        return route(msg)
+
+    # -- routes ---------------------------------------------------------------------------------
+    def _on_epoch(self, epoch: ObsEpoch) -> StationSnapshot:
+        self._last_t = epoch.time
+        return self.estimator.update(epoch)
+
+    def _on_ephemeris(self, eph: KeplerEphemeris | GlonassEphemeris) -> None:
+        self.estimator.add_ephemeris(eph)
+
+    def _on_station(self, ref: StationReference) -> None:
+        self.set_position((ref.x_m, ref.y_m, ref.z_m), "rtcm")
+
+    def _on_gsv(self, part: GsvPart) -> None:
+        group = self._gsv.push(part)
+        if group is None or self._last_t is None:
+            return
+        self.estimator.set_gsv(self._last_t, group.sat, group.elevation_deg, group.azimuth_deg)
+
+    def _on_gga(self, gga: GgaFix) -> FixStatus:
+        self._gga = gga
+        self._gga_time = self._utc_time(gga.time_utc)
+        if gga.quality > 0 and math.isfinite(gga.lat_deg) and math.isfinite(gga.lon_deg):
+            h = (gga.alt_msl_m if math.isfinite(gga.alt_msl_m) else 0.0) + (
+                gga.geoid_sep_m if math.isfinite(gga.geoid_sep_m) else 0.0
+            )
+            ecef = geodetic_to_ecef(np.radians(gga.lat_deg), np.radians(gga.lon_deg), h)
+            self.set_position(ecef, "gga")
+        return self._fix(gst_ok=self._gst is not None and self._gst.time_utc == gga.time_utc)
+
+    def _on_gst(self, gst: GstErrors) -> FixStatus | None:
+        self._gst = gst
+        if self._gga is None or self._gga.time_utc != gst.time_utc:
+            return None
+        return self._fix(gst_ok=True)
+
+    # -- helpers --------------------------------------------------------------------------------
+    def _fix(self, *, gst_ok: bool) -> FixStatus:
+        gga = self._gga
+        assert gga is not None
+        gst = self._gst if gst_ok else None
+        return FixStatus(
+            station=self.station,
+            time=self._gga_time,
+            quality=gga.quality,
+            n_sats_used=gga.n_sats_used or 0,
+            hdop=gga.hdop,
+            sigma_lat_m=gst.lat_sigma_m if gst else math.nan,
+            sigma_lon_m=gst.lon_sigma_m if gst else math.nan,
+            sigma_alt_m=gst.alt_sigma_m if gst else math.nan,
+        )
+
+    def _utc_time(self, tod: _dt.time | None) -> GpsTime | None:
+        """GPS time of a GGA time of day, dated from the last epoch (None until one arrived)."""
+        if tod is None or self._last_t is None:
+            return None
+        ref = self._last_t.to_utc()
+        cand = _dt.datetime.combine(ref.date(), tod, tzinfo=_dt.UTC)
+        # the nearest calendar day to the last epoch (midnight rollover either way)
+        best = min(
+            (cand + _dt.timedelta(days=d) for d in (-1, 0, 1)),
+            key=lambda c: abs((c - ref).total_seconds()),
+        )
+        return utc_to_gps(best)
+
+    def set_position(self, ecef: npt.ArrayLike, source: str) -> None:
+        """Receiver position (ECEF m) from ``source`` ("config", "rtcm", "rinex" header or
+        "gga"); ignored when a source of higher precedence already gave one."""
+        if _SOURCE_RANK[source] < _SOURCE_RANK[self._position_source]:
+            return
+        try:
+            self.estimator.set_receiver_position(ecef, source)
+        except ValueError:
+            self.counters["positions_rejected"] += 1
+            return
+        self._position_source = source
+
+    @property
+    def position_source(self) -> str:
+        """Where the receiver position came from: "config", "rtcm", "gga" or "" (unknown)."""
+        return self._position_source

@@ -1,0 +1,162 @@
+"""Rolling windows over epochs, as ring buffers over a fixed satellite axis (STYLE rules 21–22).
+
+Axes: ``R`` ring rows (epochs or time slots), ``S`` satellite slots (``MAX_SAT_ID``). NaN marks
+"no value". Both classes are pure: time comes in as an argument.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import numpy.typing as npt
+
+__all__ = ["LagRing", "SlotStd"]
+
+F64 = npt.NDArray[np.float64]
+
+
+class LagRing:
+    """The last ``R`` epochs of one per-satellite value, to difference it over a fixed lag.
+
+    Invariant: row ``k`` holds the epoch written ``(head − k) mod R`` writes ago; ``t[k]`` is its
+    time (NaN if never written), ``value[k, s]`` the satellite's value then (NaN if it had none) and
+    ``arc[k, s]`` its arc id. Values are stored relative to the arc's first value (float32 is then
+    exact to ~1e-4 TECU) — the caller passes them so. The capacity grows (rarely, by
+    reallocation) when the data rate needs more rows to reach back ``lag_s``.
+    """
+
+    def __init__(self, n_slots: int, lag_s: float, rows: int = 64) -> None:
+        self.lag_s = float(lag_s)
+        self.n_slots = n_slots
+        self._alloc(rows)
+
+    def _alloc(self, rows: int) -> None:
+        self.t = np.full(rows, np.nan)
+        self.value = np.full((rows, self.n_slots), np.nan, np.float32)
+        self.arc = np.full((rows, self.n_slots), -1, np.int32)
+        self.head = -1
+
+    @property
+    def rows(self) -> int:
+        return int(self.t.shape[0])
+
+    def ensure_interval(self, interval_s: float) -> None:
+        """Grow so that ``lag_s`` plus two samples fits at sampling ``interval_s`` (keeps data)."""
+        need = math.ceil(self.lag_s / max(interval_s, 1e-3)) + 3
+        if need <= self.rows:
+            return
+        order = (np.arange(self.rows) + self.head + 1) % self.rows  # oldest first
+        t, value, arc = self.t[order], self.value[order], self.arc[order]
+        old = self.rows
+        self._alloc(need)
+        self.t[:old], self.value[:old], self.arc[:old] = t, value, arc
+        self.head = old - 1
+
+    def push(
+        self, t: float, sats: npt.NDArray[np.intp], value: F64, arc: npt.NDArray[np.int32]
+    ) -> None:
+        assert sats.shape == value.shape == arc.shape, (sats.shape, value.shape, arc.shape)
+        self.head = (self.head + 1) % self.rows
+        row = self.head
+        self.t[row] = t
+        self.value[row].fill(np.nan)
+        self.value[row, sats] = value
+        self.arc[row, sats] = arc
+
+    def lagged(
+        self, t: float, sats: npt.NDArray[np.intp], arc: npt.NDArray[np.int32], interval_s: float
+    ) -> tuple[F64, float]:
+        """Values at the stored epoch nearest ``t − lag_s`` (within half a sampling interval),
+        NaN where the satellite had no value then or was in another arc; also that epoch's time
+        (NaN if none). The row where regular sampling puts it is tried first."""
+        target = t - self.lag_s
+        tol = 0.5 * interval_s + 1e-3
+        k = (self.head + 1 - round(self.lag_s / interval_s)) % self.rows
+        if not abs(self.t[k] - target) <= tol:
+            err = np.abs(self.t - target)
+            if not np.isfinite(err).any():
+                return np.full(sats.shape, np.nan), math.nan
+            k = int(np.nanargmin(err))
+            if err[k] > tol:
+                return np.full(sats.shape, np.nan), math.nan
+        v = self.value[k, sats].astype(np.float64)
+        v[self.arc[k, sats] != arc] = np.nan
+        return v, float(self.t[k])
+
+
+class SlotStd:
+    """Standard deviation per satellite over a sliding time window, sampled in fixed time slots.
+
+    Time is cut into slots of ``slot_s``; the first sample of a satellite in a slot is kept.
+    Invariant: ``total[s]``, ``total_sq[s]`` and ``count[s]`` are the sum, sum of squares and count
+    of the finite values in column ``s`` of ``value``, whose row ``n mod R`` holds slot ``n`` for
+    the last ``R = window/slot`` slots up to ``last_slot`` (rows of skipped slots are cleared).
+    Sums are recomputed exactly each time the ring wraps, so rounding cannot drift.
+    """
+
+    def __init__(self, n_slots: int, window_s: float, slot_s: float) -> None:
+        self.slot_s = float(slot_s)
+        self.rows = max(2, round(window_s / slot_s))
+        self.value = np.full((self.rows, n_slots), np.nan, np.float32)
+        self.total = np.zeros(n_slots)
+        self.total_sq = np.zeros(n_slots)
+        self.count = np.zeros(n_slots, np.int32)
+        self.last_slot = -1
+        self._since_exact = 0
+
+    def _clear_rows(self, rows: npt.NDArray[np.intp]) -> None:
+        old = self.value[rows].astype(np.float64)
+        fin = np.isfinite(old)
+        old[~fin] = 0.0
+        self.total -= old.sum(axis=0)
+        self.total_sq -= (old * old).sum(axis=0)
+        self.count -= fin.sum(axis=0, dtype=np.int32)
+        self.value[rows] = np.nan
+
+    def _recompute(self) -> None:
+        v = self.value.astype(np.float64)
+        fin = np.isfinite(v)
+        v[~fin] = 0.0
+        self.total = v.sum(axis=0)
+        self.total_sq = (v * v).sum(axis=0)
+        self.count = fin.sum(axis=0, dtype=np.int32)
+
+    def push(self, t: float, sats: npt.NDArray[np.intp], value: F64) -> None:
+        """Add this epoch's values (NaN ignored) if ``t`` opens a new slot."""
+        assert sats.shape == value.shape, (sats.shape, value.shape)
+        slot = math.floor(t / self.slot_s)
+        if slot <= self.last_slot:
+            return
+        first = self.last_slot + 1 if self.last_slot >= 0 else slot
+        if slot - first >= self.rows:
+            self.value.fill(np.nan)
+            self.total.fill(0.0)
+            self.total_sq.fill(0.0)
+            self.count.fill(0)
+        else:
+            self._clear_rows(np.arange(first, slot + 1) % self.rows)
+        self._since_exact += slot - first + 1
+        self.last_slot = slot
+        row = slot % self.rows
+        fin = np.isfinite(value)
+        s = sats[fin]
+        v = value[fin].astype(np.float32)
+        self.value[row, s] = v
+        v64 = v.astype(np.float64)
+        self.total[s] += v64
+        self.total_sq[s] += v64 * v64
+        self.count[s] += 1
+        if self._since_exact >= self.rows:
+            self._recompute()
+            self._since_exact = 0
+
+    def std(self, sats: npt.NDArray[np.intp], min_count: int) -> F64:
+        """Population standard deviation over the window (NaN below ``min_count`` samples)."""
+        n = self.count[sats].astype(np.float64)
+        n_safe = np.maximum(n, 1.0)
+        mean = self.total[sats] / n_safe
+        var = self.total_sq[sats] / n_safe - mean * mean
+        out = np.sqrt(np.maximum(var, 0.0))
+        out[n < min_count] = np.nan
+        return out

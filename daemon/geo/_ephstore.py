@@ -1,0 +1,294 @@
+"""Ephemeris store: keeps the newest broadcast ephemerides per satellite and picks the usable one.
+
+Validity windows (SCIENCE.md §6, common practice), as |t − t_ref| limits around the reference time
+(t_oe for Keplerian ephemerides, t_b for GLONASS): GPS/QZSS/NavIC 2 h (half the 4 h fit interval,
+or half of ``fit_interval_h`` when larger), Galileo 2 h, BeiDou 1 h, GLONASS 15 min.
+
+Per request, each satellite gets the candidate whose reference time is closest to t among those
+within the window; a satellite without one is counted under the reason of its closest candidate
+(``stale``: reference time too old, ``future``: too far ahead, ``unhealthy``: the closest
+in-window candidate has a non-zero health word, ``missing``: nothing stored). GPS/QZSS sets with
+IODE ≠ IODC mod 256 (IS-GPS-200 §20.3.4.4) are refused at ``add`` and counted as ``inconsistent``.
+
+The selection is constant between "event" times (window edges and midpoints between candidates),
+so ``select`` returns the cached :class:`EphemerisSelection` (same batches, no allocation) until t
+leaves that interval, the satellite list changes, or an ephemeris is added.
+"""
+
+from __future__ import annotations
+
+import bisect
+import datetime as _dt
+import itertools
+import math
+from dataclasses import dataclass
+
+import numpy as np
+import numpy.typing as npt
+
+from ionwarden.parsers import (
+    BDS_GPS_OFFSET_S,
+    GPS_EPOCH,
+    SECONDS_PER_WEEK,
+    GlonassEphemeris,
+    KeplerEphemeris,
+    leap_seconds_at,
+)
+
+from ._glonass import GlonassBatch, resolve_glonass_tb
+from ._kepler import KeplerBatch, orbit_constants
+
+__all__ = ["EphemerisSelection", "EphemerisStore", "EphemerisStoreStatistics"]
+
+Ephemeris = KeplerEphemeris | GlonassEphemeris
+_GLO = 1  # system index of GLONASS in parsers._signals.SYSTEMS
+_GPS_LIKE = frozenset((0, 4))  # GPS, QZSS: IODE/IODC consistency applies
+#: Half-width of the validity window (s) by system index (SCIENCE.md §6, common practice).
+_WINDOW_S: dict[int, float] = {0: 7200.0, 1: 900.0, 2: 7200.0, 3: 3600.0, 4: 7200.0, 6: 7200.0}
+#: Newest ephemerides kept per satellite (bounded memory).
+DEFAULT_KEEP_PER_SAT = 3
+_GLO_EPOCH_1996 = _dt.datetime(1996, 1, 1, tzinfo=_dt.UTC)  # N4 = 1 starts here (ICD Ed. 5.1 §4.5)
+_MOSCOW_OFFSET_S = 10_800.0
+_REASONS = ("stale", "future", "unhealthy", "missing")
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class EphemerisStoreStatistics:
+    """Counters since creation. ``stale``/``future``/``unhealthy``/``missing`` count (request,
+    satellite) pairs left without an ephemeris; ``inconsistent`` and ``duplicates`` count ``add``
+    calls refused; ``rebuilds`` counts batch rebuilds (cache misses)."""
+
+    stored: int
+    added: int
+    duplicates: int
+    inconsistent: int
+    stale: int
+    future: int
+    unhealthy: int
+    missing: int
+    rebuilds: int
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class EphemerisSelection:
+    """Ephemerides chosen for the requested satellites (length m, request order).
+
+    ``kepler`` rows serve request rows ``kepler_index``; ``glonass`` rows serve ``glonass_index``;
+    ``valid[i]`` is False when satellite i has no usable ephemeris (its rows are absent).
+    ``gather_index`` maps request rows into the stacked [Keplerian rows, GLONASS rows, one NaN
+    row], so per-row results of both batches go back to request order in one indexing step.
+    ``t_lo_s``/``t_hi_s`` bound the GPS times over which this choice stays the same.
+    """
+
+    sat: npt.NDArray[np.int16]
+    valid: npt.NDArray[np.bool_]
+    kepler: KeplerBatch
+    kepler_index: npt.NDArray[np.intp]
+    glonass: GlonassBatch
+    glonass_index: npt.NDArray[np.intp]
+    gather_index: npt.NDArray[np.intp]
+    t_lo_s: float
+    t_hi_s: float
+
+
+@dataclass(frozen=True, slots=True)
+class _Entry:
+    ref_gps_s: float  # t_oe (or resolved t_b) as continuous GPS seconds; NaN: resolve at select
+    window_s: float
+    healthy: bool
+    eph: Ephemeris
+
+
+def _glonass_ref(eph: GlonassEphemeris, t_received_gps_s: float | None) -> float:
+    """t_b as GPS seconds from N4/N_T (ICD Ed. 5.1 §4.5) or the reception time; NaN if neither."""
+    if eph.four_year > 0 and eph.day_number > 0:
+        day = _GLO_EPOCH_1996 + _dt.timedelta(days=(eph.four_year - 1) * 1461 + eph.day_number - 1)
+        utc = day + _dt.timedelta(seconds=eph.tb_s - _MOSCOW_OFFSET_S)
+        return (utc - GPS_EPOCH).total_seconds() + leap_seconds_at(utc)
+    if t_received_gps_s is None:
+        return math.nan
+    return resolve_glonass_tb(eph.tb_s, t_received_gps_s)
+
+
+class EphemerisStore:
+    """Newest broadcast ephemerides per satellite with per-epoch selection (see module doc)."""
+
+    def __init__(self, *, keep_per_sat: int = DEFAULT_KEEP_PER_SAT) -> None:
+        if keep_per_sat < 1:
+            raise ValueError("keep_per_sat must be ≥ 1")
+        self._keep = keep_per_sat
+        self._by_sat: dict[int, list[_Entry]] = {}
+        self._generation = 0
+        self._counts = dict.fromkeys((*_REASONS, "added", "duplicates", "inconsistent"), 0)
+        self._rebuilds = 0
+        self._cache: EphemerisSelection | None = None
+        self._cache_generation = -1
+        self._cache_rejects: tuple[int, int, int, int] = (0, 0, 0, 0)
+        self._kep_src: list[KeplerEphemeris] = []
+        self._glo_src: list[GlonassEphemeris] = []
+
+    def add(self, eph: Ephemeris, *, t_received_gps_s: float | None = None) -> bool:
+        """Store ``eph``; False if it is a duplicate or refused. ``t_received_gps_s`` places a
+        GLONASS t_b (time of day) in time when N4/N_T are unknown."""
+        sys_index = eph.sat // 100
+        if isinstance(eph, KeplerEphemeris):
+            orbit_constants(eph.sat)  # ValueError for a system without a Keplerian orbit
+            if sys_index in _GPS_LIKE and eph.iode != eph.iodc % 256:
+                self._counts["inconsistent"] += 1
+                return False
+            shift = BDS_GPS_OFFSET_S if eph.time_system == "BDT" else 0.0
+            ref = eph.week * SECONDS_PER_WEEK + eph.toe_s + shift
+            window = _WINDOW_S[sys_index]
+            if sys_index in _GPS_LIKE and eph.fit_interval_h * 1800.0 > window:
+                window = eph.fit_interval_h * 1800.0
+        elif sys_index == _GLO:
+            ref = _glonass_ref(eph, t_received_gps_s)
+            window = _WINDOW_S[_GLO]
+        else:
+            raise ValueError(f"satellite {eph.sat}: not a GLONASS ephemeris")
+        entries = self._by_sat.setdefault(eph.sat, [])
+        for k, old in enumerate(entries):
+            if _same(old, eph, ref):
+                if isinstance(eph, GlonassEphemeris) and old.eph != eph:
+                    entries[k] = _Entry(ref, window, eph.health == 0, eph)  # newer upload
+                    self._generation += 1
+                    return True
+                self._counts["duplicates"] += 1
+                return False
+        entries.append(_Entry(ref, window, eph.health == 0, eph))
+        entries.sort(key=lambda x: -math.inf if math.isnan(x.ref_gps_s) else x.ref_gps_s)
+        del entries[: max(0, len(entries) - self._keep)]
+        self._counts["added"] += 1
+        self._generation += 1
+        return True
+
+    def statistics(self) -> EphemerisStoreStatistics:
+        c = self._counts
+        return EphemerisStoreStatistics(
+            stored=sum(len(v) for v in self._by_sat.values()),
+            added=c["added"],
+            duplicates=c["duplicates"],
+            inconsistent=c["inconsistent"],
+            stale=c["stale"],
+            future=c["future"],
+            unhealthy=c["unhealthy"],
+            missing=c["missing"],
+            rebuilds=self._rebuilds,
+        )
+
+    def select(self, sat_ids: npt.ArrayLike, t_gps_s: float) -> EphemerisSelection:
+        """Usable ephemeris per satellite at GPS time ``t_gps_s`` (see module doc)."""
+        sats = np.asarray(sat_ids, dtype=np.int16)
+        assert sats.ndim == 1, sats.shape
+        cache = self._cache
+        if (
+            cache is not None
+            and self._cache_generation == self._generation
+            and cache.t_lo_s <= t_gps_s < cache.t_hi_s
+            and np.array_equal(cache.sat, sats)
+        ):
+            for name, count in zip(_REASONS, self._cache_rejects, strict=True):
+                self._counts[name] += count
+            return cache
+        return self._rebuild(sats, t_gps_s)
+
+    def _rebuild(self, sats: npt.NDArray[np.int16], t: float) -> EphemerisSelection:
+        self._rebuilds += 1
+        rejects = dict.fromkeys(_REASONS, 0)
+        lo, hi = -math.inf, math.inf
+        valid = np.zeros(sats.shape[0], dtype=np.bool_)
+        kep: list[KeplerEphemeris] = []
+        kep_idx: list[int] = []
+        glo: list[GlonassEphemeris] = []
+        glo_idx: list[int] = []
+        for i, sat in enumerate(sats.tolist()):
+            entries = self._by_sat.get(sat, [])
+            if not entries:
+                rejects["missing"] += 1
+                continue
+            refs = [
+                resolve_glonass_tb(e.eph.tb_s, t)
+                if math.isnan(e.ref_gps_s) and isinstance(e.eph, GlonassEphemeris)
+                else e.ref_gps_s
+                for e in entries
+            ]
+            order = sorted(range(len(entries)), key=refs.__getitem__)  # stable: re-uploads last
+            rs = [refs[k] for k in order]
+            # Closest reference time, decided by the midpoints between neighbours (a tie goes to
+            # the later set); windows are half-open [ref − w, ref + w) so that the selection is
+            # constant on every [event, next event) interval.
+            mids = [(a + b) / 2 for a, b in itertools.pairwise(rs)]
+            best = bisect.bisect_right(mids, t)
+            entry = entries[order[best]]
+            ref = rs[best]
+            events = [*mids, *(r - entry.window_s for r in rs), *(r + entry.window_s for r in rs)]
+            lo = max([lo, *(x for x in events if x <= t)])
+            hi = min([hi, *(x for x in events if x > t)])
+            if t < ref - entry.window_s:
+                rejects["future"] += 1
+            elif t >= ref + entry.window_s:
+                rejects["stale"] += 1
+            elif not entry.healthy:
+                rejects["unhealthy"] += 1
+            elif isinstance(entry.eph, KeplerEphemeris):
+                valid[i] = True
+                kep.append(entry.eph)
+                kep_idx.append(i)
+            else:
+                valid[i] = True
+                glo.append(entry.eph)
+                glo_idx.append(i)
+        if any(math.isnan(e.ref_gps_s) for v in self._by_sat.values() for e in v):
+            # t_b resolved against t itself: re-resolve at the next day boundary at the latest.
+            hi = min(hi, t + 3600.0)
+        gather = np.full(sats.shape[0], len(kep) + len(glo), dtype=np.intp)
+        gather[kep_idx] = np.arange(len(kep))
+        gather[glo_idx] = len(kep) + np.arange(len(glo))
+        selection = EphemerisSelection(
+            sat=sats.copy(),
+            valid=valid,
+            kepler=self._reuse_kepler(kep),
+            kepler_index=np.asarray(kep_idx, dtype=np.intp),
+            glonass=self._reuse_glonass(glo),
+            glonass_index=np.asarray(glo_idx, dtype=np.intp),
+            gather_index=gather,
+            t_lo_s=lo,
+            t_hi_s=hi,
+        )
+        for name, count in rejects.items():
+            self._counts[name] += count
+        self._cache = selection
+        self._cache_generation = self._generation
+        self._cache_rejects = (
+            rejects["stale"],
+            rejects["future"],
+            rejects["unhealthy"],
+            rejects["missing"],
+        )
+        return selection
+
+    def _reuse_kepler(self, ephs: list[KeplerEphemeris]) -> KeplerBatch:
+        old = self._cache
+        if old is not None and len(old.kepler) == len(ephs) and self._kep_src == ephs:
+            return old.kepler
+        self._kep_src = ephs
+        return KeplerBatch.from_ephemerides(ephs)
+
+    def _reuse_glonass(self, ephs: list[GlonassEphemeris]) -> GlonassBatch:
+        # Reusing the GLONASS batch also keeps its RK4 node table.
+        old = self._cache
+        if old is not None and len(old.glonass) == len(ephs) and self._glo_src == ephs:
+            return old.glonass
+        self._glo_src = ephs
+        return GlonassBatch.from_ephemerides(ephs)
+
+
+def _same(old: _Entry, eph: Ephemeris, ref: float) -> bool:
+    """Dedupe key: satellite + reference time + issue of data (t_b for GLONASS)."""
+    o = old.eph
+    if isinstance(o, KeplerEphemeris) and isinstance(eph, KeplerEphemeris):
+        return (o.week, o.toe_s, o.iode) == (eph.week, eph.toe_s, eph.iode)
+    if isinstance(o, GlonassEphemeris) and isinstance(eph, GlonassEphemeris):
+        same_ref = (math.isnan(ref) and math.isnan(old.ref_gps_s)) or ref == old.ref_gps_s
+        return o.tb_s == eph.tb_s and same_ref
+    return False

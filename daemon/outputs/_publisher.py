@@ -1,0 +1,427 @@
+"""The MQTT publisher: never blocks the estimator, survives the broker going away (aiomqtt 2.5).
+
+Producers call the ``*_nowait`` methods (sync, O(1) plus formatting) from the event loop; they
+format the payload and queue it in the :class:`OutboundBuffer`. :meth:`MqttPublisher.run` — one
+named task in the runtime's TaskGroup — connects, drains the buffer in order, and on any transient
+MQTT error waits a backoff delay (``ionwarden.daemon.runtime`` pure generator) and reconnects with
+a fresh client (so nothing half-sent is replayed behind our back; our buffer is the only source).
+
+ionwarden only publishes: it never subscribes and takes no commands over MQTT.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import datetime as dt
+import logging
+import ssl
+import time
+from importlib import metadata
+from typing import TYPE_CHECKING
+
+import aiomqtt
+from paho.mqtt.packettypes import PacketTypes
+from paho.mqtt.properties import Properties
+
+from ionwarden.daemon.alarms import AlarmKind, AlarmState, AlarmStatus
+from ionwarden.daemon.errors import ConfigError
+from ionwarden.daemon.runtime._backoff import backoff_delays
+
+from . import _payloads as fmt
+from ._buffer import OutboundBuffer, OutboundMessage
+from ._model import MqttStatistics
+from ._topics import Topic, TopicTree
+
+if TYPE_CHECKING:
+    import random
+    from collections.abc import Callable, Iterable
+
+    from ionwarden.daemon.alarms import AlarmTransition
+    from ionwarden.daemon.config import MqttSettings
+    from ionwarden.daemon.estimator import StationSnapshot
+    from ionwarden.parsers import GpsTime
+
+    from ._model import DaemonSnapshot
+
+__all__ = ["TRANSIENT_MQTT_ERRORS", "MqttPublisher", "resolve_password"]
+
+log = logging.getLogger("ionwarden.daemon.outputs.mqtt")
+
+#: Errors that mean "the link is down, reconnect after a backoff delay" (STYLE rule 10). aiomqtt
+#: maps socket, TLS and protocol failures (and negative CONNACKs) to MqttError; anything else is a
+#: bug and crashes the TaskGroup.
+TRANSIENT_MQTT_ERRORS: tuple[type[BaseException], ...] = (aiomqtt.MqttError,)
+#: Time allowed for the goodbye messages ("offline") on shutdown.
+GOODBYE_TIMEOUT_S = 2.0
+
+
+def _utc_now() -> dt.datetime:
+    return dt.datetime.now(dt.UTC)
+
+
+def _version() -> str:
+    try:
+        return metadata.version("ionwarden")
+    except metadata.PackageNotFoundError:  # running from a source tree without install
+        return "0+unknown"
+
+
+def resolve_password(settings: MqttSettings) -> str | None:
+    """The password from ``password`` (env or systemd credential) or ``password_file``."""
+    if settings.password is not None and settings.password_file is not None:
+        raise ConfigError("mqtt.password_file", "set either password or password_file, not both")
+    if settings.password is not None:
+        return settings.password.get_secret_value()
+    if settings.password_file is not None:
+        try:
+            text = settings.password_file.read_text(encoding="utf-8")
+        except OSError as exc:
+            raise ConfigError("mqtt.password_file", f"cannot read: {exc.strerror}") from exc
+        return text.splitlines()[0] if text else ""
+    return None
+
+
+def _tls_context(settings: MqttSettings) -> ssl.SSLContext | None:
+    if not (settings.tls or settings.tls_ca_file or settings.tls_cert_file):
+        return None
+    key = "mqtt.tls_ca_file"
+    try:
+        ctx = ssl.create_default_context(
+            cafile=str(settings.tls_ca_file) if settings.tls_ca_file else None
+        )
+        if settings.tls_cert_file is not None and settings.tls_key_file is not None:
+            key = "mqtt.tls_cert_file"
+            ctx.load_cert_chain(str(settings.tls_cert_file), str(settings.tls_key_file))
+    except (OSError, ssl.SSLError) as exc:
+        raise ConfigError(key, f"cannot load TLS material: {exc}") from exc
+    return ctx
+
+
+class MqttPublisher:
+    """Publishes the topic tree of docs/mqtt.md; one instance per daemon."""
+
+    def __init__(
+        self,
+        settings: MqttSettings,
+        *,
+        clock: Callable[[], dt.datetime] = _utc_now,
+        monotonic: Callable[[], float] = time.monotonic,
+        rng: random.Random | None = None,
+        on_published: Callable[[OutboundMessage, float], None] | None = None,
+    ) -> None:
+        self._s = settings
+        self._tree = TopicTree(settings.topic_prefix)
+        self._password = resolve_password(settings)
+        self._tls = _tls_context(settings)
+        self._clock = clock
+        self._monotonic = monotonic
+        self._rng = rng
+        self._on_published = on_published
+        self._version = _version()
+        self._buffer = OutboundBuffer(
+            alarm_bound=settings.alarm_buffer, epoch_bound=settings.epoch_buffer
+        )
+        self._wake = asyncio.Event()
+        self._stop = asyncio.Event()
+        self._ready = asyncio.Event()
+        self._connected_event = asyncio.Event()
+        self._running = False
+        self._connected = False
+        self._published = 0
+        self._connects = 0
+        self._disconnects = 0
+        self._station_state: dict[str, str] = {}
+        self._last_epoch: dict[str, GpsTime] = {}
+        self._last_sats_s: dict[str, float] = {}
+        self._expiry: dict[int, Properties] = {}
+
+    @property
+    def topics(self) -> TopicTree:
+        return self._tree
+
+    # --- producers (sync, never block) ---------------------------------------------------------
+
+    def _put(
+        self,
+        topic: Topic,
+        payload: bytes,
+        *,
+        qos: int,
+        retain: bool,
+        alarm_class: bool,
+        expiry_s: int | None = None,
+    ) -> None:
+        msg = OutboundMessage(
+            topic=topic,
+            payload=payload,
+            qos=qos,
+            retain=retain,
+            expiry_s=expiry_s,
+            alarm_class=alarm_class,
+            queued_s=self._monotonic(),
+        )
+        if not self._buffer.put_nowait(msg) and alarm_class:
+            log.error(
+                "MQTT alarm buffer full (%d): dropped the oldest alarm/status message",
+                self._buffer.alarm_bound,
+            )
+        self._wake.set()
+
+    def _set_station_state(self, station: str, state: str) -> None:
+        if self._station_state.get(station) == state:
+            return
+        self._station_state[station] = state
+        payload = fmt.station_status_payload(
+            station, state, self._clock(), self._last_epoch.get(station)
+        )
+        self._put(
+            self._tree.station_status(station),
+            payload,
+            qos=self._s.qos_status,
+            retain=True,
+            alarm_class=True,
+        )
+
+    def publish_snapshot_nowait(self, snap: StationSnapshot) -> None:
+        """Queue the epoch summary (and the satellite figures when due) of one station."""
+        station = snap.station
+        self._last_epoch[station] = snap.time
+        self._set_station_state(station, "online")
+        s = self._s
+        self._put(
+            self._tree.summary(station),
+            fmt.summary_payload(snap),
+            qos=s.qos_summary,
+            retain=False,
+            alarm_class=False,
+            expiry_s=s.epoch_expiry_s,
+        )
+        t = snap.time.total_s
+        last = self._last_sats_s.get(station)
+        if last is None or t - last >= s.satellites_interval_s or t < last:
+            self._last_sats_s[station] = t
+            self._put(
+                self._tree.satellites(station),
+                fmt.satellites_payload(snap),
+                qos=s.qos_satellites,
+                retain=False,
+                alarm_class=False,
+                expiry_s=s.epoch_expiry_s,
+            )
+
+    def publish_alarm_states_nowait(self, statuses: Iterable[AlarmStatus]) -> None:
+        """Queue the retained state of each alarm (call once at start so every alarm is visible)."""
+        now = self._clock()
+        for st in statuses:
+            self._put(
+                self._tree.alarm(st.station, st.alarm),
+                fmt.alarm_state_payload(st, now),
+                qos=self._s.qos_alarm,
+                retain=True,
+                alarm_class=True,
+            )
+
+    def publish_transitions_nowait(self, transitions: Iterable[AlarmTransition]) -> None:
+        """Queue each transition on the event stream and as the alarm's new retained state."""
+        now = self._clock()
+        for tr in transitions:
+            self._put(
+                self._tree.events(tr.station),
+                fmt.alarm_event_payload(tr),
+                qos=self._s.qos_alarm,
+                retain=False,
+                alarm_class=True,
+            )
+            status = AlarmStatus(
+                station=tr.station,
+                alarm=tr.alarm,
+                kind=tr.kind,
+                band=tr.band,
+                severity=tr.severity,
+                state=tr.state,
+                pending=False,
+                value=tr.value,
+                unit=tr.unit,
+                raise_at=tr.raise_at,
+                clear_at=tr.clear_at,
+                since=tr.time,
+            )
+            self._put(
+                self._tree.alarm(tr.station, tr.alarm),
+                fmt.alarm_state_payload(status, now),
+                qos=self._s.qos_alarm,
+                retain=True,
+                alarm_class=True,
+            )
+            if tr.kind is AlarmKind.STREAM_STALL:
+                stale = tr.state is AlarmState.ACTIVE
+                self._set_station_state(tr.station, "stale" if stale else "online")
+
+    def publish_health_nowait(self, daemon: DaemonSnapshot) -> None:
+        """Queue the daemon health message (retained, expires after ``epoch_expiry_s``)."""
+        self._put(
+            self._tree.daemon_health(),
+            fmt.health_payload(daemon, self._clock(), self._monotonic()),
+            qos=self._s.qos_health,
+            retain=True,
+            alarm_class=False,
+            expiry_s=self._s.epoch_expiry_s,
+        )
+
+    def statistics(self) -> MqttStatistics:
+        b = self._buffer
+        return MqttStatistics(
+            connected=self._connected,
+            buffered_alarm=b.alarm_depth,
+            buffered_epoch=b.epoch_depth,
+            published_total=self._published,
+            dropped_epoch_total=b.dropped_epoch,
+            dropped_alarm_total=b.dropped_alarm,
+            connects_total=self._connects,
+            disconnects_total=self._disconnects,
+        )
+
+    # --- lifecycle --------------------------------------------------------------------------
+
+    async def wait_ready(self) -> None:
+        """Return once the first connect succeeded or failed (then we run on, buffering)."""
+        await self._ready.wait()
+
+    async def wait_connected(self) -> None:
+        await self._connected_event.wait()
+
+    def stop(self) -> None:
+        """Ask :meth:`run` to flush, say "offline" and return (idempotent, non-blocking)."""
+        self._stop.set()
+        self._wake.set()
+
+    def _client(self) -> aiomqtt.Client:
+        s = self._s
+        will = aiomqtt.Will(
+            topic=self._tree.daemon_status().value,
+            payload=fmt.daemon_status_payload("offline", None, self._version),
+            qos=s.qos_status,
+            retain=True,
+        )
+        return aiomqtt.Client(
+            s.host,
+            s.port,
+            username=s.username or None,
+            password=self._password,
+            identifier=s.client_id or None,
+            protocol=aiomqtt.ProtocolVersion.V5,
+            will=will,
+            keepalive=s.keepalive_s,
+            timeout=s.timeout_s,
+            tls_context=self._tls,
+            logger=logging.getLogger("ionwarden.daemon.outputs.mqtt.client"),
+        )
+
+    async def run(self) -> None:
+        """Connect, publish, reconnect with backoff until :meth:`stop` (or cancellation)."""
+        if self._running:
+            raise RuntimeError("MqttPublisher.run is already running")
+        self._running = True
+        s = self._s
+        delays = backoff_delays(
+            initial_s=s.reconnect_initial_s, cap_s=s.reconnect_cap_s, rng=self._rng
+        )
+        try:
+            while not self._stop.is_set():
+                try:
+                    async with self._client() as client:
+                        self._connected = True
+                        self._connects += 1
+                        self._connected_event.set()
+                        self._ready.set()
+                        log.info("MQTT connected to %s:%d", s.host, s.port)
+                        delays = backoff_delays(
+                            initial_s=s.reconnect_initial_s, cap_s=s.reconnect_cap_s, rng=self._rng
+                        )
+                        await self._session(client)
+                        return
+                except TRANSIENT_MQTT_ERRORS as exc:
+                    if self._connected:
+                        self._disconnects += 1
+                    self._connected = False
+                    self._connected_event.clear()
+                    self._ready.set()
+                    delay = next(delays)
+                    log.warning(
+                        "MQTT broker %s:%d: %s; %d messages buffered; reconnecting in %.2f s",
+                        s.host,
+                        s.port,
+                        exc,
+                        len(self._buffer),
+                        delay,
+                    )
+                    with contextlib.suppress(TimeoutError):
+                        await asyncio.wait_for(self._stop.wait(), timeout=delay)
+        finally:
+            self._connected = False
+            self._connected_event.clear()
+            self._running = False
+
+    async def _publish(self, client: aiomqtt.Client, msg: OutboundMessage) -> None:
+        props = None
+        if msg.expiry_s is not None:
+            props = self._expiry.get(msg.expiry_s)
+            if props is None:
+                props = Properties(PacketTypes.PUBLISH)  # type: ignore[no-untyped-call]
+                props.MessageExpiryInterval = msg.expiry_s
+                self._expiry[msg.expiry_s] = props
+        await client.publish(
+            msg.topic.value, msg.payload, qos=msg.qos, retain=msg.retain, properties=props
+        )
+
+    async def _session(self, client: aiomqtt.Client) -> None:
+        online = OutboundMessage(
+            topic=self._tree.daemon_status(),
+            payload=fmt.daemon_status_payload("online", self._clock(), self._version),
+            qos=self._s.qos_status,
+            retain=True,
+        )
+        try:
+            await self._publish(client, online)
+            while True:
+                msg = self._buffer.peek()
+                if msg is None:
+                    if self._stop.is_set():
+                        break
+                    self._wake.clear()
+                    await self._wake.wait()
+                    continue
+                await self._publish(client, msg)
+                self._buffer.pop(msg)
+                self._published += 1
+                if self._on_published is not None:
+                    self._on_published(msg, self._monotonic() - msg.queued_s)
+        except asyncio.CancelledError:
+            with contextlib.suppress(TimeoutError, *TRANSIENT_MQTT_ERRORS):
+                async with asyncio.timeout(GOODBYE_TIMEOUT_S):
+                    await self._goodbye(client)
+            raise
+        await self._goodbye(client)
+
+    async def _goodbye(self, client: aiomqtt.Client) -> None:
+        """Retained "offline" for every station we announced, then for the daemon."""
+        now = self._clock()
+        for station in list(self._station_state):
+            self._station_state[station] = "offline"
+            payload = fmt.station_status_payload(
+                station, "offline", now, self._last_epoch.get(station)
+            )
+            await client.publish(
+                self._tree.station_status(station).value,
+                payload,
+                qos=self._s.qos_status,
+                retain=True,
+            )
+        await client.publish(
+            self._tree.daemon_status().value,
+            fmt.daemon_status_payload("offline", now, self._version),
+            qos=self._s.qos_status,
+            retain=True,
+        )
+        log.info("MQTT: announced offline, disconnecting")

@@ -1,0 +1,179 @@
+"""From the validated config to a running :class:`Daemon`: station configs, the per-station
+factory (framer + estimator + alarms), the exporter snapshot, secrets.
+
+Kept apart from the supervisor so the supervisor stays testable with stand-ins. Not re-exported by
+the package ``__init__``: it imports ``outputs``, which itself imports the runtime's backoff.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from dataclasses import replace
+from pathlib import Path
+from typing import TYPE_CHECKING
+
+from ionwarden.daemon.alarms import StationAlarms
+from ionwarden.daemon.errors import ConfigError
+from ionwarden.daemon.ingest import NtripSource, parse_source
+from ionwarden.daemon.outputs import (
+    DaemonSnapshot,
+    IngestFigures,
+    QueueFigures,
+    StationFigures,
+)
+
+from ._checkpoint import fingerprint
+from ._core import FramingCore
+from ._stall import StallLimits
+from ._station import StationConfig
+from ._supervisor import DaemonOptions, StationBundle
+
+if TYPE_CHECKING:
+    from collections.abc import Callable, Mapping
+
+    from ionwarden.daemon.alarms import AlarmStatus
+    from ionwarden.daemon.config import Settings, StationSettings
+    from ionwarden.daemon.outputs import MqttPublisher
+
+    from ._supervisor import Daemon
+
+__all__ = ["build_daemon_snapshot", "make_factory", "ntrip_password", "options_from_settings"]
+
+#: File name, inside ``$CREDENTIALS_DIRECTORY``, of a station's NTRIP password (systemd
+#: ``LoadCredential=ntrip_password.<station>:/etc/ionwarden/…``).
+NTRIP_CREDENTIAL = "ntrip_password.{station}"
+
+
+def ntrip_password(st: StationSettings, environ: Mapping[str, str] | None = None) -> str:
+    """The station's NTRIP password: the config secret, else its systemd credential, else ""."""
+    if st.ntrip_password is not None:
+        return st.ntrip_password.get_secret_value()
+    env = os.environ if environ is None else environ
+    creds = env.get("CREDENTIALS_DIRECTORY", "")
+    if creds:
+        path = Path(creds) / NTRIP_CREDENTIAL.format(station=st.name)
+        if path.is_file():
+            return path.read_text().strip()
+    return ""
+
+
+def _station_config(i: int, st: StationSettings, settings: Settings, pw: str) -> StationConfig:
+    rt = settings.runtime
+    try:
+        source = parse_source(st.source)
+    except ConfigError as exc:
+        raise ConfigError(f"stations[{i}].source", exc.reason) from exc
+    if isinstance(source, NtripSource) and st.ntrip_gga_interval_s > 0:
+        lat, lon, h = source.lat_deg, source.lon_deg, source.height_m
+        if st.position_ecef_m is not None and (math.isnan(lat) or math.isnan(lon)):
+            from ionwarden.daemon.geo import ecef_to_geodetic  # noqa: PLC0415 - only for NTRIP GGA
+
+            la, lo, hh = ecef_to_geodetic(st.position_ecef_m)
+            lat, lon, h = math.degrees(float(la)), math.degrees(float(lo)), float(hh)
+        if math.isnan(lat) or math.isnan(lon):
+            raise ConfigError(
+                f"stations[{i}].ntrip_gga_interval_s",
+                "a GGA upline needs a position: set position_ecef_m or lat/lon in the URL",
+            )
+        source = replace(
+            source, gga_interval_s=st.ntrip_gga_interval_s, lat_deg=lat, lon_deg=lon, height_m=h
+        )
+    fp = fingerprint(st.model_dump_json(), fingerprint(pw), settings.estimator.model_dump_json())
+    return StationConfig(
+        name=st.name,
+        source=source,
+        password=pw,
+        read_size=rt.read_size_bytes,
+        queue_size=rt.queue_size,
+        stall=StallLimits(
+            no_data_s=rt.stall_no_data_s,
+            no_frame_s=rt.stall_no_frame_s,
+            no_epoch_s=rt.stall_no_epoch_s,
+        ),
+        backoff_initial_s=rt.backoff_initial_s,
+        backoff_cap_s=max(rt.backoff_cap_s, rt.backoff_initial_s),
+        fingerprint=fp,
+    )
+
+
+def options_from_settings(
+    settings: Settings, *, environ: Mapping[str, str] | None = None
+) -> DaemonOptions:
+    """The daemon options for the enabled stations; ``$STATE_DIRECTORY`` wins over ``state_dir``."""
+    env = os.environ if environ is None else environ
+    rt = settings.runtime
+    stations = tuple(
+        _station_config(i, st, settings, ntrip_password(st, env))
+        for i, st in enumerate(settings.stations)
+        if st.enabled
+    )
+    state = env.get("STATE_DIRECTORY", "").split(":")[0]
+    return DaemonOptions(
+        stations=stations,
+        state_dir=Path(state) if state else rt.state_dir,
+        checkpoint_interval_s=rt.checkpoint_interval_s,
+        checkpoint_max_age_s=rt.checkpoint_max_age_s,
+        summary_interval_s=rt.summary_interval_s,
+        stop_timeout_s=rt.stop_timeout_s,
+    )
+
+
+def make_factory(settings: Settings) -> Callable[[StationConfig], StationBundle]:
+    """Each station gets its own framer, estimator pipeline (when available) and alarms."""
+
+    def build(cfg: StationConfig) -> StationBundle:
+        core = FramingCore(consumer=None)  # the estimator's frame consumer plugs in here
+        return StationBundle(
+            core=core, produces_epochs=False, alarms=StationAlarms(cfg.name, settings.alarms)
+        )
+
+    return build
+
+
+def build_daemon_snapshot(
+    daemon: Daemon, publisher: MqttPublisher | None, started_s: float
+) -> DaemonSnapshot:
+    """What the exporter serves, from every stage's ``statistics()``."""
+    stations = []
+    queues = []
+    alarms: list[AlarmStatus] = []
+    for st in daemon.statistics():
+        d = st.decoder
+        stations.append(
+            StationFigures(
+                station=st.station,
+                snapshot=st.latest,
+                fix=st.latest_fix,
+                ingest=IngestFigures(
+                    bytes_total=st.bytes_total,
+                    frames_total=d.frames_total,
+                    crc_errors_total=d.crc_errors_total,
+                    discarded_bytes_total=d.discarded_bytes_total,
+                    reconnects_total=st.reconnects_total,
+                    connected=st.connected,
+                ),
+                last_epoch_monotonic_s=st.last_epoch_monotonic_s,
+                epochs_total=st.epochs_total,
+            )
+        )
+        q = st.queue
+        queues.append(
+            QueueFigures(
+                stage=q.stage,
+                station=q.station,
+                depth=q.depth,
+                capacity=q.capacity,
+                peak=q.peak,
+                dropped_total=q.dropped_total,
+            )
+        )
+    for a in daemon.station_alarms():
+        alarms.extend(a.statuses())
+    return DaemonSnapshot(
+        stations=tuple(stations),
+        alarms=tuple(alarms),
+        queues=tuple(queues),
+        mqtt=publisher.statistics() if publisher is not None else None,
+        started_monotonic_s=started_s,
+    )

@@ -1,0 +1,106 @@
+"""What one station's estimate task drives: bytes in, outputs out (sync, never blocks).
+
+:class:`StationCore` is the small protocol the runtime needs; :class:`FramingCore` is the real one:
+the sans-IO framer from ``ionwarden.parsers`` splits the stream into checked frames, and an optional
+:class:`FrameConsumer` (the estimator's station pipeline) turns frames into ``StationSnapshot`` and
+``FixStatus`` values. Without a consumer the core frames and counts, and produces no figures: the
+runtime never invents results.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any, Protocol
+
+from ionwarden.parsers._framer import Framer, FramerStatistics
+
+if TYPE_CHECKING:
+    from collections.abc import Mapping, Sequence
+
+    from ionwarden.parsers._framer import Frame
+
+__all__ = ["DecoderCounts", "FrameConsumer", "FramingCore", "StationCore"]
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class DecoderCounts:
+    """Framing counters of one station since start (totals across reconnects)."""
+
+    frames_total: int = 0
+    rtcm_frames_total: int = 0
+    nmea_frames_total: int = 0
+    crc_errors_total: int = 0
+    checksum_errors_total: int = 0
+    discarded_bytes_total: int = 0
+    truncated_frames_total: int = 0
+
+
+class StationCore(Protocol):
+    def feed(self, data: bytes, /) -> Sequence[object]:
+        """Decode ``data``; return the outputs it completed (snapshots, fixes)."""
+        ...
+
+    def end_stream(self) -> Sequence[object]:
+        """The byte stream ended or broke: drop any partial frame (counted); more may follow."""
+        ...
+
+    def counts(self) -> DecoderCounts: ...
+
+    def state_dict(self) -> dict[str, Any]: ...
+
+    def load_state_dict(self, state: Mapping[str, Any], /) -> None: ...
+
+
+class FrameConsumer(Protocol):
+    """The estimator side: checked frames in, outputs out (the station pipeline)."""
+
+    def feed_frames(self, frames: Sequence[Frame], /) -> Sequence[object]: ...
+
+    def state_dict(self) -> dict[str, Any]: ...
+
+    def load_state_dict(self, state: Mapping[str, Any], /) -> None: ...
+
+
+def _add(a: DecoderCounts, s: FramerStatistics) -> DecoderCounts:
+    return DecoderCounts(
+        frames_total=a.frames_total + s.rtcm_frames + s.nmea_frames,
+        rtcm_frames_total=a.rtcm_frames_total + s.rtcm_frames,
+        nmea_frames_total=a.nmea_frames_total + s.nmea_frames,
+        crc_errors_total=a.crc_errors_total + s.crc_failures,
+        checksum_errors_total=a.checksum_errors_total + s.nmea_checksum_failures,
+        discarded_bytes_total=a.discarded_bytes_total + s.bytes_discarded,
+        truncated_frames_total=a.truncated_frames_total + s.truncated_at_eof,
+    )
+
+
+class FramingCore:
+    """The framer, restarted on each new connection, plus an optional frame consumer."""
+
+    def __init__(self, consumer: FrameConsumer | None = None):
+        self._framer = Framer()
+        self._done = DecoderCounts()  # counts of framers already ended
+        self._consumer = consumer
+
+    def feed(self, data: bytes, /) -> Sequence[object]:
+        frames = self._framer.feed(data)
+        if self._consumer is None or not frames:
+            return ()
+        return self._consumer.feed_frames(frames)
+
+    def end_stream(self) -> Sequence[object]:
+        frames = self._framer.feed(b"")
+        self._done = _add(self._done, self._framer.statistics())
+        self._framer = Framer()
+        if self._consumer is None or not frames:
+            return ()
+        return self._consumer.feed_frames(frames)
+
+    def counts(self) -> DecoderCounts:
+        return _add(self._done, self._framer.statistics())
+
+    def state_dict(self) -> dict[str, Any]:
+        return {} if self._consumer is None else self._consumer.state_dict()
+
+    def load_state_dict(self, state: Mapping[str, Any], /) -> None:
+        if self._consumer is not None:
+            self._consumer.load_state_dict(state)

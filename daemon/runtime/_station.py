@@ -1,0 +1,389 @@
+"""One station at run time: an ingest task (source → bounded byte queue) and an estimate task
+(byte queue → framer/estimator → outputs), supervised with backoff and stall detection.
+
+Failure policy (STYLE rule 10): :data:`RETRYABLE_ERRORS` — every ``TransportError`` (OS, serial and
+protocol failures are translated into it where they enter) and our own stall verdict — leads to
+"wait a backoff delay, reconnect". :data:`TOLERATED_DECODE_ERRORS` raised while decoding are counted
+and the chunk is skipped. Anything else is a bug and propagates: the root TaskGroup fails and
+systemd restarts the unit.
+
+Queue policy: live sources use ``DROP_OLDEST`` (a slow estimator loses the oldest bytes, counted;
+the framer resynchronises); file and stdin sources use ``WAIT`` (nothing lost, reading slows).
+"""
+
+from __future__ import annotations
+
+import asyncio
+import enum
+import logging
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
+
+from ionwarden.daemon.errors import ParseError, TransportError
+from ionwarden.daemon.estimator import FixStatus, StationSnapshot
+from ionwarden.daemon.ingest import (
+    FileSource,
+    SourceRejectedError,
+    StdinSource,
+    open_transport,
+)
+
+from ._backoff import backoff_delays
+from ._pacer import ReplayPacer
+from ._queues import BoundedQueue, Overflow, QueueStatistics
+from ._stall import StallDetector, StallKind, StallLimits
+
+if TYPE_CHECKING:
+    import random
+    from collections.abc import Awaitable, Callable
+
+    from ionwarden.daemon.ingest import SourceSpec, Transport
+
+    from ._core import DecoderCounts, StationCore
+
+__all__ = [
+    "RETRYABLE_ERRORS",
+    "TOLERATED_DECODE_ERRORS",
+    "SourceEvent",
+    "StationConfig",
+    "StationRunner",
+    "StationState",
+    "StationStatistics",
+]
+
+log = logging.getLogger("ionwarden.daemon.runtime.station")
+
+#: Errors after which a source is reopened after a backoff delay (see the module docstring).
+RETRYABLE_ERRORS: tuple[type[Exception], ...] = (TransportError,)
+#: Errors a decoder may raise on hostile bytes: counted, the chunk skipped, the station goes on.
+TOLERATED_DECODE_ERRORS: tuple[type[Exception], ...] = (ParseError,)
+
+
+class StationState(enum.StrEnum):
+    STARTING = "starting"
+    CONNECTING = "connecting"
+    STREAMING = "streaming"
+    STALLED = "stalled"
+    RETRY_WAIT = "retry-wait"
+    REFUSED = "refused"
+    FINISHED = "finished"
+    STOPPED = "stopped"
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class StationConfig:
+    """Everything the runtime needs to run one station (built from the config by the CLI)."""
+
+    name: str
+    source: SourceSpec
+    password: str = field(default="", repr=False)
+    read_size: int = 65536
+    queue_size: int = 256
+    stall: StallLimits = field(default_factory=StallLimits)
+    backoff_initial_s: float = 1.0
+    backoff_cap_s: float = 30.0
+    #: Digest of the station's config; a SIGHUP reload restarts the station only when it changes.
+    fingerprint: str = ""
+
+    @property
+    def finite(self) -> bool:
+        """A source whose end is the end of the station (a file without loop, stdin)."""
+        return (isinstance(self.source, FileSource) and not self.source.loop) or isinstance(
+            self.source, StdinSource
+        )
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class SourceEvent:
+    """A state change of a station's source (connect, stall, refusal, retry, end)."""
+
+    station: str
+    state: StationState
+    detail: str
+    monotonic_s: float
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class StationStatistics:
+    """One station now (STYLE rule 15): source state, counters since start, queue figures."""
+
+    station: str
+    state: StationState
+    detail: str
+    connected: bool
+    bytes_total: int
+    connects_total: int
+    reconnects_total: int
+    stalls_total: int
+    epochs_total: int
+    fixes_total: int
+    decode_errors_total: int
+    decoder: DecoderCounts
+    queue: QueueStatistics
+    last_data_monotonic_s: float | None
+    last_epoch_monotonic_s: float | None
+    latest: StationSnapshot | None
+    latest_fix: FixStatus | None
+    #: Monotonic time of the estimate task's last completed step (the watchdog reads it).
+    progress_monotonic_s: float
+
+
+class _StalledError(TransportError):
+    def __init__(self, kind: StallKind, quiet_s: float):
+        super().__init__(f"stalled: {kind.value} for {quiet_s:.0f} s")
+        self.kind = kind
+
+
+_BREAK = object()  # the connection ended: drop the partial frame, more may follow
+_END = object()  # the source ended for good
+
+
+class StationRunner:
+    """Run with ``ingest_loop()`` and ``estimate_loop()`` as two tasks of the root TaskGroup."""
+
+    def __init__(
+        self,
+        config: StationConfig,
+        core: StationCore,
+        *,
+        emit: Callable[[object], None],
+        opener: Callable[[SourceSpec, str], Awaitable[Transport]] | None = None,
+        rng: random.Random | None = None,
+        produces_epochs: bool = True,
+        on_finished: Callable[[], None] | None = None,
+    ):
+        self._on_finished = on_finished
+        self.config = config
+        self.core = core
+        self._emit = emit
+        self._opener = opener or (lambda spec, pw: open_transport(spec, password=pw))
+        self._rng = rng
+        policy = Overflow.WAIT if config.finite else Overflow.DROP_OLDEST
+        self.queue: BoundedQueue[bytes | object] = BoundedQueue(
+            config.queue_size, policy, stage="estimator", station=config.name
+        )
+        limits = config.stall
+        if not produces_epochs:
+            limits = StallLimits(
+                no_data_s=limits.no_data_s, no_frame_s=limits.no_frame_s, no_epoch_s=float("inf")
+            )
+        if isinstance(config.source, FileSource):  # replay pacing is ours: never a "stall"
+            limits = StallLimits(
+                no_data_s=float("inf"), no_frame_s=float("inf"), no_epoch_s=float("inf")
+            )
+        self._loop = asyncio.get_running_loop()
+        now = self._loop.time()
+        self.started_monotonic_s = now
+        self._detector = StallDetector(limits, now)
+        self._pacer = (
+            ReplayPacer(config.source.speed) if isinstance(config.source, FileSource) else None
+        )
+        self.started = asyncio.Event()  # set after the first open attempt (success or not)
+        self.finished = asyncio.Event()
+        self._state = StationState.STARTING
+        self._detail = ""
+        self._connected = False
+        self._bytes = self._connects = self._stalls = 0
+        self._epochs = self._fixes = self._decode_errors = 0
+        self._last_data: float | None = None
+        self._last_epoch: float | None = None
+        self._latest: StationSnapshot | None = None
+        self._latest_fix: FixStatus | None = None
+        self._progress = now
+
+    # -- state ------------------------------------------------------------------------------------
+    @property
+    def name(self) -> str:
+        return self.config.name
+
+    @property
+    def state(self) -> StationState:
+        return self._state
+
+    def _set_state(self, state: StationState, detail: str = "") -> None:
+        if state is self._state and detail == self._detail:
+            return
+        self._state, self._detail = state, detail
+        self._emit(
+            SourceEvent(
+                station=self.name, state=state, detail=detail, monotonic_s=self._loop.time()
+            )
+        )
+
+    def statistics(self) -> StationStatistics:
+        return StationStatistics(
+            station=self.name,
+            state=self._state,
+            detail=self._detail,
+            connected=self._connected,
+            bytes_total=self._bytes,
+            connects_total=self._connects,
+            reconnects_total=max(0, self._connects - 1),
+            stalls_total=self._stalls,
+            epochs_total=self._epochs,
+            fixes_total=self._fixes,
+            decode_errors_total=self._decode_errors,
+            decoder=self.core.counts(),
+            queue=self.queue.statistics(),
+            last_data_monotonic_s=self._last_data,
+            last_epoch_monotonic_s=self._last_epoch,
+            latest=self._latest,
+            latest_fix=self._latest_fix,
+            progress_monotonic_s=self._progress,
+        )
+
+    def is_stuck(self, now: float, limit_s: float) -> bool:
+        """True when input waits but the estimate task completed nothing for ``limit_s``."""
+        return not self.queue.empty() and now - self._progress > limit_s
+
+    # -- ingest -----------------------------------------------------------------------------------
+    async def ingest_loop(self) -> None:
+        """Open, read, and on any retryable failure wait and reopen; return when a finite source ends."""
+        cfg = self.config
+        delays = backoff_delays(
+            initial_s=cfg.backoff_initial_s, cap_s=cfg.backoff_cap_s, rng=self._rng
+        )
+        try:
+            while True:
+                self._set_state(StationState.CONNECTING)
+                frames_before = self.core.counts().frames_total
+                try:
+                    transport = await self._opener(cfg.source, cfg.password)
+                except RETRYABLE_ERRORS as exc:
+                    self.started.set()
+                    await self._retry(exc, delays)
+                    continue
+                self._connects += 1
+                self.started.set()
+                ended = False
+                try:
+                    ended = await self._pump(transport)
+                except RETRYABLE_ERRORS as exc:
+                    failure: Exception | None = exc
+                else:
+                    failure = None
+                finally:
+                    self._connected = False
+                    await transport.aclose()
+                if ended and cfg.finite:
+                    await self.queue.put(_END)
+                    self._set_state(StationState.FINISHED, "end of stream")
+                    log.info("%s: source ended", self.name)
+                    return
+                await self.queue.put(_BREAK)
+                if self.core.counts().frames_total > frames_before:  # it worked for a while
+                    delays = backoff_delays(
+                        initial_s=cfg.backoff_initial_s, cap_s=cfg.backoff_cap_s, rng=self._rng
+                    )
+                await self._retry(failure or TransportError("source closed the stream"), delays)
+        finally:
+            self._connected = False
+            self.started.set()
+
+    async def _retry(self, exc: Exception, delays: object) -> None:
+        assert hasattr(delays, "__next__")
+        delay: float = next(delays)
+        if isinstance(exc, SourceRejectedError):
+            self._set_state(StationState.REFUSED, exc.status)
+            log.error("%s: %s; retrying in %.1f s", self.name, exc, delay)
+        elif isinstance(exc, _StalledError):
+            self._stalls += 1
+            self._set_state(StationState.STALLED, exc.kind.value)
+            log.warning("%s: %s; reconnecting in %.1f s", self.name, exc, delay)
+        else:
+            self._set_state(StationState.RETRY_WAIT, str(exc))
+            log.warning("%s: %s; reconnecting in %.1f s", self.name, exc, delay)
+        await asyncio.sleep(delay)
+
+    async def _pump(self, transport: Transport) -> bool:
+        """Read until EOF (return True) or a stall / transport error (raise)."""
+        det = self._detector
+        loop = self._loop
+        det.reset(loop.time())
+        self._connected = True
+        self._set_state(StationState.STREAMING)
+        log.info("%s: source open", self.name)
+        while True:
+            deadline = det.deadline()
+            try:
+                if deadline == float("inf"):
+                    data = await transport.read(self.config.read_size)
+                else:
+                    async with asyncio.timeout_at(deadline):
+                        data = await transport.read(self.config.read_size)
+            except TimeoutError:
+                data = None
+            now = loop.time()
+            if data is None or data:
+                kind = det.check(now)
+                if kind is not None:
+                    quiet = (
+                        now
+                        - {
+                            StallKind.NO_DATA: det.last_data,
+                            StallKind.NO_FRAME: det.last_frame,
+                            StallKind.NO_EPOCH: det.last_epoch,
+                        }[kind]
+                    )
+                    raise _StalledError(kind, quiet)
+            if data is None:
+                continue
+            if not data:
+                return True
+            self._bytes += len(data)
+            self._last_data = now
+            det.saw_data(now)
+            await self.queue.put(data)
+            det.saw_data(loop.time())  # time spent waiting on our own queue is not the source's
+
+    # -- estimate ---------------------------------------------------------------------------------
+    async def estimate_loop(self) -> None:
+        """Decode queued bytes and emit outputs; return after a finite source's end."""
+        loop = self._loop
+        try:
+            while True:
+                item = await self.queue.get()
+                if item is _END:
+                    self._handle(self.core.end_stream())
+                    return
+                if item is _BREAK:
+                    self._handle(self.core.end_stream())
+                else:
+                    assert isinstance(item, bytes)
+                    frames_before = self.core.counts().frames_total
+                    try:
+                        outputs = self.core.feed(item)
+                    except TOLERATED_DECODE_ERRORS as exc:
+                        self._decode_errors += 1
+                        log.warning("%s: decode error, chunk skipped: %s", self.name, exc)
+                        outputs = ()
+                    if self.core.counts().frames_total > frames_before:
+                        self._detector.saw_frame(loop.time())
+                    delay = self._handle(outputs)
+                    if delay > 0:
+                        await asyncio.sleep(delay)
+                self._progress = loop.time()
+                await asyncio.sleep(0)  # one chunk per turn: a garbage flood never starves others
+        finally:
+            self.finished.set()
+            if self._on_finished is not None:
+                self._on_finished()
+
+    def _handle(self, outputs: object) -> float:
+        """Count and emit outputs; return the replay pacing delay (s) they call for."""
+        now = self._loop.time()
+        delay = 0.0
+        assert isinstance(outputs, (list, tuple))
+        for out in outputs:
+            if isinstance(out, StationSnapshot):
+                self._epochs += 1
+                self._last_epoch = now
+                self._latest = out
+                self._detector.saw_epoch(now)
+                if self._pacer is not None:
+                    delay = max(delay, self._pacer.delay(out.time.total_s, now))
+            elif isinstance(out, FixStatus):
+                self._fixes += 1
+                self._latest_fix = out
+            self._emit(out)
+        return delay

@@ -1,0 +1,393 @@
+"""The daemon: one root TaskGroup (STYLE rule 13) owning every station, output and housekeeping task.
+
+Task names: ``daemon.ingest[<station>]``, ``daemon.estimate[<station>]``, ``daemon.mqtt[broker]``,
+``daemon.status[all]``, ``daemon.checkpoint[all]``.
+
+Lifecycle under systemd (``Type=notify``):
+
+* ``READY=1`` once every station made its first open attempt (a source that is down at start is
+  retried in the background: waiting for it would block the unit forever), the exporter is bound,
+  and MQTT connected or its first attempt failed (then it buffers and retries).
+* ``WATCHDOG=1`` every half ``WatchdogSec`` — only while no station's estimate task is stuck
+  (input waiting, nothing completed for a whole watchdog period). A wedged pipeline therefore gets
+  the unit restarted; a receiver that is merely offline does not.
+* ``STATUS=`` carries station health; SIGTERM/SIGINT stop gracefully (checkpoint, flush MQTT within
+  ``stop_timeout_s``); SIGHUP reloads the config and restarts only stations whose config changed.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import logging
+import signal
+import time
+from dataclasses import dataclass, field, replace
+from typing import TYPE_CHECKING, Any
+
+from ionwarden.daemon.estimator import FixStatus, StationSnapshot
+from ionwarden.parsers import utc_to_gps
+
+from ._checkpoint import load_checkpoint, save_checkpoint
+from ._notify import SdNotifier, watchdog_interval_s
+from ._station import SourceEvent, StationConfig, StationRunner, StationState
+from ._summary import format_status, format_summary
+
+if TYPE_CHECKING:
+    import datetime as dt
+    from collections.abc import Callable
+    from pathlib import Path
+
+    from ionwarden.daemon.alarms import StationAlarms
+    from ionwarden.daemon.outputs import DaemonSnapshot, Exporter, MqttPublisher
+
+    from ._core import StationCore
+    from ._station import StationStatistics
+
+__all__ = ["Daemon", "DaemonOptions", "StationBundle"]
+
+log = logging.getLogger("ionwarden.daemon.runtime")
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class DaemonOptions:
+    stations: tuple[StationConfig, ...]
+    state_dir: Path | None = None
+    checkpoint_interval_s: float = 300.0
+    checkpoint_max_age_s: float = 6 * 3600.0
+    summary_interval_s: float = 10.0
+    status_interval_s: float = 1.0
+    stop_timeout_s: float = 4.0
+    #: Stop when every station's source has ended (replays, stdin); live sources never end.
+    exit_when_sources_end: bool = True
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class StationBundle:
+    """What the factory builds for one station: its core, and its alarms (optional)."""
+
+    core: StationCore
+    produces_epochs: bool
+    alarms: StationAlarms | None = None
+
+
+@dataclass(slots=True)
+class _Running:
+    runner: StationRunner
+    bundle: StationBundle
+    tasks: list[asyncio.Task[None]] = field(default_factory=list)
+
+
+class Daemon:
+    """Run stations and outputs until stopped; see the module docstring."""
+
+    def __init__(
+        self,
+        options: DaemonOptions,
+        *,
+        factory: Callable[[StationConfig], StationBundle],
+        notifier: SdNotifier | None = None,  # owned: closed when run() returns
+        exporter: Exporter | None = None,
+        publisher: MqttPublisher | None = None,
+        build_snapshot: Callable[[Daemon], DaemonSnapshot] | None = None,
+        summary: Callable[[str], None] | None = None,
+        reload: Callable[[], DaemonOptions] | None = None,
+        wall_clock: Callable[[], float] = time.time,
+        utc_now: Callable[[], dt.datetime] | None = None,
+    ):
+        self.options = options
+        self._factory = factory
+        self.notifier = notifier or SdNotifier("")
+        self._exporter = exporter
+        self._publisher = publisher
+        self._build_snapshot = build_snapshot
+        self._summary = summary
+        self._reload = reload
+        self._wall = wall_clock
+        self._utc_now = utc_now
+        self._stations: dict[str, _Running] = {}
+        self._stop = asyncio.Event()
+        self._reload_requested = asyncio.Event()
+        self._wake = asyncio.Event()  # stop, reload or a source ended
+        self._tg: asyncio.TaskGroup | None = None
+        self.ready = asyncio.Event()
+        self.stats_history: dict[str, tuple[float, int]] = {}
+
+    # -- control (sync, safe from signal handlers) --------------------------------------------------
+    def request_stop(self) -> None:
+        self._stop.set()
+        self._wake.set()
+
+    def request_reload(self) -> None:
+        self._reload_requested.set()
+        self._wake.set()
+
+    def statistics(self) -> tuple[StationStatistics, ...]:
+        return tuple(r.runner.statistics() for r in self._stations.values())
+
+    def station_alarms(self) -> tuple[StationAlarms, ...]:
+        return tuple(
+            r.bundle.alarms for r in self._stations.values() if r.bundle.alarms is not None
+        )
+
+    # -- stations -----------------------------------------------------------------------------------
+    def _emit_for(self, name: str) -> Callable[[object], None]:
+        def emit(item: object) -> None:
+            running = self._stations.get(name)
+            alarms = running.bundle.alarms if running is not None else None
+            pub = self._publisher
+            transitions: list[Any] = []
+            if isinstance(item, StationSnapshot):
+                if alarms is not None:
+                    transitions = alarms.observe_snapshot(item)
+                if pub is not None:
+                    pub.publish_snapshot_nowait(item)
+            elif isinstance(item, FixStatus):
+                if alarms is not None:
+                    transitions = alarms.observe_fix(item)
+            elif isinstance(item, SourceEvent):
+                log.debug("%s: source %s %s", item.station, item.state.value, item.detail)
+            if transitions:
+                for tr in transitions:
+                    log.warning("%s: alarm %s", name, tr)
+                if pub is not None:
+                    pub.publish_transitions_nowait(transitions)
+
+        return emit
+
+    def _start_station(self, cfg: StationConfig) -> _Running:
+        assert self._tg is not None
+        bundle = self._factory(cfg)
+        opts = self.options
+        if opts.state_dir is not None:
+            state = load_checkpoint(
+                opts.state_dir,
+                cfg.name,
+                fp=cfg.fingerprint,
+                wall_time_s=self._wall(),
+                max_age_s=opts.checkpoint_max_age_s,
+            )
+            if state is not None:
+                bundle.core.load_state_dict(state)
+                log.info("%s: restored checkpointed state", cfg.name)
+        runner = StationRunner(
+            cfg, bundle.core, emit=self._emit_for(cfg.name), produces_epochs=bundle.produces_epochs
+        )
+        running = _Running(runner=runner, bundle=bundle)
+        self._stations[cfg.name] = running
+        running.tasks = [
+            self._tg.create_task(runner.ingest_loop(), name=f"daemon.ingest[{cfg.name}]"),
+            self._tg.create_task(runner.estimate_loop(), name=f"daemon.estimate[{cfg.name}]"),
+        ]
+        return running
+
+    async def _stop_station(self, name: str) -> None:
+        running = self._stations.pop(name)
+        for task in running.tasks:
+            task.cancel()
+        await asyncio.wait(running.tasks)
+        self._checkpoint_one(running)
+
+    def _checkpoint_one(self, running: _Running) -> None:
+        if self.options.state_dir is None:
+            return
+        state = running.bundle.core.state_dict()
+        if state:
+            cfg = running.runner.config
+            save_checkpoint(
+                self.options.state_dir,
+                cfg.name,
+                state,
+                fp=cfg.fingerprint,
+                wall_time_s=self._wall(),
+            )
+
+    def checkpoint_all(self) -> None:
+        for running in self._stations.values():
+            self._checkpoint_one(running)
+
+    async def _apply_reload(self) -> None:
+        assert self._reload is not None
+        self.notifier.notify("RELOADING=1", "STATUS=reloading configuration")
+        try:
+            new = self._reload()
+        except Exception:
+            log.exception("reload failed; keeping the running configuration")
+            self.notifier.notify("READY=1")
+            return
+        wanted = {c.name: c for c in new.stations}
+        for name in list(self._stations):
+            if name not in wanted or wanted[name] != self._stations[name].runner.config:
+                log.info("reload: stopping station %s", name)
+                await self._stop_station(name)
+        self.options = replace(new, stations=new.stations)
+        for cfg in new.stations:
+            if cfg.name not in self._stations:
+                log.info("reload: starting station %s", cfg.name)
+                self._start_station(cfg)
+        self.notifier.notify("READY=1", f"STATUS={format_status(self.statistics())}")
+
+    # -- housekeeping loops --------------------------------------------------------------------------
+    def _publish_status(self) -> None:
+        if self._exporter is not None and self._build_snapshot is not None:
+            self._exporter.update(self._build_snapshot(self))
+        if self._utc_now is not None:
+            now_gps = utc_to_gps(self._utc_now())
+            loop_now = asyncio.get_running_loop().time()
+            for running in self._stations.values():
+                alarms = running.bundle.alarms
+                st = running.runner.statistics()
+                if alarms is None or st.state is StationState.FINISHED:
+                    continue
+                since = st.last_epoch_monotonic_s
+                age = loop_now - (
+                    since if since is not None else running.runner.started_monotonic_s
+                )
+                transitions = alarms.observe_stall(age, now_gps)
+                if transitions and self._publisher is not None:
+                    self._publisher.publish_transitions_nowait(transitions)
+
+    async def _status_loop(self) -> None:
+        loop = asyncio.get_running_loop()
+        wd = watchdog_interval_s()
+        opts = self.options
+        last_wd = last_summary = loop.time()
+        last_status = ""
+        while True:
+            await asyncio.sleep(opts.status_interval_s)
+            now = loop.time()
+            stats = self.statistics()
+            self._publish_status()
+            status = format_status(stats)
+            if status != last_status:
+                self.notifier.notify(f"STATUS={status}")
+                last_status = status
+            if wd is not None and now - last_wd >= wd:
+                stuck = [
+                    r.runner.name for r in self._stations.values() if r.runner.is_stuck(now, 2 * wd)
+                ]
+                if stuck:
+                    log.error(
+                        "pipeline stuck for stations %s: withholding the watchdog ping", stuck
+                    )
+                else:
+                    self.notifier.notify("WATCHDOG=1")
+                    last_wd = now
+            if (
+                self._summary is not None
+                and opts.summary_interval_s
+                and now - last_summary >= opts.summary_interval_s
+            ):
+                self.print_summary(now)
+                last_summary = now
+
+    def print_summary(self, now: float) -> None:
+        if self._summary is None:
+            return
+        for s in self.statistics():
+            prev = self.stats_history.get(s.station)
+            rate = None
+            if prev is not None and now > prev[0]:
+                rate = (s.epochs_total - prev[1]) / (now - prev[0])
+            self.stats_history[s.station] = (now, s.epochs_total)
+            self._summary(format_summary(s, epoch_rate_hz=rate))
+
+    async def _checkpoint_loop(self) -> None:
+        interval = self.options.checkpoint_interval_s
+        while True:
+            await asyncio.sleep(interval)
+            self.checkpoint_all()
+
+    # -- main ---------------------------------------------------------------------------------------
+    async def run(self) -> int:
+        """Run until SIGTERM/SIGINT (or every finite source ended); return the exit status."""
+        loop = asyncio.get_running_loop()
+        handlers = {
+            signal.SIGTERM: self.request_stop,
+            signal.SIGINT: self.request_stop,
+            signal.SIGHUP: self.request_reload,
+        }
+        for sig, fn in handlers.items():
+            loop.add_signal_handler(sig, fn)
+        try:
+            return await self._run()
+        finally:
+            for sig in handlers:
+                loop.remove_signal_handler(sig)
+            self.notifier.close()
+
+    async def _run(self) -> int:
+        opts = self.options
+        if self._exporter is not None:
+            self._exporter.start()
+        try:
+            async with asyncio.TaskGroup() as tg:
+                self._tg = tg
+                mqtt_task = None
+                if self._publisher is not None:
+                    mqtt_task = tg.create_task(self._publisher.run(), name="daemon.mqtt[broker]")
+                for cfg in opts.stations:
+                    self._start_station(cfg)
+                await asyncio.gather(*(r.runner.started.wait() for r in self._stations.values()))
+                if self._publisher is not None:
+                    await self._publisher.wait_ready()
+                self._publish_status()
+                self.notifier.notify("READY=1", f"STATUS={format_status(self.statistics())}")
+                self.ready.set()
+                log.info("ready: %d station(s)", len(self._stations))
+                housekeeping = [tg.create_task(self._status_loop(), name="daemon.status[all]")]
+                if opts.state_dir is not None and opts.checkpoint_interval_s > 0:
+                    housekeeping.append(
+                        tg.create_task(self._checkpoint_loop(), name="daemon.checkpoint[all]")
+                    )
+                await self._wait_for_stop()
+                await self._shutdown(housekeeping, mqtt_task)
+        finally:
+            if self._exporter is not None:
+                self._exporter.close()
+        return 0
+
+    async def _wait_for_stop(self) -> None:
+        while True:
+            await self._wake.wait()
+            self._wake.clear()
+            if self._stop.is_set():
+                return
+            if self._reload_requested.is_set():
+                self._reload_requested.clear()
+                if self._reload is not None:
+                    await self._apply_reload()
+                else:
+                    log.warning("SIGHUP: no configuration file to reload")
+            runners = [r.runner for r in self._stations.values()]
+            if (
+                self.options.exit_when_sources_end
+                and runners
+                and all(r.finished.is_set() for r in runners)
+            ):
+                log.info("every source has ended")
+                if self._summary is not None:
+                    self.print_summary(asyncio.get_running_loop().time())
+                return
+
+    async def _shutdown(
+        self, housekeeping: list[asyncio.Task[None]], mqtt_task: asyncio.Task[None] | None
+    ) -> None:
+        self.notifier.notify("STOPPING=1", "STATUS=stopping")
+        log.info("stopping")
+        for name in list(self._stations):
+            await self._stop_station(name)  # also writes each checkpoint
+        for task in housekeeping:
+            task.cancel()
+        self._publish_status()
+        if self._publisher is not None and mqtt_task is not None:
+            self._publisher.stop()
+            try:
+                async with asyncio.timeout(self.options.stop_timeout_s):
+                    await asyncio.shield(mqtt_task)
+            except TimeoutError:
+                log.warning(
+                    "MQTT flush did not finish within %.1f s; dropping the rest",
+                    self.options.stop_timeout_s,
+                )
+                mqtt_task.cancel()
+        await asyncio.wait(housekeeping)

@@ -1,0 +1,352 @@
+"""Sans-IO receiver-stream decoder: framing, dispatch, MSM epoch assembly and time resolution.
+
+``StreamDecoder.feed(data)`` returns decoded messages: one :class:`ObsEpoch` per receiver epoch (all
+MSM messages that share an epoch time, whatever the constellation), the typed ephemeris / station
+messages of ``_rtcm_misc.DECODERS``, NMEA messages of ``_nmea``, and :class:`RawRtcm` for every
+RTCM type without a decoder (proprietary 4xxx, MSM1–3, SSR …), counted by type.
+
+Time (RTCM 10403.3 §3.5.12, Table 3.5-78): MSM epochs carry only a time of week (GPS, Galileo,
+QZSS, SBAS, NavIC: ms of week; BeiDou: BDT ms of week, BDT = GPST − 14 s) or, for GLONASS, DF416
+day of week + DF034 ms of day in UTC(SU) + 3 h (GLONASS ICD §3.3.3), which needs GPS − UTC leap
+seconds. Each is resolved to the full GPS time nearest to a reference: the constructor's (the
+daemon passes its clock; this module never reads one), else the last resolved epoch, else one
+learned from the stream (Galileo 1045/1046 or BeiDou 1042 week, NMEA date, and only as a last
+resort the newest GPS 1019, because receivers repeat year-old 1019s). Until a reference exists,
+closed epochs wait in a bounded queue; those pushed out are counted as unresolved, never guessed.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+from collections import deque
+from dataclasses import dataclass, field
+from types import MappingProxyType
+from typing import TYPE_CHECKING, Final
+
+import numpy as np
+
+from ._ephemeris import GlonassEphemeris, KeplerEphemeris
+from ._epoch import ObsEpoch
+from ._errors import ParseError
+from ._framer import Framer, FramerStatistics, NmeaFrame, RtcmFrame
+from ._gnsstime import BDS_GPS_OFFSET_S, GpsTime, leap_seconds_at, utc_to_gps
+from ._msm import MsmMessage, decode_msm, is_msm, new_glo_channel_table
+from ._nmea import GsvAssembler, GsvPart, RmcFix, ZdaTime, decode_sentence
+from ._rtcm_misc import DECODERS, DecodeContext
+
+if TYPE_CHECKING:
+    from collections.abc import Callable, Mapping
+
+__all__ = ["MAX_HELD_EPOCHS", "RawRtcm", "StreamDecoder", "StreamStatistics", "msm_gps_tow_ms"]
+
+#: Closed epochs kept while no reference time is known (1 min at 1 Hz); older ones are dropped
+#: and counted as unresolved.
+MAX_HELD_EPOCHS: Final = 64
+#: Without a better source, the newest GPS 1019 is trusted once this many epochs are waiting.
+_GPS_1019_FALLBACK_EPOCHS: Final = 8
+#: MSM messages whose epoch times differ by at most this much belong to one epoch (u-blox stamps
+#: whole seconds + 1 ms on some constellations); far below the 50 ms of a 20 Hz receiver.
+SAME_EPOCH_TOLERANCE_MS: Final = 5
+_DAY_MS: Final = 86_400_000
+_WEEK_MS: Final = 604_800_000
+_GLO_UTC_OFFSET_MS: Final = 10_800_000  # GLONASS time = UTC(SU) + 3 h (GLONASS ICD §3.3.3)
+_BDS_OFFSET_MS: Final = round(BDS_GPS_OFFSET_S * 1000)  # BDT = GPST − 14 s
+_GLO_DAY_UNKNOWN: Final = 7  # DF416: 7 = day of week unknown
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class RawRtcm:
+    """An RTCM 3 message without a decoder here, passed through as received."""
+
+    msg_type: int
+    payload: bytes
+    offset: int
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class StreamStatistics:
+    """Counters since the decoder was created."""
+
+    framer: FramerStatistics
+    #: Decoded messages by RTCM type (MSM and the ``DECODERS`` table).
+    decoded_by_type: Mapping[int, int] = field(default_factory=lambda: MappingProxyType({}))
+    #: RTCM types without a decoder, passed through as :class:`RawRtcm`.
+    raw_by_type: Mapping[int, int] = field(default_factory=lambda: MappingProxyType({}))
+    #: CRC-good frames whose content a decoder rejected (:class:`ParseError`), by type.
+    decode_errors_by_type: Mapping[int, int] = field(default_factory=lambda: MappingProxyType({}))
+    nmea_decoded: int = 0
+    nmea_errors: int = 0
+    last_error: str = ""
+    epochs: int = 0
+    #: Epochs dropped because no reference time arrived while they waited.
+    epochs_unresolved: int = 0
+    epochs_waiting: int = 0
+    #: Cells seen twice in one epoch (e.g. MSM6 and MSM7 of one system); the later one is kept.
+    duplicate_cells: int = 0
+    #: Where the reference time came from: "constructor", "galileo", "beidou", "gps-1019", "nmea"
+    #: or "" while unknown.
+    reference_source: str = ""
+
+
+def msm_gps_tow_ms(msg: MsmMessage, leap_s: int) -> int | None:
+    """GPS ms of week of an MSM epoch (``None`` for GLONASS with an unknown day of week).
+
+    Integer milliseconds so that every constellation of one epoch lands on the same value.
+    """
+    if msg.system == "R":
+        if msg.glonass_day == _GLO_DAY_UNKNOWN:
+            return None
+        glo_ms = msg.glonass_day * _DAY_MS + msg.epoch_ms
+        return (glo_ms - _GLO_UTC_OFFSET_MS + leap_s * 1000) % _WEEK_MS
+    if msg.system == "C":
+        return (msg.epoch_ms + _BDS_OFFSET_MS) % _WEEK_MS
+    return msg.epoch_ms % _WEEK_MS
+
+
+def _gps_ms_of_day(msg: MsmMessage, leap_s: int) -> int:
+    """GPS ms of day of an MSM epoch (defined even when the GLONASS day is unknown)."""
+    if msg.system == "R":
+        return (msg.epoch_ms - _GLO_UTC_OFFSET_MS + leap_s * 1000) % _DAY_MS
+    tow = msm_gps_tow_ms(msg, leap_s)
+    assert tow is not None
+    return tow % _DAY_MS
+
+
+def _at(week: int, tow_ms: int) -> GpsTime:
+    week_shift, tow_ms = divmod(tow_ms, _WEEK_MS)
+    return GpsTime(week + week_shift, tow_ms / 1000.0)
+
+
+def _resolve(msg: MsmMessage, ref: GpsTime) -> GpsTime:
+    """Full GPS time of an MSM epoch nearest to ``ref`` (week and day rollovers), exact to 1 ms."""
+    leap = leap_seconds_at(ref.to_utc())
+    ref_ms = round(ref.tow_s * 1000.0)
+    tow = msm_gps_tow_ms(msg, leap)
+    if tow is not None:
+        delta = (tow - ref_ms + _WEEK_MS // 2) % _WEEK_MS - _WEEK_MS // 2
+    else:
+        sod = _gps_ms_of_day(msg, leap)
+        delta = (sod - ref_ms + _DAY_MS // 2) % _DAY_MS - _DAY_MS // 2
+    return _at(ref.week, ref_ms + delta)
+
+
+def _circular_gap_ms(a: int, b: int) -> int:
+    d = abs(a - b) % _DAY_MS
+    return min(d, _DAY_MS - d)
+
+
+class _Epoch:
+    """MSM messages collected for one epoch (mutable, private)."""
+
+    __slots__ = ("msgs", "sod", "station")
+
+    def __init__(self, msg: MsmMessage, sod: int) -> None:
+        self.msgs = [msg]
+        self.sod = sod
+        self.station = msg.station_id
+
+
+class StreamDecoder:
+    """Decodes one receiver byte stream into epochs, ephemerides, station and NMEA messages."""
+
+    def __init__(self, reference_time: GpsTime | None = None, *, emit_msm: bool = False) -> None:
+        """``emit_msm`` also returns each :class:`MsmMessage` as it is decoded (diagnostics)."""
+        self._framer = Framer()
+        self._ref = reference_time
+        self._ref_source = "constructor" if reference_time is not None else ""
+        self._emit_msm = emit_msm
+        self._glo_channels = new_glo_channel_table()
+        self._open: _Epoch | None = None
+        self._gsv = GsvAssembler()
+        self._held: deque[_Epoch] = deque()
+        self._gps_1019_ref: GpsTime | None = None
+        self._decoded: dict[int, int] = {}
+        self._raw: dict[int, int] = {}
+        self._errors: dict[int, int] = {}
+        self._nmea_ok = 0
+        self._nmea_err = 0
+        self._last_error = ""
+        self._epochs = 0
+        self._unresolved = 0
+        self._duplicates = 0
+        self._dispatch: dict[int, Callable[[bytes], object]] = {
+            t: (lambda p, d=dec: d(p, DecodeContext(reference_time=self._ref)))
+            for t, dec in DECODERS.items()
+        }
+
+    # --- public -------------------------------------------------------------------------------
+    def feed(self, data: bytes | bytearray | memoryview) -> list[object]:
+        """Add stream bytes; return every message they complete. ``b""`` ends the stream."""
+        out: list[object] = []
+        for frame in self._framer.feed(data):
+            if isinstance(frame, RtcmFrame):
+                self._on_rtcm(frame, out)
+            else:
+                self._on_nmea(frame, out)
+        if not data:
+            self._close_open(out)
+            while self._held:  # still no reference at the end: count, never guess
+                self._held.popleft()
+                self._unresolved += 1
+        return out
+
+    def statistics(self) -> StreamStatistics:
+        return StreamStatistics(
+            framer=self._framer.statistics(),
+            decoded_by_type=MappingProxyType(dict(self._decoded)),
+            raw_by_type=MappingProxyType(dict(self._raw)),
+            decode_errors_by_type=MappingProxyType(dict(self._errors)),
+            nmea_decoded=self._nmea_ok,
+            nmea_errors=self._nmea_err,
+            last_error=self._last_error,
+            epochs=self._epochs,
+            epochs_unresolved=self._unresolved,
+            epochs_waiting=len(self._held) + (self._open is not None),
+            duplicate_cells=self._duplicates,
+            reference_source=self._ref_source,
+        )
+
+    @property
+    def reference_time(self) -> GpsTime | None:
+        """The current reference (the last resolved epoch once there is one)."""
+        return self._ref
+
+    # --- RTCM ---------------------------------------------------------------------------------
+    def _on_rtcm(self, frame: RtcmFrame, out: list[object]) -> None:
+        t = frame.msg_type
+        try:
+            if is_msm(t):
+                msg: object = decode_msm(frame.payload, self._glo_channels)
+            else:
+                decoder = self._dispatch.get(t)
+                if decoder is None:
+                    self._raw[t] = self._raw.get(t, 0) + 1
+                    out.append(RawRtcm(msg_type=t, payload=frame.payload, offset=frame.offset))
+                    return
+                msg = decoder(frame.payload)
+        except ParseError as exc:
+            self._errors[t] = self._errors.get(t, 0) + 1
+            self._last_error = f"{exc} at stream offset {frame.offset}"
+            return
+        self._decoded[t] = self._decoded.get(t, 0) + 1
+        if isinstance(msg, MsmMessage):
+            self._on_msm(msg, out)
+            if self._emit_msm:
+                out.append(msg)
+            return
+        self._learn(msg, out)
+        out.append(msg)
+
+    def _learn(self, msg: object, out: list[object]) -> None:
+        """Channel table and reference time from ephemerides."""
+        if isinstance(msg, GlonassEphemeris):
+            slot = msg.sat - 100
+            if 0 < slot < self._glo_channels.shape[0] and -7 <= msg.channel <= 6:
+                self._glo_channels[slot] = msg.channel
+        elif isinstance(msg, KeplerEphemeris) and self._ref is None:
+            toe_gps = msg.toe_s + (BDS_GPS_OFFSET_S if msg.time_system == "BDT" else 0.0)
+            ref = GpsTime(msg.week, 0.0) + toe_gps
+            if msg.source in (1045, 1046):
+                self._set_reference(ref, "galileo", out)
+            elif msg.source == 1042:
+                self._set_reference(ref, "beidou", out)
+            elif msg.source == 1019 and (self._gps_1019_ref is None or ref > self._gps_1019_ref):
+                self._gps_1019_ref = ref
+
+    def _set_reference(self, ref: GpsTime, source: str, out: list[object]) -> None:
+        self._ref = ref
+        self._ref_source = source
+        while self._held:
+            self._emit(self._held.popleft(), out)
+
+    # --- MSM epochs ---------------------------------------------------------------------------
+    def _leap(self) -> int:
+        return leap_seconds_at(self._ref.to_utc()) if self._ref is not None else 18
+
+    def _on_msm(self, msg: MsmMessage, out: list[object]) -> None:
+        if msg.system == "R" and msg.msm_level in (5, 7):
+            ext = msg.sat_ext_info
+            known = ext <= 13  # DF419 0…13 ↔ channel −7…+6
+            self._glo_channels[msg.sat_ids[known] - 100] = (ext[known] - 7).astype(np.int8)
+        sod = _gps_ms_of_day(msg, self._leap())
+        ep = self._open
+        if ep is not None and (
+            ep.station != msg.station_id or _circular_gap_ms(ep.sod, sod) > SAME_EPOCH_TOLERANCE_MS
+        ):
+            self._close_open(out)
+            ep = None
+        if ep is None:
+            self._open = _Epoch(msg, sod)
+        else:
+            ep.msgs.append(msg)
+        if not msg.multiple_message:  # DF393 = 0: last message of this epoch
+            self._close_open(out)
+
+    def _close_open(self, out: list[object]) -> None:
+        ep, self._open = self._open, None
+        if ep is None:
+            return
+        if self._ref is None:
+            self._held.append(ep)
+            if len(self._held) > MAX_HELD_EPOCHS:
+                self._held.popleft()
+                self._unresolved += 1
+            if len(self._held) >= _GPS_1019_FALLBACK_EPOCHS and self._gps_1019_ref is not None:
+                self._set_reference(self._gps_1019_ref, "gps-1019", out)
+            return
+        self._emit(ep, out)
+
+    def _emit(self, ep: _Epoch, out: list[object]) -> None:
+        assert self._ref is not None
+        time = _resolve(ep.msgs[0], self._ref)
+        self._ref = time
+        out.append(self._assemble(ep, time))
+        self._epochs += 1
+
+    def _assemble(self, ep: _Epoch, time: GpsTime) -> ObsEpoch:
+        msgs = ep.msgs
+        names = (
+            "sat", "sig", "pseudorange_m", "phase_cycles", "range_rate_mps", "cn0_dbhz",
+            "lock_time_s", "lock_indicator", "half_cycle", "freq_hz",
+        )  # fmt: skip
+        if len(msgs) == 1:
+            arrays = {n: getattr(msgs[0], n) for n in names}
+        else:
+            arrays = {n: np.concatenate([getattr(m, n) for m in msgs]) for n in names}
+        n = arrays["sat"].shape[0]
+        key = arrays["sat"].astype(np.int32) * 1024 + arrays["sig"]
+        if np.unique(key).shape[0] != n:
+            _, first_rev = np.unique(key[::-1], return_index=True)
+            keep = np.sort(n - 1 - first_rev)
+            self._duplicates += n - keep.shape[0]
+            arrays = {k: v[keep] for k, v in arrays.items()}
+            n = keep.shape[0]
+        return ObsEpoch(
+            time=time,
+            station_id=ep.station,
+            lli=np.zeros(n, np.uint8),
+            sources=tuple(m.msg_type for m in msgs),
+            _validate=False,
+            **arrays,
+        )
+
+    # --- NMEA ---------------------------------------------------------------------------------
+    def _on_nmea(self, frame: NmeaFrame, out: list[object]) -> None:
+        try:
+            msg = decode_sentence(frame.raw)
+        except ParseError as exc:
+            self._nmea_err += 1
+            self._last_error = f"{exc} at stream offset {frame.offset}"
+            return
+        self._nmea_ok += 1
+        if isinstance(msg, GsvPart):  # GSV groups come out whole (one object per talker+signal)
+            group = self._gsv.push(msg)
+            if group is not None:
+                out.append(group)
+            return
+        if self._ref is None and isinstance(msg, RmcFix | ZdaTime):
+            valid = msg.valid if isinstance(msg, RmcFix) else True
+            if valid and msg.date_utc is not None and msg.time_utc is not None:
+                utc = _dt.datetime.combine(msg.date_utc, msg.time_utc, tzinfo=_dt.UTC)
+                self._set_reference(utc_to_gps(utc), "nmea", out)
+        out.append(msg)

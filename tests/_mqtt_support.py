@@ -1,0 +1,139 @@
+"""Helpers for the MQTT tests and bench: the broker address, a private broker, a collecting client.
+
+Not a test module. The shared broker comes from IONWARDEN_TEST_MQTT_HOST / _PORT (default
+127.0.0.1:1883); tests that must kill a broker start their own ``mosquitto`` on a free port.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import json
+import os
+import shutil
+import socket
+import subprocess
+import time
+import uuid
+from collections.abc import Iterator
+from pathlib import Path
+
+import aiomqtt
+import pytest
+
+BROKER_HOST = os.environ.get("IONWARDEN_TEST_MQTT_HOST", "127.0.0.1")
+BROKER_PORT = int(os.environ.get("IONWARDEN_TEST_MQTT_PORT", "1883"))
+
+
+def need(what: str, ok: bool) -> None:
+    """Skip with a clear reason when a local service is missing — but fail under CI=true."""
+    if ok:
+        return
+    if os.environ.get("CI", "").lower() == "true":
+        pytest.fail(f"{what} is required in CI")
+    pytest.skip(f"{what} not available (set CI=true to make this a failure)")
+
+
+def port_open(host: str, port: int) -> bool:
+    with socket.socket() as s:
+        s.settimeout(0.5)
+        try:
+            s.connect((host, port))
+        except OSError:
+            return False
+    return True
+
+
+def free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return int(s.getsockname()[1])
+
+
+def unique_prefix() -> str:
+    return f"iwtest/{uuid.uuid4().hex[:12]}"
+
+
+class PrivateBroker:
+    """A ``mosquitto`` subprocess on a free loopback port, with on-disk persistence so a subscriber's
+    session (and the QoS 1 messages queued for it) survives a broker restart."""
+
+    def __init__(self, workdir: Path) -> None:
+        self.port = free_port()
+        self.conf = workdir / "mosquitto.conf"
+        (workdir / "data").mkdir(exist_ok=True)
+        self.conf.write_text(
+            f"listener {self.port} 127.0.0.1\n"
+            "allow_anonymous true\n"
+            "persistence true\n"
+            f"persistence_location {workdir / 'data'}/\n"
+            "log_dest none\n",
+            encoding="utf-8",
+        )
+        self.proc: subprocess.Popen[bytes] | None = None
+
+    def start(self) -> None:
+        exe = shutil.which("mosquitto") or "/usr/sbin/mosquitto"
+        self.proc = subprocess.Popen(
+            [exe, "-c", str(self.conf)], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL
+        )
+        deadline = time.monotonic() + 10.0
+        while not port_open("127.0.0.1", self.port):
+            if self.proc.poll() is not None or time.monotonic() > deadline:
+                raise RuntimeError("private mosquitto did not start")
+            time.sleep(0.02)
+
+    def stop(self) -> None:
+        proc, self.proc = self.proc, None
+        if proc is None:
+            return
+        proc.terminate()
+        try:
+            proc.wait(timeout=10)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+            proc.wait(timeout=10)
+
+
+@contextlib.contextmanager
+def private_broker(workdir: Path) -> Iterator[PrivateBroker]:
+    exe = shutil.which("mosquitto") or "/usr/sbin/mosquitto"
+    need("mosquitto executable", Path(exe).exists())
+    broker = PrivateBroker(workdir)
+    broker.start()
+    try:
+        yield broker
+    finally:
+        broker.stop()
+
+
+async def collect(
+    client: aiomqtt.Client, *, until, timeout_s: float = 20.0
+) -> list[tuple[str, dict, bool]]:
+    """Receive (topic, JSON payload, retain flag) until ``until(received)`` is true (bounded)."""
+    got: list[tuple[str, dict, bool]] = []
+    if until(got):
+        return got
+    async with asyncio.timeout(timeout_s):
+        async for msg in client.messages:
+            payload = msg.payload if isinstance(msg.payload, bytes) else b""
+            got.append((msg.topic.value, json.loads(payload) if payload else {}, msg.retain))
+            if until(got):
+                return got
+    return got
+
+
+def schema_of(topic: str) -> str:
+    """Which payload schema a topic of our tree carries."""
+    parts = topic.split("/")
+    if parts[-2] == "alarm":
+        return "alarm-state"
+    leaf = parts[-1]
+    if parts[-2] == "_daemon":
+        return {"status": "daemon-status", "health": "daemon-health"}[leaf]
+    return {
+        "status": "station-status",
+        "summary": "summary",
+        "satellites": "satellites",
+        "events": "alarm-event",
+    }[leaf]

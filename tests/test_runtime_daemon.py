@@ -1,0 +1,265 @@
+"""The supervisor end to end on a virtual clock: 20 stations at 1 Hz over loopback TCP, systemd
+notifications on a real AF_UNIX datagram socket, SIGHUP reload, SIGTERM stop, checkpoints."""
+
+from __future__ import annotations
+
+import asyncio
+import os
+import random
+import signal
+import socket
+from pathlib import Path
+
+import pytest
+
+from ionwarden.daemon.ingest import FileSource, TcpSource
+from ionwarden.daemon.runtime import (
+    SdNotifier,
+    StallLimits,
+    StationConfig,
+    StationState,
+    run_virtual,
+)
+from ionwarden.daemon.runtime._supervisor import Daemon, DaemonOptions, StationBundle
+
+from ._runtime_support import ScriptedServer, StandInCore, rtcm_frame
+
+N_STATIONS = 20
+
+
+async def _one_hz(_r: asyncio.StreamReader, w: asyncio.StreamWriter) -> None:
+    i = 0
+    while True:
+        w.write(rtcm_frame(1077, i.to_bytes(4, "big")))
+        await w.drain()
+        i += 1
+        await asyncio.sleep(1.0)
+
+
+class Fleet:
+    """N loopback 'receivers', each sending one numbered 1077 frame per (virtual) second."""
+
+    def __init__(self, n: int):
+        self.servers = [ScriptedServer(_one_hz) for _ in range(n)]
+
+    async def __aenter__(self) -> Fleet:
+        for s in self.servers:
+            await s.__aenter__()
+        return self
+
+    async def __aexit__(self, *exc: object) -> None:
+        for s in self.servers:
+            await s.__aexit__(*exc)
+
+    def ports(self) -> list[int]:
+        return [s.port for s in self.servers]
+
+
+def _station(name: str, port: int, **kw: object) -> StationConfig:
+    return StationConfig(
+        name=name,
+        source=TcpSource(host="127.0.0.1", port=port),
+        stall=StallLimits(no_data_s=10, no_frame_s=30, no_epoch_s=60),
+        queue_size=64,
+        fingerprint=f"{name}:{port}",
+        **kw,  # type: ignore[arg-type]
+    )
+
+
+def _factory(cores: dict[str, StandInCore]):
+    def build(cfg: StationConfig) -> StationBundle:
+        core = StandInCore()
+        cores[cfg.name] = core
+        return StationBundle(core=core, produces_epochs=False)
+
+    return build
+
+
+@pytest.fixture
+def notify_socket(tmp_path: Path):
+    """A real AF_UNIX datagram socket standing in for systemd's notify socket."""
+    path = tmp_path / "notify"
+    sock = socket.socket(socket.AF_UNIX, socket.SOCK_DGRAM)
+    sock.bind(str(path))
+    sock.setblocking(False)
+    yield path, sock
+    sock.close()
+
+
+def _drain(sock: socket.socket) -> list[str]:
+    out = []
+    while True:
+        try:
+            out.append(sock.recv(4096).decode())
+        except BlockingIOError:
+            return out
+
+
+@pytest.mark.integration
+def test_daemon_runs_20_stations_without_queue_growth(notify_socket, tmp_path: Path) -> None:
+    """Daemon streams 20 stations at 1 Hz for 2 minutes: every epoch arrives, queues stay shallow."""
+    path, sock = notify_socket
+
+    async def main() -> None:
+        loop = asyncio.get_running_loop()
+        cores: dict[str, StandInCore] = {}
+        async with Fleet(N_STATIONS) as fleet:
+            opts = DaemonOptions(
+                stations=tuple(_station(f"st{i:02d}", p) for i, p in enumerate(fleet.ports())),
+                summary_interval_s=0,
+            )
+            daemon = Daemon(opts, factory=_factory(cores), notifier=SdNotifier(str(path)))
+            async with asyncio.TaskGroup() as tg:
+                run = tg.create_task(daemon.run(), name="test.daemon")
+                await daemon.ready.wait()
+                msgs = _drain(sock)
+                assert any(m.startswith("READY=1") for m in msgs)
+                t0 = loop.time()
+                await asyncio.sleep(120)
+                stats = daemon.statistics()
+                daemon.request_stop()
+            assert run.result() == 0
+            assert loop.time() - t0 < 125
+        assert len(stats) == N_STATIONS
+        for st in stats:
+            assert st.state is StationState.STREAMING, st
+            assert st.queue.peak <= 2 and st.queue.dropped_total == 0
+            assert st.decoder.frames_total >= 120
+        for core in cores.values():
+            seq = [int.from_bytes(p[2:6], "big") for p in core.seen]
+            assert seq == list(range(len(seq)))  # nothing lost, nothing reordered
+        msgs = _drain(sock)
+        assert any("STATUS=20/20 stations streaming" in m for m in msgs)
+        assert msgs[-1].startswith("STATUS=") or "STOPPING=1" in "".join(msgs)
+
+    run_virtual(main())
+
+
+def test_daemon_reload_restarts_only_changed_stations(notify_socket) -> None:
+    """Daemon on SIGHUP stops removed or changed stations, starts new ones, leaves the rest running."""
+    path, sock = notify_socket
+
+    async def main() -> None:
+        cores: dict[str, StandInCore] = {}
+        async with Fleet(4) as fleet:
+            p = fleet.ports()
+            first = DaemonOptions(stations=(_station("a", p[0]), _station("b", p[1]), _station("c", p[2])), summary_interval_s=0)
+            second = DaemonOptions(stations=(_station("a", p[0]), _station("b", p[3]), _station("d", p[2])), summary_interval_s=0)
+            daemon = Daemon(first, factory=_factory(cores), notifier=SdNotifier(str(path)), reload=lambda: second)
+            async with asyncio.TaskGroup() as tg:
+                tg.create_task(daemon.run(), name="test.daemon")
+                await daemon.ready.wait()
+                await asyncio.sleep(5)
+                core_a, core_b = cores["a"], cores["b"]
+                os.kill(os.getpid(), signal.SIGHUP)
+                await asyncio.sleep(5)
+                names = [s.station for s in daemon.statistics()]
+                assert names == ["a", "b", "d"]
+                assert cores["a"] is core_a  # untouched
+                assert cores["b"] is not core_b  # its source changed: restarted
+                assert len(core_a.seen) >= 9
+                os.kill(os.getpid(), signal.SIGTERM)
+        msgs = _drain(sock)
+        assert any(m.startswith("RELOADING=1") for m in msgs)
+        assert any("STOPPING=1" in m for m in msgs)
+
+    run_virtual(main())
+
+
+def test_daemon_stops_on_sigterm_within_the_budget(notify_socket) -> None:
+    """Daemon stops all stations and returns 0 promptly after SIGTERM."""
+    path, sock = notify_socket
+
+    async def main() -> None:
+        loop = asyncio.get_running_loop()
+        async with Fleet(2) as fleet:
+            p = fleet.ports()
+            opts = DaemonOptions(stations=(_station("a", p[0]), _station("b", p[1])), summary_interval_s=0)
+            daemon = Daemon(opts, factory=_factory({}), notifier=SdNotifier(str(path)))
+            async with asyncio.TaskGroup() as tg:
+                run = tg.create_task(daemon.run(), name="test.daemon")
+                await daemon.ready.wait()
+                await asyncio.sleep(3)
+                t0 = loop.time()
+                os.kill(os.getpid(), signal.SIGTERM)
+            assert run.result() == 0
+            assert loop.time() - t0 < 5.0
+            assert daemon.statistics() == ()
+
+    run_virtual(main())
+
+
+def test_daemon_checkpoints_and_restores_station_state(tmp_path: Path) -> None:
+    """Daemon writes each station's state at stop and restores it on the next start when valid."""
+    cap = tmp_path / "cap.bin"
+    cap.write_bytes(b"".join(rtcm_frame(1077, i.to_bytes(4, "big")) for i in range(7)))
+    cfg = StationConfig(name="base", source=FileSource(path=str(cap), speed=0), fingerprint="fp1")
+    state_dir = tmp_path / "state"
+
+    async def once(cfg: StationConfig, now: float) -> StandInCore:
+        cores: dict[str, StandInCore] = {}
+        opts = DaemonOptions(stations=(cfg,), state_dir=state_dir, summary_interval_s=0, checkpoint_max_age_s=3600)
+        daemon = Daemon(opts, factory=_factory(cores), wall_clock=lambda: now)
+        assert await daemon.run() == 0  # the replay ends: the daemon stops by itself
+        return cores["base"]
+
+    first = run_virtual(once(cfg, 1000.0))
+    assert first.state == {"arcs": 7}
+    assert (state_dir / "checkpoint-base.npz").is_file()
+    second = run_virtual(once(cfg, 2000.0))
+    assert second.state == {"arcs": 14}  # restored 7, then replayed 7 more
+    stale = run_virtual(once(cfg, 2000.0 + 7200.0))
+    assert stale.state == {"arcs": 7}  # too old: not restored
+    changed = run_virtual(once(StationConfig(name="base", source=cfg.source, fingerprint="fp2"), 9300.0))
+    assert changed.state == {"arcs": 7}  # config changed: not restored
+
+
+def test_daemon_summary_lines_are_printed_per_station() -> None:
+    """Daemon prints one summary line per station at each summary interval."""
+    lines: list[str] = []
+
+    async def main() -> None:
+        async with Fleet(2) as fleet:
+            p = fleet.ports()
+            opts = DaemonOptions(stations=(_station("a", p[0]), _station("b", p[1])), summary_interval_s=10)
+            daemon = Daemon(opts, factory=_factory({}), summary=lines.append)
+            async with asyncio.TaskGroup() as tg:
+                tg.create_task(daemon.run(), name="test.daemon")
+                await daemon.ready.wait()
+                await asyncio.sleep(25)
+                daemon.request_stop()
+
+    run_virtual(main())
+    assert len(lines) == 4
+    assert lines[0].startswith("a ") and lines[1].startswith("b ")
+    assert "streaming" in lines[2] and "frames" in lines[2]
+
+
+def test_sd_notifier_is_silent_without_notify_socket(monkeypatch: pytest.MonkeyPatch) -> None:
+    """SdNotifier does nothing (and does not fail) when $NOTIFY_SOCKET is unset."""
+    monkeypatch.delenv("NOTIFY_SOCKET", raising=False)
+    n = SdNotifier()
+    assert not n.enabled
+    n.notify("READY=1")
+    assert n.sent == ["READY=1"]
+
+
+def test_sd_notifier_reaches_an_abstract_socket() -> None:
+    """SdNotifier sends to an abstract-namespace socket named with a leading '@'."""
+    name = f"ionwarden-test-{os.getpid()}-{random.Random().randrange(1 << 30)}"
+    with socket.socket(socket.AF_UNIX, socket.SOCK_DGRAM) as sock:
+        sock.bind("\0" + name)
+        n = SdNotifier("@" + name)
+        n.notify("READY=1", "STATUS=ok")
+        assert sock.recv(100) == b"READY=1\nSTATUS=ok"
+        n.close()
+
+
+def test_watchdog_interval_is_half_of_watchdog_usec() -> None:
+    """watchdog_interval_s returns WatchdogSec/2 for this process, and None when off or foreign."""
+    from ionwarden.daemon.runtime import watchdog_interval_s
+
+    assert watchdog_interval_s({"WATCHDOG_USEC": "20000000"}) == 10.0
+    assert watchdog_interval_s({"WATCHDOG_USEC": "20000000", "WATCHDOG_PID": str(os.getpid())}) == 10.0
+    assert watchdog_interval_s({"WATCHDOG_USEC": "20000000", "WATCHDOG_PID": "1"}) is None
+    assert watchdog_interval_s({}) is None
