@@ -8,9 +8,10 @@ Figures depend on the machine and on other load (shared CI/dev boxes: note conte
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import time
-from collections.abc import Callable
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -26,6 +27,9 @@ from ionwarden.daemon.geo import (
     satellite_geometry,
 )
 from ionwarden.parsers import GlonassEphemeris, KeplerEphemeris, sat_id
+
+if TYPE_CHECKING:
+    from collections.abc import Callable
 
 WEEK = 2034
 TOE = 252_000.0
@@ -116,6 +120,19 @@ def main() -> None:
         lambda i: store.select(sats, T0 + i * 0.01),
         20_000,
     )
+    fresh = EphemerisStore()
+    for e in kep:
+        fresh.add(e)
+    for e in glo:
+        fresh.add(e, t_received_gps_s=T0)
+
+    def new_upload(i: int) -> object:
+        e = kep[i % len(kep)]
+        iod = 10 + (i // len(kep)) % 200
+        fresh.add(dataclasses.replace(e, iode=iod, iodc=iod, af0=e.af0 + 1e-9 * i))
+        return fresh.select(sats, T0)
+
+    _time("EphemerisStore.add + select (40 sats, rebuild each call)", new_upload, 500)
     us_geo = _time(
         "satellite_geometry (40 sats, light-time iteration)",
         lambda i: satellite_geometry(T0 + i * 0.01, rx, sats, store),

@@ -7,6 +7,16 @@ bytes (or lines) and receive typed, immutable messages.
 from ._ephemeris import GlonassEphemeris, KeplerEphemeris
 from ._epoch import EPOCH_DTYPES, ObsEpoch
 from ._errors import ConfigError, DaemonError, OutputError, ParseError, TransportError
+from ._framer import (
+    MAX_INCOMPLETE_FRAME,
+    NEED_DATA,
+    Frame,
+    Framer,
+    FramerStatistics,
+    NeedData,
+    NmeaFrame,
+    RtcmFrame,
+)
 from ._gnsstime import (
     BDS_GPS_OFFSET_S,
     GPS_EPOCH,
@@ -16,6 +26,8 @@ from ._gnsstime import (
     leap_seconds_at,
     utc_to_gps,
 )
+from ._msm import MSM_TYPES, MsmMessage, decode_msm
+from ._msm_encode import encode_msm
 from ._nmea import (
     GgaFix,
     GnsFix,
@@ -60,18 +72,25 @@ from ._signals import (
     signal_name,
     system_of,
 )
+from ._stream import RawRtcm, StreamDecoder, StreamStatistics
 
 __all__ = [
     "BDS_GPS_OFFSET_S",
     "EPOCH_DTYPES",
     "GLO_NO_CHANNEL",
     "GPS_EPOCH",
+    "MAX_INCOMPLETE_FRAME",
     "MAX_SAT_ID",
+    "MSM_TYPES",
+    "NEED_DATA",
     "SECONDS_PER_WEEK",
     "SYSTEMS",
     "ConfigError",
     "DaemonError",
     "DecodeContext",
+    "Frame",
+    "Framer",
+    "FramerStatistics",
     "GgaFix",
     "GlonassEphemeris",
     "GnsFix",
@@ -81,11 +100,15 @@ __all__ = [
     "GsvAssembler",
     "GsvPart",
     "KeplerEphemeris",
+    "MsmMessage",
+    "NeedData",
+    "NmeaFrame",
     "NmeaMessage",
     "NmeaOther",
     "ObsEpoch",
     "OutputError",
     "ParseError",
+    "RawRtcm",
     "ReceiverDescriptor",
     "RinexNavHeader",
     "RinexNavParser",
@@ -93,18 +116,23 @@ __all__ = [
     "RinexObsParser",
     "RinexObsStatistics",
     "RmcFix",
+    "RtcmFrame",
     "SatellitesInView",
     "StationReference",
+    "StreamDecoder",
+    "StreamStatistics",
     "TransportError",
     "VtgVelocity",
     "ZdaTime",
     "carrier_frequency_hz",
+    "decode_msm",
     "decode_sentence",
     "encode_1005",
     "encode_ephemeris",
     "encode_gga",
     "encode_gst",
     "encode_gsv",
+    "encode_msm",
     "encode_rmc",
     "format_nav_header",
     "format_nav_record",

@@ -35,7 +35,14 @@ from ._msm_tables import (
 )
 from ._signals import GLO_NO_CHANNEL, frequencies_hz
 
-__all__ = ["GLO_CHANNEL_TABLE_SIZE", "MsmMessage", "decode_msm", "is_msm", "new_glo_channel_table"]
+__all__ = [
+    "GLO_CHANNEL_TABLE_SIZE",
+    "MSM_TYPES",
+    "MsmMessage",
+    "decode_msm",
+    "is_msm",
+    "new_glo_channel_table",
+]
 
 _LIGHT_MS_M: Final = SPEED_OF_LIGHT_MPS / 1000.0  # metres per light-millisecond
 _PAD: Final = bytes(8)
@@ -153,6 +160,10 @@ def is_msm(msg_type: int) -> bool:
     """True for the MSM4–7 message numbers this module decodes."""
     found = msm_system(msg_type)
     return found is not None and found[1] >= 4
+
+
+#: Every message number decoded here: MSM4–7 of GPS, GLONASS, Galileo, SBAS, QZSS, BeiDou, NavIC.
+MSM_TYPES: Final = frozenset(t for t in range(1070, 1140) if is_msm(t))
 
 
 def _bits_set(mask: int, width: int) -> list[int]:

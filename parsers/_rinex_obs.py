@@ -251,8 +251,12 @@ class RinexObsParser:
                 f"not a RINEX 3 observation file (version {header.version}, type {header.file_type!r})",
                 "RINEX obs header",
             )
+        try:
+            layout = _layout(header)
+        except ValueError as exc:  # an observation code that is not RINEX 3 (e.g. "C1 ")
+            raise self._fail(f"bad SYS / # / OBS TYPES: {exc}", "RINEX obs header") from exc
         self._header = header
-        self._layout = _layout(header)
+        self._layout = layout
         self._builder.lines = 0  # the header bound applies to each header block
         self._glo[:] = GLO_NO_CHANNEL
         for sat, k in header.glonass_channels.items():

@@ -15,7 +15,7 @@ from __future__ import annotations
 
 import datetime as _dt
 import math
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, Protocol
 
 import numpy as np
 import numpy.typing as npt
@@ -27,13 +27,13 @@ from ._signals import SYSTEMS, sat_name, signal_code
 
 if TYPE_CHECKING:
     from collections.abc import Iterable, Mapping, Sequence
-    from typing import TextIO
 
     from ._epoch import ObsEpoch
     from ._rinex_nav import Ephemeris
     from ._rinex_obs_header import RinexObsHeader
 
 __all__ = [
+    "TextSink",
     "format_nav_header",
     "format_nav_record",
     "format_obs_epoch",
@@ -41,6 +41,13 @@ __all__ = [
     "write_rinex_nav",
     "write_rinex_obs",
 ]
+
+
+class TextSink(Protocol):
+    """Where the ``write_*`` helpers put text: any text file or ``io.StringIO`` (``IO[str]``)."""
+
+    def write(self, s: str, /) -> int: ...
+
 
 _C_MPS = 299_792_458.0  # IS-GPS-200 §20.3.4.3
 _F14_MAX = 9_999_999_999.999  # largest magnitude F14.3 holds
@@ -158,7 +165,7 @@ def format_obs_epoch(
     return head + "".join(lines)
 
 
-def write_rinex_obs(stream: TextIO, header: RinexObsHeader, epochs: Iterable[ObsEpoch]) -> int:
+def write_rinex_obs(stream: TextSink, header: RinexObsHeader, epochs: Iterable[ObsEpoch]) -> int:
     """Write a whole observation file to ``stream``; returns the number of epochs written."""
     stream.write(format_obs_header(header))
     n = 0
@@ -282,7 +289,7 @@ def format_nav_record(eph: Ephemeris) -> str:
 
 
 def write_rinex_nav(
-    stream: TextIO,
+    stream: TextSink,
     ephemerides: Iterable[Ephemeris],
     *,
     ionospheric_corr: Mapping[str, Sequence[float]] | None = None,

@@ -18,6 +18,7 @@ closed epochs wait in a bounded queue; those pushed out are counted as unresolve
 from __future__ import annotations
 
 import datetime as _dt
+import functools
 from collections import deque
 from dataclasses import dataclass, field
 from types import MappingProxyType
@@ -30,7 +31,7 @@ from ._epoch import ObsEpoch
 from ._errors import ParseError
 from ._framer import Framer, FramerStatistics, NmeaFrame, RtcmFrame
 from ._gnsstime import BDS_GPS_OFFSET_S, GpsTime, leap_seconds_at, utc_to_gps
-from ._msm import MsmMessage, decode_msm, is_msm, new_glo_channel_table
+from ._msm import MSM_TYPES, MsmMessage, decode_msm, new_glo_channel_table
 from ._nmea import GsvAssembler, GsvPart, RmcFix, ZdaTime, decode_sentence
 from ._rtcm_misc import DECODERS, DecodeContext
 
@@ -52,6 +53,13 @@ _WEEK_MS: Final = 604_800_000
 _GLO_UTC_OFFSET_MS: Final = 10_800_000  # GLONASS time = UTC(SU) + 3 h (GLONASS ICD §3.3.3)
 _BDS_OFFSET_MS: Final = round(BDS_GPS_OFFSET_S * 1000)  # BDT = GPST − 14 s
 _GLO_DAY_UNKNOWN: Final = 7  # DF416: 7 = day of week unknown
+_LEAP_NOW_S: Final = 18
+#: A reference further than this from two agreeing Galileo/BeiDou ephemerides (different
+#: satellites) is replaced by them: ephemerides are valid for hours, never for two weeks.
+_CLOCK_DISAGREEMENT_S: Final = 14 * 86_400.0
+#: Ephemerides whose full week we trust to place the stream in time (RTCM 10403.3: Galileo DF289
+#: and BeiDou DF489 are not truncated to 10 bits; GPS 1019s are often stale, see _learn).
+_WEEK_SOURCES: Final = {1045: "galileo", 1046: "galileo", 1042: "beidou"}
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -86,6 +94,8 @@ class StreamStatistics:
     #: Where the reference time came from: "constructor", "galileo", "beidou", "gps-1019", "nmea"
     #: or "" while unknown.
     reference_source: str = ""
+    #: Times the reference was replaced because ephemerides contradicted it by over two weeks.
+    reference_corrections: int = 0
 
 
 def msm_gps_tow_ms(msg: MsmMessage, leap_s: int) -> int | None:
@@ -117,9 +127,19 @@ def _at(week: int, tow_ms: int) -> GpsTime:
     return GpsTime(week + week_shift, tow_ms / 1000.0)
 
 
+@functools.lru_cache(maxsize=8)
+def _leap_on_gps_day(gps_day: int) -> int:
+    """GPS − UTC (s) at noon of a GPS day: leap seconds only change at a UTC day's end."""
+    return leap_seconds_at(GpsTime.from_total(gps_day * 86_400.0 + 43_200.0).to_utc())
+
+
+def _leap_at(ref: GpsTime) -> int:
+    return _leap_on_gps_day(int(ref.total_s // 86_400.0))
+
+
 def _resolve(msg: MsmMessage, ref: GpsTime) -> GpsTime:
     """Full GPS time of an MSM epoch nearest to ``ref`` (week and day rollovers), exact to 1 ms."""
-    leap = leap_seconds_at(ref.to_utc())
+    leap = _leap_at(ref)
     ref_ms = round(ref.tow_s * 1000.0)
     tow = msm_gps_tow_ms(msg, leap)
     if tow is not None:
@@ -158,6 +178,8 @@ class StreamDecoder:
         self._glo_channels = new_glo_channel_table()
         self._open: _Epoch | None = None
         self._gsv = GsvAssembler()
+        self._clock_votes: deque[tuple[int, GpsTime]] = deque(maxlen=4)
+        self._corrections = 0
         self._held: deque[_Epoch] = deque()
         self._gps_1019_ref: GpsTime | None = None
         self._decoded: dict[int, int] = {}
@@ -169,10 +191,12 @@ class StreamDecoder:
         self._epochs = 0
         self._unresolved = 0
         self._duplicates = 0
+        # Message number → decoder (RTCM 10403.3 Table 3.5-1): MSM4–7 here, the rest from
+        # _rtcm_misc.DECODERS (they take a DecodeContext carrying our current reference time).
         self._dispatch: dict[int, Callable[[bytes], object]] = {
-            t: (lambda p, d=dec: d(p, DecodeContext(reference_time=self._ref)))
-            for t, dec in DECODERS.items()
+            t: functools.partial(self._decode_misc, dec) for t, dec in DECODERS.items()
         }
+        self._dispatch.update(dict.fromkeys(MSM_TYPES, self._decode_msm))
 
     # --- public -------------------------------------------------------------------------------
     def feed(self, data: bytes | bytearray | memoryview) -> list[object]:
@@ -204,6 +228,7 @@ class StreamDecoder:
             epochs_waiting=len(self._held) + (self._open is not None),
             duplicate_cells=self._duplicates,
             reference_source=self._ref_source,
+            reference_corrections=self._corrections,
         )
 
     @property
@@ -214,16 +239,13 @@ class StreamDecoder:
     # --- RTCM ---------------------------------------------------------------------------------
     def _on_rtcm(self, frame: RtcmFrame, out: list[object]) -> None:
         t = frame.msg_type
+        decoder = self._dispatch.get(t)
+        if decoder is None:
+            self._raw[t] = self._raw.get(t, 0) + 1
+            out.append(RawRtcm(msg_type=t, payload=frame.payload, offset=frame.offset))
+            return
         try:
-            if is_msm(t):
-                msg: object = decode_msm(frame.payload, self._glo_channels)
-            else:
-                decoder = self._dispatch.get(t)
-                if decoder is None:
-                    self._raw[t] = self._raw.get(t, 0) + 1
-                    out.append(RawRtcm(msg_type=t, payload=frame.payload, offset=frame.offset))
-                    return
-                msg = decoder(frame.payload)
+            msg = decoder(frame.payload)
         except ParseError as exc:
             self._errors[t] = self._errors.get(t, 0) + 1
             self._last_error = f"{exc} at stream offset {frame.offset}"
@@ -237,21 +259,44 @@ class StreamDecoder:
         self._learn(msg, out)
         out.append(msg)
 
+    def _decode_msm(self, payload: bytes) -> MsmMessage:
+        return decode_msm(payload, self._glo_channels)
+
+    def _decode_misc(
+        self, decoder: Callable[[bytes, DecodeContext], object], payload: bytes
+    ) -> object:
+        return decoder(payload, DecodeContext(reference_time=self._ref))
+
     def _learn(self, msg: object, out: list[object]) -> None:
         """Channel table and reference time from ephemerides."""
         if isinstance(msg, GlonassEphemeris):
             slot = msg.sat - 100
             if 0 < slot < self._glo_channels.shape[0] and -7 <= msg.channel <= 6:
                 self._glo_channels[slot] = msg.channel
-        elif isinstance(msg, KeplerEphemeris) and self._ref is None:
+        elif isinstance(msg, KeplerEphemeris):
             toe_gps = msg.toe_s + (BDS_GPS_OFFSET_S if msg.time_system == "BDT" else 0.0)
             ref = GpsTime(msg.week, 0.0) + toe_gps
-            if msg.source in (1045, 1046):
-                self._set_reference(ref, "galileo", out)
-            elif msg.source == 1042:
-                self._set_reference(ref, "beidou", out)
-            elif msg.source == 1019 and (self._gps_1019_ref is None or ref > self._gps_1019_ref):
-                self._gps_1019_ref = ref
+            source = _WEEK_SOURCES.get(msg.source) if isinstance(msg.source, int) else None
+            if source is None:
+                if msg.source == 1019 and (self._gps_1019_ref is None or ref > self._gps_1019_ref):
+                    self._gps_1019_ref = ref
+            elif self._ref is None:
+                self._set_reference(ref, source, out)
+            else:
+                self._check_clock(msg.sat, ref, source, out)
+
+    def _check_clock(self, sat: int, ref: GpsTime, source: str, out: list[object]) -> None:
+        """Replace a reference (e.g. a Pi's unsynchronised clock) that two ephemerides contradict."""
+        assert self._ref is not None
+        if abs(ref - self._ref) <= _CLOCK_DISAGREEMENT_S:
+            self._clock_votes.clear()
+            return
+        agree = [r for s, r in self._clock_votes if s != sat and abs(r - ref) < _DAY_MS / 1000]
+        self._clock_votes.append((sat, ref))
+        if agree:
+            self._clock_votes.clear()
+            self._corrections += 1
+            self._set_reference(ref, source, out)
 
     def _set_reference(self, ref: GpsTime, source: str, out: list[object]) -> None:
         self._ref = ref
@@ -261,7 +306,9 @@ class StreamDecoder:
 
     # --- MSM epochs ---------------------------------------------------------------------------
     def _leap(self) -> int:
-        return leap_seconds_at(self._ref.to_utc()) if self._ref is not None else 18
+        # Without a reference, grouping assumes today's 18 s (IERS Bulletin C, since 2017-01-01);
+        # the epoch's time is resolved later with the leap second of its own date.
+        return _leap_at(self._ref) if self._ref is not None else _LEAP_NOW_S
 
     def _on_msm(self, msg: MsmMessage, out: list[object]) -> None:
         if msg.system == "R" and msg.msm_level in (5, 7):
@@ -314,8 +361,9 @@ class StreamDecoder:
         else:
             arrays = {n: np.concatenate([getattr(m, n) for m in msgs]) for n in names}
         n = arrays["sat"].shape[0]
+        # Only two messages of one system (e.g. MSM6 and MSM7) can repeat a cell.
         key = arrays["sat"].astype(np.int32) * 1024 + arrays["sig"]
-        if np.unique(key).shape[0] != n:
+        if len({m.system for m in msgs}) < len(msgs) and np.unique(key).shape[0] != n:
             _, first_rev = np.unique(key[::-1], return_index=True)
             keep = np.sort(n - 1 - first_rev)
             self._duplicates += n - keep.shape[0]

@@ -47,14 +47,16 @@ def test_estimator_rot_matches_truth_over_same_interval(quiet):
 
 def test_estimator_vtec_and_gradient_follow_plane(quiet):
     """StationEstimator's station VTEC and plane-fit gradient follow the generator's field (SCIENCE.md §6 mapping)."""
-    tr, snaps = quiet
+    _tr, snaps = quiet
     vtec = np.array([s.vtec_tecu for s in snaps[300:]])
     assert np.nanmax(np.abs(vtec - 20.0)) < 1.5
     grad = np.array([s.gradient_tecu_per_km for s in snaps[300:]])
     # generator: 0.002 E, −0.001 N TECU/km → |g| = 0.00224, plus a 0.3 TECU wave
     assert np.nanmedian(grad) == pytest.approx(np.hypot(0.002, 0.001), rel=0.35)
     mm = np.array([s.gradient_mm_per_km for s in snaps[300:]])
-    assert np.nanmedian(mm / grad) == pytest.approx(162.37, rel=1e-3)  # 0.1624 m/TECU on L1 (SCIENCE.md §2)
+    assert np.nanmedian(mm / grad) == pytest.approx(
+        162.37, rel=1e-3
+    )  # 0.1624 m/TECU on L1 (SCIENCE.md §2)
 
 
 def test_estimator_iono_free_code_within_three_sigma(quiet):
@@ -72,7 +74,19 @@ def test_estimator_iono_free_code_within_three_sigma(quiet):
 def test_estimator_slips_found_without_false_arcs():
     """StationEstimator finds ≥ 99% of 1–5 cycle slips at 1 Hz with < 0.1% false arcs (issue 6 acceptance)."""
     rng = np.random.default_rng(5)
-    choices = [(1, 0), (0, 1), (1, 1), (-1, -1), (2, 1), (1, 2), (-1, 0), (0, -1), (3, 3), (5, 0), (0, 4)]
+    choices = [
+        (1, 0),
+        (0, 1),
+        (1, 1),
+        (-1, -1),
+        (2, 1),
+        (1, 2),
+        (-1, 0),
+        (0, -1),
+        (3, 3),
+        (5, 0),
+        (0, 4),
+    ]
     slips = []
     for _ in range(100):
         c = choices[int(rng.integers(len(choices)))]
@@ -105,7 +119,15 @@ def test_estimator_pair_fallback_keeps_satellites():
 
 def test_estimator_roti_tracks_wave():
     """StationEstimator's ROTI is within 20% of the truth's std of 30 s ROT over 5 min where truth > 0.3 (Pi et al. 1997 definition)."""
-    tr = generate(Scenario(n_sats=6, duration_s=1200.0, wave_amp_tecu=1.0, wave_period_s=400.0, signals=("1C", "2W")))
+    tr = generate(
+        Scenario(
+            n_sats=6,
+            duration_s=1200.0,
+            wave_amp_tecu=1.0,
+            wave_period_s=400.0,
+            signals=("1C", "2W"),
+        )
+    )
     snaps = run(tr, StationEstimator())
     roti = stack(snaps, tr, "roti_tecu_per_min")
     rot_t = np.full_like(tr.stec, np.nan)
@@ -201,15 +223,29 @@ def test_estimator_state_survives_copy_and_pickle(quiet):
     b = copy.deepcopy(a)
     c = pickle.loads(pickle.dumps(a))
     for est in (a, b, c):
-        last = run(Truth(**{**tr.__dict__, "epochs": tr.epochs[400:450], "el": tr.el[400:], "az": tr.az[400:]}), est)[-1]
+        last = run(
+            Truth(
+                **{
+                    **tr.__dict__,
+                    "epochs": tr.epochs[400:450],
+                    "el": tr.el[400:],
+                    "az": tr.az[400:],
+                }
+            ),
+            est,
+        )[-1]
         est.result = last  # type: ignore[attr-defined]
     np.testing.assert_array_equal(a.result.satellites.stec_tecu, b.result.satellites.stec_tecu)
-    np.testing.assert_array_equal(a.result.satellites.roti_tecu_per_min, c.result.satellites.roti_tecu_per_min)
+    np.testing.assert_array_equal(
+        a.result.satellites.roti_tecu_per_min, c.result.satellites.roti_tecu_per_min
+    )
 
 
 def test_estimator_receiver_bias_estimated_and_persisted():
     """StationEstimator estimates a 6 TECU receiver bias with its σ and restores it from state_dict()."""
-    tr = generate(Scenario(n_sats=10, duration_s=1800.0, rcv_bias_tecu=6.0, signals=("1C", "2W"), seed=3))
+    tr = generate(
+        Scenario(n_sats=10, duration_s=1800.0, rcv_bias_tecu=6.0, signals=("1C", "2W"), seed=3)
+    )
     est = StationEstimator()
     snaps = run(tr, est)
     last = snaps[-1]

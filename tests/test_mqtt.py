@@ -214,8 +214,7 @@ _CHILD = textwrap.dedent(
             tg.create_task(pub.run(), name="daemon.output[mqtt]")
             await pub.wait_connected()
             pub.publish_snapshot_nowait(make_snapshot("ALPHA"))
-            while pub.statistics().buffered_alarm or pub.statistics().buffered_epoch:
-                await asyncio.sleep(0.01)
+            await pub.wait_drained()
             print("ready", flush=True)
             await asyncio.Event().wait()
 
@@ -291,8 +290,7 @@ def test_mqtt_survives_broker_restart_without_losing_transitions(tmp_path):
                 pub.publish_snapshot_nowait(make_snapshot("ALPHA", T0))
                 pub.publish_transitions_nowait(eng.observe_stall(6.0, T0 + 6.0))
                 pub.publish_transitions_nowait(eng.observe_stall(0.0, T0 + 7.0))
-                while pub.statistics().buffered_alarm or pub.statistics().buffered_epoch:
-                    await asyncio.sleep(0.01)
+                await asyncio.wait_for(pub.wait_drained(), 10)
                 await asyncio.to_thread(brk.stop)
                 # During the outage: 20 epochs (5 kept, 15 dropped) and 5 transitions.
                 for i in range(20):
@@ -301,14 +299,12 @@ def test_mqtt_survives_broker_restart_without_losing_transitions(tmp_path):
                         tr = eng.observe_stall(6.0 if i % 8 == 0 else 0.0, T0 + 10.0 + i)
                         pub.publish_transitions_nowait(tr)
                     await asyncio.sleep(0.02)
-                while pub.statistics().connected:
-                    await asyncio.sleep(0.05)
+                await asyncio.wait_for(pub.wait_disconnected(), 10)
                 down = pub.statistics()
                 await asyncio.to_thread(brk.start)
                 # Reconnect within the backoff bound (cap 1 s) plus connect time.
                 await asyncio.wait_for(pub.wait_connected(), cfg.reconnect_cap_s + 5.0)
-                while pub.statistics().buffered_alarm or pub.statistics().buffered_epoch:
-                    await asyncio.sleep(0.01)
+                await asyncio.wait_for(pub.wait_drained(), 10)
                 pub.stop()
             async with persistent_sub() as sub:
                 got = await collect(
@@ -380,7 +376,7 @@ def test_mqtt_password_comes_from_file(tmp_path):
     assert resolve_password(MqttSettings(password_file=f)) == "s3cret"
     assert resolve_password(MqttSettings(password="direct")) == "direct"
     assert resolve_password(MqttSettings()) is None
-    with pytest.raises(ConfigError, match="mqtt.password_file"):
+    with pytest.raises(ConfigError, match=r"mqtt\.password_file"):
         resolve_password(MqttSettings(password="x", password_file=f))
     with pytest.raises(ConfigError, match="cannot read"):
         resolve_password(MqttSettings(password_file=tmp_path / "missing"))
@@ -388,7 +384,7 @@ def test_mqtt_password_comes_from_file(tmp_path):
 
 def test_mqtt_missing_tls_material_is_a_config_error(tmp_path):
     """MqttPublisher raises ConfigError naming the TLS key when the CA file is missing."""
-    with pytest.raises(ConfigError, match="mqtt.tls_ca_file"):
+    with pytest.raises(ConfigError, match=r"mqtt\.tls_ca_file"):
         MqttPublisher(MqttSettings(tls_ca_file=tmp_path / "nope.pem"))
 
 

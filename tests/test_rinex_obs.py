@@ -7,6 +7,7 @@ import contextlib
 import gzip
 import shutil
 import warnings
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
@@ -163,6 +164,8 @@ def test_rinex_obs_p433_contents_match_provenance(p433) -> None:
     assert {g for s, g in sigs if s == "G"} == {"1C", "1W", "2W", "2L", "5Q"}
     assert {g for s, g in sigs if s == "C"} == {"2I", "7I", "6I"}
     assert epochs[0].time == GpsTime(2034, 248205.0)
+    for ep in epochs:  # the parser skips re-validation; the arrays must still meet the contract
+        replace(ep, _validate=True)
     assert epochs[-1].time == GpsTime(2034, 248205.0 + 69 * 15.0)
 
 
@@ -219,6 +222,18 @@ def test_rinex_obs_corrupt_hatanaka_raises_parse_error(real_data: Path, tmp_path
         list(iter_rinex_obs(bad))
 
 
+def test_rinex_obs_hatanaka_fallback_without_executable(
+    real_data: Path, p433, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """open_rinex_text falls back to hatanaka.crx2rnx in memory when crx2rnx is not shipped."""
+    from ionwarden.parsers import _rinex_open
+
+    monkeypatch.setattr(_rinex_open, "_crx2rnx_path", lambda: None)
+    _, plain = p433
+    # Source: PROVENANCE.md: the .rnx is hatanaka.decompress() of the .crx.bz2.
+    _assert_same_epochs(plain, list(iter_rinex_obs(real_data / f"{P433}.crx.bz2")))
+
+
 def test_rinex_obs_early_stop_on_hatanaka_releases_the_pipe(real_data: Path) -> None:
     """iter_rinex_obs closed after one epoch of a Hatanaka file stops crx2rnx cleanly."""
     it = iter_rinex_obs(real_data / f"{P433}.crx.bz2")
@@ -236,7 +251,8 @@ def test_rinex_obs_line_feeding_modes_agree(p433_rnx: Path, p433) -> None:
     one_by_one = [e for ln in lines for e in p.feed_line(ln)]
     crlf = _feed_all([ln.rstrip("\n") + "\r\n" for ln in lines])
     no_newline = _feed_all([ln.rstrip("\n") for ln in lines])
-    for other in (one_by_one, crlf, no_newline):
+    trailing_blanks = _feed_all([*lines, "\n", "   \n"])
+    for other in (one_by_one, crlf, no_newline, trailing_blanks):
         _assert_same_epochs(ref, other)  # common practice (STYLE rule 8, adapted to lines)
 
 
@@ -328,7 +344,7 @@ def test_rinex_obs_epoch_without_satellites_is_emitted_empty() -> None:
 
 def test_rinex_obs_scale_factor_divides_values() -> None:
     """RinexObsParser divides observations by the header's SYS / SCALE FACTOR."""
-    extra = f"{'G   10  1 L1C':<60}SYS / SCALE FACTOR"
+    extra = f"{'G   10   1 L1C':<60}SYS / SCALE FACTOR"  # A1,1X,I4,2X,I2,12(1X,A3)
     lines = _header_block({"G": "C1C L1C"}, extra=extra)
     lines += [
         "> 2019 01 01 00 00 00.0000000  0  1\n",
@@ -344,9 +360,10 @@ def test_rinex_obs_header_is_bounded() -> None:
     """RinexObsParser stops with ParseError on an endless header instead of growing memory."""
     p = RinexObsParser()
     p.feed_line(f"{'     3.05           OBSERVATION DATA    M':<60}RINEX VERSION / TYPE\n")
+    for _ in range(4_999):
+        p.feed_line(f"{'junk':<60}COMMENT\n")
     with pytest.raises(ParseError, match="header longer"):  # common practice (STYLE rule 5)
-        for _ in range(10_000):
-            p.feed_line(f"{'junk':<60}COMMENT\n")
+        p.feed_line(f"{'junk':<60}COMMENT\n")
 
 
 @pytest.mark.parametrize(
@@ -406,6 +423,14 @@ def test_rinex_obs_truncated_epoch_and_header() -> None:
         _feed_all(lines)
     with pytest.raises(ParseError, match="END OF HEADER"):
         _feed_all(_header_block({"G": "C1C"})[:-1])
+
+
+def test_rinex_obs_bad_observation_code_is_a_parse_error() -> None:
+    """RinexObsParser rejects a RINEX 2 style observation code with ParseError at END OF HEADER."""
+    lines = _header_block({"G": "C1C"})
+    lines[1] = lines[1].replace(" C1C", " C1 ", 1)
+    with pytest.raises(ParseError, match="OBS TYPES"):  # RINEX 3.05 §5.1: codes are tna
+        _feed_all(lines)
 
 
 def test_rinex_obs_rejects_rinex2() -> None:

@@ -244,3 +244,13 @@ def test_stream_reference_from_nmea_rmc(real_data):
     assert eps[0].time == GpsTime(2196, 204137.001)
     assert eps[0].time.to_utc().isoformat() == "2022-02-08T08:41:59.001000+00:00"
     assert dec.statistics().nmea_decoded == 4661  # every valid sentence (PROVENANCE.md)
+
+
+def test_stream_wrong_clock_corrected_by_two_ephemerides(real_data):
+    """StreamDecoder replaces a reference a year off once two Galileo ephemerides agree (ntrip_encode_none.bin, week 2328)."""
+    data = (real_data / "rtcm" / "pygnssutils_ntrip_encode_none.bin").read_bytes()
+    msgs, dec = _run(data, reference_time=GpsTime(2276, 76_000.0))  # 52 weeks early
+    eps = _epochs(msgs)
+    assert eps[-1].time == GpsTime(2328, 76497.0)  # 21:14:57 (PROVENANCE.md)
+    assert dec.statistics().reference_corrections == 1
+    assert dec.statistics().reference_source in {"galileo", "beidou"}

@@ -66,14 +66,41 @@ def add_parser(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None
         description="Run the same streaming pipeline as the daemon over RTCM/NMEA captures or "
         "RINEX obs(+nav) files, as fast as possible, writing one row per epoch × satellite.",
     )
-    p.add_argument("inputs", nargs="+", metavar="INPUT", help="capture (RTCM 3 / NMEA bytes) or RINEX 3 observation file")
-    p.add_argument("--nav", action="append", default=[], metavar="FILE", help="RINEX navigation file (repeatable)")
-    p.add_argument("--station", metavar="NAME", help="station name in the output (default: from the first input's name)")
-    p.add_argument("--out", required=True, metavar="FILE", help="per-satellite output file ('-' for stdout)")
-    p.add_argument("--format", choices=("csv", "jsonl"), help="output format (default: from --out's suffix, else csv)")
+    p.add_argument(
+        "inputs",
+        nargs="+",
+        metavar="INPUT",
+        help="capture (RTCM 3 / NMEA bytes) or RINEX 3 observation file",
+    )
+    p.add_argument(
+        "--nav",
+        action="append",
+        default=[],
+        metavar="FILE",
+        help="RINEX navigation file (repeatable)",
+    )
+    p.add_argument(
+        "--station",
+        metavar="NAME",
+        help="station name in the output (default: from the first input's name)",
+    )
+    p.add_argument(
+        "--out", required=True, metavar="FILE", help="per-satellite output file ('-' for stdout)"
+    )
+    p.add_argument(
+        "--format",
+        choices=("csv", "jsonl"),
+        help="output format (default: from --out's suffix, else csv)",
+    )
     p.add_argument("--summary", metavar="FILE", help="also write one station row per epoch here")
-    p.add_argument("--config", metavar="FILE", help="TOML configuration; its [estimator] section is used")
-    p.add_argument("--position", metavar="X,Y,Z", help="receiver ECEF position in metres (overrides the data's)")
+    p.add_argument(
+        "--config", metavar="FILE", help="TOML configuration; its [estimator] section is used"
+    )
+    p.add_argument(
+        "--position",
+        metavar="X,Y,Z",
+        help="receiver ECEF position in metres (overrides the data's)",
+    )
     p.add_argument("--no-progress", action="store_true", help="no progress line on stderr")
 
 
@@ -95,11 +122,21 @@ def snapshot_rows(snap: StationSnapshot, fmt: str) -> list[str]:
     for i, sat in enumerate(s.sat.tolist()):
         values = [c[i] for c in cols]
         if fmt == "csv":
-            nums = ["" if math.isnan(v) else f"{v:.{d}f}" for v, d in zip(values, decimals, strict=True)]
+            nums = [
+                "" if math.isnan(v) else f"{v:.{d}f}" for v, d in zip(values, decimals, strict=True)
+            ]
             arc = "" if arcs[i] < 0 else str(arcs[i])
-            lines.append(",".join((*head, sat_name(sat), s.pair[i], *nums, "1" if slips[i] else "0", arc)))
+            lines.append(
+                ",".join((*head, sat_name(sat), s.pair[i], *nums, "1" if slips[i] else "0", arc))
+            )
         else:
-            row: dict[str, Any] = dict(zip(COLUMNS[:4], (head[0], snap.time.week, round(snap.time.tow_s, 3), head[3]), strict=True))
+            row: dict[str, Any] = dict(
+                zip(
+                    COLUMNS[:4],
+                    (head[0], snap.time.week, round(snap.time.tow_s, 3), head[3]),
+                    strict=True,
+                )
+            )
             row["sat"] = sat_name(sat)
             row["pair"] = s.pair[i]
             for (name, d), v in zip(_SAT_FIELDS, values, strict=True):
@@ -117,10 +154,17 @@ def summary_row(snap: StationSnapshot, fmt: str) -> str:
     ]  # fmt: skip
     if fmt == "csv":
         return ",".join(
-            "" if isinstance(v, float) and math.isnan(v) else (f"{v:.4f}" if isinstance(v, float) else str(v))
+            ""
+            if isinstance(v, float) and math.isnan(v)
+            else (f"{v:.4f}" if isinstance(v, float) else str(v))
             for v in values
         )
-    clean = [None if isinstance(v, float) and math.isnan(v) else (round(v, 4) if isinstance(v, float) else v) for v in values]
+    clean = [
+        None
+        if isinstance(v, float) and math.isnan(v)
+        else (round(v, 4) if isinstance(v, float) else v)
+        for v in values
+    ]
     return json.dumps(dict(zip(SUMMARY_COLUMNS, clean, strict=True)), separators=(",", ":"))
 
 
@@ -155,25 +199,37 @@ class _Progress:
         dt = time.monotonic() - self.start
         if self.enabled and (self.shown or dt >= _PROGRESS_AFTER_S):
             end = "\n"
-            print(f"process: {epochs} epochs in {dt:.1f} s ({epochs / max(dt, 1e-9):.0f}/s)", end=end, file=sys.stderr)
+            print(
+                f"process: {epochs} epochs in {dt:.1f} s ({epochs / max(dt, 1e-9):.0f}/s)",
+                end=end,
+                file=sys.stderr,
+            )
 
 
 def _is_rinex(path: Path) -> bool:
     name = path.name.lower()
-    if name.endswith((".crx", ".crx.gz", ".crx.bz2", ".rnx", ".rnx.gz", ".rnx.bz2")) or name[-3:-1].isdigit() and name[-1] in "od":
+    if name.endswith((".crx", ".crx.gz", ".crx.bz2", ".rnx", ".rnx.gz", ".rnx.bz2")) or (
+        name[-3:-1].isdigit() and name[-1] in "od"
+    ):
         return True
     with path.open("rb") as f:
         return _RINEX_MARK in f.read(200)
 
 
-def _epochs_from(path: Path, pipeline: StationPipeline, progress: _Progress, count: list[int]) -> Iterator[StationSnapshot]:
+def _epochs_from(
+    path: Path, pipeline: StationPipeline, progress: _Progress, count: list[int]
+) -> Iterator[StationSnapshot]:
     if _is_rinex(path):
         parser = RinexObsParser()
         with open_rinex_text(path) as lines:
             positioned = False
             for line in (*lines, ""):
                 for ep in parser.feed_line(line):
-                    if not positioned and parser.header is not None and parser.header.approx_position_m:
+                    if (
+                        not positioned
+                        and parser.header is not None
+                        and parser.header.approx_position_m
+                    ):
                         pipeline.set_position(parser.header.approx_position_m, "rinex")
                         positioned = True
                     out = pipeline.handle_one(ep)
@@ -198,7 +254,7 @@ def _epochs_from(path: Path, pipeline: StationPipeline, progress: _Progress, cou
 
 
 def _open_out(name: str) -> IO[str]:
-    return sys.stdout if name == "-" else open(name, "w", encoding="utf-8", newline="\n")  # noqa: SIM115
+    return sys.stdout if name == "-" else open(name, "w", encoding="utf-8", newline="\n")
 
 
 def run(args: argparse.Namespace) -> int:

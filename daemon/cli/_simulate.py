@@ -87,7 +87,7 @@ def _build(args: argparse.Namespace) -> Simulator:
         if args.second_order:
             sc = replace(sc, second_order=True)
     except ValueError as exc:
-        raise ConfigError(f"simulate: {exc}") from exc
+        raise ConfigError("--scenario", str(exc)) from exc
     return Simulator(sc)
 
 
@@ -96,7 +96,7 @@ def _station_index(sim: Simulator, name: str | None) -> int | None:
         return None
     names = [s.name for s in sim.scenario.stations]
     if name not in names:
-        raise ConfigError(f"simulate: --station {name!r} not in this scenario ({', '.join(names)})")
+        raise ConfigError("--station", f"{name!r} is not in this scenario ({', '.join(names)})")
     return names.index(name)
 
 
@@ -181,6 +181,6 @@ def run(args: argparse.Namespace) -> int:
             return die("simulate: nothing to write: give --out, --rinex, --truth or --serve")
         return _files(args, sim, only)
     except ConfigError as exc:
-        return die(str(exc))
+        return die(f"simulate: {exc}")
     except OSError as exc:
         return die(f"simulate: {exc}", 1)

@@ -51,12 +51,46 @@ class EstimatorSettings(Section):
     #: ("G07") and pair ("1C-2W"): the band-1 minus band-2 code delay (the usual sign of published
     #: DCB products, e.g. C1C−C2W), so the satellite part of K·(P2 − P1) is −K·c·DCB.
     satellite_dcb_ns: dict[str, dict[str, float]] = Field(default_factory=dict)
-    gap_samples: float = Field(default=3.5, gt=1.0, description="A gap longer than this many sampling intervals also starts a new arc (whichever of this and max_gap_s is longer).")
-    slip_mw_k_sigma: float = Field(default=5.0, gt=0.0, description="Melbourne–Wübbena slip test: jump beyond this many running σ.")
-    slip_gf_floor_m: float = Field(default=0.015, gt=0.0, description="Geometry-free slip test floor at 1 s sampling in the zenith (m); grows with interval and at low elevation.")
-    geometry_refresh_s: float = Field(default=30.0, gt=0.0, description="Recompute orbit geometry when older than this (data time); extrapolated linearly in between.")
-    roti_sample_s: float = Field(default=1.0, gt=0.0, description="ROT samples entering ROTI are taken at most once per this interval.")
-    roti_min_samples: int = Field(default=5, ge=2, description="ROTI needs at least this many ROT samples in its window.")
-    receiver_bias_memory_s: float = Field(default=43_200.0, gt=0.0, description="Time constant of the receiver-bias estimate's exponential forgetting.")
-    receiver_bias_update_s: float = Field(default=30.0, gt=0.0, description="The receiver-bias least squares takes one epoch every this many seconds.")
-    receiver_bias_min_arc_s: float = Field(default=120.0, ge=0.0, description="Satellites enter the receiver-bias fit after this long in their arc (levelling has settled).")
+    gap_samples: float = Field(
+        default=3.5,
+        gt=1.0,
+        description="A gap longer than this many sampling intervals also starts a new arc (whichever of this and max_gap_s is longer).",
+    )
+    slip_mw_k_sigma: float = Field(
+        default=5.0,
+        gt=0.0,
+        description="Melbourne–Wübbena slip test: jump beyond this many running σ.",
+    )
+    slip_gf_floor_m: float = Field(
+        default=0.015,
+        gt=0.0,
+        description="Geometry-free slip test floor at 1 s sampling in the zenith (m); grows with interval and at low elevation.",
+    )
+    geometry_refresh_s: float = Field(
+        default=30.0,
+        gt=0.0,
+        description="Recompute orbit geometry when older than this (data time); extrapolated linearly in between.",
+    )
+    roti_sample_s: float = Field(
+        default=1.0,
+        gt=0.0,
+        description="ROT samples entering ROTI are taken at most once per this interval.",
+    )
+    roti_min_samples: int = Field(
+        default=5, ge=2, description="ROTI needs at least this many ROT samples in its window."
+    )
+    receiver_bias_memory_s: float = Field(
+        default=43_200.0,
+        gt=0.0,
+        description="Time constant of the receiver-bias estimate's exponential forgetting.",
+    )
+    receiver_bias_update_s: float = Field(
+        default=30.0,
+        gt=0.0,
+        description="The receiver-bias least squares takes one epoch every this many seconds.",
+    )
+    receiver_bias_min_arc_s: float = Field(
+        default=120.0,
+        ge=0.0,
+        description="Satellites enter the receiver-bias fit after this long in their arc (levelling has settled).",
+    )

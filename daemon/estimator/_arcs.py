@@ -27,6 +27,26 @@ from dataclasses import dataclass
 import numpy as np
 import numpy.typing as npt
 
+from ._state import (
+    GF_LEVEL,
+    GF_RATE,
+    GF_VAR,
+    HALF1,
+    HALF2,
+    LAST_T,
+    LOCK1,
+    LOCK2,
+    LT1,
+    LT2,
+    LWL,
+    MW_MEAN,
+    MW_VAR,
+    NCOL,
+    RANK,
+    ARC,
+    N,
+)
+
 __all__ = ["ArcState", "SlipThresholds"]
 
 F64 = npt.NDArray[np.float64]
@@ -70,111 +90,89 @@ class SlipThresholds:
 
 
 class ArcState:
-    """Per-satellite arc bookkeeping for one station (all arrays indexed by satellite slot)."""
+    """Slip detection over the gathered state block of one epoch (see ``_state``)."""
 
-    def __init__(self, n_slots: int, thresholds: SlipThresholds) -> None:
+    def __init__(self, thresholds: SlipThresholds) -> None:
         self.th = thresholds
         self.next_arc = 0
-        self.arc_id = np.full(n_slots, -1, np.int32)
-        self.n = np.zeros(n_slots, np.int64)  # samples in the current arc
-        self.last_t = np.full(n_slots, np.nan)
-        self.rank = np.full(n_slots, -1, np.int16)
-        self.lock1 = np.full(n_slots, -1, np.int16)
-        self.lock2 = np.full(n_slots, -1, np.int16)
-        self.locktime1 = np.full(n_slots, np.nan, np.float32)
-        self.locktime2 = np.full(n_slots, np.nan, np.float32)
-        self.half1 = np.zeros(n_slots, np.bool_)
-        self.half2 = np.zeros(n_slots, np.bool_)
-        self.mw_mean = np.zeros(n_slots)
-        self.mw_var = np.full(n_slots, thresholds.mw_prior_sigma_m**2)
-        self.gf_prev = np.zeros(n_slots)
-        self.gf_rate = np.zeros(n_slots)
-        self.gf_var = np.full(n_slots, thresholds.gf_prior_sigma_m**2)
 
     def detect(
         self,
+        g: F64,
         *,
         t: float,
-        idx: Idx,
-        rank: npt.NDArray[np.int16],
+        rank: F64,
         mw_m: F64,
         gf_m: F64,
-        lambda_wl_m: F64,
         el_rad: F64,
-        lock1: npt.NDArray[np.int16],
-        lock2: npt.NDArray[np.int16],
-        locktime1: npt.NDArray[np.float32],
-        locktime2: npt.NDArray[np.float32],
-        half1: npt.NDArray[np.bool_],
-        half2: npt.NDArray[np.bool_],
+        lock: npt.NDArray[np.int16],
+        locktime: npt.NDArray[np.float32],
+        half: npt.NDArray[np.bool_],
         lli_lost: npt.NDArray[np.bool_],
         gap_s: float,
-    ) -> tuple[npt.NDArray[np.int32], npt.NDArray[np.bool_], npt.NDArray[np.int64]]:
-        """Test this epoch's samples, update the state, return (arc_id, new_arc, reason bits)."""
-        m = idx.shape[0]
-        for a in (rank, mw_m, gf_m, lambda_wl_m, el_rad, lock1, lock2, half1, half2, lli_lost):
-            assert a.shape == (m,), (a.shape, m)
-        th = self.th
-        dt = t - self.last_t[idx]
-        reason = np.zeros(m, np.int64)
-        first = ~np.isfinite(dt)
-        reason[first] |= REASON_FIRST
-        reason[dt > gap_s] |= REASON_GAP
-        prev_rank = self.rank[idx]
-        reason[(prev_rank >= 0) & (prev_rank != rank)] |= REASON_PAIR
-        half_changed = (self.half1[idx] != half1) | (self.half2[idx] != half2)
-        reason[lli_lost | half_changed] |= REASON_LLI
-        p1, p2 = self.lock1[idx], self.lock2[idx]
-        lock_drop = ((lock1 >= 0) & (p1 >= 0) & (lock1 < p1)) | (
-            (lock2 >= 0) & (p2 >= 0) & (lock2 < p2)
-        )
-        lock_drop |= (locktime1 < self.locktime1[idx]) | (locktime2 < self.locktime2[idx])
-        reason[lock_drop] |= REASON_LOCK
+    ) -> tuple[npt.NDArray[np.bool_], npt.NDArray[np.int64]]:
+        """Test this epoch's samples against the block ``g`` (m, NCOL), update it in place
+        (arc ids, counts, MW/GF trackers, flags), return (new_arc, reason bits).
 
+        ``lock``, ``locktime`` and ``half`` are (m, 2): band 1 and band 2 of the pair.
+        """
+        m = g.shape[0]
+        assert g.shape == (m, NCOL), g.shape
+        for a in (rank, mw_m, gf_m, el_rad, lli_lost):
+            assert a.shape == (m,), (a.shape, m)
+        assert lock.shape == locktime.shape == half.shape == (m, 2), lock.shape
+        th = self.th
+        dt = t - g[:, LAST_T]
+        prev_rank = g[:, RANK]
+        lock_drop = ((lock < g[:, LOCK1 : LOCK2 + 1]) & (lock >= 0)) | (locktime < g[:, LT1 : LT2 + 1])
+        reason = (
+            np.isnan(dt) * REASON_FIRST
+            | (dt > gap_s) * REASON_GAP
+            | ((prev_rank >= 0) & (prev_rank != rank)) * REASON_PAIR
+            | (lli_lost | (half != g[:, HALF1 : HALF2 + 1]).any(axis=1)) * REASON_LLI
+            | lock_drop.any(axis=1) * REASON_LOCK
+        )
         # Jump tests only where the arc continues so far.
         cont = reason == 0
-        mw_res = mw_m - self.mw_mean[idx]
-        mw_thr = np.maximum(th.mw_k_sigma * np.sqrt(self.mw_var[idx]), th.mw_floor_wl_cycles * lambda_wl_m)
-        reason[cont & (np.abs(mw_res) > mw_thr)] |= REASON_MW
-        el_factor = np.where(np.isfinite(el_rad), 1.0 + 2.0 * np.exp(-np.degrees(el_rad) / 15.0), 2.0)
-        pred = self.gf_prev[idx] + np.where(self.n[idx] >= 2, self.gf_rate[idx], 0.0) * dt
+        mw_res = mw_m - g[:, MW_MEAN]
+        mw_thr = np.maximum(th.mw_k_sigma * np.sqrt(g[:, MW_VAR]), th.mw_floor_wl_cycles * g[:, LWL])
+        el_factor = np.where(np.isnan(el_rad), 2.0, 1.0 + 2.0 * np.exp(el_rad * (-180.0 / np.pi / 15.0)))
+        n = g[:, N]
+        tracked = n >= 2
+        pred = g[:, GF_LEVEL] + np.where(tracked, g[:, GF_RATE], 0.0) * dt
         gf_res = gf_m - pred
         gf_thr = np.maximum(
-            th.gf_k_sigma * np.sqrt(self.gf_var[idx]),
+            th.gf_k_sigma * np.sqrt(g[:, GF_VAR]),
             (th.gf_floor_m + th.gf_floor_m_per_s * dt) * el_factor,
         )
-        reason[cont & (np.abs(gf_res) > gf_thr)] |= REASON_GF
+        reason |= (cont & (np.abs(mw_res) > mw_thr)) * REASON_MW
+        reason |= (cont & (np.abs(gf_res) > gf_thr)) * REASON_GF
         new = reason != 0
-
-        # Update: continuing arcs learn from their residuals, new arcs restart.
         ok = ~new
-        io, inew = idx[ok], idx[new]
+
+        # Continuing arcs learn from their residuals; new arcs restart.
         w = th.ema_weight
-        self.mw_var[io] = (1.0 - w) * self.mw_var[io] + w * mw_res[ok] ** 2
-        # GF: the running scatter learns only once the rate prediction is in use.
-        learn = ok & (self.n[idx] >= 2)
-        il = idx[learn]
-        self.gf_var[il] = (1.0 - w) * self.gf_var[il] + w * gf_res[learn] ** 2
-        # α–β tracker on GF: the level absorbs part of the residual, the rate a smaller part
-        # (the second sample of an arc sets the rate from a plain difference).
-        second = self.n[io] == 1
-        res_ok = gf_res[ok]
-        self.gf_rate[io] = np.where(
-            second, (gf_m[ok] - self.gf_prev[io]) / dt[ok], self.gf_rate[io] + th.rate_weight * res_ok / dt[ok]
-        )
-        self.gf_prev[io] = np.where(second, gf_m[ok], pred[ok] + th.level_weight * res_ok)
-        self.n[io] += 1
-        self.mw_mean[io] += (mw_m[ok] - self.mw_mean[io]) / self.n[io]
-        k = inew.shape[0]
-        self.arc_id[inew] = self.next_arc + np.arange(k, dtype=np.int32)
-        self.next_arc += k
-        self.n[inew] = 1
-        self.mw_mean[inew] = mw_m[new]
-        self.gf_rate[inew] = 0.0
-        self.gf_prev[inew] = gf_m[new]
-        self.last_t[idx] = t
-        self.rank[idx] = rank
-        self.lock1[idx], self.lock2[idx] = lock1, lock2
-        self.locktime1[idx], self.locktime2[idx] = locktime1, locktime2
-        self.half1[idx], self.half2[idx] = half1, half2
-        return self.arc_id[idx], new, reason
+        g[:, MW_VAR] = np.where(ok, (1.0 - w) * g[:, MW_VAR] + w * mw_res * mw_res, g[:, MW_VAR])
+        # GF: the scatter learns only once the rate prediction is in use; α–β tracker: the
+        # level absorbs part of the residual, the rate a smaller part (the second sample of an
+        # arc sets the rate from a plain difference).
+        learn = ok & tracked
+        g[:, GF_VAR] = np.where(learn, (1.0 - w) * g[:, GF_VAR] + w * gf_res * gf_res, g[:, GF_VAR])
+        second = n == 1
+        rate = np.where(second, (gf_m - g[:, GF_LEVEL]) / dt, g[:, GF_RATE] + th.rate_weight * gf_res / dt)
+        g[:, GF_RATE] = np.where(ok, rate, 0.0)
+        level = np.where(second, gf_m, pred + th.level_weight * gf_res)
+        g[:, GF_LEVEL] = np.where(ok, level, gf_m)
+        n_new = np.where(ok, n + 1.0, 1.0)
+        g[:, N] = n_new
+        g[:, MW_MEAN] = np.where(ok, g[:, MW_MEAN] + mw_res / n_new, mw_m)
+        k = int(np.count_nonzero(new))
+        if k:
+            g[new, ARC] = self.next_arc + np.arange(k)
+            self.next_arc += k
+        g[:, LAST_T] = t
+        g[:, RANK] = rank
+        g[:, LOCK1 : LOCK2 + 1] = lock
+        g[:, LT1 : LT2 + 1] = locktime
+        g[:, HALF1 : HALF2 + 1] = half
+        return new, reason

@@ -42,6 +42,8 @@ __all__ = ["StationEstimator"]
 F64 = npt.NDArray[np.float64]
 Idx = npt.NDArray[np.intp]
 N_SIG = 10 * 32  # packed signal codes are band*32 + attribute, bands 0–9
+#: A receiver-bias estimate is applied to STEC once its 1-σ is at most this (TECU).
+_BIAS_APPLY_SIGMA_TECU = 3.0
 #: Epoch intervals remembered to estimate the sampling interval (median).
 _INTERVAL_HISTORY = 9
 
@@ -50,7 +52,11 @@ class StationEstimator:
     """Rolling TEC/ROT/ROTI/VTEC/iono-free estimator for one receiver."""
 
     def __init__(
-        self, settings: EstimatorSettings | None = None, *, station: str = "", ephemerides_per_sat: int = 3
+        self,
+        settings: EstimatorSettings | None = None,
+        *,
+        station: str = "",
+        ephemerides_per_sat: int = 3,
     ) -> None:
         """``ephemerides_per_sat``: newest broadcast sets kept per satellite (raise it when a whole
         day's navigation file is loaded up front, as ``ionwarden process`` does)."""
@@ -94,6 +100,9 @@ class StationEstimator:
         self._rb_last_t = -math.inf
         self._last_roti_median = math.nan
         self._ref_group = -1
+        #: Receiver bias per group as applied to STEC: the estimate once its σ is below
+        #: _BIAS_APPLY_SIGMA_TECU, else 0 (a poorly determined estimate would only add noise).
+        self._bias_applied = np.zeros(len(labels))
         self._last: StationSnapshot | None = None
         self.counters: dict[str, int] = {"epochs": 0, "epochs_out_of_order": 0, "cells_unusable": 0}
         for name in REASON_NAMES.values():
@@ -125,7 +134,9 @@ class StationEstimator:
         """Receiver antenna position (ECEF m) from config, RTCM 1005/1006 or GGA."""
         self.geometry.set_receiver_position(ecef_m, source)
 
-    def set_gsv(self, time: GpsTime, sats: npt.ArrayLike, el_deg: npt.ArrayLike, az_deg: npt.ArrayLike) -> None:
+    def set_gsv(
+        self, time: GpsTime, sats: npt.ArrayLike, el_deg: npt.ArrayLike, az_deg: npt.ArrayLike
+    ) -> None:
         """Fallback elevations/azimuths from NMEA GSV (used only where no orbit is known)."""
         self.geometry.set_gsv(time.total_s, sats, el_deg, az_deg)
 
@@ -175,7 +186,9 @@ class StationEstimator:
         c1 = self.pairs.sig1[sysi]
         c2 = self.pairs.sig2[sysi]
         col = present[:, None]
-        avail = (self._cell_stamp[col, c1] == self._stamp) & (self._cell_stamp[col, c2] == self._stamp)
+        avail = (self._cell_stamp[col, c1] == self._stamp) & (
+            self._cell_stamp[col, c2] == self._stamp
+        )
         has = avail.any(axis=1)
         rank_all = avail.argmax(axis=1)
         idx = present[has]
@@ -188,12 +201,26 @@ class StationEstimator:
 
         el_all, az_all, geo_source = self.geometry.lookup(present, t)
         el = el_all[has]
-        figs = self._dual(epoch, t, interval, idx, rank.astype(np.int16), s1, s2, i1, i2, el)
+        figs = self._dual(
+            epoch, t=t, interval=interval, idx=idx, rank=rank.astype(np.int16),
+            s1=s1, s2=s2, i1=i1, i2=i2, el=el,
+        )  # fmt: skip
 
         # Assemble per-satellite output over every satellite present (NaN where single-frequency).
         m = present.shape[0]
 
-        fields = ("stec", "rot", "roti", "iono_l1", "if_code", "if_phase", "hatch", "mp1", "mp2", "noise_factor")
+        fields = (
+            "stec",
+            "rot",
+            "roti",
+            "iono_l1",
+            "if_code",
+            "if_phase",
+            "hatch",
+            "mp1",
+            "mp2",
+            "noise_factor",
+        )
         block = np.full((len(fields), m), np.nan)
         for j, name in enumerate(fields):
             block[j, has] = figs[name]
@@ -217,10 +244,22 @@ class StationEstimator:
             self.geometry.lat_rad, self.geometry.lon_rad, ipp_lat, ipp_lon, self._shell_m
         )
         st = station_figures(
-            el_rad=el_all, vtec=vtec, rot=rot, roti=roti, x_km=x_km, y_km=y_km, mask_rad=self._mask_rad
+            el_rad=el_all,
+            vtec=vtec,
+            rot=rot,
+            roti=roti,
+            x_km=x_km,
+            y_km=y_km,
+            mask_rad=self._mask_rad,
         )
         self._last_roti_median = st.roti_median
-        self._update_receiver_bias(t, figs, has, el_all, mapping, x_km, y_km, idx, rank)
+        # The snapshot reports the receiver bias that was applied to this epoch's STEC.
+        ref = self._ref_group
+        bias_ref = float(self._bias_applied[ref]) if ref >= 0 else math.nan
+        sigma_ref = float(self.rx_bias.sigma[ref]) if ref >= 0 else math.nan
+        self._update_receiver_bias(
+            t, figs, has=has, el_all=el_all, mapping=mapping, x_km=x_km, y_km=y_km
+        )
 
         slip = np.zeros(m, np.bool_)
         slip[has] = figs["new"]
@@ -252,7 +291,6 @@ class StationEstimator:
             if_noise_factor=spread("noise_factor"),
             pair_switch=switch,
         )
-        ref = self._ref_group
         el_slot = np.full(MAX_SAT_ID, np.nan)
         el_slot[present] = el_all
         cell_el = np.full(sat.shape[0], np.nan)
@@ -269,8 +307,8 @@ class StationEstimator:
             gradient_tecu_per_km=st.gradient_tecu_per_km,
             gradient_azimuth_deg=st.gradient_azimuth_deg,
             dual_freq_fraction=float(idx.shape[0] / m) if m else math.nan,
-            receiver_bias_tecu=float(self.rx_bias.bias[ref]) if ref >= 0 else math.nan,
-            receiver_bias_sigma_tecu=float(self.rx_bias.sigma[ref]) if ref >= 0 else math.nan,
+            receiver_bias_tecu=bias_ref,
+            receiver_bias_sigma_tecu=sigma_ref,
             satellites=sats,
             cell_sat=epoch.sat,
             cell_sig=epoch.sig,
@@ -283,6 +321,7 @@ class StationEstimator:
     def _dual(
         self,
         epoch: ObsEpoch,
+        *,
         t: float,
         interval: float,
         idx: Idx,
@@ -334,12 +373,16 @@ class StationEstimator:
         over = self._dcb_override_ns[idx, rank]
         b_sat = np.where(np.isfinite(over), -k * C_MPS * over * 1e-9, b_sat)
         group = (idx // 100) * self.pairs.width + rank
-        stec = stec_raw - b_sat - self.rx_bias.bias[group]
+        stec = stec_raw - b_sat - self._bias_applied[group]
 
         # ROT over the lag, from the arc-relative levelled phase; ROTI over the window.
         rel = gf_tecu - self._gf0_tecu[idx]
         lagged, t_lag = self.rot_ring.lagged(t, idx, arc, interval)
-        rot = (rel - lagged) / ((t - t_lag) / 60.0) if math.isfinite(t_lag) else np.full(idx.shape, np.nan)
+        rot = (
+            (rel - lagged) / ((t - t_lag) / 60.0)
+            if math.isfinite(t_lag)
+            else np.full(idx.shape, np.nan)
+        )
         self.rot_ring.push(t, idx, rel, arc)
         self.roti_window.push(t, idx, rot)
         roti = self.roti_window.std(idx, self.settings.roti_min_samples)
@@ -378,8 +421,8 @@ class StationEstimator:
         }
 
     def _update_receiver_bias(
-        self, t: float, figs: dict[str, Any], has: npt.NDArray[np.bool_], el_all: F64,
-        mapping: F64, x_km: F64, y_km: F64, idx: Idx, rank: Idx,
+        self, t: float, figs: dict[str, Any], *, has: npt.NDArray[np.bool_], el_all: F64,
+        mapping: F64, x_km: F64, y_km: F64,
     ) -> None:  # fmt: skip
         if t - self._rb_last_t < self.settings.receiver_bias_update_s:
             return
@@ -397,12 +440,11 @@ class StationEstimator:
         roti_med = self._last_roti_median
         quiet = 1.0 / (1.0 + (roti_med / 0.25) ** 2) if math.isfinite(roti_med) else 1.0
         y = (figs["stec_raw"] - figs["b_sat"])[use]
-        self._ref_group = -1  # recomputed below
         self.rx_bias.add_epoch(
-            t, y, mapping[has][use], x_km[has][use], y_km[has][use], figs["group"][use],
-            quiet * np.sin(el[use]) ** 2,
+            t, y=y, mapping=mapping[has][use], x_km=x_km[has][use], y_km=y_km[has][use],
+            group=figs["group"][use], weight=quiet * np.sin(el[use]) ** 2,
         )  # fmt: skip
-        self._ref_group = self._reference_group()
+        self._after_bias_update()
 
     def _counters(self) -> dict[str, int]:
         """Counters for the snapshot; the ephemeris store's are refreshed every 32 epochs (its
@@ -416,6 +458,11 @@ class StationEstimator:
             self.counters["ephemerides_inconsistent"] = st.inconsistent
             self.counters.update(self.geometry.counters)
         return dict(self.counters)
+
+    def _after_bias_update(self) -> None:
+        good = self.rx_bias.sigma <= _BIAS_APPLY_SIGMA_TECU
+        self._bias_applied = np.where(good, self.rx_bias.bias, 0.0)
+        self._ref_group = self._reference_group()
 
     def _reference_group(self) -> int:
         """The group whose receiver bias the snapshot reports: the best-determined one."""
@@ -450,10 +497,10 @@ class StationEstimator:
         return {"version": 1, "station": self.station, "receiver_bias": self.rx_bias.state_dict()}
 
     def load_state(self, state: dict[str, Any]) -> None:
-        if state.get("version") != 1:
+        if int(state.get("version", -1)) != 1:
             raise ValueError(f"unknown estimator state version {state.get('version')!r}")
         self.rx_bias.load_state(state["receiver_bias"])
-        self._ref_group = self._reference_group()
+        self._after_bias_update()
 
     def copy(self) -> StationEstimator:
         """An independent deep copy (the whole rolling state)."""

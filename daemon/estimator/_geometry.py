@@ -62,7 +62,9 @@ class Geometry:
         if moved:
             self.t_orbit.fill(np.nan)
 
-    def set_gsv(self, t_s: float, sats: npt.ArrayLike, el_deg: npt.ArrayLike, az_deg: npt.ArrayLike) -> None:
+    def set_gsv(
+        self, t_s: float, sats: npt.ArrayLike, el_deg: npt.ArrayLike, az_deg: npt.ArrayLike
+    ) -> None:
         s = np.asarray(sats, dtype=np.intp)
         e = np.asarray(el_deg, dtype=np.float64)
         a = np.asarray(az_deg, dtype=np.float64)

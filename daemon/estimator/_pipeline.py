@@ -7,7 +7,7 @@ gives the figures the daemon would have published. Routing (table-driven by mess
 * Keplerian / GLONASS ephemerides → the estimator's ephemeris store and satellite group delays;
 * RTCM 1005/1006 station reference → receiver position (unless configured), then GGA as a last
   resort (precedence: config > 1005/1006 > GGA);
-* GSV groups → fallback elevations (flagged ``geometry_source="gsv"``);
+* GSV sentences or assembled groups → fallback elevations (flagged ``geometry_source="gsv"``);
 * GGA (+ GST of the same second) → :class:`FixStatus`.
 
 Everything else (RMC, GSA, proprietary RTCM, …) is ignored here. Pure: no clock, no I/O.
@@ -17,14 +17,14 @@ from __future__ import annotations
 
 import datetime as _dt
 import math
-from collections.abc import Callable, Iterable
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from ionwarden.daemon.geo import geodetic_to_ecef
 from ionwarden.parsers import GlonassEphemeris, GpsTime, KeplerEphemeris, ObsEpoch, utc_to_gps
-from ionwarden.parsers._nmea import GgaFix, GstErrors, GsvAssembler, GsvPart
+from ionwarden.parsers._framer import NmeaFrame, RtcmFrame
+from ionwarden.parsers._nmea import GgaFix, GstErrors, GsvAssembler, GsvPart, SatellitesInView
 from ionwarden.parsers._rtcm_station import StationReference
 from ionwarden.parsers._stream import StreamDecoder
 
@@ -32,6 +32,8 @@ from ._estimator import StationEstimator
 from ._snapshot import FixStatus, StationSnapshot
 
 if TYPE_CHECKING:
+    from collections.abc import Callable, Iterable, Mapping, Sequence
+
     import numpy.typing as npt
 
     from ionwarden.daemon.config import EstimatorSettings
@@ -57,7 +59,9 @@ class StationPipeline:
         """``reference_time`` helps the byte decoder place MSM times of week (the daemon passes
         its clock's reading at start; offline processing leaves it None)."""
         self.station = station
-        self.estimator = StationEstimator(settings, station=station, ephemerides_per_sat=ephemerides_per_sat)
+        self.estimator = StationEstimator(
+            settings, station=station, ephemerides_per_sat=ephemerides_per_sat
+        )
         self.decoder = StreamDecoder(reference_time)
         self._gsv = GsvAssembler()
         self._position_source = ""
@@ -73,7 +77,8 @@ class StationPipeline:
             KeplerEphemeris: self._on_ephemeris,
             GlonassEphemeris: self._on_ephemeris,
             StationReference: self._on_station,
-            GsvPart: self._on_gsv,
+            GsvPart: self._on_gsv_part,
+            SatellitesInView: self._on_gsv,
             GgaFix: self._on_gga,
             GstErrors: self._on_gst,
         }
@@ -82,6 +87,25 @@ class StationPipeline:
     def feed(self, data: bytes | bytearray | memoryview) -> list[PipelineOutput]:
         """Decode stream bytes (RTCM 3 and/or NMEA) and route them; ``b""`` ends the stream."""
         return self.handle(self.decoder.feed(data))
+
+    def feed_frames(self, frames: Sequence[RtcmFrame | NmeaFrame]) -> list[PipelineOutput]:
+        """Route frames already split and checked by the runtime's framer (the runtime's
+        ``FrameConsumer`` protocol). Uses the decoder's per-frame steps directly (no re-framing);
+        the parsers package has no public per-frame entry point yet."""
+        msgs: list[object] = []
+        for frame in frames:
+            if isinstance(frame, RtcmFrame):
+                self.decoder._on_rtcm(frame, msgs)
+            else:
+                self.decoder._on_nmea(frame, msgs)
+        return self.handle(msgs)
+
+    def state_dict(self) -> dict[str, Any]:
+        """The estimator's persistent state (see :meth:`StationEstimator.state_dict`)."""
+        return self.estimator.state_dict()
+
+    def load_state_dict(self, state: Mapping[str, Any]) -> None:
+        self.estimator.load_state(dict(state))
 
     def handle(self, messages: Iterable[object]) -> list[PipelineOutput]:
         """Route already-decoded messages; returns the snapshots and fix reports they produce."""
@@ -111,11 +135,14 @@ class StationPipeline:
     def _on_station(self, ref: StationReference) -> None:
         self.set_position((ref.x_m, ref.y_m, ref.z_m), "rtcm")
 
-    def _on_gsv(self, part: GsvPart) -> None:
+    def _on_gsv_part(self, part: GsvPart) -> None:
         group = self._gsv.push(part)
-        if group is None or self._last_t is None:
-            return
-        self.estimator.set_gsv(self._last_t, group.sat, group.elevation_deg, group.azimuth_deg)
+        if group is not None:
+            self._on_gsv(group)
+
+    def _on_gsv(self, group: SatellitesInView) -> None:
+        if self._last_t is not None:  # GSV has no time of its own: date it by the last epoch
+            self.estimator.set_gsv(self._last_t, group.sat, group.elevation_deg, group.azimuth_deg)
 
     def _on_gga(self, gga: GgaFix) -> FixStatus:
         self._gga = gga

@@ -47,6 +47,7 @@ class ReceiverBias:
     def add_epoch(
         self,
         t: float,
+        *,
         y: F64,
         mapping: F64,
         x_km: F64,
@@ -112,7 +113,8 @@ class ReceiverBias:
         self.sigma[used] = s0 * np.sqrt(np.diag(cov))
 
     def state_dict(self) -> dict[str, Any]:
-        """Plain-JSON state for checkpointing (groups by label, so a config change is harmless)."""
+        """State for checkpointing: numbers, strings and lists only (JSON- and npz-friendly);
+        groups go by label, so a changed pair list is harmless."""
         return {
             "version": 1,
             "labels": list(self.labels),
@@ -120,12 +122,12 @@ class ReceiverBias:
             "rhs": self.rhs.tolist(),
             "sq_res": self.sq_res,
             "dof": self.dof,
-            "last_t": None if math.isnan(self.last_t) else self.last_t,
+            "last_t": self.last_t,
         }
 
     def load_state(self, state: dict[str, Any]) -> None:
         """Restore from :meth:`state_dict`; groups unknown to this config are dropped."""
-        if state.get("version") != 1:
+        if int(state.get("version", -1)) != 1:
             raise ValueError(f"unknown receiver-bias state version {state.get('version')!r}")
         labels = [str(x) for x in state["labels"]]
         normal = np.asarray(state["normal"], dtype=np.float64)
@@ -141,6 +143,5 @@ class ReceiverBias:
         self.rhs[dst] = rhs[src]
         self.sq_res = float(state["sq_res"])
         self.dof = float(state["dof"])
-        last = state.get("last_t")
-        self.last_t = math.nan if last is None else float(last)
+        self.last_t = float(state.get("last_t", math.nan))
         self._solve()

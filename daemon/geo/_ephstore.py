@@ -22,6 +22,7 @@ import datetime as _dt
 import itertools
 import math
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import numpy.typing as npt
@@ -38,7 +39,12 @@ from ionwarden.parsers import (
 from ._glonass import GlonassBatch, resolve_glonass_tb
 from ._kepler import KeplerBatch, orbit_constants
 
-__all__ = ["EphemerisSelection", "EphemerisStore", "EphemerisStoreStatistics"]
+__all__ = [
+    "DEFAULT_KEEP_PER_SAT",
+    "EphemerisSelection",
+    "EphemerisStore",
+    "EphemerisStoreStatistics",
+]
 
 Ephemeris = KeplerEphemeris | GlonassEphemeris
 _GLO = 1  # system index of GLONASS in parsers._signals.SYSTEMS
@@ -97,6 +103,19 @@ class _Entry:
     window_s: float
     healthy: bool
     eph: Ephemeris
+    serial: int  # unique per stored ephemeris: keys the cached batches
+
+
+#: Selections and batches kept for recently requested satellite sets (a satellite that drops out
+#: for an epoch and comes back should not cost two rebuilds).
+_CACHE_SIZE = 8
+
+
+def _lru_put(cache: dict[Any, Any], key: object, value: object) -> None:
+    cache.pop(key, None)
+    cache[key] = value
+    while len(cache) > _CACHE_SIZE:
+        del cache[next(iter(cache))]
 
 
 def _glonass_ref(eph: GlonassEphemeris, t_received_gps_s: float | None) -> float:
@@ -121,11 +140,11 @@ class EphemerisStore:
         self._generation = 0
         self._counts = dict.fromkeys((*_REASONS, "added", "duplicates", "inconsistent"), 0)
         self._rebuilds = 0
-        self._cache: EphemerisSelection | None = None
-        self._cache_generation = -1
-        self._cache_rejects: tuple[int, int, int, int] = (0, 0, 0, 0)
-        self._kep_src: list[KeplerEphemeris] = []
-        self._glo_src: list[GlonassEphemeris] = []
+        self._serial = 0
+        # sats bytes → (selection, generation, reject counts per _REASONS)
+        self._selections: dict[bytes, tuple[EphemerisSelection, int, tuple[int, ...]]] = {}
+        self._kepler_batches: dict[tuple[int, ...], KeplerBatch] = {}
+        self._glonass_batches: dict[tuple[int, ...], GlonassBatch] = {}
 
     def add(self, eph: Ephemeris, *, t_received_gps_s: float | None = None) -> bool:
         """Store ``eph``; False if it is a duplicate or refused. ``t_received_gps_s`` places a
@@ -147,15 +166,17 @@ class EphemerisStore:
         else:
             raise ValueError(f"satellite {eph.sat}: not a GLONASS ephemeris")
         entries = self._by_sat.setdefault(eph.sat, [])
+        self._serial += 1
+        entry = _Entry(ref, window, eph.health == 0, eph, self._serial)
         for k, old in enumerate(entries):
             if _same(old, eph, ref):
                 if isinstance(eph, GlonassEphemeris) and old.eph != eph:
-                    entries[k] = _Entry(ref, window, eph.health == 0, eph)  # newer upload
+                    entries[k] = entry  # newer upload for the same t_b
                     self._generation += 1
                     return True
                 self._counts["duplicates"] += 1
                 return False
-        entries.append(_Entry(ref, window, eph.health == 0, eph))
+        entries.append(entry)
         entries.sort(key=lambda x: -math.inf if math.isnan(x.ref_gps_s) else x.ref_gps_s)
         del entries[: max(0, len(entries) - self._keep)]
         self._counts["added"] += 1
@@ -180,26 +201,24 @@ class EphemerisStore:
         """Usable ephemeris per satellite at GPS time ``t_gps_s`` (see module doc)."""
         sats = np.asarray(sat_ids, dtype=np.int16)
         assert sats.ndim == 1, sats.shape
-        cache = self._cache
-        if (
-            cache is not None
-            and self._cache_generation == self._generation
-            and cache.t_lo_s <= t_gps_s < cache.t_hi_s
-            and np.array_equal(cache.sat, sats)
-        ):
-            for name, count in zip(_REASONS, self._cache_rejects, strict=True):
-                self._counts[name] += count
-            return cache
-        return self._rebuild(sats, t_gps_s)
+        key = sats.tobytes()
+        hit = self._selections.get(key)
+        if hit is not None:
+            cached, generation, rejects = hit
+            if generation == self._generation and cached.t_lo_s <= t_gps_s < cached.t_hi_s:
+                for name, count in zip(_REASONS, rejects, strict=True):
+                    self._counts[name] += count
+                return cached
+        return self._rebuild(sats, t_gps_s, key)
 
-    def _rebuild(self, sats: npt.NDArray[np.int16], t: float) -> EphemerisSelection:
+    def _rebuild(self, sats: npt.NDArray[np.int16], t: float, key: bytes) -> EphemerisSelection:
         self._rebuilds += 1
         rejects = dict.fromkeys(_REASONS, 0)
         lo, hi = -math.inf, math.inf
         valid = np.zeros(sats.shape[0], dtype=np.bool_)
-        kep: list[KeplerEphemeris] = []
+        kep: list[tuple[int, KeplerEphemeris]] = []
         kep_idx: list[int] = []
-        glo: list[GlonassEphemeris] = []
+        glo: list[tuple[int, GlonassEphemeris]] = []
         glo_idx: list[int] = []
         for i, sat in enumerate(sats.tolist()):
             entries = self._by_sat.get(sat, [])
@@ -232,14 +251,14 @@ class EphemerisStore:
                 rejects["unhealthy"] += 1
             elif isinstance(entry.eph, KeplerEphemeris):
                 valid[i] = True
-                kep.append(entry.eph)
+                kep.append((entry.serial, entry.eph))
                 kep_idx.append(i)
-            else:
+            elif isinstance(entry.eph, GlonassEphemeris):
                 valid[i] = True
-                glo.append(entry.eph)
+                glo.append((entry.serial, entry.eph))
                 glo_idx.append(i)
         if any(math.isnan(e.ref_gps_s) for v in self._by_sat.values() for e in v):
-            # t_b resolved against t itself: re-resolve at the next day boundary at the latest.
+            # Some t_b were resolved against t itself: look again within the hour.
             hi = min(hi, t + 3600.0)
         gather = np.full(sats.shape[0], len(kep) + len(glo), dtype=np.intp)
         gather[kep_idx] = np.arange(len(kep))
@@ -247,40 +266,36 @@ class EphemerisStore:
         selection = EphemerisSelection(
             sat=sats.copy(),
             valid=valid,
-            kepler=self._reuse_kepler(kep),
+            kepler=self._kepler_batch(kep),
             kepler_index=np.asarray(kep_idx, dtype=np.intp),
-            glonass=self._reuse_glonass(glo),
+            glonass=self._glonass_batch(glo),
             glonass_index=np.asarray(glo_idx, dtype=np.intp),
             gather_index=gather,
             t_lo_s=lo,
             t_hi_s=hi,
         )
-        for name, count in rejects.items():
+        counts = tuple(rejects[name] for name in _REASONS)
+        for name, count in zip(_REASONS, counts, strict=True):
             self._counts[name] += count
-        self._cache = selection
-        self._cache_generation = self._generation
-        self._cache_rejects = (
-            rejects["stale"],
-            rejects["future"],
-            rejects["unhealthy"],
-            rejects["missing"],
-        )
+        _lru_put(self._selections, key, (selection, self._generation, counts))
         return selection
 
-    def _reuse_kepler(self, ephs: list[KeplerEphemeris]) -> KeplerBatch:
-        old = self._cache
-        if old is not None and len(old.kepler) == len(ephs) and self._kep_src == ephs:
-            return old.kepler
-        self._kep_src = ephs
-        return KeplerBatch.from_ephemerides(ephs)
+    def _kepler_batch(self, chosen: list[tuple[int, KeplerEphemeris]]) -> KeplerBatch:
+        key = tuple(serial for serial, _ in chosen)
+        batch = self._kepler_batches.get(key)
+        if batch is None:
+            batch = KeplerBatch.from_ephemerides([eph for _, eph in chosen])
+        _lru_put(self._kepler_batches, key, batch)
+        return batch
 
-    def _reuse_glonass(self, ephs: list[GlonassEphemeris]) -> GlonassBatch:
-        # Reusing the GLONASS batch also keeps its RK4 node table.
-        old = self._cache
-        if old is not None and len(old.glonass) == len(ephs) and self._glo_src == ephs:
-            return old.glonass
-        self._glo_src = ephs
-        return GlonassBatch.from_ephemerides(ephs)
+    def _glonass_batch(self, chosen: list[tuple[int, GlonassEphemeris]]) -> GlonassBatch:
+        # Reusing a GLONASS batch also keeps its RK4 node table.
+        key = tuple(serial for serial, _ in chosen)
+        batch = self._glonass_batches.get(key)
+        if batch is None:
+            batch = GlonassBatch.from_ephemerides([eph for _, eph in chosen])
+        _lru_put(self._glonass_batches, key, batch)
+        return batch
 
 
 def _same(old: _Entry, eph: Ephemeris, ref: float) -> bool:

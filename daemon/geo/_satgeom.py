@@ -98,23 +98,20 @@ def satellite_geometry(
     # Light time τ = |R(Ω̇e·τ)·p(t_rx − τ) − rx| / c. Pass 1 from the orbit at t0 (τ error
     # ≲ |ρ̇|/c · 0.02 s ≈ 5e-8 s); pass 2 (with the Earth rotation to first order, see
     # _sagnac_range) leaves ~1e-13 s. With a pseudorange, t_tx comes from it instead.
+    # Positions move from t0 to t_tx along the velocity (|t_tx − t0| ≤ a few ms: < 0.1 mm).
     if pr is None:
-        tau = _norm(pos0 - rx) / C_MPS
-        pos = pos0 + vel0 * (t_rx - tau - t0)[:, None]
-        tau = _sagnac_range(pos, rx) / C_MPS
+        tau = _light_time(pos0, vel0, t0, t_rx, rx)
         t_tx = t_rx - tau
+        pos = pos0 + vel0 * (t_tx - t0)[:, None]
     else:
         t_tx = t0 - clk
         geometric = ~np.isfinite(pr)
         if geometric.any():
-            tau = _norm(pos0 - rx) / C_MPS
-            pos = pos0 + vel0 * (t_rx - tau - t0)[:, None]
-            tau = _sagnac_range(pos, rx) / C_MPS
-            t_tx[geometric] = t_rx - tau[geometric]
-    pos = pos0 + vel0 * (t_tx - t0)[:, None]
-    # Earth rotation angle from the geometric flight time, not from the pseudorange (which also
-    # carries the receiver clock error).
-    tau = _sagnac_range(pos, rx) / C_MPS
+            t_tx[geometric] = t_rx - _light_time(pos0, vel0, t0, t_rx, rx)[geometric]
+        pos = pos0 + vel0 * (t_tx - t0)[:, None]
+        # Earth rotation angle from the geometric flight time, not from the pseudorange (which
+        # also carries the receiver clock error).
+        tau = _sagnac_range(pos, rx) / C_MPS
     pos_rx, vel_rx = _rotate_z(np.stack((pos, vel0)), tau)
     los = pos_rx - rx
     rng = _norm(los)
@@ -138,6 +135,13 @@ def satellite_geometry(
 def _norm(v: F64) -> F64:
     out: F64 = np.sqrt(np.einsum("ij,ij->i", v, v))
     return out
+
+
+def _light_time(pos0: F64, vel0: F64, t0: F64, t_rx: float, rx: F64) -> F64:
+    """Geometric flight time τ (s): pass 1 from the orbit at t0, pass 2 at t_rx − τ1."""
+    tau = _norm(pos0 - rx) / C_MPS
+    pos = pos0 + vel0 * (t_rx - tau - t0)[:, None]
+    return _sagnac_range(pos, rx) / C_MPS
 
 
 def _sagnac_range(pos: F64, rx: F64) -> F64:

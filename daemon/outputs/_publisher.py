@@ -126,6 +126,10 @@ class MqttPublisher:
         self._stop = asyncio.Event()
         self._ready = asyncio.Event()
         self._connected_event = asyncio.Event()
+        self._disconnected_event = asyncio.Event()
+        self._disconnected_event.set()
+        self._drained = asyncio.Event()
+        self._drained.set()
         self._running = False
         self._connected = False
         self._published = 0
@@ -166,6 +170,7 @@ class MqttPublisher:
                 "MQTT alarm buffer full (%d): dropped the oldest alarm/status message",
                 self._buffer.alarm_bound,
             )
+        self._drained.clear()
         self._wake.set()
 
     def _set_station_state(self, station: str, state: str) -> None:
@@ -291,6 +296,22 @@ class MqttPublisher:
     async def wait_connected(self) -> None:
         await self._connected_event.wait()
 
+    async def wait_disconnected(self) -> None:
+        await self._disconnected_event.wait()
+
+    async def wait_drained(self) -> None:
+        """Return once every queued message has been acknowledged by the broker."""
+        await self._drained.wait()
+
+    def _set_connected(self, connected: bool) -> None:
+        self._connected = connected
+        if connected:
+            self._connected_event.set()
+            self._disconnected_event.clear()
+        else:
+            self._connected_event.clear()
+            self._disconnected_event.set()
+
     def stop(self) -> None:
         """Ask :meth:`run` to flush, say "offline" and return (idempotent, non-blocking)."""
         self._stop.set()
@@ -331,9 +352,8 @@ class MqttPublisher:
             while not self._stop.is_set():
                 try:
                     async with self._client() as client:
-                        self._connected = True
+                        self._set_connected(True)
                         self._connects += 1
-                        self._connected_event.set()
                         self._ready.set()
                         log.info("MQTT connected to %s:%d", s.host, s.port)
                         delays = backoff_delays(
@@ -344,8 +364,7 @@ class MqttPublisher:
                 except TRANSIENT_MQTT_ERRORS as exc:
                     if self._connected:
                         self._disconnects += 1
-                    self._connected = False
-                    self._connected_event.clear()
+                    self._set_connected(False)
                     self._ready.set()
                     delay = next(delays)
                     log.warning(
@@ -359,8 +378,7 @@ class MqttPublisher:
                     with contextlib.suppress(TimeoutError):
                         await asyncio.wait_for(self._stop.wait(), timeout=delay)
         finally:
-            self._connected = False
-            self._connected_event.clear()
+            self._set_connected(False)
             self._running = False
 
     async def _publish(self, client: aiomqtt.Client, msg: OutboundMessage) -> None:
@@ -387,6 +405,7 @@ class MqttPublisher:
             while True:
                 msg = self._buffer.peek()
                 if msg is None:
+                    self._drained.set()
                     if self._stop.is_set():
                         break
                     self._wake.clear()

@@ -8,7 +8,7 @@ observation and navigation files, truth CSV tables; loopback TCP / NTRIP servers
 from ._constellation import Constellation, EphemerisSeries, build_constellation
 from ._engine import BLOCK_EPOCHS, Simulator
 from ._observe import BlockGeometry, SimBlock
-from ._output import Sinks, SimSummary, iter_stream, nav_ephemerides, rinex_header, run_to_sinks
+from ._output import SimSummary, Sinks, iter_stream, nav_ephemerides, rinex_header, run_to_sinks
 from ._scenario import (
     SCENARIO_HELP,
     BandOutage,

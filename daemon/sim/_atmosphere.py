@@ -69,10 +69,10 @@ def tropo_zenith_delay_m(lat_rad: float, height_m: float) -> float:
     h = max(height_m, 0.0)
     pressure_hpa = 1013.25 * (1.0 - 2.2557e-5 * h) ** 5.2568
     temp_k = 15.0 - 6.5e-3 * h + 273.15
-    e_hpa = 0.5 * 6.108 * math.exp((17.15 * temp_k - 4684.0) / (temp_k - 38.45))
+    e_hpa: float = 0.5 * 6.108 * math.exp((17.15 * temp_k - 4684.0) / (temp_k - 38.45))
     zhd = 0.0022768 * pressure_hpa / (1.0 - 0.00266 * math.cos(2.0 * lat_rad) - 0.00028e-3 * h)
     zwd = 0.002277 * (1255.0 / temp_k + 0.05) * e_hpa
-    return zhd + zwd
+    return float(zhd + zwd)
 
 
 def tropo_mapping(el_rad: npt.NDArray[np.float64]) -> npt.NDArray[np.float64]:

@@ -41,6 +41,7 @@ from ionwarden.parsers import (
     leap_seconds_at,
     sat_id,
 )
+from ionwarden.parsers._rtcm_eph_encode import quantise_for_rtcm
 
 if TYPE_CHECKING:
     import numpy.typing as npt
@@ -114,8 +115,6 @@ def _sqrt_a_on_grid(a_nominal_m: float, mu: float, dt_s: float, offset_radps: fl
 
 
 def _quantise(eph: KeplerEphemeris) -> KeplerEphemeris:
-    from ionwarden.parsers._rtcm_eph_encode import quantise_for_rtcm
-
     return quantise_for_rtcm(eph)
 
 
@@ -245,7 +244,7 @@ def _kepler_series(
         system=system,
         sats=sats,
         ref_gps_s=refs.astype(np.float64),
-        start_gps_s=refs - dt / 2.0,
+        start_gps_s=(refs - dt / 2.0).astype(np.float64),
         ephemerides=ephs,
         batches=tuple(KeplerBatch.from_ephemerides(s) for s in ephs),
     )
@@ -255,8 +254,6 @@ def _glonass_series(
     slots: list[int], rng: np.random.Generator, t0_gps_s: float, t1_gps_s: float
 ) -> EphemerisSeries:
     """GLONASS: 3 planes × 8 slots, i = 64.8°, state vectors chained from one RK4 trajectory."""
-    from ionwarden.parsers._rtcm_eph_encode import quantise_for_rtcm
-
     dt = 1800.0
     leap = float(leap_seconds_at(gps_to_utc(GpsTime.from_total(t0_gps_s))))
     k0 = math.floor((t0_gps_s - leap) / dt)
@@ -279,7 +276,7 @@ def _glonass_series(
     tau = [_grid(rng.uniform(-1e-4, 1e-4), 2.0**-30) for _ in slots]
     per_set: list[list[GlonassEphemeris]] = []
     state = np.array(states)
-    for k, ref in enumerate(refs):
+    for ref in refs:
         moscow = float(ref) - leap + _MOSCOW_OFFSET_S
         days = math.floor(moscow / _DAY_S)  # days since 1980-01-06 (Moscow)
         tb = moscow - days * _DAY_S
@@ -317,7 +314,7 @@ def _glonass_series(
         system="R",
         sats=np.array([sat_id("R", s) for s in slots], dtype=np.int16),
         ref_gps_s=refs.astype(np.float64),
-        start_gps_s=refs - dt / 2.0,
+        start_gps_s=(refs - dt / 2.0).astype(np.float64),
         ephemerides=ephs,
         batches=tuple(GlonassBatch.from_ephemerides(s) for s in ephs),
     )

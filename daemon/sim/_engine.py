@@ -21,8 +21,8 @@ noise from ``default_rng([seed, station, block])``, so output depends only on th
 from __future__ import annotations
 
 import math
-from collections.abc import Iterator
 from dataclasses import replace
+from itertools import pairwise
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -36,6 +36,8 @@ from ._orbits import block_states
 from ._signals import MAX_SLOTS, SignalTable, build_signal_table
 
 if TYPE_CHECKING:
+    from collections.abc import Iterator
+
     import numpy.typing as npt
 
     from ._scenario import Scenario, Station
@@ -109,8 +111,8 @@ class Simulator:
         cuts = set(range(0, n, BLOCK_EPOCHS))
         for b in self.constellation.boundaries():
             cuts.add(int(np.searchsorted(t - _TAU0_S, b, side="left")))
-        edges = sorted(c for c in cuts if 0 <= c < n) + [n]
-        return [(a, b) for a, b in zip(edges[:-1], edges[1:], strict=True) if b > a]
+        edges = [*sorted(c for c in cuts if 0 <= c < n), n]
+        return [(a, b) for a, b in pairwise(edges) if b > a]
 
     def run(self) -> Iterator[list[SimBlock]]:
         """Blocks in time order; each item holds one block per station for the same epochs."""
@@ -123,7 +125,16 @@ class Simulator:
             t_tag = self.scenario.start.total_s + idx / self.scenario.rate_hz
             pos0, vel0, clk0 = block_states(self.constellation, t_tag - _TAU0_S)
             yield [
-                self._station_block(s, states[s], b, idx, t_tag, pos0, vel0, clk0)
+                self._station_block(
+                    s_idx=s,
+                    st=states[s],
+                    b_idx=b,
+                    idx=idx,
+                    t_tag=t_tag,
+                    pos0=pos0,
+                    vel0=vel0,
+                    clk0=clk0,
+                )
                 for s in range(len(self.scenario.stations))
             ]
 
@@ -148,6 +159,7 @@ class Simulator:
 
     def _station_block(
         self,
+        *,
         s_idx: int,
         st: StationState,
         b_idx: int,

@@ -23,7 +23,7 @@ if TYPE_CHECKING:
 
     from ._scenario import LossOfLock, Scenario, SlipEvent
 
-__all__ = ["BlockGeometry", "SimBlock", "StationState", "observe"]
+__all__ = ["BlockGeometry", "SimBlock", "StationState", "noise_scale", "observe"]
 
 C_MPS = 299_792_458.0
 _CN0_MIN_DBHZ = 24.0
@@ -102,6 +102,14 @@ class SimBlock:
     ambiguity_cycles: npt.NDArray[np.float64]
     iono_m: npt.NDArray[np.float64]  # (E, S, K) first-order group delay per signal
     if_expected_m: npt.NDArray[np.float64]  # (E, S) slots 0/1 iono-free code without noise
+
+
+def noise_scale(
+    cn0_dbhz: npt.NDArray[np.float64], cn0_zenith_dbhz: npt.NDArray[np.float64]
+) -> npt.NDArray[np.float64]:
+    """Noise multiplier of a cell: σ grows as 10^(ΔC/N0 / 20) below the zenith C/N0 (thermal
+    noise of a tracking loop ∝ 1/√(C/N0), common practice), capped at 10×."""
+    return np.clip(10.0 ** ((cn0_zenith_dbhz - cn0_dbhz) / 20.0), 1.0, 10.0)
 
 
 def _ffill_index(event: npt.NDArray[np.bool_]) -> npt.NDArray[np.intp]:
@@ -200,7 +208,7 @@ def observe(sim: _Sim, st: StationState, rng: np.random.Generator, g: BlockGeome
         2.0 * np.pi * g.t_rel_s[:, None, None] / sig.mp_period_s[cols][None]
         + sig.mp_phase_rad[cols][None]
     )
-    scale = np.clip(10.0 ** ((45.0 - cn0) / 20.0), 0.3, 10.0)
+    scale = noise_scale(cn0, sig.cn0_zenith_dbhz[cols][None])
     pr = (
         common[..., None]
         + iono

@@ -33,7 +33,7 @@ if TYPE_CHECKING:
 
     from ._engine import Simulator
 
-__all__ = ["Sinks", "SimSummary", "iter_stream", "nav_ephemerides", "rinex_header", "run_to_sinks"]
+__all__ = ["SimSummary", "Sinks", "iter_stream", "nav_ephemerides", "rinex_header", "run_to_sinks"]
 
 
 @dataclass(slots=True)
@@ -110,7 +110,9 @@ def nav_ephemerides(sim: Simulator) -> list[KeplerEphemeris | GlonassEphemeris]:
     return out
 
 
-def run_to_sinks(sim: Simulator, sinks: Sinks, *, msm_level: int = 4, nmea: bool = True) -> SimSummary:
+def run_to_sinks(
+    sim: Simulator, sinks: Sinks, *, msm_level: int = 4, nmea: bool = True
+) -> SimSummary:
     """Run the whole scenario once, writing every requested output."""
     stations = sim.scenario.stations
     n_st = len(stations)
@@ -155,7 +157,11 @@ def run_to_sinks(sim: Simulator, sinks: Sinks, *, msm_level: int = 4, nmea: bool
                 km = float(np.linalg.norm(sim.station_ecef(i) - base)) / 1000.0
                 sinks.gradients.write(
                     format_gradients(
-                        blocks[0], blocks[i], stations[0].name, stations[i].name, km,
+                        blocks[0],
+                        blocks[i],
+                        base_name=stations[0].name,
+                        rover_name=stations[i].name,
+                        baseline_km=km,
                         header=first and i == 1,
                     )
                 )
@@ -183,4 +189,3 @@ def iter_stream(
         block = blocks[station]
         for e in range(block.present.shape[0]):
             yield float(block.geometry.t_tag_s[e] - start), comp.epoch_bytes(block, e)
-

@@ -15,7 +15,7 @@ __all__ = ["SIGNAL_PLAN", "SignalSpec", "transmits"]
 
 @dataclass(frozen=True, slots=True, kw_only=True)
 class SignalSpec:
-    """One signal: code, zenith C/N0 (dB-Hz), code and phase noise (m) at 45 dB-Hz."""
+    """One signal: code, zenith C/N0 (dB-Hz), code and phase noise σ (m) at that C/N0."""
 
     code: str
     cn0_zenith_dbhz: float

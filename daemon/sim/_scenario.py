@@ -8,6 +8,7 @@ scenario are seconds from its start (``start``, a GPS time), so a scenario can b
 from __future__ import annotations
 
 import datetime as _dt
+import math
 from dataclasses import dataclass, field, replace
 
 from ionwarden.parsers import GpsTime, utc_to_gps
@@ -183,8 +184,6 @@ _BASE = Station(name="HARC", station_id=41, lat_deg=48.6150, lon_deg=10.4230, he
 
 
 def _offset(name: str, sid: int, km_east: float, km_north: float) -> Station:
-    import math
-
     lat = _BASE.lat_deg + math.degrees(km_north / 6371.0)
     lon = _BASE.lon_deg + math.degrees(km_east / (6371.0 * math.cos(math.radians(_BASE.lat_deg))))
     return Station(name=name, station_id=sid, lat_deg=lat, lon_deg=lon, height_m=480.0)

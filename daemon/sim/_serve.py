@@ -51,7 +51,7 @@ def _check_loopback(host: str) -> None:
     except ValueError:
         ok = host == "localhost"
     if not ok:
-        raise ConfigError(f"simulate serves on loopback only, not on {host!r}")
+        raise ConfigError("--host", f"simulate serves on loopback only, not on {host!r}")
 
 
 async def _pump(
@@ -80,7 +80,7 @@ class _Server:
     def __init__(self, factory: StreamFactory, options: ServeOptions, ntrip: bool) -> None:
         _check_loopback(options.host)
         if options.max_clients < 1:
-            raise ConfigError("max_clients must be at least 1")
+            raise ConfigError("--clients", "must be at least 1")
         self._factory = factory
         self._opt = options
         self._ntrip = ntrip
@@ -150,7 +150,7 @@ class _Server:
             token = base64.b64encode(self._opt.credentials.encode()).decode()
             if headers.get("authorization", "") != f"Basic {token}":
                 writer.write(
-                    b"HTTP/1.1 401 Unauthorized\r\nWWW-Authenticate: Basic realm=\"%s\"\r\n"
+                    b'HTTP/1.1 401 Unauthorized\r\nWWW-Authenticate: Basic realm="%s"\r\n'
                     b"Connection: close\r\n\r\n" % self._opt.mount.encode()
                 )
                 return

@@ -31,7 +31,7 @@ from ionwarden.parsers._rtcm_eph_encode import encode_1005, encode_ephemeris
 from ionwarden.parsers._rtcm_station import StationReference
 
 if TYPE_CHECKING:
-    from collections.abc import Iterator
+    from collections.abc import Iterator, Sequence
 
     from ._engine import Simulator
     from ._observe import SimBlock
@@ -118,11 +118,12 @@ class StreamComposer:
         self.frames_written = 0
 
     def _ephemerides(self, t_gps_s: float) -> list[bytes]:
-        out = []
+        out: list[bytes] = []
         for system, series in self._sim.constellation.series.items():
-            ephs: tuple[KeplerEphemeris, ...] | tuple[GlonassEphemeris, ...] = (
-                series.ephemerides[series.set_index(t_gps_s)]
-            )
+            ephs: Sequence[KeplerEphemeris | GlonassEphemeris] = series.ephemerides[
+                series.set_index(t_gps_s)
+            ]
+            chosen: list[KeplerEphemeris | GlonassEphemeris]
             if not self._started:
                 chosen = list(ephs)
             else:

@@ -110,6 +110,7 @@ def format_biases(block: SimBlock, station: str, header: bool = True) -> str:
 def format_gradients(
     base: SimBlock,
     rover: SimBlock,
+    *,
     base_name: str,
     rover_name: str,
     baseline_km: float,

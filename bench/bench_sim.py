@@ -1,0 +1,78 @@
+"""Benchmark the simulator: 24 h at 1 Hz, one station, GPS + GLONASS + Galileo + BeiDou, one core.
+
+Prints three figures:
+1. engine: every observation and truth array of the day (blocks of epochs × satellites × signals);
+2. epochs: the same plus one ObsEpoch per epoch (what RINEX writers and the estimator consume);
+3. stream: RTCM 3 MSM + ephemerides + 1005 + NMEA bytes, timed over ``--stream-minutes`` of the
+   day and extrapolated to 24 h (``--stream-minutes 1440`` runs the whole day).
+
+    .venv/bin/python bench/bench_sim.py [--hours 24] [--stream-minutes 30] [--msm 7]
+
+Run it on an otherwise idle core for figures to quote; note contention when there is some.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import time
+
+from ionwarden.daemon.sim import Simulator, StreamComposer, block_epochs, build_scenario
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__)
+    ap.add_argument("--hours", type=float, default=24.0)
+    ap.add_argument("--stream-minutes", type=float, default=30.0)
+    ap.add_argument("--msm", type=int, default=7, choices=(4, 7))
+    ap.add_argument("--scenario", default="quiet-day")
+    args = ap.parse_args()
+    duration = args.hours * 3600.0
+    print(f"cpu count {os.cpu_count()}, load average {os.getloadavg()[0]:.2f} (1 min)")
+
+    sc = build_scenario(args.scenario, duration_s=duration, rate_hz=1.0)
+    t0 = time.perf_counter()
+    sim = Simulator(sc)
+    t_init = time.perf_counter() - t0
+    n_epochs = n_cells = 0
+    t0 = time.perf_counter()
+    for blocks in sim.run():
+        b = blocks[0]
+        n_epochs += b.present.shape[0]
+        n_cells += int(b.present.sum())
+    t_engine = time.perf_counter() - t0
+    print(
+        f"engine: {args.hours:g} h at 1 Hz, {sim.sats.size} satellites, {n_epochs} epochs, "
+        f"{n_cells} cells: init {t_init:.2f} s + run {t_engine:.2f} s "
+        f"(cpu {time.process_time():.1f} s so far)"
+    )
+
+    sim = Simulator(sc)
+    t0 = time.perf_counter()
+    n = 0
+    for blocks in sim.run():
+        for _ in block_epochs(blocks[0], 41):
+            n += 1
+    t_epochs = time.perf_counter() - t0
+    print(f"epochs: engine + {n} ObsEpoch objects: {t_epochs:.2f} s")
+
+    stream_s = min(args.stream_minutes * 60.0, duration)
+    sc_s = build_scenario(args.scenario, duration_s=stream_s, rate_hz=1.0)
+    sim = Simulator(sc_s)
+    comp = StreamComposer(sim, 0, msm_level=args.msm)
+    total = 0
+    t0 = time.perf_counter()
+    for blocks in sim.run():
+        b = blocks[0]
+        for e in range(b.present.shape[0]):
+            total += len(comp.epoch_bytes(b, e))
+    t_stream = time.perf_counter() - t0
+    per_day = t_stream * 86_400.0 / stream_s
+    print(
+        f"stream: {stream_s / 60:g} min of MSM{args.msm} + eph + NMEA, {total} bytes "
+        f"({total / stream_s:.0f} B/s): {t_stream:.2f} s -> {per_day:.0f} s per 24 h"
+    )
+
+
+if __name__ == "__main__":
+    main()
