@@ -29,13 +29,18 @@ import tracemalloc
 
 import numpy as np
 
-from ionwarden.daemon.estimator import StationEstimator
-from ionwarden.daemon.estimator._pipeline import StationPipeline
+from ionwarden.daemon.estimator import StationEstimator, StationPipeline
 from ionwarden.daemon.geo import EphemerisStore, geodetic_to_ecef, satellite_geometry
 from ionwarden.daemon.sim._constellation import build_constellation
-from ionwarden.parsers import EPOCH_DTYPES, GpsTime, ObsEpoch, carrier_frequency_hz, signal_code
-from ionwarden.parsers._msm_encode import encode_msm
-from ionwarden.parsers._stream import StreamDecoder
+from ionwarden.parsers import (
+    EPOCH_DTYPES,
+    GpsTime,
+    ObsEpoch,
+    StreamDecoder,
+    carrier_frequency_hz,
+    encode_msm,
+    signal_code,
+)
 
 C = 299_792_458.0
 SIGNALS = {"G": ("1C", "2W", "5Q"), "E": ("1C", "5Q", "7Q"), "C": ("2I", "6I", "7I")}

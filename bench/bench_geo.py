@@ -133,16 +133,33 @@ def main() -> None:
         return fresh.select(sats, T0)
 
     _time("EphemerisStore.add + select (40 sats, rebuild each call)", new_upload, 500)
+
+    # Epoch times sweep 20 minutes around T0 (GLONASS sets are valid ±15 min), then wrap.
+    def t_at(i: int, step: float) -> float:
+        return T0 - 600.0 + (i * step) % 1200.0
+
     us_geo = _time(
-        "satellite_geometry (40 sats, light-time iteration)",
-        lambda i: satellite_geometry(T0 + i * 0.01, rx, sats, store),
+        "satellite_geometry, 1 Hz epochs (light-time iteration)",
+        lambda i: satellite_geometry(t_at(i, 1.0), rx, sats, store),
         10_000,
         per="epoch",
     )
     _time(
-        "satellite_geometry (40 sats, from pseudoranges)",
-        lambda i: satellite_geometry(T0 + i * 0.01, rx, sats, store, pseudorange_m=pr),
+        "satellite_geometry, 1 Hz epochs (from pseudoranges)",
+        lambda i: satellite_geometry(t_at(i, 1.0), rx, sats, store, pseudorange_m=pr),
         10_000,
+        per="epoch",
+    )
+    _time(
+        "satellite_geometry, 15 s epochs (light-time iteration)",
+        lambda i: satellite_geometry(t_at(i, 15.0), rx, sats, store),
+        5_000,
+        per="epoch",
+    )
+    _time(
+        "satellite_geometry, 1 Hz, exact=True (no grid nodes)",
+        lambda i: satellite_geometry(t_at(i, 1.0), rx, sats, store, exact=True),
+        5_000,
         per="epoch",
     )
     az = rng.uniform(0, 2 * math.pi, sats.size)

@@ -72,7 +72,7 @@ from ._signals import (
     signal_name,
     system_of,
 )
-from ._stream import RawRtcm, StreamDecoder, StreamStatistics
+from ._stream import Message, RawRtcm, StreamDecoder, StreamStatistics
 
 __all__ = [
     "BDS_GPS_OFFSET_S",
@@ -100,6 +100,7 @@ __all__ = [
     "GsvAssembler",
     "GsvPart",
     "KeplerEphemeris",
+    "Message",
     "MsmMessage",
     "NeedData",
     "NmeaFrame",

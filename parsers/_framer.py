@@ -143,7 +143,7 @@ def crc24q_fast(data: bytes | bytearray | memoryview) -> int:
 
 # NMEA 0183 §5.3: a sentence is printable ASCII (0x20–0x7E) between the start character and CR LF.
 _SYNC = re.compile(rb"[\xd3$!]")
-_PRINTABLE_RUN = re.compile(rb"[\x20-\x7e]{0,%d}" % MAX_NMEA_SENTENCE)
+_NOT_PRINTABLE = re.compile(rb"[^\x20-\x7e]")
 _HEX = frozenset(b"0123456789ABCDEFabcdef")
 
 
@@ -161,6 +161,7 @@ class Framer:
         "_by_type",
         "_counts",
         "_eof",
+        "_nmea_resume",
         "_pos",
     )
 
@@ -169,6 +170,7 @@ class Framer:
         self._pos = 0  # next index of _buf to scan; everything before it is consumed
         self._base = 0  # stream offset of _buf[0]
         self._eof = False
+        self._nmea_resume = (-1, 0)  # (stream offset of a pending '$', printable up to offset)
         self._by_type: dict[int, int] = {}
         # rtcm, nmea, empty, crc_fail, nmea_fail, truncated, discarded, total
         self._counts = [0, 0, 0, 0, 0, 0, 0, 0]
@@ -273,9 +275,14 @@ class Framer:
 
     def _nmea_at(self, i: int) -> NmeaFrame | NeedData | None:
         buf = self._buf
-        run = _PRINTABLE_RUN.match(buf, i + 1)
-        assert run is not None  # {0,N} always matches
-        e = run.end()
+        # End of the printable run after the start character, at most MAX_NMEA_SENTENCE bytes on;
+        # a candidate still waiting for data resumes where the last call stopped (no rescan).
+        cand, scanned = self._nmea_resume
+        start = scanned - self._base if cand == self._base + i else i + 1
+        limit = min(len(buf), i + 1 + MAX_NMEA_SENTENCE)
+        stop = _NOT_PRINTABLE.search(buf, start, limit)
+        e = stop.start() if stop is not None else limit
+        self._nmea_resume = (self._base + i, self._base + e)
         at_end = e == len(buf) or (e == len(buf) - 1 and buf[e] == 0x0D)
         if at_end and e - i <= MAX_NMEA_SENTENCE:
             return self._incomplete()

@@ -13,6 +13,13 @@ daemon passes its clock; this module never reads one), else the last resolved ep
 learned from the stream (Galileo 1045/1046 or BeiDou 1042 week, NMEA date, and only as a last
 resort the newest GPS 1019, because receivers repeat year-old 1019s). Until a reference exists,
 closed epochs wait in a bounded queue; those pushed out are counted as unresolved, never guessed.
+A constructor reference that two Galileo/BeiDou ephemerides of different satellites contradict by
+more than two weeks (a Pi booted with a stale clock) is replaced, and the correction is counted.
+
+Epoch assembly: an epoch closes on the message whose multiple-message bit (DF393) is 0, or when an
+MSM with another station id or an epoch time more than ``SAME_EPOCH_TOLERANCE_MS`` away arrives
+(so u-blox's whole-second + 1 ms stamps stay one epoch, at their actual time). A cell sent twice
+in one epoch (MSM6 and MSM7 of one system) is kept once, from the later message.
 """
 
 from __future__ import annotations
@@ -22,7 +29,7 @@ import functools
 from collections import deque
 from dataclasses import dataclass, field
 from types import MappingProxyType
-from typing import TYPE_CHECKING, Final
+from typing import TYPE_CHECKING, Final, cast
 
 import numpy as np
 
@@ -30,15 +37,31 @@ from ._ephemeris import GlonassEphemeris, KeplerEphemeris
 from ._epoch import ObsEpoch
 from ._errors import ParseError
 from ._framer import Framer, FramerStatistics, NmeaFrame, RtcmFrame
-from ._gnsstime import BDS_GPS_OFFSET_S, GpsTime, leap_seconds_at, utc_to_gps
+from ._gnsstime import BDS_GPS_OFFSET_S, GpsTime, utc_to_gps
 from ._msm import MSM_TYPES, MsmMessage, decode_msm, new_glo_channel_table
-from ._nmea import GsvAssembler, GsvPart, RmcFix, ZdaTime, decode_sentence
+from ._msm_time import LEAP_NOW_S, circular_gap_ms, gps_ms_of_day, leap_at, resolve_epoch
+from ._nmea import (
+    GsvAssembler,
+    GsvPart,
+    NmeaMessage,
+    RmcFix,
+    SatellitesInView,
+    ZdaTime,
+    decode_sentence,
+)
 from ._rtcm_misc import DECODERS, DecodeContext
+from ._rtcm_station import ReceiverDescriptor, StationReference
 
 if TYPE_CHECKING:
     from collections.abc import Callable, Mapping
 
-__all__ = ["MAX_HELD_EPOCHS", "RawRtcm", "StreamDecoder", "StreamStatistics", "msm_gps_tow_ms"]
+__all__ = [
+    "MAX_HELD_EPOCHS",
+    "Message",
+    "RawRtcm",
+    "StreamDecoder",
+    "StreamStatistics",
+]
 
 #: Closed epochs kept while no reference time is known (1 min at 1 Hz); older ones are dropped
 #: and counted as unresolved.
@@ -48,15 +71,10 @@ _GPS_1019_FALLBACK_EPOCHS: Final = 8
 #: MSM messages whose epoch times differ by at most this much belong to one epoch (u-blox stamps
 #: whole seconds + 1 ms on some constellations); far below the 50 ms of a 20 Hz receiver.
 SAME_EPOCH_TOLERANCE_MS: Final = 5
-_DAY_MS: Final = 86_400_000
-_WEEK_MS: Final = 604_800_000
-_GLO_UTC_OFFSET_MS: Final = 10_800_000  # GLONASS time = UTC(SU) + 3 h (GLONASS ICD §3.3.3)
-_BDS_OFFSET_MS: Final = round(BDS_GPS_OFFSET_S * 1000)  # BDT = GPST − 14 s
-_GLO_DAY_UNKNOWN: Final = 7  # DF416: 7 = day of week unknown
-_LEAP_NOW_S: Final = 18
 #: A reference further than this from two agreeing Galileo/BeiDou ephemerides (different
 #: satellites) is replaced by them: ephemerides are valid for hours, never for two weeks.
 _CLOCK_DISAGREEMENT_S: Final = 14 * 86_400.0
+_EPH_AGREE_S: Final = 86_400.0  # two ephemerides within a day of each other agree
 #: Ephemerides whose full week we trust to place the stream in time (RTCM 10403.3: Galileo DF289
 #: and BeiDou DF489 are not truncated to 10 bits; GPS 1019s are often stale, see _learn).
 _WEEK_SOURCES: Final = {1045: "galileo", 1046: "galileo", 1042: "beidou"}
@@ -69,6 +87,20 @@ class RawRtcm:
     msg_type: int
     payload: bytes
     offset: int
+
+
+#: What ``StreamDecoder.feed`` returns: epochs, ephemerides, station data, NMEA and raw RTCM.
+Message = (
+    ObsEpoch
+    | MsmMessage
+    | RawRtcm
+    | KeplerEphemeris
+    | GlonassEphemeris
+    | StationReference
+    | ReceiverDescriptor
+    | NmeaMessage
+    | SatellitesInView
+)
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -96,63 +128,6 @@ class StreamStatistics:
     reference_source: str = ""
     #: Times the reference was replaced because ephemerides contradicted it by over two weeks.
     reference_corrections: int = 0
-
-
-def msm_gps_tow_ms(msg: MsmMessage, leap_s: int) -> int | None:
-    """GPS ms of week of an MSM epoch (``None`` for GLONASS with an unknown day of week).
-
-    Integer milliseconds so that every constellation of one epoch lands on the same value.
-    """
-    if msg.system == "R":
-        if msg.glonass_day == _GLO_DAY_UNKNOWN:
-            return None
-        glo_ms = msg.glonass_day * _DAY_MS + msg.epoch_ms
-        return (glo_ms - _GLO_UTC_OFFSET_MS + leap_s * 1000) % _WEEK_MS
-    if msg.system == "C":
-        return (msg.epoch_ms + _BDS_OFFSET_MS) % _WEEK_MS
-    return msg.epoch_ms % _WEEK_MS
-
-
-def _gps_ms_of_day(msg: MsmMessage, leap_s: int) -> int:
-    """GPS ms of day of an MSM epoch (defined even when the GLONASS day is unknown)."""
-    if msg.system == "R":
-        return (msg.epoch_ms - _GLO_UTC_OFFSET_MS + leap_s * 1000) % _DAY_MS
-    tow = msm_gps_tow_ms(msg, leap_s)
-    assert tow is not None
-    return tow % _DAY_MS
-
-
-def _at(week: int, tow_ms: int) -> GpsTime:
-    week_shift, tow_ms = divmod(tow_ms, _WEEK_MS)
-    return GpsTime(week + week_shift, tow_ms / 1000.0)
-
-
-@functools.lru_cache(maxsize=8)
-def _leap_on_gps_day(gps_day: int) -> int:
-    """GPS − UTC (s) at noon of a GPS day: leap seconds only change at a UTC day's end."""
-    return leap_seconds_at(GpsTime.from_total(gps_day * 86_400.0 + 43_200.0).to_utc())
-
-
-def _leap_at(ref: GpsTime) -> int:
-    return _leap_on_gps_day(int(ref.total_s // 86_400.0))
-
-
-def _resolve(msg: MsmMessage, ref: GpsTime) -> GpsTime:
-    """Full GPS time of an MSM epoch nearest to ``ref`` (week and day rollovers), exact to 1 ms."""
-    leap = _leap_at(ref)
-    ref_ms = round(ref.tow_s * 1000.0)
-    tow = msm_gps_tow_ms(msg, leap)
-    if tow is not None:
-        delta = (tow - ref_ms + _WEEK_MS // 2) % _WEEK_MS - _WEEK_MS // 2
-    else:
-        sod = _gps_ms_of_day(msg, leap)
-        delta = (sod - ref_ms + _DAY_MS // 2) % _DAY_MS - _DAY_MS // 2
-    return _at(ref.week, ref_ms + delta)
-
-
-def _circular_gap_ms(a: int, b: int) -> int:
-    d = abs(a - b) % _DAY_MS
-    return min(d, _DAY_MS - d)
 
 
 class _Epoch:
@@ -193,15 +168,15 @@ class StreamDecoder:
         self._duplicates = 0
         # Message number → decoder (RTCM 10403.3 Table 3.5-1): MSM4–7 here, the rest from
         # _rtcm_misc.DECODERS (they take a DecodeContext carrying our current reference time).
-        self._dispatch: dict[int, Callable[[bytes], object]] = {
+        self._dispatch: dict[int, Callable[[bytes], Message]] = {
             t: functools.partial(self._decode_misc, dec) for t, dec in DECODERS.items()
         }
         self._dispatch.update(dict.fromkeys(MSM_TYPES, self._decode_msm))
 
     # --- public -------------------------------------------------------------------------------
-    def feed(self, data: bytes | bytearray | memoryview) -> list[object]:
+    def feed(self, data: bytes | bytearray | memoryview) -> list[Message]:
         """Add stream bytes; return every message they complete. ``b""`` ends the stream."""
-        out: list[object] = []
+        out: list[Message] = []
         for frame in self._framer.feed(data):
             if isinstance(frame, RtcmFrame):
                 self._on_rtcm(frame, out)
@@ -237,7 +212,7 @@ class StreamDecoder:
         return self._ref
 
     # --- RTCM ---------------------------------------------------------------------------------
-    def _on_rtcm(self, frame: RtcmFrame, out: list[object]) -> None:
+    def _on_rtcm(self, frame: RtcmFrame, out: list[Message]) -> None:
         t = frame.msg_type
         decoder = self._dispatch.get(t)
         if decoder is None:
@@ -264,10 +239,11 @@ class StreamDecoder:
 
     def _decode_misc(
         self, decoder: Callable[[bytes, DecodeContext], object], payload: bytes
-    ) -> object:
-        return decoder(payload, DecodeContext(reference_time=self._ref))
+    ) -> Message:
+        # _rtcm_misc decoders return the typed messages listed in ``Message``.
+        return cast("Message", decoder(payload, DecodeContext(reference_time=self._ref)))
 
-    def _learn(self, msg: object, out: list[object]) -> None:
+    def _learn(self, msg: Message, out: list[Message]) -> None:
         """Channel table and reference time from ephemerides."""
         if isinstance(msg, GlonassEphemeris):
             slot = msg.sat - 100
@@ -285,20 +261,20 @@ class StreamDecoder:
             else:
                 self._check_clock(msg.sat, ref, source, out)
 
-    def _check_clock(self, sat: int, ref: GpsTime, source: str, out: list[object]) -> None:
+    def _check_clock(self, sat: int, ref: GpsTime, source: str, out: list[Message]) -> None:
         """Replace a reference (e.g. a Pi's unsynchronised clock) that two ephemerides contradict."""
         assert self._ref is not None
         if abs(ref - self._ref) <= _CLOCK_DISAGREEMENT_S:
             self._clock_votes.clear()
             return
-        agree = [r for s, r in self._clock_votes if s != sat and abs(r - ref) < _DAY_MS / 1000]
+        agree = [r for s, r in self._clock_votes if s != sat and abs(r - ref) < _EPH_AGREE_S]
         self._clock_votes.append((sat, ref))
         if agree:
             self._clock_votes.clear()
             self._corrections += 1
             self._set_reference(ref, source, out)
 
-    def _set_reference(self, ref: GpsTime, source: str, out: list[object]) -> None:
+    def _set_reference(self, ref: GpsTime, source: str, out: list[Message]) -> None:
         self._ref = ref
         self._ref_source = source
         while self._held:
@@ -308,17 +284,17 @@ class StreamDecoder:
     def _leap(self) -> int:
         # Without a reference, grouping assumes today's 18 s (IERS Bulletin C, since 2017-01-01);
         # the epoch's time is resolved later with the leap second of its own date.
-        return _leap_at(self._ref) if self._ref is not None else _LEAP_NOW_S
+        return leap_at(self._ref) if self._ref is not None else LEAP_NOW_S
 
-    def _on_msm(self, msg: MsmMessage, out: list[object]) -> None:
+    def _on_msm(self, msg: MsmMessage, out: list[Message]) -> None:
         if msg.system == "R" and msg.msm_level in (5, 7):
             ext = msg.sat_ext_info
             known = ext <= 13  # DF419 0…13 ↔ channel −7…+6
             self._glo_channels[msg.sat_ids[known] - 100] = (ext[known] - 7).astype(np.int8)
-        sod = _gps_ms_of_day(msg, self._leap())
+        sod = gps_ms_of_day(msg, self._leap())
         ep = self._open
         if ep is not None and (
-            ep.station != msg.station_id or _circular_gap_ms(ep.sod, sod) > SAME_EPOCH_TOLERANCE_MS
+            ep.station != msg.station_id or circular_gap_ms(ep.sod, sod) > SAME_EPOCH_TOLERANCE_MS
         ):
             self._close_open(out)
             ep = None
@@ -329,7 +305,7 @@ class StreamDecoder:
         if not msg.multiple_message:  # DF393 = 0: last message of this epoch
             self._close_open(out)
 
-    def _close_open(self, out: list[object]) -> None:
+    def _close_open(self, out: list[Message]) -> None:
         ep, self._open = self._open, None
         if ep is None:
             return
@@ -343,9 +319,9 @@ class StreamDecoder:
             return
         self._emit(ep, out)
 
-    def _emit(self, ep: _Epoch, out: list[object]) -> None:
+    def _emit(self, ep: _Epoch, out: list[Message]) -> None:
         assert self._ref is not None
-        time = _resolve(ep.msgs[0], self._ref)
+        time = resolve_epoch(ep.msgs[0], self._ref)
         self._ref = time
         out.append(self._assemble(ep, time))
         self._epochs += 1
@@ -362,8 +338,8 @@ class StreamDecoder:
             arrays = {n: np.concatenate([getattr(m, n) for m in msgs]) for n in names}
         n = arrays["sat"].shape[0]
         # Only two messages of one system (e.g. MSM6 and MSM7) can repeat a cell.
-        key = arrays["sat"].astype(np.int32) * 1024 + arrays["sig"]
-        if len({m.system for m in msgs}) < len(msgs) and np.unique(key).shape[0] != n:
+        if len({m.system for m in msgs}) < len(msgs):
+            key = arrays["sat"].astype(np.int32) * 1024 + arrays["sig"]
             _, first_rev = np.unique(key[::-1], return_index=True)
             keep = np.sort(n - 1 - first_rev)
             self._duplicates += n - keep.shape[0]
@@ -379,7 +355,7 @@ class StreamDecoder:
         )
 
     # --- NMEA ---------------------------------------------------------------------------------
-    def _on_nmea(self, frame: NmeaFrame, out: list[object]) -> None:
+    def _on_nmea(self, frame: NmeaFrame, out: list[Message]) -> None:
         try:
             msg = decode_sentence(frame.raw)
         except ParseError as exc:

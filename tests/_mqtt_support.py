@@ -67,7 +67,10 @@ class PrivateBroker:
             "allow_anonymous true\n"
             "persistence true\n"
             f"persistence_location {workdir / 'data'}/\n"
-            "log_dest none\n",
+            "log_dest none\n"
+            # As root, mosquitto would drop to user "mosquitto", which cannot write into pytest's
+            # private tmp dir: stay the invoking user (test-only setting).
+            + ("user root\n" if os.geteuid() == 0 else ""),
             encoding="utf-8",
         )
         self.proc: subprocess.Popen[bytes] | None = None

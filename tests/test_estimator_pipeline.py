@@ -7,12 +7,9 @@ import json
 import numpy as np
 import pytest
 
-from ionwarden.daemon.estimator import FixStatus, StationSnapshot
-from ionwarden.daemon.estimator._pipeline import StationPipeline
+from ionwarden.daemon.estimator import FixStatus, StationPipeline, StationSnapshot
 from ionwarden.daemon.runtime._checkpoint import load_checkpoint, save_checkpoint
-from ionwarden.parsers._framer import Framer
-from ionwarden.parsers._rinex_nav import iter_rinex_nav
-from ionwarden.parsers._rinex_obs import iter_rinex_obs
+from ionwarden.parsers import Framer, iter_rinex_nav, iter_rinex_obs
 
 P433 = "rinex/P43300USA_R_20190012056_17M_15S_MO.rnx"
 P433_XYZ = (-2268682.11, -3949823.15, 4451278.86)  # header APPROX POSITION XYZ

@@ -72,7 +72,7 @@ def test_ephemeris_store_rejects_future_unhealthy_and_missing(nav):
 
 
 def test_ephemeris_store_refuses_iode_iodc_mismatch(nav):
-    """EphemerisStore.add refuses a GPS set with IODE ≠ IODC mod 256 (IS-GPS-200 §20.3.4.4)."""
+    """EphemerisStore.add refuses a GPS set with IODE ≠ IODC mod 256 (IS-GPS-200 §20.3.3.4.1, from memory)."""
     store = EphemerisStore()
     bad = dataclasses.replace(nav[0], iodc=nav[0].iode + 1)
     assert store.add(bad) is False
@@ -230,3 +230,20 @@ def test_ephemeris_store_survives_pickle(nav):
     again = clone.select([1, 2, 3, 4], t)
     np.testing.assert_array_equal(again.valid, first.valid)
     np.testing.assert_array_equal(again.kepler.toe_gps_s, first.kepler.toe_gps_s)
+
+
+def test_ephemeris_store_refuses_implausible_sets(nav):
+    """EphemerisStore.add refuses NaN fields and impossible orbits and counts them (common practice)."""
+    store = EphemerisStore()
+    assert store.add(dataclasses.replace(nav[0], m0=math.nan)) is False
+    assert store.add(dataclasses.replace(nav[0], sqrt_a=100.0)) is False
+    assert store.add(dataclasses.replace(nav[0], e=1.2)) is False
+    glo = GlonassEphemeris(
+        sat=sat_id("R", 1), channel=0, tb_s=900.0, day_number=-1, four_year=-1,
+        x_m=0.0, y_m=0.0, z_m=0.0, vx_mps=0.0, vy_mps=0.0, vz_mps=0.0,
+        ax_mps2=0.0, ay_mps2=0.0, az_mps2=0.0, tau_n_s=0.0, gamma_n=0.0, health=0,
+    )  # fmt: skip
+    assert store.add(glo, t_received_gps_s=1.2e9) is False
+    assert store.add(nav[0]) is True
+    s = store.statistics()
+    assert (s.implausible, s.added, s.stored) == (4, 1, 1)

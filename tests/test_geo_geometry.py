@@ -10,6 +10,7 @@ import pytest
 
 from ionwarden.daemon.geo import (
     EphemerisStore,
+    KeplerBatch,
     az_el,
     kepler_state,
     sagnac_rotate,
@@ -142,3 +143,67 @@ def test_satellite_geometry_masks_missing_and_mixes_glonass(store, obs):
     # The GLONASS row flies the GPS satellite's state from t − 70 ms: same place within 0.5 m.
     same = satellite_geometry(t, rx, sats[:1], store)
     np.testing.assert_allclose(geo.pos_ecef_m[1], same.pos_ecef_m[0], rtol=0, atol=0.5)
+
+
+def _mixed_store(nav, t):
+    """brdc GPS sets + an eccentric Galileo copy (e = 0.16) + a GLONASS set flying a GPS orbit."""
+    store = EphemerisStore(keep_per_sat=30)
+    for e in nav:
+        store.add(e)
+    near = min((e for e in nav if e.sat == 1), key=lambda e: abs(e.week * WEEK_S + e.toe_s - t))
+    store.add(dataclasses.replace(near, sat=sat_id("E", 14), e=0.16, m0=near.m0 + 1.0))
+    pos, vel, _ = kepler_state(KeplerBatch.from_ephemerides([near]), t)
+    day_start = np.floor((t - 18.0 + 10800.0) / 86400.0) * 86400.0 + 18.0 - 10800.0
+    glo = GlonassEphemeris(
+        sat=sat_id("R", 9), channel=-2, tb_s=float(t - day_start), day_number=-1, four_year=-1,
+        x_m=pos[0, 0], y_m=pos[0, 1], z_m=pos[0, 2],
+        vx_mps=vel[0, 0], vy_mps=vel[0, 1], vz_mps=vel[0, 2],
+        ax_mps2=0.0, ay_mps2=0.0, az_mps2=1e-7, tau_n_s=1e-5, gamma_n=1e-11, health=0,
+    )  # fmt: skip
+    store.add(glo, t_received_gps_s=t)
+    return store
+
+
+def test_satellite_geometry_grid_interpolation_matches_exact_model(nav, obs):
+    """satellite_geometry on its 30 s node grid equals exact=True within 0.5 mm across nodes."""
+    # Oracle: the broadcast model evaluated directly (exact=True); the difference is the cubic
+    # Hermite error h⁴/384·|x⁗| (common practice), largest for the e = 0.16 Galileo row.
+    t_first, rx, sats, _ = next(iter(_epochs(obs)))
+    store = _mixed_store(nav, t_first)
+    want = np.array([*sats.tolist(), sat_id("E", 14), sat_id("R", 9), sat_id("E", 1)], np.int16)
+    for t in t_first + np.arange(0.0, 95.0, 0.7):
+        grid = satellite_geometry(t, rx, want, store)
+        exact = satellite_geometry(t, rx, want, store, exact=True)
+        np.testing.assert_array_equal(grid.valid, exact.valid)
+        ok = exact.valid
+        assert ok.sum() == len(want) - 1  # E01 has no ephemeris
+        np.testing.assert_allclose(grid.pos_ecef_m[ok], exact.pos_ecef_m[ok], rtol=0, atol=5e-4)
+        np.testing.assert_allclose(grid.vel_ecef_mps[ok], exact.vel_ecef_mps[ok], rtol=0, atol=1e-4)
+        np.testing.assert_allclose(grid.clock_s[ok], exact.clock_s[ok], rtol=0, atol=1e-12)
+        np.testing.assert_allclose(grid.el_rad[ok], exact.el_rad[ok], rtol=0, atol=1e-10)
+        assert np.all(np.isnan(grid.pos_ecef_m[~ok]))
+
+
+def test_satellite_geometry_is_independent_of_call_history(nav, obs):
+    """satellite_geometry gives bit-identical results whatever epochs were asked before."""
+    # The node grid is fixed in GPS time, so the estimator and the simulator agree exactly.
+    t_first, rx, sats, _ = next(iter(_epochs(obs)))
+    t = t_first + 47.3
+    fresh = satellite_geometry(t, rx, sats, _mixed_store(nav, t_first))
+    used_store = _mixed_store(nav, t_first)
+    for t_other in (t_first + 500.0, t_first - 31.0, t_first + 61.0):
+        satellite_geometry(t_other, rx, sats, used_store)
+    used = satellite_geometry(t, rx, sats, used_store)
+    np.testing.assert_array_equal(fresh.pos_ecef_m, used.pos_ecef_m)
+    np.testing.assert_array_equal(fresh.clock_s, used.clock_s)
+    np.testing.assert_array_equal(fresh.el_rad, used.el_rad)
+
+
+def test_satellite_geometry_handles_empty_and_unknown_satellites(store):
+    """satellite_geometry returns empty arrays for no satellites and NaN rows for unknown ones."""
+    rx = np.array([-2268682.11, -3949823.15, 4451278.86])
+    empty = satellite_geometry(1.23e9, rx, np.array([], dtype=np.int16), store)
+    assert empty.pos_ecef_m.shape == (0, 3)
+    none = satellite_geometry(1.23e9, rx, [1, 105], store, pseudorange_m=[2e7, np.nan])
+    assert none.valid.tolist() == [False, False]
+    assert np.all(np.isnan(none.range_m))

@@ -6,87 +6,49 @@ old, kept by the receiver for satellites not in view). pyrtcm is the reference d
 
 from __future__ import annotations
 
-import math
 from pathlib import Path
 
 import numpy as np
 import pytest
 
-from ionwarden.daemon.geo import EphemerisStore, satellite_geometry
-from ionwarden.parsers import KeplerEphemeris, sat_id
+from ionwarden.daemon.geo import EphemerisStore, resolve_glonass_tb, satellite_geometry
+from ionwarden.parsers import KeplerEphemeris
+from tests._geo_support import ephemeris_from_rtcm, msm_pseudoranges, read_rtcm
 
 RTK134 = "rtcm/RTK134_202102051543.rtcm3"
 C = 299792458.0
+WEEK = 2143  # PROVENANCE.md: GPS week of the capture
 #: ARP from the file's 1006 (PROVENANCE.md).
 ARP = np.array([-1078805.67, -5874977.02, 2234281.59])
-#: Frames read: enough for one 1019 per PRN and the first MSM epoch (PROVENANCE.md frame mix).
+#: Frames read: one 1019/1020 per satellite and ~50 MSM epochs (PROVENANCE.md frame mix).
 FRAMES = 400
-
-
-def _eph_from_1019(msg) -> KeplerEphemeris:
-    """RTCM 10403.3 message 1019 (pyrtcm scales the fields; angles arrive in semicircles)."""
-    pi = math.pi
-    return KeplerEphemeris(
-        sat=sat_id("G", int(msg.DF009)), week=2048 + int(msg.DF076),  # DF076: week mod 1024
-        toe_s=float(msg.DF093), toc_s=float(msg.DF081), sqrt_a=float(msg.DF092),
-        e=float(msg.DF090), i0=float(msg.DF097) * pi, omega0=float(msg.DF095) * pi,
-        omega=float(msg.DF099) * pi, m0=float(msg.DF088) * pi, delta_n=float(msg.DF087) * pi,
-        idot=float(msg.DF079) * pi, omega_dot=float(msg.DF100) * pi, cuc=float(msg.DF089),
-        cus=float(msg.DF091), crc=float(msg.DF098), crs=float(msg.DF086),
-        cic=float(msg.DF094), cis=float(msg.DF096), af0=float(msg.DF084),
-        af1=float(msg.DF083), af2=float(msg.DF082), iode=int(msg.DF071), iodc=int(msg.DF085),
-        tgd_s=(float(msg.DF101), math.nan), health=int(msg.DF102),
-        fit_interval_h=4.0, accuracy_m=math.nan, source=1019,
-    )  # fmt: skip
 
 
 @pytest.fixture(scope="module")
 def rtk134(real_data: Path):
-    from pyrtcm import RTCMReader
-
-    ephs, msm = [], None
-    with open(real_data / RTK134, "rb") as f:
-        for n, (_, msg) in enumerate(RTCMReader(f)):
-            if n >= FRAMES:
-                break
-            if msg is None:
-                continue
-            if msg.identity == "1019":
-                ephs.append(_eph_from_1019(msg))
-            elif msg.identity == "1075" and msm is None:
-                msm = msg
-    assert msm is not None
-    return ephs, msm
+    msgs = read_rtcm(real_data / RTK134, FRAMES)
+    ephs = [e for e in map(ephemeris_from_rtcm, msgs) if e is not None]
+    return ephs, msgs
 
 
-def _c1c(msm) -> tuple[float, np.ndarray, np.ndarray]:
-    """(t GPS s, sat ids, L1 C/A pseudoranges) of an MSM5 (RTCM 10403.3 §3.5, pyrtcm decode)."""
-    t = 2143 * 604800.0 + msm.DF004 / 1000.0  # GPS week 2143 (PROVENANCE.md)
-    rough = {int(getattr(msm, f"PRN_{i:02d}")): i for i in range(1, msm.NSat + 1)}
-    sats, pr = [], []
-    for c in range(1, msm.NCell + 1):
-        if getattr(msm, f"CELLSIG_{c:02d}") != "1C":
-            continue
-        prn = int(getattr(msm, f"CELLPRN_{c:02d}"))
-        i = rough[prn]
-        ms = getattr(msm, f"DF397_{i:02d}") + getattr(msm, f"DF398_{i:02d}")
-        ms += getattr(msm, f"DF400_{c:02d}")
-        sats.append(sat_id("G", prn))
-        pr.append(ms * C / 1000.0)
-    return t, np.array(sats, dtype=np.int16), np.array(pr)
+def _first(msgs, ident):
+    return next(m for m in msgs if m.identity == ident)
 
 
 def test_ephemeris_store_rejects_rtk134_stale_1019s(rtk134):
     """EphemerisStore keeps only week-2143 sets usable at the RTK134 epoch; old weeks are stale."""
-    ephs, msm = rtk134
-    t, sats, _ = _c1c(msm)
+    ephs, msgs = rtk134
+    gps = [e for e in ephs if isinstance(e, KeplerEphemeris)]
+    msm = _first(msgs, "1075")
+    t = WEEK * 604800.0 + msm.DF004 / 1000.0
+    sats, _ = msm_pseudoranges(msm, "G", "1C")
     store = EphemerisStore()
-    for e in ephs:
+    for e in gps:
         store.add(e)
-    every = np.array(sorted({e.sat for e in ephs}), dtype=np.int16)
+    every = np.array(sorted({e.sat for e in gps}), dtype=np.int16)
     sel = store.select(every, t)
-    assert set(sel.kepler.toe_gps_s // 604800.0) == {2143.0}
-    only_old = {e.sat for e in ephs} - {e.sat for e in ephs if e.week == 2143}
+    assert set(sel.kepler.toe_gps_s // 604800.0) == {float(WEEK)}
+    only_old = {e.sat for e in gps} - {e.sat for e in gps if e.week == WEEK}
     assert only_old  # PROVENANCE.md: weeks 45…93 mod 1024 are present
     assert store.statistics().stale >= len(only_old)
     assert not sel.valid[np.isin(every, sorted(only_old))].any()
@@ -97,14 +59,17 @@ def test_ephemeris_store_rejects_rtk134_stale_1019s(rtk134):
     assert store.statistics().unhealthy == before + 1
 
 
-def test_satellite_geometry_fits_rtk134_msm5_ranges(rtk134):
+def test_satellite_geometry_fits_rtk134_gps_ranges(rtk134):
     """satellite_geometry + fresh 1019s fit RTK134 L1 C/A ranges to < 10 m after the clock."""
     # Source: RTK134_202102051543.rtcm3 (1006 ARP, 1019, 1075), decoded by pyrtcm.
-    ephs, msm = rtk134
-    t, sats, pr = _c1c(msm)
+    ephs, msgs = rtk134
     store = EphemerisStore()
     for e in ephs:
-        store.add(e)
+        if isinstance(e, KeplerEphemeris):
+            store.add(e)
+    msm = _first(msgs, "1075")
+    t = WEEK * 604800.0 + msm.DF004 / 1000.0
+    sats, pr = msm_pseudoranges(msm, "G", "1C")
     geo = satellite_geometry(t, ARP, sats, store, pseudorange_m=pr)
     assert geo.valid.sum() == len(sats) - 1  # G11 unhealthy
     sel = store.select(sats, t)
@@ -114,5 +79,29 @@ def test_satellite_geometry_fits_rtk134_msm5_ranges(rtk134):
     keep = geo.valid & (geo.el_rad > np.radians(15.0))
     res = res[keep] - np.median(res[keep])
     assert keep.sum() >= 6
-    print(f"RTK134 C1C residuals above 15°: std {np.std(res):.2f} m, max {np.abs(res).max():.2f} m")
     assert np.std(res) < 10.0
+
+
+def test_satellite_geometry_fits_rtk134_glonass_ranges(rtk134):
+    """glonass_state via 1020 (t_b placed by N4/N_T) fits RTK134 GLONASS L1 ranges (< 10 m)."""
+    # Source: RTK134_202102051543.rtcm3 (1020, 1085; GLONASS ICD Ed. 5.1 §A.3.1.2 orbit and
+    # clock −τ_n + γ_n·(t − t_b): a wrong τ_n sign would leave tens of km).
+    ephs, msgs = rtk134
+    store = EphemerisStore()
+    for e in ephs:
+        if not isinstance(e, KeplerEphemeris):
+            assert e.four_year == 7  # 2020–2023
+            store.add(e)  # no reception time: N4/N_T place t_b
+    t_gps = WEEK * 604800.0 + _first(msgs, "1075").DF004 / 1000.0
+    residuals = []
+    for msm in (m for m in msgs if m.identity == "1085"):
+        t = resolve_glonass_tb(msm.DF034 / 1000.0, t_gps)  # DF034: GLONASS time of day (ms)
+        sats, pr = msm_pseudoranges(msm, "R", "1C")
+        geo = satellite_geometry(t, ARP, sats, store, pseudorange_m=pr)
+        res = pr - (geo.range_m - C * geo.clock_s)
+        keep = geo.valid & (geo.el_rad > np.radians(10.0))
+        if keep.sum() >= 3:
+            residuals.append(res[keep] - np.median(res[keep]))
+    allres = np.concatenate(residuals)
+    assert allres.size >= 100
+    assert np.std(allres) < 10.0

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import datetime as dt
+import functools
 import json
 from pathlib import Path
 
@@ -84,10 +85,17 @@ def _schema(name: str) -> dict:
     return json.loads((SCHEMAS / f"{name}.schema.json").read_text(encoding="utf-8"))
 
 
+@functools.cache
+def _validator(name: str) -> jsonschema.Draft202012Validator:
+    schema = _schema(name)
+    jsonschema.Draft202012Validator.check_schema(schema)
+    return jsonschema.Draft202012Validator(schema)
+
+
 def validate(name: str, payload: bytes) -> dict:
     """Parse ``payload`` and validate it against config/schemas/<name>.schema.json."""
     doc = json.loads(payload)
-    jsonschema.validate(doc, _schema(name), cls=jsonschema.Draft202012Validator)
+    _validator(name).validate(doc)
     assert doc["schema"] == f"ionwarden.{name}/{SCHEMA_NAMES[name]}"
     return doc
 

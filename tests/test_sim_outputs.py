@@ -119,6 +119,24 @@ def test_stream_decodes_in_our_stream_decoder() -> None:
         assert abs(ep.pseudorange_m[cell] - b.pseudorange_m[1, col, k]) < 0.001  # MSM7 DF405
 
 
+def test_stream_msm4_glonass_channels_known_from_first_epoch() -> None:
+    """With MSM4 (no channel field) the 1020s come first, so every GLONASS cell has a frequency."""
+    import dataclasses
+
+    sim = Simulator(build_scenario("quiet-day", duration_s=2.0))
+    dec = StreamDecoder(reference_time=sim.scenario.start)
+    epochs = []
+    for _, data in iter_stream(sim, 0, msm_level=4):
+        epochs += [m for m in dec.feed(data) if hasattr(m, "pseudorange_m")]
+    glo = epochs[0].sat // 100 == 1
+    assert glo.any()
+    assert np.isfinite(epochs[0].freq_hz[glo]).all()  # GLONASS ICD §3.3.1.4 via 1020 channel
+    block = next(iter(sim.run()))[0]
+    from ionwarden.daemon.sim import epoch_of
+
+    dataclasses.replace(epoch_of(block, 0, 41), _validate=True)  # dtypes and shapes hold
+
+
 def test_stream_is_deterministic_per_seed() -> None:
     """Same scenario and seed give byte-identical streams; another seed changes them."""
     a = _stream("band-outage", 15.0, seed=7)
@@ -240,22 +258,27 @@ def _dense(sim: Simulator, blocks: list, attr: str) -> np.ndarray:
     return np.concatenate(parts)
 
 
-def test_events_band_outage_drops_cn0_then_loses_band(monkeypatch: pytest.MonkeyPatch) -> None:
-    """Band outage lowers band-2 C/N0 by 20 dB, then removes band 2, other bands untouched."""
+def test_events_band_outage_drops_cn0_then_loses_band() -> None:
+    """L2-band interference lowers GPS L2 / GLONASS G2 C/N0 by 20 dB, then removes them; L1 and
+    BeiDou B1I ("2I", 1561.098 MHz per BDS-SIS-ICD-B1I §4.2.1) are untouched."""
     sim, blocks = _blocks("band-outage", duration_s=1800.0, rate_hz=0.1)
     cn0 = _dense(sim, blocks, "cn0_dbhz")
-    band = np.broadcast_to(sim.signals.code // 32, cn0.shape[1:])
+    f = np.nan_to_num(sim.signals.freq_hz)
+    l2 = (f > 1215e6) & (f < 1254e6)  # GPS L2 1227.60 (IS-GPS-200), G2 1246+k·0.4375 (GLONASS ICD)
+    l1 = np.abs(f - 1575.42e6) < 1.0  # GPS L1 / Galileo E1
+    b1i = np.abs(f - 1561.098e6) < 1.0
     t = np.arange(cn0.shape[0]) * 10.0
     before = (t >= 300) & (t < 600)
     during = (t >= 700) & (t < 1200)
     lost = (t >= 1500) & (t < 1800)
-    b2 = band == 2
     top = lambda m, sel: float(np.nanmax(cn0[m][:, sel]))  # noqa: E731
-    # Weak band-2 signals fall below tracking threshold, so compare the strongest ones.
-    assert 15.0 < top(before, b2) - top(during, b2) < 25.0
-    assert abs(top(before, band == 1) - top(during, band == 1)) < 3.0
-    assert not np.isfinite(cn0[lost][:, b2]).any()
-    assert np.isfinite(cn0[lost][:, band == 1]).any()
+    # Weak L2 signals fall below the tracking threshold, so compare the strongest ones.
+    assert 15.0 < top(before, l2) - top(during, l2) < 25.0
+    assert abs(top(before, l1) - top(during, l1)) < 3.0
+    assert abs(top(before, b1i) - top(during, b1i)) < 3.0
+    assert not np.isfinite(cn0[lost][:, l2]).any()
+    assert np.isfinite(cn0[lost][:, l1]).any()
+    assert np.isfinite(cn0[lost][:, b1i]).any()
 
 
 def test_events_slip_cycles_appear_in_phase() -> None:
@@ -272,6 +295,19 @@ def test_events_slip_cycles_appear_in_phase() -> None:
     assert amb[i, col, k] - amb[i - 1, col, k] == 2500
     assert amb[i, col, 0] == amb[i - 1, col, 0]  # L1 untouched
     assert slipped[i, col, k]
+
+
+def test_events_silent_slip_keeps_lock_time() -> None:
+    """A silent slip (lock_reset=False) moves the ambiguity by one cycle but not the lock time."""
+    sim, blocks = _blocks("storm-front", duration_s=3010.0, rate_hz=1.0)
+    ev = sim.slips[2]
+    assert not ev.lock_reset
+    amb = _dense(sim, blocks, "ambiguity_cycles")
+    lock = _dense(sim, blocks, "lock_time_s")
+    col = int(np.flatnonzero(sim.sats == ev.sat)[0])
+    i = round(ev.t_s)
+    assert amb[i, col, 0] - amb[i - 1, col, 0] == 1
+    assert lock[i, col, 0] == lock[i - 1, col, 0] + 1.0
 
 
 def test_events_half_cycle_flag_and_restart_and_gap() -> None:
@@ -332,3 +368,19 @@ def test_cli_simulate_help_lists_scenarios(capsys: pytest.CaptureFixture[str]) -
     text = capsys.readouterr().out
     for name in scenario_names():
         assert name in text
+
+
+def test_biases_csv_lists_every_satellite_and_signal() -> None:
+    """biases.csv covers every satellite × transmitted signal, with GPS T_GD-consistent L1/L2
+    biases: b(2W) = γ·b(1C), γ = (1575.42/1227.60)² (IS-GPS-200 §20.3.3.3.3.2)."""
+    sim = Simulator(build_scenario("quiet-day", duration_s=1.0))
+    sinks = Sinks(biases=io.StringIO())
+    run_to_sinks(sim, sinks)
+    assert isinstance(sinks.biases, io.StringIO)
+    rows = [r.split(",") for r in sinks.biases.getvalue().splitlines()[1:]]
+    assert len(rows) == int(sim.signals.valid.sum())
+    by = {(r[1], r[2]): float(r[4]) for r in rows}
+    gamma = (1575.42 / 1227.60) ** 2
+    for prn in range(1, 33):
+        b1, b2 = by[(f"G{prn:02d}", "1C")], by[(f"G{prn:02d}", "2W")]
+        assert b2 == pytest.approx(gamma * b1, abs=2e-4)

@@ -115,6 +115,32 @@ def test_serve_ntrip_sourcetable_unknown_mount_and_auth(sim: Simulator) -> None:
     assert ok.startswith(b"HTTP/1.1 200 OK")
 
 
+def test_serve_ntrip_one_mount_per_station() -> None:
+    """A mapping of factories becomes one mount each, listed in the source table."""
+    sim2 = Simulator(build_scenario("two-stations-60km", duration_s=2.0))
+    v2 = b"Ntrip-Version: Ntrip/2.0\r\n"
+
+    async def client(port: int) -> list:
+        return [
+            await _get(port, b"GET / HTTP/1.1\r\n" + v2 + b"\r\n"),
+            await _get(port, b"GET /HRV6 HTTP/1.1\r\n" + v2 + b"\r\n"),
+        ]
+
+    async def go() -> list:
+        async with asyncio.TaskGroup() as tg:
+            ready: asyncio.Future[int] = asyncio.get_running_loop().create_future()
+            mounts = {"HARC": lambda: iter_stream(sim2, 0), "HRV6": lambda: iter_stream(sim2, 1)}
+            opts = ServeOptions(max_clients=2)
+            tg.create_task(serve_ntrip(mounts, opts, ready), name="sim.serve")
+            return await client(await ready)
+
+    table, rover = asyncio.run(go())
+    assert b"STR;HARC;" in table
+    assert b"STR;HRV6;" in table
+    _, _, body = rover.partition(b"\r\n\r\n")
+    assert _dechunk(body) == b"".join(d for _, d in iter_stream(sim2, 1))
+
+
 def test_serve_ntrip_v1_client_gets_icy_and_raw_bytes(sim: Simulator) -> None:
     """An NTRIP 1.0 request (no Ntrip-Version header) gets ICY 200 OK and the raw stream."""
 

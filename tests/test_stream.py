@@ -254,3 +254,21 @@ def test_stream_wrong_clock_corrected_by_two_ephemerides(real_data):
     assert eps[-1].time == GpsTime(2328, 76497.0)  # 21:14:57 (PROVENANCE.md)
     assert dec.statistics().reference_corrections == 1
     assert dec.statistics().reference_source in {"galileo", "beidou"}
+
+
+def test_stream_glonass_unknown_day_resolved_by_time_of_day():
+    """StreamDecoder places a GLONASS MSM whose DF416 day is 7 (unknown, RTCM 10403.3) by its time of day."""
+    truth = GpsTime(2300, 3 * 86_400 + 5 * 3600 + 18.0)
+    frames = _frames(_small_epoch_stream(truth))
+    glo = next(f for f in frames if f.msg_type == 1087)
+    payload = bytearray(glo.payload)
+    payload[3] = (payload[3] & 0x1F) | (7 << 5)  # bits 24–26 = DF416
+    patched = b"".join(
+        frame_rtcm(bytes(payload)) if f is glo else frame_rtcm(f.payload) for f in frames
+    )
+    dec = StreamDecoder(reference_time=truth + 7200.0, emit_msm=True)
+    msgs = dec.feed(patched) + dec.feed(b"")
+    assert next(m for m in msgs if getattr(m, "msg_type", 0) == 1087).glonass_day == 7
+    (epoch,) = _epochs(msgs)
+    assert epoch.time == truth
+    assert 1087 in epoch.sources

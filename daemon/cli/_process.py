@@ -18,12 +18,8 @@ from typing import IO, TYPE_CHECKING, Any
 
 from ionwarden.daemon.config import EstimatorSettings
 from ionwarden.daemon.errors import DaemonError, ParseError
-from ionwarden.daemon.estimator import StationSnapshot
-from ionwarden.daemon.estimator._pipeline import StationPipeline
-from ionwarden.parsers import sat_name
-from ionwarden.parsers._rinex_nav import iter_rinex_nav
-from ionwarden.parsers._rinex_obs import RinexObsParser
-from ionwarden.parsers._rinex_open import open_rinex_text
+from ionwarden.daemon.estimator import StationPipeline, StationSnapshot
+from ionwarden.parsers import RinexObsParser, iter_rinex_nav, open_rinex_text, sat_name
 
 from ._common import config_path, die, load_or_die
 

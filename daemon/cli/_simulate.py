@@ -7,6 +7,7 @@ import asyncio
 import contextlib
 import logging
 import sys
+import textwrap
 from pathlib import Path
 from typing import IO, TYPE_CHECKING
 
@@ -15,7 +16,7 @@ from ionwarden.daemon.errors import ConfigError
 from ._common import die
 
 if TYPE_CHECKING:
-    from collections.abc import Iterator
+    from collections.abc import Callable, Iterator
 
     from ionwarden.daemon.sim import Simulator
 
@@ -28,14 +29,18 @@ def _epilog() -> str:
     from ionwarden.daemon.sim import SCENARIO_HELP  # noqa: PLC0415 - keep `--help` of others light
 
     lines = ["scenarios (all invented; times from 2026-03-18 12:00 UTC):"]
-    lines += [f"  {name:<18} {text}" for name, text in SCENARIO_HELP.items()]
+    for name, text in SCENARIO_HELP.items():
+        lines += textwrap.wrap(
+            text, width=98, initial_indent=f"  {name:<18} ", subsequent_indent=" " * 21
+        )
     lines += [
         "",
         "outputs: --out FILE ('-' = stdout) writes the RTCM 3 + NMEA stream (one file per station,",
         "named FILE with -STATION before the suffix when there are several); --rinex DIR writes",
         "RINEX 3.04 <STATION>.rnx per station and nav.rnx; --truth FILE writes the truth table plus",
         "FILE-biases.csv and, with several stations, FILE-gradients.csv. --serve tcp|ntrip serves",
-        "one station on loopback for ingest tests and stops after --clients connections.",
+        "on loopback for ingest tests (NTRIP: one mount per station, named after it, unless",
+        "--station picks one, served as --mount) and stops after --clients connections.",
         "Same scenario + seed + options gives byte-identical output.",
     ]
     return "\n".join(lines)
@@ -105,7 +110,7 @@ def _stream_path(out: str, station: str, several: bool) -> Path:
     return p.with_name(f"{p.stem}-{station}{p.suffix}") if several else p
 
 
-def _serve(args: argparse.Namespace, sim: Simulator, station: int) -> int:
+def _serve(args: argparse.Namespace, sim: Simulator, station: int | None) -> int:
     from ionwarden.daemon.sim import ServeOptions, iter_stream, serve_ntrip, serve_tcp  # noqa: PLC0415
 
     opts = ServeOptions(
@@ -117,11 +122,21 @@ def _serve(args: argparse.Namespace, sim: Simulator, station: int) -> int:
         mount=args.mount,
     )
 
-    def factory() -> Iterator[tuple[float, bytes]]:
-        return iter_stream(sim, station, msm_level=args.msm, nmea=not args.no_nmea)
+    def factory_for(index: int) -> Callable[[], Iterator[tuple[float, bytes]]]:
+        def factory() -> Iterator[tuple[float, bytes]]:
+            return iter_stream(sim, index, msm_level=args.msm, nmea=not args.no_nmea)
 
-    serve = serve_ntrip if args.serve == "ntrip" else serve_tcp
-    sent = asyncio.run(serve(factory, opts))
+        return factory
+
+    if args.serve == "ntrip":
+        stations = sim.scenario.stations
+        if station is None and len(stations) > 1:  # one mount per station, named after it
+            mounts = {st.name: factory_for(i) for i, st in enumerate(stations)}
+            sent = asyncio.run(serve_ntrip(mounts, opts))
+        else:
+            sent = asyncio.run(serve_ntrip(factory_for(station or 0), opts))
+    else:
+        sent = asyncio.run(serve_tcp(factory_for(station or 0), opts))
     _LOG.info("simulate: served %d bytes", sent)
     return 0
 
@@ -176,7 +191,7 @@ def run(args: argparse.Namespace) -> int:
         sim = _build(args)
         only = _station_index(sim, args.station)
         if args.serve is not None:
-            return _serve(args, sim, only or 0)
+            return _serve(args, sim, only)
         if args.out is None and args.rinex is None and args.truth is None:
             return die("simulate: nothing to write: give --out, --rinex, --truth or --serve")
         return _files(args, sim, only)

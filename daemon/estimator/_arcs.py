@@ -28,6 +28,7 @@ import numpy as np
 import numpy.typing as npt
 
 from ._state import (
+    ARC,
     GF_LEVEL,
     GF_RATE,
     GF_VAR,
@@ -43,7 +44,6 @@ from ._state import (
     MW_VAR,
     NCOL,
     RANK,
-    ARC,
     N,
 )
 
@@ -124,7 +124,9 @@ class ArcState:
         th = self.th
         dt = t - g[:, LAST_T]
         prev_rank = g[:, RANK]
-        lock_drop = ((lock < g[:, LOCK1 : LOCK2 + 1]) & (lock >= 0)) | (locktime < g[:, LT1 : LT2 + 1])
+        lock_drop = ((lock < g[:, LOCK1 : LOCK2 + 1]) & (lock >= 0)) | (
+            locktime < g[:, LT1 : LT2 + 1]
+        )
         reason = (
             np.isnan(dt) * REASON_FIRST
             | (dt > gap_s) * REASON_GAP
@@ -135,8 +137,12 @@ class ArcState:
         # Jump tests only where the arc continues so far.
         cont = reason == 0
         mw_res = mw_m - g[:, MW_MEAN]
-        mw_thr = np.maximum(th.mw_k_sigma * np.sqrt(g[:, MW_VAR]), th.mw_floor_wl_cycles * g[:, LWL])
-        el_factor = np.where(np.isnan(el_rad), 2.0, 1.0 + 2.0 * np.exp(el_rad * (-180.0 / np.pi / 15.0)))
+        mw_thr = np.maximum(
+            th.mw_k_sigma * np.sqrt(g[:, MW_VAR]), th.mw_floor_wl_cycles * g[:, LWL]
+        )
+        el_factor = np.where(
+            np.isnan(el_rad), 2.0, 1.0 + 2.0 * np.exp(el_rad * (-180.0 / np.pi / 15.0))
+        )
         n = g[:, N]
         tracked = n >= 2
         pred = g[:, GF_LEVEL] + np.where(tracked, g[:, GF_RATE], 0.0) * dt
@@ -159,7 +165,9 @@ class ArcState:
         learn = ok & tracked
         g[:, GF_VAR] = np.where(learn, (1.0 - w) * g[:, GF_VAR] + w * gf_res * gf_res, g[:, GF_VAR])
         second = n == 1
-        rate = np.where(second, (gf_m - g[:, GF_LEVEL]) / dt, g[:, GF_RATE] + th.rate_weight * gf_res / dt)
+        rate = np.where(
+            second, (gf_m - g[:, GF_LEVEL]) / dt, g[:, GF_RATE] + th.rate_weight * gf_res / dt
+        )
         g[:, GF_RATE] = np.where(ok, rate, 0.0)
         level = np.where(second, gf_m, pred + th.level_weight * gf_res)
         g[:, GF_LEVEL] = np.where(ok, level, gf_m)

@@ -23,14 +23,36 @@ import numpy as np
 import numpy.typing as npt
 
 from ionwarden.daemon.config import EstimatorSettings
-from ionwarden.daemon.geo import mapping_factor, pierce_point
+from ionwarden.daemon.geo import mapping_factor
 from ionwarden.parsers import MAX_SAT_ID, SYSTEMS, sat_id
 
 from ._arcs import REASON_NAMES, REASON_PAIR, ArcState, SlipThresholds
 from ._geometry import Geometry
-from ._pairs import C_MPS, PairTable, band_delays_s, iono_coefficients, satellite_bias_tecu
+from ._pairs import C_MPS, PairTable, band_delays_s, iono_coefficients
 from ._rxbias import ReceiverBias
 from ._snapshot import SatelliteFigures, StationSnapshot
+from ._state import (
+    ALPHA,
+    ARC,
+    BETA,
+    F1,
+    F2,
+    GAMMA,
+    GF0,
+    HATCH,
+    IFL_PREV,
+    L1M,
+    LAST_T,
+    LEV_MEAN,
+    LEV_SW,
+    LWL,
+    MP1,
+    MP2,
+    NOISE,
+    K,
+    N,
+    new_state,
+)  # fmt: skip
 from ._station import pierce_offsets_km, station_figures
 from ._windows import LagRing, SlotStd
 
@@ -44,6 +66,10 @@ Idx = npt.NDArray[np.intp]
 N_SIG = 10 * 32  # packed signal codes are band*32 + attribute, bands 0–9
 #: A receiver-bias estimate is applied to STEC once its 1-σ is at most this (TECU).
 _BIAS_APPLY_SIGMA_TECU = 3.0
+#: Samples (one per receiver-bias update) before a satellite's combined bias is applied.
+_COMB_MIN_SAMPLES = 8.0
+#: An epoch this much older than the last one restarts the time-dependent state (s).
+_TIME_RESET_S = 3600.0
 #: Epoch intervals remembered to estimate the sampling interval (median).
 _INTERVAL_HISTORY = 9
 
@@ -68,26 +94,32 @@ class StationEstimator:
         self._shell_m = cfg.shell_height_km * 1000.0
         self._mask_rad = math.radians(cfg.elevation_mask_deg)
         S = MAX_SAT_ID
-        self.arcs = ArcState(
-            S,
-            SlipThresholds(mw_k_sigma=cfg.slip_mw_k_sigma, gf_floor_m=cfg.slip_gf_floor_m),
+        th = SlipThresholds(mw_k_sigma=cfg.slip_mw_k_sigma, gf_floor_m=cfg.slip_gf_floor_m)
+        self.arcs = ArcState(th)
+        self.state = new_state(S, th.mw_prior_sigma_m**2, th.gf_prior_sigma_m**2)
+        self.geometry = Geometry(
+            S, cfg.geometry_refresh_s, shell_m=self._shell_m, keep_per_sat=ephemerides_per_sat
         )
-        self.geometry = Geometry(S, cfg.geometry_refresh_s, keep_per_sat=ephemerides_per_sat)
         self.rot_ring = LagRing(S, cfg.rot_interval_s)
         self.roti_window = SlotStd(S, cfg.roti_window_s, cfg.roti_sample_s)
         labels = [f"{SYSTEMS[s]}:{lab}" if lab else "" for s in range(len(SYSTEMS)) for lab in
                   (*self.pairs.labels[s], *([""] * (w - len(self.pairs.labels[s]))))]  # fmt: skip
         self.rx_bias = ReceiverBias(labels, cfg.receiver_bias_memory_s)
         # Per-satellite state (S slots).
-        self._band_delay_s = np.full((S, 10), np.nan)
         self._dcb_override_ns = np.full((S, w), np.nan)
-        self._lev_mean = np.zeros(S)
-        self._lev_sw = np.zeros(S)
-        self._gf0_tecu = np.zeros(S)
-        self._hatch_m = np.full(S, np.nan)
-        self._if_phase_prev = np.full(S, np.nan)
-        self._mp1_mean = np.zeros(S)
-        self._mp2_mean = np.zeros(S)
+        #: Satellite code-bias term of P2 − P1 per (satellite, pair rank), m: c·(d₂ − d₁) from the
+        #: broadcast group delays (0 where unknown) or −c·DCB from config; × K gives TECU.
+        self._sat_bias_m = np.zeros((S, w))
+        self._sat_bias_known = np.zeros((S, w), np.bool_)
+        #: Satellites without a known satellite bias (GLONASS, GPS L5 …) stay out of the
+        #: receiver-bias fit; their combined satellite + receiver bias (TECU) is the
+        #: forgetting-weighted mean of their residual from the fitted VTEC model instead.
+        self._comb_sum = np.zeros((S, w))
+        self._comb_weight = np.zeros((S, w))
+        self._comb_applied = np.zeros((S, w))
+        self._comb_count = np.zeros((S, w))
+        self._fit_all = True
+        self._seen = np.zeros(S, np.int64)
         # Per-cell lookup by (satellite, signal), stamped per epoch instead of cleared.
         self._cell_stamp = np.zeros((S, N_SIG), np.int64)
         self._cell_index = np.zeros((S, N_SIG), np.intp)
@@ -118,6 +150,18 @@ class StationEstimator:
                 if label not in labels:
                     raise ValueError(f"satellite_dcb_ns.{sat_name}: pair {label!r} not configured")
                 self._dcb_override_ns[sat, labels.index(label)] = ns
+            self._set_satellite_bias(sat, np.full(10, np.nan))
+
+    def _set_satellite_bias(self, sat: int, delays_s: F64) -> None:
+        """Fill the (satellite, rank) bias row from band delays and the config overrides."""
+        sysi = sat // 100
+        band1 = self.pairs.sig1[sysi] // 32
+        band2 = self.pairs.sig2[sysi] // 32
+        row = C_MPS * (delays_s[band2] - delays_s[band1])
+        over = self._dcb_override_ns[sat]
+        row = np.where(np.isnan(over), row, -C_MPS * over * 1e-9)
+        self._sat_bias_known[sat] = ~np.isnan(row)
+        self._sat_bias_m[sat] = np.where(np.isnan(row), 0.0, row)
 
     def add_ephemeris(self, eph: KeplerEphemeris | GlonassEphemeris) -> None:
         """Use a broadcast ephemeris for geometry and its group delays for the satellite bias."""
@@ -128,7 +172,7 @@ class StationEstimator:
         self.geometry.add_ephemeris(eph, t)
         delays = band_delays_s(eph)
         if np.isfinite(delays).any():
-            self._band_delay_s[eph.sat] = delays
+            self._set_satellite_bias(eph.sat, delays)
 
     def set_receiver_position(self, ecef_m: npt.ArrayLike, source: str) -> None:
         """Receiver antenna position (ECEF m) from config, RTCM 1005/1006 or GGA."""
@@ -144,7 +188,9 @@ class StationEstimator:
     def update(self, epoch: ObsEpoch) -> StationSnapshot:
         """Process one epoch (time from the epoch) and return the station snapshot."""
         t = epoch.time.total_s
-        if t <= self._last_epoch_t:
+        if t <= self._last_epoch_t - _TIME_RESET_S:
+            self._restart_time()  # a replay restarted, or the receiver's clock was reset
+        elif t <= self._last_epoch_t:
             self.counters["epochs_out_of_order"] += 1
             return self._last if self._last is not None else self._empty(epoch)
         if math.isfinite(self._last_epoch_t):
@@ -181,7 +227,8 @@ class StationEstimator:
         self._cell_stamp[sat[cells], sig[cells]] = self._stamp
         self._cell_index[sat[cells], sig[cells]] = cells
 
-        present = np.unique(sat[in_range])
+        self._seen[sat[in_range]] = self._stamp
+        present = np.flatnonzero(self._seen == self._stamp)  # sorted, unique
         sysi = present // 100
         c1 = self.pairs.sig1[sysi]
         c2 = self.pairs.sig2[sysi]
@@ -199,10 +246,10 @@ class StationEstimator:
         i1 = self._cell_index[idx, s1]
         i2 = self._cell_index[idx, s2]
 
-        el_all, az_all, geo_source = self.geometry.lookup(present, t)
+        el_all, az_all, ipp_lat, ipp_lon, geo_source = self.geometry.lookup(present, t)
         el = el_all[has]
         figs = self._dual(
-            epoch, t=t, interval=interval, idx=idx, rank=rank.astype(np.int16),
+            epoch, t=t, interval=interval, idx=idx, rank=rank,
             s1=s1, s2=s2, i1=i1, i2=i2, el=el,
         )  # fmt: skip
 
@@ -230,12 +277,6 @@ class StationEstimator:
             return row[name]
 
         mapping = mapping_factor(el_all, self._shell_m)
-        ipp_lat = np.full(m, np.nan)
-        ipp_lon = np.full(m, np.nan)
-        if math.isfinite(self.geometry.lat_rad):
-            ipp_lat, ipp_lon = pierce_point(
-                self.geometry.lat_rad, self.geometry.lon_rad, az_all, el_all, self._shell_m
-            )
         stec = spread("stec")
         vtec = np.where(el_all > 0.0, stec / mapping, np.nan)
         rot = spread("rot")
@@ -325,96 +366,122 @@ class StationEstimator:
         t: float,
         interval: float,
         idx: Idx,
-        rank: npt.NDArray[np.int16],
+        rank: Idx,
         s1: Idx,
         s2: Idx,
         i1: Idx,
         i2: Idx,
         el: F64,
     ) -> dict[str, Any]:
-        """All dual-frequency figures of the satellites ``idx`` (arrays of length m)."""
-        f1 = epoch.freq_hz[i1]
-        f2 = epoch.freq_hz[i2]
-        co = iono_coefficients(f1, f2)
-        p1 = epoch.pseudorange_m[i1]
-        p2 = epoch.pseudorange_m[i2]
-        l1 = epoch.phase_cycles[i1] * (C_MPS / f1)
-        l2 = epoch.phase_cycles[i2] * (C_MPS / f2)
+        """All dual-frequency figures of the satellites ``idx`` (arrays of length m).
+
+        The state rows of ``idx`` are gathered once into ``g`` and scattered back at the end.
+        Cell values come as (2, m) arrays: row 0 band 1, row 1 band 2 of each pair.
+        """
+        m = idx.shape[0]
+        g = self.state[idx]
+        i12 = np.concatenate((i1, i2))
+        f = epoch.freq_hz[i12].reshape(2, m)
+        p = epoch.pseudorange_m[i12].reshape(2, m)
+        lm = epoch.phase_cycles[i12].reshape(2, m) * (C_MPS / f)  # phase in metres
+        f1, f2 = f
+        p1, p2 = p
+        l1, l2 = lm
+        if not (np.array_equal(g[:, F1], f1) and np.array_equal(g[:, F2], f2)):
+            co = iono_coefficients(f1, f2)
+            g[:, F1], g[:, F2] = f1, f2
+            g[:, K], g[:, ALPHA], g[:, BETA], g[:, GAMMA] = (
+                co.k_tecu_per_m,
+                co.alpha,
+                co.beta,
+                co.gamma,
+            )
+            g[:, LWL], g[:, L1M], g[:, NOISE] = co.lambda_wl_m, co.l1_m_per_tecu, co.noise_factor
+        k, alpha, beta, gamma = g[:, K], g[:, ALPHA], g[:, BETA], g[:, GAMMA]
         gf = l1 - l2
-        mw = (f1 * l1 - f2 * l2) / (f1 - f2) - (f1 * p1 + f2 * p2) / (f1 + f2)
-        lli_lost = ((epoch.lli[i1] | epoch.lli[i2]) & 1) != 0
+        fl = f * lm
+        fp = f * p
+        mw = (fl[0] - fl[1]) / (f1 - f2) - (fp[0] + fp[1]) / (f1 + f2)
+        lli_lost = np.asarray((epoch.lli[i12].reshape(2, m) & 1).any(axis=0), dtype=np.bool_)
         gap_s = max(self.settings.max_gap_s, self.settings.gap_samples * interval)
-        arc, new, reason = self.arcs.detect(
-            t=t, idx=idx, rank=rank, mw_m=mw, gf_m=gf, lambda_wl_m=co.lambda_wl_m, el_rad=el,
-            lock1=epoch.lock_indicator[i1], lock2=epoch.lock_indicator[i2],
-            locktime1=epoch.lock_time_s[i1], locktime2=epoch.lock_time_s[i2],
-            half1=epoch.half_cycle[i1], half2=epoch.half_cycle[i2], lli_lost=lli_lost, gap_s=gap_s,
+        new, reason = self.arcs.detect(
+            g, t=t, rank=rank.astype(np.float64), mw_m=mw, gf_m=gf, el_rad=el,
+            lock=epoch.lock_indicator[i12].reshape(2, m).T,
+            locktime=epoch.lock_time_s[i12].reshape(2, m).T,
+            half=epoch.half_cycle[i12].reshape(2, m).T, lli_lost=lli_lost, gap_s=gap_s,
         )  # fmt: skip
-        for bit, name in REASON_NAMES.items():
-            self.counters[f"arcs_{name}"] += int(np.count_nonzero(reason & bit))
-        inew = idx[new]
-        k = co.k_tecu_per_m
+        if new.any():
+            for bit, name in REASON_NAMES.items():
+                self.counters[f"arcs_{name}"] += int(np.count_nonzero(reason & bit))
         gf_tecu = k * gf
-        # Arc starts: reset every per-arc accumulator.
-        self._lev_mean[inew] = 0.0
-        self._lev_sw[inew] = 0.0
-        self._gf0_tecu[inew] = gf_tecu[new]
-        self._mp1_mean[inew] = 0.0
-        self._mp2_mean[inew] = 0.0
-        n_arc = self.arcs.n[idx].astype(np.float64)
+        n_arc = g[:, N]
+        # Arc starts reset every per-arc accumulator (levelling, ROT origin, Hatch, MP means).
+        keep = ~new
+        g[:, GF0] = np.where(keep, g[:, GF0], gf_tecu)
 
         # Levelling: running sin²el-weighted mean of K·(P2 − P1) − K·GF over the arc.
-        w = np.where(np.isfinite(el), np.maximum(np.sin(el), 0.1) ** 2, 1.0)
-        self._lev_sw[idx] += w
+        s_el = np.maximum(np.sin(el), 0.1)
+        w = np.where(np.isnan(el), 1.0, s_el * s_el)
+        sw = np.where(keep, g[:, LEV_SW], 0.0) + w
         x = k * (p2 - p1) - gf_tecu
-        self._lev_mean[idx] += (w / self._lev_sw[idx]) * (x - self._lev_mean[idx])
-        stec_raw = gf_tecu + self._lev_mean[idx]
-        b_sat = satellite_bias_tecu(self._band_delay_s[idx], s1 // 32, s2 // 32, k)
-        over = self._dcb_override_ns[idx, rank]
-        b_sat = np.where(np.isfinite(over), -k * C_MPS * over * 1e-9, b_sat)
+        lev = np.where(keep, g[:, LEV_MEAN], x)
+        lev += (w / sw) * (x - lev)
+        g[:, LEV_SW] = sw
+        g[:, LEV_MEAN] = lev
+        stec_raw = gf_tecu + lev
+        b_sat = k * self._sat_bias_m[idx, rank]
         group = (idx // 100) * self.pairs.width + rank
-        stec = stec_raw - b_sat - self._bias_applied[group]
+        known = self._sat_bias_known[idx, rank] | self._fit_all
+        stec = (
+            stec_raw
+            - b_sat
+            - np.where(known, self._bias_applied[group], self._comb_applied[idx, rank])
+        )
 
         # ROT over the lag, from the arc-relative levelled phase; ROTI over the window.
-        rel = gf_tecu - self._gf0_tecu[idx]
+        rel = gf_tecu - g[:, GF0]
+        arc = g[:, ARC].astype(np.int32)
         lagged, t_lag = self.rot_ring.lagged(t, idx, arc, interval)
-        rot = (
-            (rel - lagged) / ((t - t_lag) / 60.0)
-            if math.isfinite(t_lag)
-            else np.full(idx.shape, np.nan)
-        )
+        rot = (rel - lagged) * (60.0 / (t - t_lag)) if math.isfinite(t_lag) else lagged
         self.rot_ring.push(t, idx, rel, arc)
         self.roti_window.push(t, idx, rot)
         roti = self.roti_window.std(idx, self.settings.roti_min_samples)
 
         # Iono-free code/phase, Hatch filter (reset per arc), code-minus-carrier multipath.
-        if_code = co.alpha * p1 + co.beta * p2
-        if_phase = co.alpha * l1 + co.beta * l2
+        if_code = alpha * p1 + beta * p2
+        if_phase = alpha * l1 + beta * l2
         n_h = np.minimum(n_arc, max(self.settings.hatch_window_s / interval, 1.0))
-        prev = self._hatch_m[idx] + if_phase - self._if_phase_prev[idx]
+        prev = g[:, HATCH] + if_phase - g[:, IFL_PREV]
         hatch = np.where(new, if_code, if_code / n_h + (n_h - 1.0) / n_h * prev)
-        self._hatch_m[idx] = hatch
-        self._if_phase_prev[idx] = if_phase
-        g1 = 2.0 / (co.gamma - 1.0)
-        mp1_raw = p1 - (1.0 + g1) * l1 + g1 * l2
-        mp2_raw = p2 - co.gamma * g1 * l1 + (co.gamma * g1 - 1.0) * l2
-        self._mp1_mean[idx] += (mp1_raw - self._mp1_mean[idx]) / n_arc
-        self._mp2_mean[idx] += (mp2_raw - self._mp2_mean[idx]) / n_arc
+        g[:, HATCH] = hatch
+        g[:, IFL_PREV] = if_phase
+        g1 = 2.0 / (gamma - 1.0)
+        mp = np.empty((m, 2))
+        mp[:, 0] = p1 - (1.0 + g1) * l1 + g1 * l2
+        mp[:, 1] = p2 - gamma * g1 * l1 + (gamma * g1 - 1.0) * l2
+        mp_mean = np.where(keep[:, None], g[:, MP1 : MP2 + 1], 0.0)
+        mp_mean += (mp - mp_mean) / n_arc[:, None]
+        g[:, MP1 : MP2 + 1] = mp_mean
+        self.state[idx] = g
+        mp -= mp_mean
         return {
             "stec": stec,
             "stec_raw": stec_raw,
             "b_sat": b_sat,
             "group": group,
+            "known": known,
+            "idx": idx,
+            "rank": rank,
             "n_arc": n_arc,
             "rot": rot,
             "roti": roti,
-            "iono_l1": stec * co.l1_m_per_tecu,
+            "iono_l1": stec * g[:, L1M],
             "if_code": if_code,
             "if_phase": if_phase,
             "hatch": hatch,
-            "mp1": mp1_raw - self._mp1_mean[idx],
-            "mp2": mp2_raw - self._mp2_mean[idx],
-            "noise_factor": co.noise_factor,
+            "mp1": mp[:, 0],
+            "mp2": mp[:, 1],
+            "noise_factor": g[:, NOISE],
             "arc": arc,
             "new": new,
             "pair_switch": (reason & REASON_PAIR) != 0,
@@ -439,12 +506,49 @@ class StationEstimator:
         self._rb_last_t = t
         roti_med = self._last_roti_median
         quiet = 1.0 / (1.0 + (roti_med / 0.25) ** 2) if math.isfinite(roti_med) else 1.0
-        y = (figs["stec_raw"] - figs["b_sat"])[use]
-        self.rx_bias.add_epoch(
-            t, y=y, mapping=mapping[has][use], x_km=x_km[has][use], y_km=y_km[has][use],
-            group=figs["group"][use], weight=quiet * np.sin(el[use]) ** 2,
+        y = figs["stec_raw"] - figs["b_sat"]
+        fit = use & self._sat_bias_known[figs["idx"], figs["rank"]]
+        # Without broadcast group delays at all (e.g. no ephemerides): treat them all as 0.
+        self._fit_all = bool(np.count_nonzero(fit) < 5)
+        if self._fit_all:
+            fit = use
+        mp, xk, yk = mapping[has], x_km[has], y_km[has]
+        ok = self.rx_bias.add_epoch(
+            t, y=y[fit], mapping=mp[fit], x_km=xk[fit], y_km=yk[fit],
+            group=figs["group"][fit], weight=quiet * np.sin(el[fit]) ** 2,
         )  # fmt: skip
+        other = use & ~fit
+        if ok and other.any():
+            lam = math.exp(
+                -self.settings.receiver_bias_update_s / self.settings.receiver_bias_memory_s
+            )
+            self._comb_sum *= lam
+            self._comb_weight *= lam
+            res = y[other] - self.rx_bias.vtec_model(mp[other], xk[other], yk[other])
+            s_o, r_o = figs["idx"][other], figs["rank"][other]
+            w_o = quiet * np.sin(el[other]) ** 2
+            self._comb_sum[s_o, r_o] += w_o * res
+            self._comb_weight[s_o, r_o] += w_o
+            self._comb_count *= lam
+            self._comb_count[s_o, r_o] += 1.0
+            ready = self._comb_count >= _COMB_MIN_SAMPLES
+            self._comb_applied = np.where(
+                ready, self._comb_sum / np.maximum(self._comb_weight, 1e-12), 0.0
+            )
         self._after_bias_update()
+
+    def _restart_time(self) -> None:
+        """Time went far backwards: forget everything tied to time (arcs, windows), keep the
+        receiver-bias estimate (a property of the hardware)."""
+        self.counters["time_resets"] = self.counters.get("time_resets", 0) + 1
+        self.state[:, LAST_T] = np.nan
+        self.rot_ring = LagRing(MAX_SAT_ID, self.settings.rot_interval_s, self.rot_ring.rows)
+        self.roti_window = SlotStd(
+            MAX_SAT_ID, self.settings.roti_window_s, self.settings.roti_sample_s
+        )
+        self._last_epoch_t = -math.inf
+        self._intervals.fill(np.nan)
+        self._rb_last_t = -math.inf
 
     def _counters(self) -> dict[str, int]:
         """Counters for the snapshot; the ephemeris store's are refreshed every 32 epochs (its

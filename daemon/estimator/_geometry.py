@@ -15,7 +15,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 import numpy.typing as npt
 
-from ionwarden.daemon.geo import EphemerisStore, ecef_to_geodetic, satellite_geometry
+from ionwarden.daemon.geo import EphemerisStore, ecef_to_geodetic, pierce_point, satellite_geometry
 
 if TYPE_CHECKING:
     from ionwarden.parsers import GlonassEphemeris, KeplerEphemeris
@@ -26,18 +26,22 @@ F64 = npt.NDArray[np.float64]
 Idx = npt.NDArray[np.intp]
 #: A GSV elevation older than this is not used (s of data time): receivers send GSV every epoch.
 GSV_MAX_AGE_S = 30.0
+_TWO_PI = 2.0 * np.pi
 
 
 class Geometry:
     """Per-satellite elevation/azimuth cache fed by orbits (preferred) or GSV (fallback)."""
 
-    def __init__(self, n_slots: int, refresh_s: float, *, keep_per_sat: int = 3) -> None:
+    def __init__(
+        self, n_slots: int, refresh_s: float, *, shell_m: float, keep_per_sat: int = 3
+    ) -> None:
         self.refresh_s = float(refresh_s)
-        self.el = np.full(n_slots, np.nan)
-        self.az = np.full(n_slots, np.nan)
-        self.t_orbit = np.full(n_slots, np.nan)  # time of the cached orbit geometry
-        self.el_rate = np.zeros(n_slots)  # rad/s, from the last two refreshes
-        self.az_rate = np.zeros(n_slots)
+        self.shell_m = shell_m
+        #: Cached orbit geometry per slot: el, az, pierce-point lat, lon (rad) at ``t_orbit``,
+        #: and their rates (rad/s) from the last two refreshes.
+        self.geo = np.full((n_slots, 4), np.nan)
+        self.rate = np.zeros((n_slots, 4))
+        self.t_orbit = np.full(n_slots, np.nan)
         self.gsv_el = np.full(n_slots, np.nan)
         self.gsv_az = np.full(n_slots, np.nan)
         self.gsv_t = np.full(n_slots, np.nan)
@@ -69,7 +73,7 @@ class Geometry:
         e = np.asarray(el_deg, dtype=np.float64)
         a = np.asarray(az_deg, dtype=np.float64)
         assert s.shape == e.shape == a.shape, (s.shape, e.shape, a.shape)
-        keep = (s >= 0) & (s < self.el.shape[0]) & np.isfinite(e)
+        keep = (s >= 0) & (s < self.t_orbit.shape[0]) & np.isfinite(e)
         s, e, a = s[keep], e[keep], a[keep]
         self.gsv_el[s] = np.radians(e)
         self.gsv_az[s] = np.radians(np.where(np.isfinite(a), a, np.nan))
@@ -87,8 +91,9 @@ class Geometry:
             self.t_orbit[eph.sat] = np.nan
 
     # -- lookup ---------------------------------------------------------------------------------
-    def lookup(self, sats: Idx, t_s: float) -> tuple[F64, F64, str]:
-        """(el_rad, az_rad, source) for the satellites at time ``t_s`` (NaN where unknown).
+    def lookup(self, sats: Idx, t_s: float) -> tuple[F64, F64, F64, F64, str]:
+        """(el, az, pierce-point lat, lon) in radians for the satellites at ``t_s`` (NaN where
+        unknown) and the source: "ephemeris", "gsv", "ephemeris+gsv" or "none".
 
         Orbit geometry is recomputed for all ``sats`` at once when the last refresh is older
         than ``refresh_s`` or a satellite has no cached value yet (one vectorised call; the
@@ -99,34 +104,44 @@ class Geometry:
             if not fresh.all():
                 self._refresh(sats, t_s)
         # Linear extrapolation from the last refresh: second-order error < 0.001° over 30 s.
-        dt = t_s - self.t_orbit[sats]
-        el = self.el[sats] + self.el_rate[sats] * dt
-        az = (self.az[sats] + self.az_rate[sats] * dt) % (2.0 * np.pi)
-        have = np.isfinite(el)
+        dt = (t_s - self.t_orbit[sats])[:, None]
+        geo = self.geo[sats] + self.rate[sats] * dt
+        el, az, lat, lon = geo.T
+        have = ~np.isnan(el)
         if have.all() and sats.size:
-            return el, az, "ephemeris"
+            return el, az % _TWO_PI, lat, (lon + np.pi) % _TWO_PI - np.pi, "ephemeris"
         gsv_ok = ~have & (np.abs(t_s - self.gsv_t[sats]) <= GSV_MAX_AGE_S)
+        source = "ephemeris" if have.any() else "none"
         if gsv_ok.any():
-            el[gsv_ok] = self.gsv_el[sats[gsv_ok]]
-            az[gsv_ok] = self.gsv_az[sats[gsv_ok]]
-            return el, az, "gsv" if not have.any() else "ephemeris+gsv"
-        return el, az, "ephemeris" if have.any() else "none"
+            g = sats[gsv_ok]
+            el[gsv_ok] = self.gsv_el[g]
+            az[gsv_ok] = self.gsv_az[g]
+            if math.isfinite(self.lat_rad):
+                lat[gsv_ok], lon[gsv_ok] = pierce_point(
+                    self.lat_rad, self.lon_rad, az[gsv_ok], el[gsv_ok], self.shell_m
+                )
+            source = "gsv" if not have.any() else "ephemeris+gsv"
+        return el, az % _TWO_PI, lat, (lon + np.pi) % _TWO_PI - np.pi, source
 
     def _refresh(self, sats: Idx, t_s: float) -> None:
-        """Recompute orbit geometry for ``sats`` (slots without a usable ephemeris become NaN)."""
+        """Recompute orbit geometry for ``sats`` (slots without a usable ephemeris become NaN)
+        and the rates used to extrapolate it until the next refresh."""
         assert self.rx_ecef is not None
-        geo = satellite_geometry(t_s, self.rx_ecef, sats, self.store)
-        ok = geo.valid
-        el = np.where(ok, geo.el_rad, np.nan)
-        az = np.where(ok, geo.az_rad, np.nan)
-        span = t_s - self.t_orbit[sats]
+        sg = satellite_geometry(t_s, self.rx_ecef, sats, self.store)
+        ok = sg.valid
+        new = np.full((sats.shape[0], 4), np.nan)
+        new[ok, 0] = sg.el_rad[ok]
+        new[ok, 1] = sg.az_rad[ok]
+        new[ok, 2], new[ok, 3] = pierce_point(
+            self.lat_rad, self.lon_rad, sg.az_rad[ok], sg.el_rad[ok], self.shell_m
+        )
+        span = (t_s - self.t_orbit[sats])[:, None]
         with np.errstate(invalid="ignore", divide="ignore"):
-            usable = (span > 0.0) & (span < 4.0 * self.refresh_s)
-            d_az = (az - self.az[sats] + np.pi) % (2.0 * np.pi) - np.pi
-            self.el_rate[sats] = np.where(usable & ok, (el - self.el[sats]) / span, 0.0)
-            self.az_rate[sats] = np.where(usable & ok, d_az / span, 0.0)
-        self.el_rate[sats] = np.nan_to_num(self.el_rate[sats])
-        self.az_rate[sats] = np.nan_to_num(self.az_rate[sats])
-        self.el[sats] = el
-        self.az[sats] = az
+            diff = new - self.geo[sats]
+            diff[:, 1] = (diff[:, 1] + np.pi) % _TWO_PI - np.pi  # azimuth and longitude wrap
+            diff[:, 3] = (diff[:, 3] + np.pi) % _TWO_PI - np.pi
+            rate = diff / span
+        usable = (span > 0.0) & (span < 4.0 * self.refresh_s)
+        self.rate[sats] = np.where(usable & ~np.isnan(rate), rate, 0.0)
+        self.geo[sats] = new
         self.t_orbit[sats] = t_s

@@ -22,11 +22,23 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from ionwarden.daemon.geo import geodetic_to_ecef
-from ionwarden.parsers import GlonassEphemeris, GpsTime, KeplerEphemeris, ObsEpoch, utc_to_gps
-from ionwarden.parsers._framer import NmeaFrame, RtcmFrame
-from ionwarden.parsers._nmea import GgaFix, GstErrors, GsvAssembler, GsvPart, SatellitesInView
-from ionwarden.parsers._rtcm_station import StationReference
-from ionwarden.parsers._stream import StreamDecoder
+from ionwarden.parsers import (
+    GgaFix,
+    GlonassEphemeris,
+    GpsTime,
+    GstErrors,
+    GsvAssembler,
+    GsvPart,
+    KeplerEphemeris,
+    Message,
+    NmeaFrame,
+    ObsEpoch,
+    RtcmFrame,
+    SatellitesInView,
+    StationReference,
+    StreamDecoder,
+    utc_to_gps,
+)
 
 from ._estimator import StationEstimator
 from ._snapshot import FixStatus, StationSnapshot
@@ -92,7 +104,7 @@ class StationPipeline:
         """Route frames already split and checked by the runtime's framer (the runtime's
         ``FrameConsumer`` protocol). Uses the decoder's per-frame steps directly (no re-framing);
         the parsers package has no public per-frame entry point yet."""
-        msgs: list[object] = []
+        msgs: list[Message] = []
         for frame in frames:
             if isinstance(frame, RtcmFrame):
                 self.decoder._on_rtcm(frame, msgs)

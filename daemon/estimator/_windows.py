@@ -90,70 +90,65 @@ class SlotStd:
 
     Time is cut into slots of ``slot_s``; the first sample of a satellite in a slot is kept.
     Invariant: ``total[s]``, ``total_sq[s]`` and ``count[s]`` are the sum, sum of squares and count
-    of the finite values in column ``s`` of ``value``, whose row ``n mod R`` holds slot ``n`` for
-    the last ``R = window/slot`` slots up to ``last_slot`` (rows of skipped slots are cleared).
-    Sums are recomputed exactly each time the ring wraps, so rounding cannot drift.
+    of the values of satellite ``s`` held in the ring, whose entry ``n mod R`` holds the
+    (satellites, values) written in slot ``n`` for the last ``R = window/slot`` slots up to
+    ``last_slot`` (entries of skipped slots are emptied). Removing an entry subtracts exactly what
+    adding it added, and the sums are rebuilt exactly each time the ring wraps, so rounding
+    cannot drift.
     """
 
     def __init__(self, n_slots: int, window_s: float, slot_s: float) -> None:
         self.slot_s = float(slot_s)
+        self.n_slots = n_slots
         self.rows = max(2, round(window_s / slot_s))
-        self.value = np.full((self.rows, n_slots), np.nan, np.float32)
+        empty = (np.zeros(0, np.intp), np.zeros(0))
+        self.entries: list[tuple[npt.NDArray[np.intp], F64]] = [empty] * self.rows
         self.total = np.zeros(n_slots)
         self.total_sq = np.zeros(n_slots)
-        self.count = np.zeros(n_slots, np.int32)
+        self.count = np.zeros(n_slots)
         self.last_slot = -1
         self._since_exact = 0
 
-    def _clear_rows(self, rows: npt.NDArray[np.intp]) -> None:
-        old = self.value[rows].astype(np.float64)
-        fin = np.isfinite(old)
-        old[~fin] = 0.0
-        self.total -= old.sum(axis=0)
-        self.total_sq -= (old * old).sum(axis=0)
-        self.count -= fin.sum(axis=0, dtype=np.int32)
-        self.value[rows] = np.nan
+    def _drop(self, row: int) -> None:
+        sats, vals = self.entries[row]
+        if sats.size:
+            self.total[sats] -= vals
+            self.total_sq[sats] -= vals * vals
+            self.count[sats] -= 1.0
+            self.entries[row] = (sats[:0], vals[:0])
 
     def _recompute(self) -> None:
-        v = self.value.astype(np.float64)
-        fin = np.isfinite(v)
-        v[~fin] = 0.0
-        self.total = v.sum(axis=0)
-        self.total_sq = (v * v).sum(axis=0)
-        self.count = fin.sum(axis=0, dtype=np.int32)
+        sats = np.concatenate([e[0] for e in self.entries])
+        vals = np.concatenate([e[1] for e in self.entries])
+        self.total = np.asarray(np.bincount(sats, vals, self.n_slots), dtype=np.float64)
+        self.total_sq = np.asarray(np.bincount(sats, vals * vals, self.n_slots), dtype=np.float64)
+        self.count = np.asarray(np.bincount(sats, minlength=self.n_slots), dtype=np.float64)
 
     def push(self, t: float, sats: npt.NDArray[np.intp], value: F64) -> None:
-        """Add this epoch's values (NaN ignored) if ``t`` opens a new slot."""
+        """Add this epoch's values (NaN ignored; ``sats`` unique) if ``t`` opens a new slot."""
         assert sats.shape == value.shape, (sats.shape, value.shape)
         slot = math.floor(t / self.slot_s)
         if slot <= self.last_slot:
             return
         first = self.last_slot + 1 if self.last_slot >= 0 else slot
-        if slot - first >= self.rows:
-            self.value.fill(np.nan)
-            self.total.fill(0.0)
-            self.total_sq.fill(0.0)
-            self.count.fill(0)
-        else:
-            self._clear_rows(np.arange(first, slot + 1) % self.rows)
+        for n in range(max(first, slot - self.rows + 1), slot + 1):
+            self._drop(n % self.rows)
         self._since_exact += slot - first + 1
         self.last_slot = slot
-        row = slot % self.rows
-        fin = np.isfinite(value)
+        fin = ~np.isnan(value)
         s = sats[fin]
-        v = value[fin].astype(np.float32)
-        self.value[row, s] = v
-        v64 = v.astype(np.float64)
-        self.total[s] += v64
-        self.total_sq[s] += v64 * v64
-        self.count[s] += 1
+        v = value[fin]
+        self.entries[slot % self.rows] = (s, v)
+        self.total[s] += v
+        self.total_sq[s] += v * v
+        self.count[s] += 1.0
         if self._since_exact >= self.rows:
             self._recompute()
             self._since_exact = 0
 
     def std(self, sats: npt.NDArray[np.intp], min_count: int) -> F64:
         """Population standard deviation over the window (NaN below ``min_count`` samples)."""
-        n = self.count[sats].astype(np.float64)
+        n = self.count[sats]
         n_safe = np.maximum(n, 1.0)
         mean = self.total[sats] / n_safe
         var = self.total_sq[sats] / n_safe - mean * mean

@@ -3,6 +3,18 @@
 Shared by the estimator and the simulator so both use the same propagation. Vectorised over
 satellites (numpy structure of arrays); times are continuous GPS seconds (``GpsTime.total_s``).
 PZ-90.11 (GLONASS) is treated as WGS 84.
+
+Typical use, once per epoch::
+
+    store = EphemerisStore()
+    store.add(eph)                                   # KeplerEphemeris
+    store.add(glo_eph, t_received_gps_s=t)           # GlonassEphemeris (places t_b in time)
+    geo = satellite_geometry(t, rx_ecef, sat_ids, store, pseudorange_m=pr)   # or without pr
+    lat_p, lon_p = pierce_point(lat, lon, geo.az_rad, geo.el_rad)
+    vtec = stec / mapping_factor(geo.el_rad)
+
+Lower level: ``kepler_state(KeplerBatch.from_ephemerides(ephs), t)`` and
+``glonass_state(GlonassBatch.from_ephemerides(ephs), t)`` → (pos, vel, clock) exactly per the ICDs.
 """
 
 from ._constants import C_MPS, OMEGA_E_GPS_RADPS

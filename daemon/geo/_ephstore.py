@@ -4,15 +4,18 @@ Validity windows (SCIENCE.md §6, common practice), as |t − t_ref| limits arou
 (t_oe for Keplerian ephemerides, t_b for GLONASS): GPS/QZSS/NavIC 2 h (half the 4 h fit interval,
 or half of ``fit_interval_h`` when larger), Galileo 2 h, BeiDou 1 h, GLONASS 15 min.
 
-Per request, each satellite gets the candidate whose reference time is closest to t among those
-within the window; a satellite without one is counted under the reason of its closest candidate
-(``stale``: reference time too old, ``future``: too far ahead, ``unhealthy``: the closest
-in-window candidate has a non-zero health word, ``missing``: nothing stored). GPS/QZSS sets with
-IODE ≠ IODC mod 256 (IS-GPS-200 §20.3.4.4) are refused at ``add`` and counted as ``inconsistent``.
+Per request, each satellite gets the stored set whose reference time is closest to t; it is used
+if t lies in its window [ref − w, ref + w) and its health word is 0, otherwise the satellite is
+counted under ``stale`` (window passed), ``future`` (window not reached) or ``unhealthy``;
+``missing`` counts satellites with nothing stored. At ``add``, GPS/QZSS sets with
+IODE ≠ IODC mod 256 (IS-GPS-200 §20.3.3.4.1, from memory for the clause) are refused as
+``inconsistent``, and sets with non-finite fields or an impossible orbit as ``implausible``.
 
 The selection is constant between "event" times (window edges and midpoints between candidates),
 so ``select`` returns the cached :class:`EphemerisSelection` (same batches, no allocation) until t
-leaves that interval, the satellite list changes, or an ephemeris is added.
+leaves that interval, the satellite list changes, or an ephemeris is added. The last few
+satellite lists are remembered (a satellite dropping out for an epoch costs no rebuild), and the
+newest ``keep_per_sat`` sets per satellite are kept (bounded memory).
 """
 
 from __future__ import annotations
@@ -21,8 +24,8 @@ import bisect
 import datetime as _dt
 import itertools
 import math
-from dataclasses import dataclass
-from typing import Any
+from dataclasses import dataclass, field
+from typing import Any, TypeAlias
 
 import numpy as np
 import numpy.typing as npt
@@ -38,6 +41,7 @@ from ionwarden.parsers import (
 
 from ._glonass import GlonassBatch, resolve_glonass_tb
 from ._kepler import KeplerBatch, orbit_constants
+from ._nodes import OrbitNodes
 
 __all__ = [
     "DEFAULT_KEEP_PER_SAT",
@@ -46,7 +50,7 @@ __all__ = [
     "EphemerisStoreStatistics",
 ]
 
-Ephemeris = KeplerEphemeris | GlonassEphemeris
+Ephemeris: TypeAlias = KeplerEphemeris | GlonassEphemeris
 _GLO = 1  # system index of GLONASS in parsers._signals.SYSTEMS
 _GPS_LIKE = frozenset((0, 4))  # GPS, QZSS: IODE/IODC consistency applies
 #: Half-width of the validity window (s) by system index (SCIENCE.md §6, common practice).
@@ -61,13 +65,15 @@ _REASONS = ("stale", "future", "unhealthy", "missing")
 @dataclass(frozen=True, slots=True, kw_only=True)
 class EphemerisStoreStatistics:
     """Counters since creation. ``stale``/``future``/``unhealthy``/``missing`` count (request,
-    satellite) pairs left without an ephemeris; ``inconsistent`` and ``duplicates`` count ``add``
-    calls refused; ``rebuilds`` counts batch rebuilds (cache misses)."""
+    satellite) pairs left without an ephemeris; ``inconsistent`` (IODE/IODC), ``implausible``
+    (non-finite or physically impossible orbit) and ``duplicates`` count ``add`` calls refused;
+    ``rebuilds`` counts selection rebuilds (cache misses)."""
 
     stored: int
     added: int
     duplicates: int
     inconsistent: int
+    implausible: int
     stale: int
     future: int
     unhealthy: int
@@ -84,6 +90,7 @@ class EphemerisSelection:
     ``gather_index`` maps request rows into the stacked [Keplerian rows, GLONASS rows, one NaN
     row], so per-row results of both batches go back to request order in one indexing step.
     ``t_lo_s``/``t_hi_s`` bound the GPS times over which this choice stays the same.
+    ``nodes`` caches exact states on a time grid for :func:`satellite_geometry`.
     """
 
     sat: npt.NDArray[np.int16]
@@ -95,6 +102,7 @@ class EphemerisSelection:
     gather_index: npt.NDArray[np.intp]
     t_lo_s: float
     t_hi_s: float
+    nodes: OrbitNodes = field(default_factory=OrbitNodes, compare=False, repr=False)
 
 
 @dataclass(frozen=True, slots=True)
@@ -138,7 +146,9 @@ class EphemerisStore:
         self._keep = keep_per_sat
         self._by_sat: dict[int, list[_Entry]] = {}
         self._generation = 0
-        self._counts = dict.fromkeys((*_REASONS, "added", "duplicates", "inconsistent"), 0)
+        self._counts = dict.fromkeys(
+            (*_REASONS, "added", "duplicates", "inconsistent", "implausible"), 0
+        )
         self._rebuilds = 0
         self._serial = 0
         # sats bytes → (selection, generation, reject counts per _REASONS)
@@ -150,6 +160,9 @@ class EphemerisStore:
         """Store ``eph``; False if it is a duplicate or refused. ``t_received_gps_s`` places a
         GLONASS t_b (time of day) in time when N4/N_T are unknown."""
         sys_index = eph.sat // 100
+        if not _plausible(eph):
+            self._counts["implausible"] += 1
+            return False
         if isinstance(eph, KeplerEphemeris):
             orbit_constants(eph.sat)  # ValueError for a system without a Keplerian orbit
             if sys_index in _GPS_LIKE and eph.iode != eph.iodc % 256:
@@ -190,6 +203,7 @@ class EphemerisStore:
             added=c["added"],
             duplicates=c["duplicates"],
             inconsistent=c["inconsistent"],
+            implausible=c["implausible"],
             stale=c["stale"],
             future=c["future"],
             unhealthy=c["unhealthy"],
@@ -296,6 +310,33 @@ class EphemerisStore:
             batch = GlonassBatch.from_ephemerides([eph for _, eph in chosen])
         _lru_put(self._glonass_batches, key, batch)
         return batch
+
+
+#: Keplerian fields that must be finite (group delays and accuracy may be NaN = unknown).
+_KEPLER_FINITE = (
+    "toe_s", "toc_s", "sqrt_a", "e", "i0", "omega0", "omega", "m0", "delta_n", "idot",
+    "omega_dot", "cuc", "cus", "crc", "crs", "cic", "cis", "af0", "af1", "af2",
+)  # fmt: skip
+_GLONASS_FINITE = (
+    "tb_s", "x_m", "y_m", "z_m", "vx_mps", "vy_mps", "vz_mps",
+    "ax_mps2", "ay_mps2", "az_mps2", "tau_n_s", "gamma_n",
+)  # fmt: skip
+#: √A bounds (√m): every GNSS orbit in use lies between MEO (GPS √A ≈ 5154) and GEO (≈ 6493).
+_SQRT_A_RANGE = (4000.0, 7500.0)
+#: GLONASS orbit radius bounds (m) around the nominal 25,510 km.
+_GLO_RADIUS_RANGE = (2.0e7, 3.0e7)
+
+
+def _plausible(eph: Ephemeris) -> bool:
+    """Finite fields and an orbit a GNSS satellite can have (decoder or bit errors otherwise)."""
+    if isinstance(eph, KeplerEphemeris):
+        if not all(math.isfinite(getattr(eph, name)) for name in _KEPLER_FINITE):
+            return False
+        return _SQRT_A_RANGE[0] < eph.sqrt_a < _SQRT_A_RANGE[1] and 0.0 <= eph.e < 0.5
+    if not all(math.isfinite(getattr(eph, name)) for name in _GLONASS_FINITE):
+        return False
+    radius = math.sqrt(eph.x_m**2 + eph.y_m**2 + eph.z_m**2)
+    return _GLO_RADIUS_RANGE[0] < radius < _GLO_RADIUS_RANGE[1]
 
 
 def _same(old: _Entry, eph: Ephemeris, ref: float) -> bool:

@@ -26,6 +26,7 @@ import numpy.typing as npt
 from ionwarden.parsers import GlonassEphemeris, GpsTime, gps_to_utc, leap_seconds_at
 
 from ._constants import GLO_AE_M, GLO_J20, GLO_MU_M3PS2, GLO_OMEGA_E_RADPS
+from ._hermite import hermite_matrix
 
 if TYPE_CHECKING:
     from collections.abc import Sequence
@@ -227,24 +228,7 @@ class GlonassBatch:
         return self._nodes
 
 
-def _hermite_matrix(h: float) -> F64:
-    """(8, 4) weights of [1, s, s², s³] for cubic Hermite on [node a, node b] with s = (t − t_a)/h:
-    rows 0–3 give the position weights of (p_a, v_a, p_b, v_b), rows 4–7 the velocity weights."""
-    return np.array(
-        [
-            [1.0, 0.0, -3.0, 2.0],  # h00
-            [0.0, h, -2.0 * h, h],  # h·h10
-            [0.0, 0.0, 3.0, -2.0],  # h01
-            [0.0, 0.0, -h, h],  # h·h11
-            [0.0, -6.0 / h, 6.0 / h, 0.0],  # h00'/h
-            [1.0, -4.0, 3.0, 0.0],  # h10'
-            [0.0, 6.0 / h, -6.0 / h, 0.0],  # h01'/h
-            [0.0, -2.0, 3.0, 0.0],  # h11'
-        ]
-    ).T.copy()
-
-
-_HERMITE_T = _hermite_matrix(GLONASS_STEP_S)  # (4, 8)
+_HERMITE_T = hermite_matrix(GLONASS_STEP_S)  # (4, 8)
 
 
 def glonass_state(batch: GlonassBatch, t_gps_s: npt.ArrayLike) -> tuple[F64, F64, F64]:

@@ -5,9 +5,10 @@ Axes: ``m`` requested satellites, in request order; rows without a usable epheme
 
 Transmit time: from the pseudorange when one is given (t_tx = t_rx − P/c − dt_sv, IS-GPS-200
 §20.3.3.3.3.1), otherwise by light-time iteration on the geometric range. The orbit is evaluated
-once per epoch, at a first guess t0 of the transmit time, and moved to the final t_tx along its
-velocity: |t_tx − t0| is at most a few ms, where the neglected acceleration term is below 0.1 mm.
-The position is then expressed in the ECEF frame of reception (Earth rotation during the flight).
+once per epoch (interpolated on the selection's 30 s grid of exact states, see ``_nodes``), at a
+first guess t0 of the transmit time, and moved to the final t_tx along its velocity: |t_tx − t0|
+is at most a few ms, where the neglected acceleration term is below 0.1 mm. The position is then
+expressed in the ECEF frame of reception (Earth rotation during the flight).
 """
 
 from __future__ import annotations
@@ -28,8 +29,9 @@ __all__ = ["NOMINAL_FLIGHT_TIME_S", "SatelliteGeometry", "satellite_geometry"]
 F64 = npt.NDArray[np.float64]
 #: First guess of the signal flight time (s): ~22,000 km MEO range.
 NOMINAL_FLIGHT_TIME_S = 0.075
-#: Light-time iterations without a pseudorange: the error shrinks ~1e-5× per pass.
-_LIGHT_TIME_ITERATIONS = 2
+#: Transmit times further than this from t_rx − 75 ms (implausible pseudoranges) are evaluated
+#: directly instead of interpolated between grid nodes (s).
+_MAX_INTERPOLATION_OFFSET_S = 1.0
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -59,10 +61,15 @@ def satellite_geometry(
     ephemerides: EphemerisStore | EphemerisSelection,
     *,
     pseudorange_m: npt.ArrayLike | None = None,
+    exact: bool = False,
 ) -> SatelliteGeometry:
     """Geometry of satellites ``sat_ids`` (m,) seen from ``rx_ecef_m`` (3,) at GPS time
     ``t_rx_gps_s``; ephemerides from a store (selected here) or an existing selection for the
-    same satellites. ``pseudorange_m`` (m,), NaN allowed, fixes the transmit time per satellite."""
+    same satellites. ``pseudorange_m`` (m,), NaN allowed, fixes the transmit time per satellite.
+
+    States come from the selection's 30 s grid of exact states (see ``_nodes``: < 0.5 mm from
+    the broadcast model); ``exact=True``, or a pseudorange more than a second off the nominal
+    flight time, evaluates the broadcast model directly."""
     sats = np.asarray(sat_ids, dtype=np.int16)
     rx = np.asarray(rx_ecef_m, dtype=np.float64)
     assert sats.ndim == 1, sats.shape
@@ -84,7 +91,13 @@ def satellite_geometry(
 
     k = sel.kepler_index
     g = sel.glonass_index
-    if len(g) == 0 and len(k) == m:  # all Keplerian and valid, in request order: no gather
+    t_ref = t_rx - NOMINAL_FLIGHT_TIME_S
+    all_kepler = len(g) == 0 and len(k) == m  # every row Keplerian and valid, in request order
+    if not exact and bool(np.all(np.abs(t0 - t_ref) < _MAX_INTERPOLATION_OFFSET_S)):
+        pos0, vel0, clk = sel.nodes.interpolate(
+            t0, t_ref, sel.kepler, sel.glonass, None if all_kepler else sel.gather_index
+        )
+    elif all_kepler:
         pos0, vel0, clk = kepler_state(sel.kepler, t0)
     else:
         # One gather from [Keplerian rows, GLONASS rows, a NaN row] back to request order.

@@ -38,7 +38,6 @@ __all__ = [
     "tropo_zenith_delay_m",
 ]
 
-F64 = "npt.NDArray[np.float64]"
 
 #: 40.3 m³/s² · 10¹⁶ electrons/m² per TECU (SCIENCE.md §2): delay (m) = IONO_K_M3 · TECU / f².
 IONO_K_M3 = 40.3e16

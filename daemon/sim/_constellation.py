@@ -5,8 +5,9 @@ finest common grid across 1019/1045/1042), so the ephemeris a receiver decodes i
 truth to the last bit. Consecutive sets continue the same orbit: the per-set increments of M0, Ω0
 and a_f0 are whole LSBs, by choosing √A (mean motion), Ω̇ and a_f1 on grids that make them so. BeiDou
 GEO node terms and GLONASS state vectors cannot be kept on the grid across sets: their truth steps by
-up to a few centimetres (GEO) or about half a metre (GLONASS) at set changes, exactly as the
-broadcast orbits do.
+up to a few centimetres (GEO) or about 10 cm and 2 cm/s (GLONASS, after trading a few LSBs of
+position against velocity, see :func:`_glonass_on_grid`) at set changes, exactly as the broadcast
+orbits do.
 
 Validity windows (continuous GPS seconds, SCIENCE.md §6): GPS t_oe every 2 h, used ±1 h; Galileo
 every hour, ±30 min; BeiDou every BDT hour (GPS + 14 s), ±30 min; GLONASS t_b every 30 min of
@@ -30,7 +31,7 @@ from ionwarden.daemon.geo._constants import (
     OMEGA_E_GAL_RADPS,
     OMEGA_E_GPS_RADPS,
 )
-from ionwarden.daemon.geo._glonass import GlonassBatch, glonass_state
+from ionwarden.daemon.geo._glonass import GlonassBatch, glonass_state, rk4_propagate
 from ionwarden.parsers import (
     BDS_GPS_OFFSET_S,
     SECONDS_PER_WEEK,
@@ -212,7 +213,7 @@ def _kepler_series(
                 _quantise(
                     KeplerEphemeris(
                         sat=sat_id(system, prn),
-                        week=week_sys + (1356 if system == "C" else 0),
+                        week=week_sys,  # BDT week + 1356 is the GPS-numbered week
                         toe_s=toe_sow,
                         toc_s=toe_sow,
                         sqrt_a=sqrt_a,
@@ -308,7 +309,8 @@ def _glonass_series(
         per_set.append(row)
         batch = GlonassBatch.from_ephemerides(row)
         pos, vel, _ = glonass_state(batch, float(ref) + dt)
-        state = np.concatenate([pos, vel], axis=1)
+        switch, _, _ = glonass_state(batch, float(ref) + dt / 2.0)
+        state = _glonass_on_grid(np.concatenate([pos, vel], axis=1), dt / 2.0, switch)
     ephs = tuple(tuple(s) for s in per_set)
     return EphemerisSeries(
         system="R",
@@ -318,6 +320,47 @@ def _glonass_series(
         ephemerides=ephs,
         batches=tuple(GlonassBatch.from_ephemerides(s) for s in ephs),
     )
+
+
+#: GLONASS 1020 LSBs (RTCM 10403.3 Table 3.5-22 / GLONASS ICD Table 4.5): 2⁻¹¹ km and 2⁻²⁰ km/s.
+_GLO_LSB = np.array([2.0**-11 * 1e3] * 3 + [2.0**-20 * 1e3] * 3)
+_GLO_SEARCH = np.arange(-24, 25)
+
+
+def _glonass_on_grid(
+    x: npt.NDArray[np.float64], back_s: float, target: npt.NDArray[np.float64]
+) -> npt.NDArray[np.float64]:
+    """The on-grid state at t_b nearest in effect to ``x``: rounding x (up to 0.25 m and 0.5 mm/s)
+    would make the orbit jump by ~1 m where this set takes over from the previous one (``back_s``
+    earlier), so a few LSBs of position and velocity are traded per axis until the back-propagated
+    position matches ``target`` (the previous set's position at the switch) to about a centimetre."""
+    n = x.shape[0]
+    acc = np.zeros((n, 3))
+    dts = np.full(n, -back_s)
+    steps = max(1, round(back_s / 60.0))
+    q = np.round(x / _GLO_LSB) * _GLO_LSB
+    base = rk4_propagate(q, acc, dts, steps)[:, :3]
+    jac = np.empty((n, 3, 6))
+    for c in range(6):
+        d = np.zeros(6)
+        d[c] = _GLO_LSB[c]
+        jac[:, :, c] = rk4_propagate(q + d, acc, dts, steps)[:, :3] - base
+    r0 = base - target
+    off = np.zeros((n, 6))
+    a_grid, b_grid = (g.ravel() for g in np.meshgrid(_GLO_SEARCH, _GLO_SEARCH))
+    for _ in range(3):
+        for i in range(3):
+            rest = r0 + np.einsum("nkc,nc->nk", jac, off)
+            rest -= jac[:, :, i] * off[:, i : i + 1] + jac[:, :, 3 + i] * off[:, 3 + i : 4 + i]
+            cand = (
+                rest[:, None, :]
+                + a_grid[None, :, None] * jac[:, None, :, i]
+                + b_grid[None, :, None] * jac[:, None, :, 3 + i]
+            )
+            best = np.argmin(np.einsum("nmk,nmk->nm", cand, cand), axis=1)
+            off[:, i] = a_grid[best]
+            off[:, 3 + i] = b_grid[best]
+    return np.asarray(q + off * _GLO_LSB, dtype=np.float64)
 
 
 #: PRNs per system: GPS 32, GLONASS 24 slots, Galileo 24, BeiDou 5 GEO + 3 IGSO + 18 MEO.

@@ -28,6 +28,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from ionwarden.daemon.geo import enu_basis, geodetic_to_ecef, mapping_factor, pierce_point
+from ionwarden.parsers import SECONDS_PER_WEEK
 
 from ._atmosphere import Ionosphere, tropo_mapping, tropo_zenith_delay_m
 from ._constellation import Constellation, build_constellation
@@ -50,9 +51,16 @@ OMEGA_E_RADPS = 7.2921151467e-5
 BLOCK_EPOCHS = 300
 #: Signal-travel guess at which orbits are propagated; the exact time is reached by a linear step.
 _TAU0_S = 0.075
-_CN0_MIN_DBHZ = 24.0
 _ROT_LAG_S = 30.0
 _CLOCK_STEER_S = 1e-3
+
+
+def _week_tow(
+    week0: int, tow_s: npt.NDArray[np.float64]
+) -> tuple[npt.NDArray[np.int64], npt.NDArray[np.float64]]:
+    """Exact epoch tags: seconds of week kept small (float64 steps of 2⁻⁴⁴ s, not 0.2 µs)."""
+    roll = np.floor(tow_s / SECONDS_PER_WEEK)
+    return (week0 + roll).astype(np.int64), tow_s - roll * SECONDS_PER_WEEK
 
 
 class Simulator:
@@ -173,7 +181,8 @@ class Simulator:
         rng = np.random.default_rng([sc.seed, s_idx, b_idx])
         rx, basis, zenith_trop = self._rx[s_idx]
         e = idx.shape[0]
-        t_rel = t_tag - sc.start.total_s
+        t_rel = idx / sc.rate_hz
+        week, tow = _week_tow(sc.start.week, sc.start.tow_s + t_rel)
         dt_r = self._clock(st, rng, t_rel)
         # Transmission time: iterate τ with the satellite moved linearly from the propagation time.
         tau = np.full(pos0.shape[:2], _TAU0_S)
@@ -238,6 +247,8 @@ class Simulator:
             block=b_idx,
             epoch_index=idx,
             t_tag_s=t_tag,
+            week=week,
+            tow_s=tow,
             t_rel_s=t_rel - dt_r,
             rx_clock_s=dt_r,
             cols=cols,

@@ -61,7 +61,9 @@ class BlockGeometry:
     station: int
     block: int
     epoch_index: npt.NDArray[np.int64]
-    t_tag_s: npt.NDArray[np.float64]
+    t_tag_s: npt.NDArray[np.float64]  # continuous GPS s (float64: ~0.2 µs steps at today's dates)
+    week: npt.NDArray[np.int64]  # exact epoch tags as GPS week and seconds of week
+    tow_s: npt.NDArray[np.float64]
     t_rel_s: npt.NDArray[np.float64]  # true time from the scenario start
     rx_clock_s: npt.NDArray[np.float64]
     cols: npt.NDArray[np.intp]
@@ -146,9 +148,10 @@ def observe(sim: _Sim, st: StationState, rng: np.random.Generator, g: BlockGeome
         + rng.normal(0.0, 0.4, (e, s, k))
     )
     lost = np.zeros((e, s, k), np.bool_)
-    band = sig.band[cols]
+    f_mhz = np.nan_to_num(f, nan=0.0) / 1e6
     for o in sc.outages:
-        win = ((tt >= o.start_s) & (tt < o.end_s))[:, None, None] & (band == o.band)[None]
+        in_band = (f_mhz >= o.low_mhz) & (f_mhz <= o.high_mhz)
+        win = ((tt >= o.start_s) & (tt < o.end_s))[:, None, None] & in_band[None]
         if o.drop_db is None:
             lost |= win
         else:

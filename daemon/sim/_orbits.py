@@ -25,7 +25,6 @@ if TYPE_CHECKING:
 
 __all__ = ["block_states"]
 
-F64 = "npt.NDArray[np.float64]"
 _MIN_SPAN_S = 30 * 60.0
 
 

@@ -150,7 +150,18 @@ def run_to_sinks(
             if sinks.truth is not None:
                 sinks.truth.write(format_truth(block, stations[i].name, header=first and i == 0))
             if sinks.biases is not None and first:
-                sinks.biases.write(format_biases(block, stations[i].name, header=i == 0))
+                sig = sim.signals
+                sinks.biases.write(
+                    format_biases(
+                        stations[i].name,
+                        sat=sim.sats,
+                        code=sig.code,
+                        freq_hz=sig.freq_hz,
+                        sat_bias_m=sig.sat_bias_m,
+                        rx_bias_m=sim.rx_bias_m[i][sim.sats.astype(np.intp) // 100],
+                        header=i == 0,
+                    )
+                )
         if sinks.gradients is not None:
             base = sim.station_ecef(0)
             for i in range(1, n_st):
@@ -180,10 +191,15 @@ def run_to_sinks(
 
 
 def iter_stream(
-    sim: Simulator, station: int = 0, *, msm_level: int = 4, nmea: bool = True
+    sim: Simulator,
+    station: int = 0,
+    *,
+    msm_level: int = 4,
+    nmea: bool = True,
+    gsv_every_s: float = 1.0,
 ) -> Iterator[tuple[float, bytes]]:
     """(epoch time from the start in s, bytes) of one station, epoch by epoch (for servers)."""
-    comp = StreamComposer(sim, station, msm_level=msm_level, nmea=nmea)
+    comp = StreamComposer(sim, station, msm_level=msm_level, nmea=nmea, gsv_every_s=gsv_every_s)
     start = sim.scenario.start.total_s
     for blocks in sim.run():
         block = blocks[station]

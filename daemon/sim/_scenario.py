@@ -14,6 +14,7 @@ from dataclasses import dataclass, field, replace
 from ionwarden.parsers import GpsTime, utc_to_gps
 
 __all__ = [
+    "L2_BAND_MHZ",
     "SCENARIO_HELP",
     "BandOutage",
     "LossOfLock",
@@ -27,6 +28,10 @@ __all__ = [
     "build_scenario",
     "scenario_names",
 ]
+
+
+#: The L2 band (MHz): GPS L2 1227.60 and GLONASS G2 1242.94–1248.63 (k = −7…+6).
+L2_BAND_MHZ = (1215.0, 1254.0)
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -104,14 +109,17 @@ class LossOfLock:
 
 @dataclass(frozen=True, slots=True, kw_only=True)
 class BandOutage:
-    """Interference on one RINEX band digit (e.g. 2 = GPS L2, GLONASS G2) for a time window.
+    """Interference on one frequency band for a time window: every signal whose carrier lies in
+    ``[low_mhz, high_mhz]`` is hit (by frequency, not by RINEX band digit: BeiDou "2I" is B1I at
+    1561 MHz, far from GPS L2). The default band, 1215–1254 MHz, holds GPS L2 and GLONASS G2.
 
     ``drop_db`` None means the signals are lost; otherwise C/N0 falls by that many dB.
     """
 
     start_s: float
     end_s: float
-    band: int
+    low_mhz: float = L2_BAND_MHZ[0]
+    high_mhz: float = L2_BAND_MHZ[1]
     drop_db: float | None = None
 
 
@@ -192,15 +200,18 @@ def _offset(name: str, sid: int, km_east: float, km_north: float) -> Station:
 _START_UTC = _dt.datetime(2026, 3, 18, 12, 0, 0, tzinfo=_dt.UTC)
 
 SCENARIO_HELP: dict[str, str] = {
-    "quiet-day": "one station (HARC), mid-latitude quiet ionosphere with its diurnal cycle only",
-    "storm-front": "HARC plus rovers at 10, 40 and 80 km; an afternoon front of +30 TECU sweeps "
-    "east-north-east at 200 m/s with gradients up to ~120 mm/km, slips and a lock loss",
-    "scintillation": "one station; two windows of phase scintillation (ROTI > 0.5 TECU/min) with "
+    "quiet-day": "1 h, one station (HARC), mid-latitude quiet ionosphere with its diurnal cycle "
+    "only",
+    "storm-front": "2 h, HARC plus rovers at 10, 40 and 80 km; an afternoon front of +30 TECU sweeps "
+    "east-north-east at 200 m/s with gradients up to ~120 mm/km, slips (7, 2500 and a silent 1 cycle) and a lock loss",
+    "scintillation": "1 h, one station; two windows of phase scintillation (ROTI > 0.5 TECU/min) with "
     "C/N0 fading, a half-cycle slip",
-    "band-outage": "one station; interference on band 2 (GPS L2, GLONASS G2): C/N0 −20 dB, then "
-    "band 2 lost; a receiver restart and a stream gap",
-    "two-stations-60km": "HARC and a rover 60 km north-east under a slow front: truth for "
+    "band-outage": "1 h, one station; interference in the L2 band (GPS L2, GLONASS G2): C/N0 "
+    "−20 dB, then L2 lost; a receiver restart and a stream gap",
+    "two-stations-60km": "1 h, HARC and a rover 60 km north-east under a slow front: truth for "
     "between-station gradients",
+    "demo": "the bundled demo (20 min from 13:30 UTC): HARC as a construction-site base while an "
+    "afternoon front of +25 TECU crosses it, with the L2 band jammed (−18 dB, then lost)",
 }
 
 
@@ -252,6 +263,8 @@ def build_scenario(
             slips=(
                 SlipEvent(t_s=900.0, sat=-1, cycles=7),
                 SlipEvent(t_s=1500.0, sat=-1, cycles=2500, signals=("2W", "2C", "7Q", "7I")),
+                # A silent one-cycle L1 slip (lock time keeps growing): only the data show it.
+                SlipEvent(t_s=3000.0, sat=-1, cycles=1, signals=("1C",), lock_reset=False),
             ),
             losses=(LossOfLock(t_s=2000.0, sat=-1, duration_s=45.0),),
         )
@@ -270,8 +283,8 @@ def build_scenario(
             base,
             duration_s=3600.0,
             outages=(
-                BandOutage(start_s=600.0, end_s=1200.0, band=2, drop_db=20.0),
-                BandOutage(start_s=1500.0, end_s=2100.0, band=2),
+                BandOutage(start_s=600.0, end_s=1200.0, drop_db=20.0),
+                BandOutage(start_s=1500.0, end_s=2100.0),
             ),
             restarts=(ReceiverRestart(t_s=2700.0, duration_s=30.0),),
             gaps=(StreamGap(start_s=3100.0, end_s=3130.0),),
@@ -292,6 +305,29 @@ def build_scenario(
                 onset_s=0.0,
                 end_s=3600.0,
             ),
+        )
+    elif name == "demo":
+        sc = replace(
+            base,
+            start=utc_to_gps(_START_UTC + _dt.timedelta(minutes=90)),
+            duration_s=1200.0,
+            storm=StormFront(
+                origin_lat_deg=_BASE.lat_deg,
+                origin_lon_deg=_BASE.lon_deg,
+                heading_deg=70.0,
+                speed_mps=150.0,
+                t_cross_s=600.0,
+                amplitude_tecu=25.0,
+                width_km=25.0,
+                onset_s=0.0,
+                end_s=3000.0,
+                ramp_s=300.0,
+            ),
+            outages=(
+                BandOutage(start_s=780.0, end_s=900.0, drop_db=18.0),
+                BandOutage(start_s=900.0, end_s=1020.0),
+            ),
+            slips=(SlipEvent(t_s=300.0, sat=-1, cycles=11),),
         )
     else:
         raise ValueError(f"unknown scenario {name!r}: choose one of {', '.join(SCENARIO_HELP)}")

@@ -1,4 +1,4 @@
-"""Serve a simulated stream on loopback: a plain TCP server or a minimal NTRIP v2 caster mount.
+"""Serve simulated streams on loopback: a plain TCP server or a minimal NTRIP v2 caster.
 
 For integration tests of the ingest layer only: the listener binds to a loopback address (anything
 else is a :class:`ConfigError`), serves at most ``max_clients`` connections (each gets the whole
@@ -19,7 +19,7 @@ import base64
 import contextlib
 import ipaddress
 import logging
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterator, Mapping
 from dataclasses import dataclass
 
 from ionwarden.daemon.errors import ConfigError
@@ -77,11 +77,21 @@ async def _pump(
 
 
 class _Server:
-    def __init__(self, factory: StreamFactory, options: ServeOptions, ntrip: bool) -> None:
+    def __init__(
+        self,
+        factory: StreamFactory | Mapping[str, StreamFactory],
+        options: ServeOptions,
+        ntrip: bool,
+    ) -> None:
         _check_loopback(options.host)
         if options.max_clients < 1:
             raise ConfigError("--clients", "must be at least 1")
-        self._factory = factory
+        self._mounts: dict[str, StreamFactory] = (
+            dict(factory) if isinstance(factory, Mapping) else {options.mount: factory}
+        )
+        if not self._mounts:
+            raise ConfigError("--mount", "no stream to serve")
+        self._factory = next(iter(self._mounts.values()))
         self._opt = options
         self._ntrip = ntrip
         self._served = 0
@@ -134,8 +144,12 @@ class _Server:
         path = parts[1]
         if path == "/":
             table = (
-                f"STR;{self._opt.mount};{self._opt.mount};RTCM 3.3;;2;GPS+GLO+GAL+BDS;"
-                "SIM;XXX;0.00;0.00;0;0;ionwarden simulate;none;N;N;0;\r\nENDSOURCETABLE\r\n"
+                "".join(
+                    f"STR;{m};{m};RTCM 3.3;;2;GPS+GLO+GAL+BDS;SIM;XXX;0.00;0.00;0;0;"
+                    "ionwarden simulate;none;N;N;0;\r\n"
+                    for m in self._mounts
+                )
+                + "ENDSOURCETABLE\r\n"
             ).encode()
             writer.write(
                 b"%s 200 OK\r\nNtrip-Version: Ntrip/2.0\r\nContent-Type: gnss/sourcetable\r\n"
@@ -143,7 +157,9 @@ class _Server:
                 % ((b"HTTP/1.1" if v2 else b"SOURCETABLE"), len(table), table)
             )
             return
-        if path.lstrip("/") != self._opt.mount:
+        mount = path.lstrip("/")
+        factory = self._mounts.get(mount)
+        if factory is None:
             writer.write(b"HTTP/1.1 404 Not Found\r\nConnection: close\r\n\r\n")
             return
         if self._opt.credentials is not None:
@@ -151,7 +167,7 @@ class _Server:
             if headers.get("authorization", "") != f"Basic {token}":
                 writer.write(
                     b'HTTP/1.1 401 Unauthorized\r\nWWW-Authenticate: Basic realm="%s"\r\n'
-                    b"Connection: close\r\n\r\n" % self._opt.mount.encode()
+                    b"Connection: close\r\n\r\n" % mount.encode()
                 )
                 return
         if v2:
@@ -161,7 +177,7 @@ class _Server:
             )
         else:
             writer.write(f"{status} 200 OK\r\n\r\n".encode())
-        self.bytes_sent += await _pump(writer, self._factory(), self._opt.speed, v2)
+        self.bytes_sent += await _pump(writer, factory(), self._opt.speed, v2)
 
     async def run(self, port_ready: asyncio.Future[int] | None) -> int:
         server = await asyncio.start_server(
@@ -193,9 +209,10 @@ async def serve_tcp(
 
 
 async def serve_ntrip(
-    factory: StreamFactory,
+    factory: StreamFactory | Mapping[str, StreamFactory],
     options: ServeOptions,
     port_ready: asyncio.Future[int] | None = None,
 ) -> int:
-    """Serve one NTRIP mount (``options.mount``) to up to ``max_clients`` clients."""
+    """Serve NTRIP mounts to up to ``max_clients`` clients: one factory is the mount
+    ``options.mount``; a mapping serves one mount per key (e.g. one per simulated station)."""
     return await _Server(factory, options, ntrip=True).run(port_ready)

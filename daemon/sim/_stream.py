@@ -1,14 +1,16 @@
 """One station's receiver output as a byte stream: RTCM 3 interleaved with NMEA 0183.
 
-Per epoch, in this order (a layout many receivers use; common practice):
+Per epoch, in this order (common practice; ephemerides first so that a decoder knows the GLONASS
+channels before the first MSM4, which carries none):
 
-1. MSM4 or MSM7 for each constellation (RTCM 10403.3 §3.5.12; multiple-message bit on all but the
-   last), built by ``ionwarden.parsers`` from the epoch's :class:`ObsEpoch`;
-2. 1005 station reference every ``station_every_s`` seconds (and with the first epoch);
-3. broadcast ephemerides: at the first epoch every current set, then one satellite per
+1. 1005 station reference every ``station_every_s`` seconds (and with the first epoch);
+2. broadcast ephemerides: at the first epoch every current set, then one satellite per
    constellation per epoch in turn (1019 GPS, 1020 GLONASS, 1045 Galileo F/NAV, 1042 BeiDou), so each
    satellite is refreshed about every 30 s at 1 Hz;
-4. on whole seconds: GGA, RMC, GSV (one group per constellation) and GST (NMEA 0183 §6.3).
+3. MSM4 or MSM7 for each constellation (RTCM 10403.3 §3.5.12; multiple-message bit on all but the
+   last), built by ``ionwarden.parsers`` from the epoch's :class:`ObsEpoch`;
+4. on whole seconds: GGA, RMC and GST, and every ``gsv_every_s`` the GSV groups (one per
+   constellation) (NMEA 0183 §6.3).
 
 Epochs inside a scenario stream gap produce no bytes. Pure: the caller owns every file and socket.
 """
@@ -49,7 +51,7 @@ def epoch_of(block: SimBlock, e: int, station_id: int) -> ObsEpoch:
     si, ki = np.nonzero(block.present[e])
     n = si.shape[0]
     return ObsEpoch(
-        time=GpsTime.from_total(float(block.geometry.t_tag_s[e])),
+        time=GpsTime(int(block.geometry.week[e]), float(block.geometry.tow_s[e])),
         station_id=station_id,
         sat=block.sat[si].astype(np.int16),
         sig=block.code[si, ki].astype(np.uint16),
@@ -86,6 +88,7 @@ class StreamComposer:
         msm_level: int = 4,
         nmea: bool = True,
         station_every_s: float = 10.0,
+        gsv_every_s: float = 1.0,
     ) -> None:
         if msm_level not in (4, 7):
             raise ValueError(f"msm_level must be 4 or 7, got {msm_level}")
@@ -94,8 +97,11 @@ class StreamComposer:
         self._msm_level = msm_level
         self._nmea = nmea
         self._station_every_s = station_every_s
+        self._gsv_every_s = gsv_every_s
         self._started = False
         self._turn = dict.fromkeys(sim.constellation.series, 0)
+        #: Encoded ephemeris frames by (system, set, satellite): each set is encoded once.
+        self._eph_frames: dict[tuple[str, int, int], bytes] = {}
         x, y, z = (float(v) for v in sim.station_ecef(station))
         self._ref = frame_rtcm(
             encode_1005(
@@ -120,20 +126,23 @@ class StreamComposer:
     def _ephemerides(self, t_gps_s: float) -> list[bytes]:
         out: list[bytes] = []
         for system, series in self._sim.constellation.series.items():
-            ephs: Sequence[KeplerEphemeris | GlonassEphemeris] = series.ephemerides[
-                series.set_index(t_gps_s)
-            ]
-            chosen: list[KeplerEphemeris | GlonassEphemeris]
+            k = series.set_index(t_gps_s)
+            ephs: Sequence[KeplerEphemeris | GlonassEphemeris] = series.ephemerides[k]
             if not self._started:
-                chosen = list(ephs)
+                chosen = range(len(ephs))
             else:
                 i = self._turn[system] % len(ephs)
                 self._turn[system] = i + 1
-                chosen = [ephs[i]]
-            out.extend(frame_rtcm(encode_ephemeris(e)) for e in chosen)
+                chosen = range(i, i + 1)
+            for j in chosen:
+                key = (system, k, j)
+                frame = self._eph_frames.get(key)
+                if frame is None:
+                    frame = self._eph_frames[key] = frame_rtcm(encode_ephemeris(ephs[j]))
+                out.append(frame)
         return out
 
-    def _nmea_sentences(self, block: SimBlock, e: int, time: GpsTime) -> list[bytes]:
+    def _nmea_sentences(self, block: SimBlock, e: int, time: GpsTime, *, gsv: bool) -> list[bytes]:
         utc = gps_to_utc(time)
         st = self._station
         g = block.geometry
@@ -175,7 +184,7 @@ class StreamComposer:
         ]
         sys_idx = block.sat // 100
         for system, talker in _GSV_TALKER.items():
-            if system not in self._sim.scenario.systems:
+            if not gsv or system not in self._sim.scenario.systems:
                 continue
             cols = np.flatnonzero((sys_idx == "GREC".index(system)) & pres.any(axis=1))
             out.extend(
@@ -217,15 +226,17 @@ class StreamComposer:
             return b""
         epoch = epoch_of(block, e, self._station.station_id)
         t = epoch.time.total_s
-        parts = encode_msm(epoch, level=self._msm_level, station_id=self._station.station_id)
         rel = t - self._sim.scenario.start.total_s
+        parts: list[bytes] = []
         if not self._started or _on_grid(rel, self._station_every_s):
             parts.append(self._ref)
         parts.extend(self._ephemerides(t))
+        parts.extend(encode_msm(epoch, level=self._msm_level, station_id=self._station.station_id))
         self._started = True
         self.frames_written += len(parts)
         if self._nmea and _on_grid(rel, 1.0):
-            parts.extend(self._nmea_sentences(block, e, epoch.time))
+            gsv = _on_grid(rel, self._gsv_every_s)
+            parts.extend(self._nmea_sentences(block, e, epoch.time, gsv=gsv))
         return b"".join(parts)
 
 

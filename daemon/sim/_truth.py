@@ -17,7 +17,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from ionwarden.parsers import SECONDS_PER_WEEK, sat_name, signal_name
+from ionwarden.parsers import sat_name, signal_name
 
 if TYPE_CHECKING:
     import numpy.typing as npt
@@ -57,9 +57,8 @@ def format_truth(block: SimBlock, station: str, header: bool = False) -> str:
     e_i, s_i = rows
     if e_i.size == 0:
         return ",".join(TRUTH_COLUMNS) + "\n" if header else ""
-    t = g.t_tag_s[e_i]
-    week = np.floor(t / SECONDS_PER_WEEK).astype(np.int64)
-    tow = t - week * SECONDS_PER_WEEK
+    week = g.week[e_i]
+    tow = g.tow_s[e_i]
     names = [sat_name(int(x)) for x in block.sat.tolist()]
     slip_txt = [""] * e_i.size
     slipped = block.slipped[e_i, s_i]
@@ -93,16 +92,25 @@ def format_truth(block: SimBlock, station: str, header: bool = False) -> str:
     return (",".join(TRUTH_COLUMNS) + "\n" + text) if header else text
 
 
-def format_biases(block: SimBlock, station: str, header: bool = True) -> str:
-    """Code biases of every satellite × signal of the block (constant over a run)."""
+def format_biases(
+    station: str,
+    *,
+    sat: npt.NDArray[np.int16],
+    code: npt.NDArray[np.uint16],
+    freq_hz: npt.NDArray[np.float64],
+    sat_bias_m: npt.NDArray[np.float64],
+    rx_bias_m: npt.NDArray[np.float64],
+    header: bool = True,
+) -> str:
+    """Code biases of every satellite × signal ((S, K) arrays; constant over a run)."""
     out = [",".join(BIAS_COLUMNS)] if header else []
-    for s, sat in enumerate(block.sat.tolist()):
-        for k, code in enumerate(block.code[s].tolist()):
-            if code == 0 or not math.isfinite(block.freq_hz[s, k]):
+    for s, sid in enumerate(sat.tolist()):
+        for k, c in enumerate(code[s].tolist()):
+            if c == 0 or not math.isfinite(freq_hz[s, k]):
                 continue
             out.append(
-                f"{station},{sat_name(sat)},{signal_name(code)},{block.freq_hz[s, k]:.1f},"
-                f"{block.sat_bias_m[s, k]:.4f},{block.rx_bias_m[s, k]:.4f}"
+                f"{station},{sat_name(sid)},{signal_name(c)},{freq_hz[s, k]:.1f},"
+                f"{sat_bias_m[s, k]:.4f},{rx_bias_m[s, k]:.4f}"
             )
     return "\n".join(out) + "\n"
 
@@ -125,9 +133,8 @@ def format_gradients(
     e_i, c_i = np.nonzero(vis)
     d_iono = rover.iono_m[e_i, ir[c_i], 0] - base.iono_m[e_i, ib[c_i], 0]
     d_vtec = gr.vtec_tecu[e_i, ir[c_i]] - gb.vtec_tecu[e_i, ib[c_i]]
-    t = gb.t_tag_s[e_i]
-    week = np.floor(t / SECONDS_PER_WEEK).astype(np.int64)
-    tow = t - week * SECONDS_PER_WEEK
+    week = gb.week[e_i]
+    tow = gb.tow_s[e_i]
     names = [sat_name(int(x)) for x in common.tolist()]
     cols: list[list[str]] = [
         [str(w) for w in week.tolist()],

@@ -1,0 +1,168 @@
+"""Outputs bench: MQTT publish-acknowledged latency and exporter scrape time.
+
+1. 20 stations × 1 Hz (all stations' epochs arrive together at each second, as receivers align
+   epochs to the GPS second) with 40 satellites each, through the local Mosquitto
+   (IONWARDEN_TEST_MQTT_HOST/PORT, default 127.0.0.1:1883): per epoch, the alarm engine and the
+   formatting run, then the publisher queues and sends. Latency = from the snapshot handed to the
+   outputs (alarm evaluation + formatting included) to the broker's PUBACK for its summary.
+2. Exporter: the text exposition for 20 stations × 40 satellites, in-process and over real HTTP.
+
+Usage: .venv/bin/python bench/bench_outputs.py [--seconds 20] [--stations 20] [--sats 40]
+Targets (issue 8): publish-ack p99 ≤ 10 ms; scrape ≤ 50 ms. The machine may be shared: figures are
+under contention.
+"""
+
+from __future__ import annotations
+
+import argparse
+import asyncio
+import os
+import statistics
+import sys
+import time
+import urllib.request
+from pathlib import Path
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+
+from prometheus_client import CollectorRegistry, generate_latest
+
+from ionwarden.daemon.alarms import StationAlarms
+from ionwarden.daemon.config import AlarmSettings, MqttSettings, PrometheusSettings
+from ionwarden.daemon.outputs import (
+    DaemonSnapshot,
+    Exporter,
+    IngestFigures,
+    MqttPublisher,
+    OutboundMessage,
+    StationFigures,
+    summary_payload,
+)
+from tests._outputs_support import T0, make_snapshot
+
+
+def pct(values: list[float], q: float) -> float:
+    s = sorted(values)
+    return s[min(len(s) - 1, round(q * (len(s) - 1)))]
+
+
+async def bench_mqtt(seconds: int, n_stations: int, n_sats: int) -> None:
+    host = os.environ.get("IONWARDEN_TEST_MQTT_HOST", "127.0.0.1")
+    port = int(os.environ.get("IONWARDEN_TEST_MQTT_PORT", "1883"))
+    settings = MqttSettings(host=host, port=port, topic_prefix=f"iwbench/{os.getpid()}")
+    submitted: dict[bytes, float] = {}
+    acked: list[float] = []
+    all_acks: list[float] = []
+
+    def on_published(msg: OutboundMessage, queued_to_ack_s: float) -> None:
+        all_acks.append(queued_to_ack_s)
+        t0 = submitted.pop(msg.payload, None)
+        if t0 is not None:
+            acked.append(time.perf_counter() - t0)
+
+    pub = MqttPublisher(settings, on_published=on_published)
+    engines = [StationAlarms(f"ST{i:02d}", AlarmSettings()) for i in range(n_stations)]
+    snaps = [
+        [make_snapshot(f"ST{i:02d}", T0 + float(s), n=n_sats) for i in range(n_stations)]
+        for s in range(seconds)
+    ]
+    work: list[float] = []
+    async with asyncio.TaskGroup() as tg:
+        tg.create_task(pub.run(), name="daemon.output[mqtt]")
+        await asyncio.wait_for(pub.wait_connected(), 10)
+        loop = asyncio.get_running_loop()
+        start = loop.time()
+        for s in range(seconds):
+            await asyncio.sleep(max(0.0, start + s - loop.time()))
+            for i in range(n_stations):
+                snap = snaps[s][i]
+                key = summary_payload(snap)  # matches the acknowledgement to this snapshot
+                t0 = time.perf_counter()
+                pub.publish_transitions_nowait(engines[i].observe_snapshot(snap))
+                pub.publish_snapshot_nowait(snap)
+                work.append(time.perf_counter() - t0)
+                submitted[key] = t0
+                await asyncio.sleep(0)  # each station's estimator is its own task in the daemon
+        await asyncio.wait_for(pub.wait_drained(), 30)
+        pub.stop()
+    st = pub.statistics()
+    ms = [x * 1e3 for x in acked]
+    print(
+        f"MQTT {n_stations} stations x 1 Hz x {seconds} s, {n_sats} sats, broker {host}:{port}: "
+        f"{st.published_total} messages acknowledged, {st.dropped_epoch_total} dropped"
+    )
+    print(
+        f"  snapshot -> summary PUBACK latency: n={len(ms)} p50={pct(ms, 0.5):.2f} ms "
+        f"p99={pct(ms, 0.99):.2f} ms max={max(ms):.2f} ms  (target p99 <= 10 ms)"
+    )
+    q = [x * 1e3 for x in all_acks]
+    print(
+        f"  any message queued -> PUBACK: n={len(q)} p50={pct(q, 0.5):.2f} ms p99={pct(q, 0.99):.2f} ms"
+    )
+    w = [x * 1e6 for x in work]
+    print(
+        f"  outputs work per snapshot on the event loop (alarms + formatting + queue): "
+        f"median={statistics.median(w):.0f} us p99={pct(w, 0.99):.0f} us"
+    )
+
+
+def bench_exporter(n_stations: int, n_sats: int, repeats: int = 50) -> None:
+    stations = []
+    alarms = []
+    for i in range(n_stations):
+        name = f"ST{i:02d}"
+        snap = make_snapshot(name, T0, n=n_sats)
+        eng = StationAlarms(name, AlarmSettings())
+        eng.observe_snapshot(snap)
+        alarms += eng.statuses()
+        stations.append(
+            StationFigures(
+                station=name,
+                snapshot=snap,
+                ingest=IngestFigures(bytes_total=10**6, frames_total=10**4, connected=True),
+                last_epoch_monotonic_s=time.monotonic(),
+                epochs_total=1000,
+            )
+        )
+    registry = CollectorRegistry()
+    exp = Exporter(PrometheusSettings(port=0), registry=registry)
+    exp.update(DaemonSnapshot(stations=tuple(stations), alarms=tuple(alarms)))
+    for i in range(n_stations):
+        for _ in range(10):
+            exp.observe_epoch_latency(f"ST{i:02d}", 0.004)
+    body = generate_latest(registry)
+    t_in = []
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        generate_latest(registry)
+        t_in.append((time.perf_counter() - t0) * 1e3)
+    t_http = []
+    with exp:
+        url = f"http://127.0.0.1:{exp.port}/metrics"
+        for _ in range(repeats):
+            t0 = time.perf_counter()
+            with urllib.request.urlopen(url, timeout=10) as resp:
+                resp.read()
+            t_http.append((time.perf_counter() - t0) * 1e3)
+    n_lines = sum(1 for line in body.splitlines() if line and not line.startswith(b"#"))
+    print(f"Exporter {n_stations} stations x {n_sats} sats: {n_lines} samples, {len(body)} bytes")
+    print(f"  collect+render in-process: p50={pct(t_in, 0.5):.1f} ms p99={pct(t_in, 0.99):.1f} ms")
+    print(
+        f"  HTTP scrape on loopback:   p50={pct(t_http, 0.5):.1f} ms p99={pct(t_http, 0.99):.1f} ms"
+        "  (target <= 50 ms)"
+    )
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--seconds", type=int, default=20)
+    ap.add_argument("--stations", type=int, default=20)
+    ap.add_argument("--sats", type=int, default=40)
+    args = ap.parse_args()
+    print(f"load average {os.getloadavg()[0]:.2f} on {os.cpu_count()} CPUs (shared machine)")
+    asyncio.run(bench_mqtt(args.seconds, args.stations, args.sats))
+    bench_exporter(args.stations, args.sats)
+
+
+if __name__ == "__main__":
+    main()
