@@ -16,9 +16,11 @@ from __future__ import annotations
 
 import argparse
 import asyncio
+import functools
 import os
 import statistics
 import sys
+import tempfile
 import time
 import urllib.request
 from pathlib import Path
@@ -38,6 +40,7 @@ from ionwarden.daemon.outputs import (
     StationFigures,
     summary_payload,
 )
+from tests._mqtt_support import PrivateBroker
 from tests._outputs_support import T0, make_snapshot
 
 
@@ -46,9 +49,9 @@ def pct(values: list[float], q: float) -> float:
     return s[min(len(s) - 1, round(q * (len(s) - 1)))]
 
 
-async def bench_mqtt(seconds: int, n_stations: int, n_sats: int) -> None:
-    host = os.environ.get("IONWARDEN_TEST_MQTT_HOST", "127.0.0.1")
-    port = int(os.environ.get("IONWARDEN_TEST_MQTT_PORT", "1883"))
+async def bench_mqtt(
+    seconds: int, n_stations: int, n_sats: int, *, host: str, port: int, label: str
+) -> None:
     settings = MqttSettings(host=host, port=port, topic_prefix=f"iwbench/{os.getpid()}")
     submitted: dict[bytes, float] = {}
     acked: list[float] = []
@@ -88,7 +91,8 @@ async def bench_mqtt(seconds: int, n_stations: int, n_sats: int) -> None:
     st = pub.statistics()
     ms = [x * 1e3 for x in acked]
     print(
-        f"MQTT {n_stations} stations x 1 Hz x {seconds} s, {n_sats} sats, broker {host}:{port}: "
+        f"MQTT [{label}] {n_stations} stations x 1 Hz x {seconds} s, "
+        f"{n_sats} sats: "
         f"{st.published_total} messages acknowledged, {st.dropped_epoch_total} dropped"
     )
     print(
@@ -160,7 +164,18 @@ def main() -> None:
     ap.add_argument("--sats", type=int, default=40)
     args = ap.parse_args()
     print(f"load average {os.getloadavg()[0]:.2f} on {os.cpu_count()} CPUs (shared machine)")
-    asyncio.run(bench_mqtt(args.seconds, args.stations, args.sats))
+    host = os.environ.get("IONWARDEN_TEST_MQTT_HOST", "127.0.0.1")
+    port = int(os.environ.get("IONWARDEN_TEST_MQTT_PORT", "1883"))
+    run = functools.partial(bench_mqtt, args.seconds, args.stations, args.sats)
+    asyncio.run(run(host=host, port=port, label=f"shared broker {host}:{port}"))
+    with tempfile.TemporaryDirectory() as tmp:
+        broker = PrivateBroker(Path(tmp), extra_config="set_tcp_nodelay true\n")
+        broker.start()
+        try:
+            label = "private mosquitto, set_tcp_nodelay true"
+            asyncio.run(run(host="127.0.0.1", port=broker.port, label=label))
+        finally:
+            broker.stop()
     bench_exporter(args.stations, args.sats)
 
 

@@ -58,7 +58,7 @@ class PrivateBroker:
     """A ``mosquitto`` subprocess on a free loopback port, with on-disk persistence so a subscriber's
     session (and the QoS 1 messages queued for it) survives a broker restart."""
 
-    def __init__(self, workdir: Path) -> None:
+    def __init__(self, workdir: Path, extra_config: str = "") -> None:
         self.port = free_port()
         self.conf = workdir / "mosquitto.conf"
         (workdir / "data").mkdir(exist_ok=True)
@@ -67,10 +67,9 @@ class PrivateBroker:
             "allow_anonymous true\n"
             "persistence true\n"
             f"persistence_location {workdir / 'data'}/\n"
-            "log_dest none\n"
+            "log_dest none\n" + ("user root\n" if os.geteuid() == 0 else "") + extra_config,
             # As root, mosquitto would drop to user "mosquitto", which cannot write into pytest's
             # private tmp dir: stay the invoking user (test-only setting).
-            + ("user root\n" if os.geteuid() == 0 else ""),
             encoding="utf-8",
         )
         self.proc: subprocess.Popen[bytes] | None = None

@@ -166,12 +166,20 @@ def _make_certs(d: Path) -> None:
         "x509", "-req", "-in", "server.csr", "-CA", "ca.crt", "-CAkey", "ca.key",
         "-CAcreateserial", "-out", "server.crt", "-days", "1", "-extfile", "san.ext", cwd=d,
     )  # fmt: skip
+    _openssl(
+        "req", *ec, "-keyout", "client.key", "-out", "client.csr", "-subj", "/CN=ionwarden", cwd=d
+    )
+    _openssl(
+        "x509", "-req", "-in", "client.csr", "-CA", "ca.crt", "-CAkey", "ca.key",
+        "-CAcreateserial", "-out", "client.crt", "-days", "1", cwd=d,
+    )  # fmt: skip
 
 
 @pytest.mark.integration
-def test_assets_mosquitto_tls_example_serves_the_publisher(tmp_path):
-    """The example Mosquitto TLS + password + ACL config lets ionwarden publish over TLS with a
-    password file, and a read-only account receive it."""
+@pytest.mark.parametrize("client_cert", [False, True], ids=["server-tls", "mutual-tls"])
+def test_assets_mosquitto_tls_example_serves_the_publisher(tmp_path, client_cert):
+    """The example Mosquitto TLS + password + ACL config lets ionwarden publish over TLS (and with
+    a client certificate when the broker requires one), and a read-only account receive it."""
     for tool in ("mosquitto", "mosquitto_passwd", "openssl"):
         need(tool, shutil.which(tool) is not None or Path(f"/usr/sbin/{tool}").exists())
     _make_certs(tmp_path)
@@ -191,6 +199,8 @@ def test_assets_mosquitto_tls_example_serves_the_publisher(tmp_path):
         .replace("listener 8883", f"listener {tls_port} 127.0.0.1")
         .replace("listener 1883 127.0.0.1", f"listener {plain_port} 127.0.0.1")
     )
+    if client_cert:
+        conf = conf.replace("# require_certificate true", "require_certificate true")
     (tmp_path / "m.conf").write_text(conf + "user root\nlog_dest none\n", encoding="utf-8")
     exe = shutil.which("mosquitto") or "/usr/sbin/mosquitto"
     proc = subprocess.Popen([exe, "-c", str(tmp_path / "m.conf")])
@@ -208,18 +218,30 @@ def test_assets_mosquitto_tls_example_serves_the_publisher(tmp_path):
             username="ionwarden",
             password_file=tmp_path / "pw",
             tls_ca_file=tmp_path / "ca.crt",
+            tls_cert_file=tmp_path / "client.crt" if client_cert else None,
+            tls_key_file=tmp_path / "client.key" if client_cert else None,
             timeout_s=5.0,
         )
 
         async def main():
             from ionwarden.daemon.outputs import MqttPublisher
 
+            if client_cert:  # without its certificate the daemon is refused
+                bare = MqttPublisher(
+                    settings.model_copy(
+                        update={"tls_cert_file": None, "tls_key_file": None, "timeout_s": 2.0}
+                    )
+                )
+                async with asyncio.TaskGroup() as tg:
+                    tg.create_task(bare.run(), name="daemon.output[mqtt]")
+                    await asyncio.wait_for(bare.wait_ready(), 10)
+                    refused = bare.statistics()
+                    bare.stop()
+                assert not refused.connected
+                assert refused.connects_total == 0
+
             reader = aiomqtt.Client(
-                "127.0.0.1",
-                tls_port,
-                username="ionwarden-reader",
-                password="reader-pw",
-                tls_params=aiomqtt.TLSParameters(ca_certs=str(tmp_path / "ca.crt")),
+                "127.0.0.1", plain_port, username="ionwarden-reader", password="reader-pw"
             )
             async with reader:
                 await reader.subscribe(f"{prefix}/#", qos=1)
@@ -239,3 +261,11 @@ def test_assets_mosquitto_tls_example_serves_the_publisher(tmp_path):
     finally:
         proc.terminate()
         proc.wait(timeout=10)
+
+
+def test_assets_packaged_schemas_match_config():
+    """daemon/schemas (shipped in the wheel) holds byte-identical copies of config/schemas."""
+    src = {p.name: p.read_bytes() for p in (CONFIG / "schemas").glob("*.schema.json")}
+    pkg_dir = CONFIG.parent / "daemon" / "schemas"
+    pkg = {p.name: p.read_bytes() for p in pkg_dir.glob("*.schema.json")}
+    assert pkg == src, "copy config/schemas/*.schema.json to daemon/schemas/"

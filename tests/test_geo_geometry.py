@@ -207,3 +207,16 @@ def test_satellite_geometry_handles_empty_and_unknown_satellites(store):
     none = satellite_geometry(1.23e9, rx, [1, 105], store, pseudorange_m=[2e7, np.nan])
     assert none.valid.tolist() == [False, False]
     assert np.all(np.isnan(none.range_m))
+
+
+def test_satellite_geometry_ignores_implausible_pseudoranges(store, obs):
+    """satellite_geometry falls back to light time for pseudoranges outside 15,000–50,000 km."""
+    # Common practice: MEO–GEO ranges are 19,000–42,000 km plus the receiver clock offset.
+    t, rx, sats, pr = next(iter(_epochs(obs)))
+    ok = np.isfinite(pr)
+    sats, pr = sats[ok][:4], pr[ok][:4].copy()
+    pr[[0, 1, 2]] = [-5.0, 1e9, np.inf]
+    mixed = satellite_geometry(t, rx, sats, store, pseudorange_m=pr)
+    geometric = satellite_geometry(t, rx, sats, store)
+    np.testing.assert_allclose(mixed.t_tx_gps_s[:3], geometric.t_tx_gps_s[:3], rtol=0, atol=1e-12)
+    assert mixed.t_tx_gps_s[3] == pytest.approx(t - pr[3] / C - mixed.clock_s[3], abs=1e-9)

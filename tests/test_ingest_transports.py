@@ -33,7 +33,9 @@ from ionwarden.daemon.runtime import run_virtual
 from ._runtime_support import Caster
 
 PAYLOAD = random.Random(7).randbytes(48_000)  # common practice: arbitrary bytes, fixed seed
-Factory = Callable[[bytes, contextlib.AsyncExitStack, Path], "asyncio.Future[tuple[Transport, bool]]"]
+Factory = Callable[
+    [bytes, contextlib.AsyncExitStack, Path], "asyncio.Future[tuple[Transport, bool]]"
+]
 
 
 async def _memory(payload: bytes, stack: contextlib.AsyncExitStack, tmp: Path):
@@ -161,7 +163,9 @@ async def _stdin_file(payload: bytes, stack: contextlib.AsyncExitStack, tmp: Pat
 
 async def _ntrip(version: int, payload: bytes, stack: contextlib.AsyncExitStack):
     caster = await stack.enter_async_context(Caster(mounts={"MOUNT1": payload}, users={"u": "pw"}))
-    spec = NtripSource(host="127.0.0.1", port=caster.port, mount="MOUNT1", user="u", version=version)
+    spec = NtripSource(
+        host="127.0.0.1", port=caster.port, mount="MOUNT1", user="u", version=version
+    )
     return await NtripTransport.connect(spec, password="pw"), True
 
 
@@ -238,7 +242,9 @@ def test_transport_honours_one_byte_reads(kind: str, tmp_path: Path) -> None:
 
 
 @pytest.mark.parametrize("kind", FACTORIES)
-def test_transport_aclose_is_idempotent_and_read_after_close_fails(kind: str, tmp_path: Path) -> None:
+def test_transport_aclose_is_idempotent_and_read_after_close_fails(
+    kind: str, tmp_path: Path
+) -> None:
     """Transport closes twice without error, and a read after close raises TransportError."""
 
     async def main() -> None:
@@ -248,5 +254,40 @@ def test_transport_aclose_is_idempotent_and_read_after_close_fails(kind: str, tm
             await t.aclose()
             with pytest.raises(TransportError):
                 await t.read(10)
+
+    run_virtual(main())
+
+
+def test_tcp_listen_rejects_a_second_receiver_while_one_streams() -> None:
+    """TcpListenTransport closes (and counts) a second connection while the first one streams."""
+
+    async def main() -> None:
+        t = await TcpListenTransport.listen("127.0.0.1", 0)
+        _, w1 = await asyncio.open_connection("127.0.0.1", t.port)
+        w1.write(b"first")
+        assert await t.read(100) == b"first"
+        r2, w2 = await asyncio.open_connection("127.0.0.1", t.port)
+        assert await r2.read(10) == b""  # closed by us at once
+        assert t.rejected == 1
+        for w in (w1, w2):
+            w.close()
+        await t.aclose()
+
+    run_virtual(main())
+
+
+def test_udp_drops_the_oldest_datagram_when_its_queue_is_full() -> None:
+    """UdpTransport keeps the newest datagrams when its bounded queue overflows, and counts drops."""
+
+    async def main() -> None:
+        t = await UdpTransport.bind("127.0.0.1", 0, maxlen=4)
+        with socket.socket(socket.AF_INET, socket.SOCK_DGRAM) as s:
+            for i in range(10):
+                s.sendto(bytes([i]) * 10, ("127.0.0.1", t.port))
+        await asyncio.sleep(0.2)
+        got = [await t.read(100) for _ in range(4)]
+        assert got == [bytes([i]) * 10 for i in range(6, 10)]
+        assert t.dropped == 6
+        await t.aclose()
 
     run_virtual(main())

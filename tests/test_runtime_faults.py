@@ -5,6 +5,7 @@ a serial device unplugged and plugged back."""
 from __future__ import annotations
 
 import asyncio
+import itertools
 import os
 import random
 import tty
@@ -80,7 +81,12 @@ def states(events: list[object]) -> list[tuple[StationState, str]]:
 
 
 def _cfg(source: object, **kw: object) -> StationConfig:
-    return StationConfig(name="st1", source=source, stall=StallLimits(no_data_s=10, no_frame_s=30, no_epoch_s=60), **kw)  # type: ignore[arg-type]
+    return StationConfig(
+        name="st1",
+        source=source,
+        stall=StallLimits(no_data_s=10, no_frame_s=30, no_epoch_s=60),
+        **kw,
+    )  # type: ignore[arg-type]
 
 
 def test_station_recovers_after_a_drop_mid_frame_without_losing_later_frames() -> None:
@@ -98,16 +104,27 @@ def test_station_recovers_after_a_drop_mid_frame_without_losing_later_frames() -
     async def main() -> None:
         core = StandInCore()
         async with Receiver(first, second) as rx:
-            runner, events, timeline = await drive(
-                _cfg(TcpSource(host="127.0.0.1", port=rx.port)), core, lambda r, e: len(core.seen) >= 12
+            runner, _events, timeline = await drive(
+                _cfg(TcpSource(host="127.0.0.1", port=rx.port)),
+                core,
+                lambda r, e: len(core.seen) >= 12,
             )
         assert seqs(core) == list(range(12))
         st = runner.statistics()
-        assert st.reconnects_total == 1 and st.state is StationState.STREAMING
+        assert st.reconnects_total == 1
+        assert st.state is StationState.STREAMING
         assert st.decoder.truncated_frames_total == 1  # the cut frame, counted at the break
         # recovery within the first backoff bound (1 s, jitter only shortens it)
-        t_drop = next(t for t, e in timeline if isinstance(e, SourceEvent) and e.state is StationState.RETRY_WAIT)
-        t_back = [t for t, e in timeline if isinstance(e, SourceEvent) and e.state is StationState.STREAMING][1]
+        t_drop = next(
+            t
+            for t, e in timeline
+            if isinstance(e, SourceEvent) and e.state is StationState.RETRY_WAIT
+        )
+        t_back = [
+            t
+            for t, e in timeline
+            if isinstance(e, SourceEvent) and e.state is StationState.STREAMING
+        ][1]
         assert t_back - t_drop <= max_delay_s(0) + 0.5
 
     run_virtual(main())
@@ -130,15 +147,26 @@ def test_station_detects_a_hung_source_and_reconnects() -> None:
         core = StandInCore()
         async with Receiver(hang, good) as rx:
             runner, events, timeline = await drive(
-                _cfg(TcpSource(host="127.0.0.1", port=rx.port)), core, lambda r, e: len(core.seen) >= 6
+                _cfg(TcpSource(host="127.0.0.1", port=rx.port)),
+                core,
+                lambda r, e: len(core.seen) >= 6,
             )
         assert (StationState.STALLED, "no-data") in states(events)
         assert seqs(core) == list(range(6))
         st = runner.statistics()
-        assert st.stalls_total == 1 and st.reconnects_total == 1
-        t_open = next(t for t, e in timeline if isinstance(e, SourceEvent) and e.state is StationState.STREAMING)
-        t_stall = next(t for t, e in timeline if isinstance(e, SourceEvent) and e.state is StationState.STALLED)
-        assert 10.0 <= t_stall - t_open <= 10.5  # the configured no-data limit, on the virtual clock
+        assert st.stalls_total == 1
+        assert st.reconnects_total == 1
+        t_open = next(
+            t
+            for t, e in timeline
+            if isinstance(e, SourceEvent) and e.state is StationState.STREAMING
+        )
+        t_stall = next(
+            t for t, e in timeline if isinstance(e, SourceEvent) and e.state is StationState.STALLED
+        )
+        assert (
+            10.0 <= t_stall - t_open <= 10.5
+        )  # the configured no-data limit, on the virtual clock
 
     run_virtual(main())
 
@@ -160,12 +188,15 @@ def test_station_survives_10_mb_of_garbage_and_keeps_good_frames() -> None:
         core = StandInCore()
         async with Receiver(spew) as rx:
             runner, _, _ = await drive(
-                _cfg(TcpSource(host="127.0.0.1", port=rx.port), queue_size=4096), core, lambda r, e: len(core.seen) >= 8
+                _cfg(TcpSource(host="127.0.0.1", port=rx.port), queue_size=4096),
+                core,
+                lambda r, e: len(core.seen) >= 8,
             )
         assert seqs(core) == list(range(8))
         st = runner.statistics()
         assert st.decoder.discarded_bytes_total >= 9_900_000
-        assert st.reconnects_total == 0 and st.state is StationState.STREAMING
+        assert st.reconnects_total == 0
+        assert st.state is StationState.STREAMING
 
     run_virtual(main())
 
@@ -177,12 +208,13 @@ def test_station_reads_a_truncated_file_to_the_end(tmp_path: Path) -> None:
 
     async def main() -> None:
         core = StandInCore()
-        runner, events, _ = await drive(
+        runner, _events, _ = await drive(
             _cfg(FileSource(path=str(path), speed=0)), core, lambda r, e: r.finished.is_set()
         )
         assert seqs(core) == list(range(20))
         st = runner.statistics()
-        assert st.state is StationState.FINISHED and st.decoder.truncated_frames_total == 1
+        assert st.state is StationState.FINISHED
+        assert st.decoder.truncated_frames_total == 1
         assert st.queue.dropped_total == 0
 
     run_virtual(main())
@@ -199,9 +231,14 @@ def test_station_reports_ntrip_401_as_refused_and_keeps_retrying() -> None:
                 _cfg(spec, password="wrong"), core, lambda r, e: len(caster.requests) >= 4
             )
         assert (StationState.REFUSED, "unauthorized") in states(events)
-        assert core.seen == [] and runner.statistics().connects_total == 0
-        tries = [t for t, e in timeline if isinstance(e, SourceEvent) and e.state is StationState.CONNECTING]
-        gaps = [b - a for a, b in zip(tries, tries[1:], strict=False)]
+        assert core.seen == []
+        assert runner.statistics().connects_total == 0
+        tries = [
+            t
+            for t, e in timeline
+            if isinstance(e, SourceEvent) and e.state is StationState.CONNECTING
+        ]
+        gaps = [b - a for a, b in itertools.pairwise(tries)]
         for i, gap in enumerate(gaps):
             assert 0.8 * max_delay_s(i) - 0.1 <= gap <= max_delay_s(i) + 0.5
 
@@ -240,7 +277,7 @@ def test_station_reopens_a_serial_device_after_unplug(tmp_path: Path) -> None:
                 link.unlink()
                 phase["n"] = 2
             elif phase["n"] == 2 and r.state is StationState.RETRY_WAIT:
-                loop.call_later(2.0, lambda: plug())  # plug back in 2 s later
+                loop.call_later(2.0, plug)  # plug back in 2 s later
                 phase["n"] = 3
             elif phase["n"] == 3 and r.state is StationState.STREAMING and len(ptys) == 2:
                 os.write(ptys[1][0], frames(4, 8))
@@ -248,7 +285,7 @@ def test_station_reopens_a_serial_device_after_unplug(tmp_path: Path) -> None:
             return len(core.seen) >= 8
 
         spec = SerialSource(device=str(link))
-        runner, events, _ = await drive(_cfg(spec), core, until)
+        runner, _events, _ = await drive(_cfg(spec), core, until)
         assert seqs(core) == list(range(8))
         assert runner.statistics().reconnects_total == 1
         for m, s in ptys[1:]:
@@ -278,7 +315,9 @@ def test_station_paces_a_replay_by_data_time(tmp_path: Path, speed: float) -> No
         loop = asyncio.get_running_loop()
         t0 = loop.time()
         core = TimedCore()
-        await drive(_cfg(FileSource(path=str(path), speed=speed)), core, lambda r, e: r.finished.is_set())
+        await drive(
+            _cfg(FileSource(path=str(path), speed=speed)), core, lambda r, e: r.finished.is_set()
+        )
         elapsed = loop.time() - t0
         if speed == 0:
             assert elapsed < 1.0

@@ -152,9 +152,13 @@ def test_summary_line_shows_counts_and_no_invented_figures() -> None:
     """format_summary shows stream counters and says "no epoch yet" when there is no snapshot."""
     line = format_summary(_stats("base", StationState.STREAMING), epoch_rate_hz=1.0)
     assert line.startswith("base")
-    assert "no epoch yet" in line and "VTEC" not in line
-    assert "frames 30" in line and "crc-fail 1" in line and "skipped 2.0 kB" in line
-    assert "epochs 10 (1.0/s)" in line and "reconnects 1" in line
+    assert "no epoch yet" in line
+    assert "VTEC" not in line
+    assert "frames 30" in line
+    assert "crc-fail 1" in line
+    assert "skipped 2.0 kB" in line
+    assert "epochs 10 (1.0/s)" in line
+    assert "reconnects 1" in line
 
 
 def test_status_line_names_stations_that_do_not_stream() -> None:
@@ -197,13 +201,23 @@ def test_parse_source_reads_every_scheme() -> None:
     from ionwarden.daemon import ingest as ing
 
     s = parse_source("serial:///dev/ttyUSB0?baud=460800&parity=E&stopbits=2&flow=rtscts")
-    assert s == ing.SerialSource(device="/dev/ttyUSB0", baud=460800, parity="E", stopbits=2, flow="rtscts")
+    assert s == ing.SerialSource(
+        device="/dev/ttyUSB0", baud=460800, parity="E", stopbits=2, flow="rtscts"
+    )
     assert parse_source("tcp://10.0.0.5:5018") == ing.TcpSource(host="10.0.0.5", port=5018)
-    assert parse_source("tcp-listen://0.0.0.0:2102") == ing.TcpListenSource(host="0.0.0.0", port=2102)
+    assert parse_source("tcp-listen://0.0.0.0:2102") == ing.TcpListenSource(
+        host="0.0.0.0", port=2102
+    )
     assert parse_source("udp://0.0.0.0:9000") == ing.UdpSource(host="0.0.0.0", port=9000)
     n = parse_source("ntrip://bob@caster.example:2101/NET1?gga_interval=10&lat=48.1&lon=11.5")
     assert n == ing.NtripSource(
-        host="caster.example", port=2101, mount="NET1", user="bob", gga_interval_s=10, lat_deg=48.1, lon_deg=11.5
+        host="caster.example",
+        port=2101,
+        mount="NET1",
+        user="bob",
+        gga_interval_s=10,
+        lat_deg=48.1,
+        lon_deg=11.5,
     )
     assert parse_source("ntrip://caster.example/M").port == 2101  # type: ignore[union-attr]
     assert parse_source("file://demo.bin?speed=0") == ing.FileSource(path="demo.bin", speed=0.0)

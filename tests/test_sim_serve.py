@@ -166,3 +166,22 @@ def test_serve_refuses_non_loopback_address(sim: Simulator) -> None:
     """serve_tcp refuses to bind anything but loopback (ConfigError naming --host)."""
     with pytest.raises(ConfigError, match="loopback"):
         asyncio.run(serve_tcp(lambda: iter_stream(sim, 0), ServeOptions(host="0.0.0.0")))
+
+
+def test_serve_tcp_client_leaving_early_still_stops_server() -> None:
+    """A client that hangs up mid-stream ends its session; the server still stops by itself."""
+    import dataclasses
+
+    sc = build_scenario("quiet-day", duration_s=3600.0)
+    long_sim = Simulator(dataclasses.replace(sc, systems="G"))  # GPS only: quick to generate
+
+    async def client(port: int) -> list:
+        reader, writer = await asyncio.open_connection("127.0.0.1", port)
+        first = await reader.read(1000)
+        writer.close()
+        await writer.wait_closed()
+        return [first]
+
+    sent, (first,) = asyncio.run(_with_server(serve_tcp, ServeOptions(), long_sim, client))
+    assert first
+    assert 0 < sent < 3600 * 800  # counted up to the hang-up, far short of the whole hour

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import asyncio
+import datetime as dt
 import sys
 from dataclasses import replace
 from importlib import resources
@@ -72,7 +73,9 @@ def _print_line(line: str) -> None:
     print(line, flush=True)
 
 
-async def _serve(settings: Settings, path: Path | None, summary_every: float | None) -> int:
+async def _serve(
+    settings: Settings, path: Path | None, summary_every: float | None, *, demo: bool = False
+) -> int:
     from prometheus_client import CollectorRegistry  # noqa: PLC0415
 
     from ionwarden.daemon.outputs import Exporter, MqttPublisher  # noqa: PLC0415
@@ -88,6 +91,8 @@ async def _serve(settings: Settings, path: Path | None, summary_every: float | N
     options = options_from_settings(settings)
     if summary_every is not None:
         options = replace(options, summary_interval_s=summary_every)
+    if demo:  # a demo replay leaves no state behind
+        options = replace(options, state_dir=None)
     exporter = (
         Exporter(settings.prometheus, registry=CollectorRegistry(), monotonic=loop.time)
         if settings.prometheus.enabled
@@ -96,24 +101,30 @@ async def _serve(settings: Settings, path: Path | None, summary_every: float | N
     publisher = MqttPublisher(settings.mqtt, monotonic=loop.time) if settings.mqtt.enabled else None
     started = loop.time()
 
+    # Stations (sources, estimator, alarms) follow a SIGHUP reload; MQTT and the exporter keep the
+    # settings they started with (changing those needs a restart).
+    current = {"factory": make_factory(settings)}
+
     def reload() -> DaemonOptions:
         if path is None:
             raise ConfigError("", "no configuration file to reload")
         from ionwarden.daemon.config import load_settings  # noqa: PLC0415
 
-        new = options_from_settings(load_settings(path))
+        fresh = load_settings(path)
+        new = options_from_settings(fresh)
+        current["factory"] = make_factory(fresh)
         return replace(new, summary_interval_s=options.summary_interval_s)
 
     daemon = Daemon(
         options,
-        factory=make_factory(settings),
+        factory=lambda cfg: current["factory"](cfg),  # noqa: PLW0108 - late-bound on reload
         notifier=SdNotifier(),
         exporter=exporter,
         publisher=publisher,
         build_snapshot=lambda d: build_daemon_snapshot(d, publisher, started),
         summary=_print_line if options.summary_interval_s else None,
         reload=reload if path is not None else None,
-        utc_now=None,
+        utc_now=lambda: dt.datetime.now(dt.UTC),
     )
     return await daemon.run()
 
@@ -140,7 +151,7 @@ def run(args: argparse.Namespace) -> int:
     elif not settings.stations:
         return die(f"run: {path}: no [[stations]] configured")
     try:
-        return asyncio.run(_serve(settings, path, args.summary_every))
+        return asyncio.run(_serve(settings, path, args.summary_every, demo=path is None))
     except ConfigError as exc:
         return die(f"config: {exc}")
     except OutputError as exc:

@@ -23,6 +23,8 @@ if TYPE_CHECKING:
 __all__ = ["add_parser", "run"]
 
 _LOG = logging.getLogger("ionwarden.daemon.cli")
+#: Scenario field named in a validation message → the option that sets it.
+_FIELD_OPTIONS = {"duration_s": "--duration", "rate_hz": "--rate", "systems": "--systems"}
 
 
 def _epilog() -> str:
@@ -35,12 +37,13 @@ def _epilog() -> str:
         )
     lines += [
         "",
-        "outputs: --out FILE ('-' = stdout) writes the RTCM 3 + NMEA stream (one file per station,",
-        "named FILE with -STATION before the suffix when there are several); --rinex DIR writes",
-        "RINEX 3.04 <STATION>.rnx per station and nav.rnx; --truth FILE writes the truth table plus",
-        "FILE-biases.csv and, with several stations, FILE-gradients.csv. --serve tcp|ntrip serves",
-        "on loopback for ingest tests (NTRIP: one mount per station, named after it, unless",
-        "--station picks one, served as --mount) and stops after --clients connections.",
+        "outputs: --out FILE writes the RTCM 3 + NMEA stream (one file per station, named",
+        "FILE with -STATION before the suffix when there are several; '-' sends the first",
+        "station, or --station, to stdout); --rinex DIR writes RINEX 3.04 <STATION>.rnx per",
+        "station and nav.rnx; --truth FILE writes the truth table plus FILE-biases.csv and,",
+        "with several stations, FILE-gradients.csv. --serve tcp|ntrip serves on loopback for",
+        "ingest tests (NTRIP: one mount per station, named after it, unless --station picks",
+        "one, served as --mount) and stops after --clients connections.",
         "Same scenario + seed + options gives byte-identical output.",
     ]
     return "\n".join(lines)
@@ -92,7 +95,9 @@ def _build(args: argparse.Namespace) -> Simulator:
         if args.second_order:
             sc = replace(sc, second_order=True)
     except ValueError as exc:
-        raise ConfigError("--scenario", str(exc)) from exc
+        text = str(exc)
+        option = next((o for f, o in _FIELD_OPTIONS.items() if text.startswith(f)), "--scenario")
+        raise ConfigError(option, text) from exc
     return Simulator(sc)
 
 
@@ -154,6 +159,7 @@ def _files(args: argparse.Namespace, sim: Simulator, only: int | None) -> int:
         elif args.out is not None:
             for i in chosen:
                 path = _stream_path(args.out, stations[i].name, len(chosen) > 1)
+                path.parent.mkdir(parents=True, exist_ok=True)
                 streams[i] = stack.enter_context(path.open("wb"))
         sinks.streams = streams
         if args.rinex is not None:
@@ -166,6 +172,7 @@ def _files(args: argparse.Namespace, sim: Simulator, only: int | None) -> int:
             sinks.rinex_nav = stack.enter_context((d / "nav.rnx").open("w", encoding="ascii"))
         if args.truth is not None:
             tp = Path(args.truth)
+            tp.parent.mkdir(parents=True, exist_ok=True)
             sinks.truth = stack.enter_context(tp.open("w", encoding="utf-8"))
             sinks.biases = stack.enter_context(
                 tp.with_name(f"{tp.stem}-biases.csv").open("w", encoding="utf-8")

@@ -191,7 +191,8 @@ class GlonassBatch:
 
     def resolve_tb(self, t_gps_s: F64) -> F64:
         """t_b of every row as continuous GPS seconds, resolved against t (see
-        :func:`resolve_glonass_tb`; the leap second count is taken at the first finite t)."""
+        :func:`resolve_glonass_tb`). The leap-second count is looked up at the latest t and reused
+        while t stays within 10 min (GPS − UTC has not changed since 2017)."""
         t_ref = float(np.nanmax(t_gps_s, initial=0.0))
         if abs(t_ref - self._shift_at_s) > _SHIFT_REUSE_S:
             self._shift = _day_shift(t_ref)

@@ -32,6 +32,10 @@ NOMINAL_FLIGHT_TIME_S = 0.075
 #: Transmit times further than this from t_rx − 75 ms (implausible pseudoranges) are evaluated
 #: directly instead of interpolated between grid nodes (s).
 _MAX_INTERPOLATION_OFFSET_S = 1.0
+#: Pseudoranges outside this span (m) are ignored (light time from the geometry instead): MEO
+#: to GEO ranges are 19,000–42,000 km, and receiver clock offsets add up to a few hundred km.
+_PSEUDORANGE_MIN_M = 1.5e7
+_PSEUDORANGE_MAX_M = 5.0e7
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -65,7 +69,8 @@ def satellite_geometry(
 ) -> SatelliteGeometry:
     """Geometry of satellites ``sat_ids`` (m,) seen from ``rx_ecef_m`` (3,) at GPS time
     ``t_rx_gps_s``; ephemerides from a store (selected here) or an existing selection for the
-    same satellites. ``pseudorange_m`` (m,), NaN allowed, fixes the transmit time per satellite.
+    same satellites. ``pseudorange_m`` (m,) fixes the transmit time per satellite; NaN or values
+    outside 15,000–50,000 km fall back to the light-time iteration.
 
     States come from the selection's 30 s grid of exact states (see ``_nodes``: < 0.5 mm from
     the broadcast model); ``exact=True``, or a pseudorange more than a second off the nominal
@@ -86,8 +91,9 @@ def satellite_geometry(
         t0 = np.full(m, t_rx - NOMINAL_FLIGHT_TIME_S)
     else:
         assert pr.shape == (m,), pr.shape
+        geometric = ~((pr > _PSEUDORANGE_MIN_M) & (pr < _PSEUDORANGE_MAX_M))  # also NaN
         t0 = t_rx - pr / C_MPS
-        t0[~np.isfinite(pr)] = t_rx - NOMINAL_FLIGHT_TIME_S
+        t0[geometric] = t_rx - NOMINAL_FLIGHT_TIME_S
 
     k = sel.kepler_index
     g = sel.glonass_index
@@ -118,7 +124,6 @@ def satellite_geometry(
         pos = pos0 + vel0 * (t_tx - t0)[:, None]
     else:
         t_tx = t0 - clk
-        geometric = ~np.isfinite(pr)
         if geometric.any():
             t_tx[geometric] = t_rx - _light_time(pos0, vel0, t0, t_rx, rx)[geometric]
         pos = pos0 + vel0 * (t_tx - t0)[:, None]

@@ -5,6 +5,7 @@ is :class:`DaemonSnapshot` (``_model``).
 """
 
 from ._buffer import OutboundBuffer, OutboundMessage
+from ._credentials import resolve_password, tls_context
 from ._exporter import Exporter, SnapshotCollector
 from ._model import DaemonSnapshot, IngestFigures, MqttStatistics, QueueFigures, StationFigures
 from ._payloads import (
@@ -18,7 +19,7 @@ from ._payloads import (
     station_status_payload,
     summary_payload,
 )
-from ._publisher import TRANSIENT_MQTT_ERRORS, MqttPublisher, resolve_password
+from ._publisher import TRANSIENT_MQTT_ERRORS, MqttPublisher
 from ._topics import DAEMON_SEGMENT, Topic, TopicTree
 
 __all__ = [
@@ -46,4 +47,5 @@ __all__ = [
     "schema_id",
     "station_status_payload",
     "summary_payload",
+    "tls_context",
 ]

@@ -12,7 +12,6 @@ The alarm class drains first. A message leaves the buffer only once the broker a
 
 from __future__ import annotations
 
-import itertools
 from collections import deque
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
@@ -82,10 +81,6 @@ class OutboundBuffer:
         if self._epoch:
             return self._epoch[0]
         return None
-
-    def peek_many(self, n: int) -> list[OutboundMessage]:
-        """Up to ``n`` next messages in sending order (alarm class first), left in place."""
-        return list(itertools.islice(itertools.chain(self._alarm, self._epoch), n))
 
     def pop(self, msg: OutboundMessage) -> None:
         """Remove ``msg`` after it was acknowledged (a no-op if overflow already dropped it)."""

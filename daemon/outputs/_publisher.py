@@ -16,7 +16,6 @@ import contextlib
 import datetime as dt
 import logging
 import socket
-import ssl
 import time
 from importlib import metadata
 from typing import TYPE_CHECKING
@@ -26,11 +25,11 @@ from paho.mqtt.packettypes import PacketTypes
 from paho.mqtt.properties import Properties
 
 from ionwarden.daemon.alarms import AlarmKind, AlarmState, AlarmStatus
-from ionwarden.daemon.errors import ConfigError
 from ionwarden.daemon.runtime._backoff import backoff_delays
 
 from . import _payloads as fmt
 from ._buffer import OutboundBuffer, OutboundMessage
+from ._credentials import resolve_password, tls_context
 from ._model import MqttStatistics
 from ._topics import Topic, TopicTree
 
@@ -45,7 +44,7 @@ if TYPE_CHECKING:
 
     from ._model import DaemonSnapshot
 
-__all__ = ["TRANSIENT_MQTT_ERRORS", "MqttPublisher", "resolve_password"]
+__all__ = ["TRANSIENT_MQTT_ERRORS", "MqttPublisher"]
 
 log = logging.getLogger("ionwarden.daemon.outputs.mqtt")
 
@@ -53,10 +52,6 @@ log = logging.getLogger("ionwarden.daemon.outputs.mqtt")
 #: maps socket, TLS and protocol failures (and negative CONNACKs) to MqttError; anything else is a
 #: bug and crashes the TaskGroup.
 TRANSIENT_MQTT_ERRORS: tuple[type[BaseException], ...] = (aiomqtt.MqttError,)
-#: QoS 1/2 publishes in flight at once (pipelined, acknowledged in order). Round trips to the
-#: broker, not bandwidth, bound the latency of a burst of 20 station epochs; paho's own default
-#: in-flight limit is 20.
-MAX_IN_FLIGHT = 16
 #: Time allowed for the goodbye messages ("offline") on shutdown.
 GOODBYE_TIMEOUT_S = 2.0
 
@@ -70,37 +65,6 @@ def _version() -> str:
         return metadata.version("ionwarden")
     except metadata.PackageNotFoundError:  # running from a source tree without install
         return "0+unknown"
-
-
-def resolve_password(settings: MqttSettings) -> str | None:
-    """The password from ``password`` (env or systemd credential) or ``password_file``."""
-    if settings.password is not None and settings.password_file is not None:
-        raise ConfigError("mqtt.password_file", "set either password or password_file, not both")
-    if settings.password is not None:
-        return settings.password.get_secret_value()
-    if settings.password_file is not None:
-        try:
-            text = settings.password_file.read_text(encoding="utf-8")
-        except OSError as exc:
-            raise ConfigError("mqtt.password_file", f"cannot read: {exc.strerror}") from exc
-        return text.splitlines()[0] if text else ""
-    return None
-
-
-def _tls_context(settings: MqttSettings) -> ssl.SSLContext | None:
-    if not (settings.tls or settings.tls_ca_file or settings.tls_cert_file):
-        return None
-    key = "mqtt.tls_ca_file"
-    try:
-        ctx = ssl.create_default_context(
-            cafile=str(settings.tls_ca_file) if settings.tls_ca_file else None
-        )
-        if settings.tls_cert_file is not None and settings.tls_key_file is not None:
-            key = "mqtt.tls_cert_file"
-            ctx.load_cert_chain(str(settings.tls_cert_file), str(settings.tls_key_file))
-    except (OSError, ssl.SSLError) as exc:
-        raise ConfigError(key, f"cannot load TLS material: {exc}") from exc
-    return ctx
 
 
 class MqttPublisher:
@@ -118,7 +82,7 @@ class MqttPublisher:
         self._s = settings
         self._tree = TopicTree(settings.topic_prefix)
         self._password = resolve_password(settings)
-        self._tls = _tls_context(settings)
+        self._tls = tls_context(settings)
         self._clock = clock
         self._monotonic = monotonic
         self._rng = rng
@@ -330,7 +294,7 @@ class MqttPublisher:
             qos=s.qos_status,
             retain=True,
         )
-        client = aiomqtt.Client(
+        return aiomqtt.Client(
             s.host,
             s.port,
             username=s.username or None,
@@ -345,8 +309,6 @@ class MqttPublisher:
             socket_options=((socket.IPPROTO_TCP, socket.TCP_NODELAY, 1),),
             logger=logging.getLogger("ionwarden.daemon.outputs.mqtt.client"),
         )
-        client.pending_calls_threshold = MAX_IN_FLIGHT + 1  # our window is by design
-        return client
 
     async def run(self) -> None:
         """Connect, publish, reconnect with backoff until :meth:`stop` (or cancellation)."""
@@ -402,32 +364,6 @@ class MqttPublisher:
             msg.topic.value, msg.payload, qos=msg.qos, retain=msg.retain, properties=props
         )
 
-    async def _publish_window(
-        self, client: aiomqtt.Client, window: list[OutboundMessage]
-    ) -> list[float]:
-        """Publish ``window`` pipelined (in order on the wire) and wait for every acknowledgement;
-        returns each message's acknowledgement time. The child tasks live only inside this call.
-        """
-        acked = [0.0] * len(window)
-
-        async def one(i: int, msg: OutboundMessage) -> None:
-            await self._publish(client, msg)
-            acked[i] = self._monotonic()
-
-        if len(window) == 1:
-            await one(0, window[0])
-            return acked
-        try:
-            async with asyncio.TaskGroup() as tg:
-                # Tasks start in creation order and each hands its packet to paho before its
-                # first await, so the wire order is the buffer order.
-                for i, msg in enumerate(window):
-                    tg.create_task(one(i, msg), name=f"daemon.output[mqtt].publish[{i}]")
-        except* TRANSIENT_MQTT_ERRORS as group:
-            first = group.exceptions[0]
-            raise aiomqtt.MqttError(f"publish failed: {first}") from first
-        return acked
-
     async def _session(self, client: aiomqtt.Client) -> None:
         online = OutboundMessage(
             topic=self._tree.daemon_status(),
@@ -438,20 +374,21 @@ class MqttPublisher:
         try:
             await self._publish(client, online)
             while True:
-                window = self._buffer.peek_many(MAX_IN_FLIGHT)
-                if not window:
+                msg = self._buffer.peek()
+                if msg is None:
                     self._drained.set()
                     if self._stop.is_set():
                         break
                     self._wake.clear()
                     await self._wake.wait()
                     continue
-                acked = await self._publish_window(client, window)
-                for msg, t_ack in zip(window, acked, strict=True):
-                    self._buffer.pop(msg)
-                    self._published += 1
-                    if self._on_published is not None:
-                        self._on_published(msg, t_ack - msg.queued_s)
+                # One at a time: with Nagle's algorithm on the broker (mosquitto's default),
+                # pipelined PUBACKs stall ~40 ms on delayed ACKs; measured in bench_outputs.py.
+                await self._publish(client, msg)
+                self._buffer.pop(msg)
+                self._published += 1
+                if self._on_published is not None:
+                    self._on_published(msg, self._monotonic() - msg.queued_s)
         except asyncio.CancelledError:
             with contextlib.suppress(TimeoutError, *TRANSIENT_MQTT_ERRORS):
                 async with asyncio.timeout(GOODBYE_TIMEOUT_S):

@@ -7,6 +7,7 @@ the package ``__init__``: it imports ``outputs``, which itself imports the runti
 
 from __future__ import annotations
 
+import datetime as dt
 import math
 import os
 from dataclasses import replace
@@ -15,13 +16,15 @@ from typing import TYPE_CHECKING
 
 from ionwarden.daemon.alarms import StationAlarms
 from ionwarden.daemon.errors import ConfigError
-from ionwarden.daemon.ingest import NtripSource, parse_source
+from ionwarden.daemon.estimator import StationPipeline
+from ionwarden.daemon.ingest import FileSource, NtripSource, StdinSource, parse_source
 from ionwarden.daemon.outputs import (
     DaemonSnapshot,
     IngestFigures,
     QueueFigures,
     StationFigures,
 )
+from ionwarden.parsers import utc_to_gps
 
 from ._checkpoint import fingerprint
 from ._core import FramingCore
@@ -116,16 +119,34 @@ def options_from_settings(
         checkpoint_max_age_s=rt.checkpoint_max_age_s,
         summary_interval_s=rt.summary_interval_s,
         stop_timeout_s=rt.stop_timeout_s,
+        health_interval_s=settings.mqtt.health_interval_s,
     )
 
 
-def make_factory(settings: Settings) -> Callable[[StationConfig], StationBundle]:
-    """Each station gets its own framer, estimator pipeline (when available) and alarms."""
+def make_factory(
+    settings: Settings, *, utc_now: Callable[[], dt.datetime] | None = None
+) -> Callable[[StationConfig], StationBundle]:
+    """Each station gets its own framer, estimator pipeline and alarms.
+
+    Live sources give the decoder today's date as the reference for MSM times of week; replays
+    leave it to the data (a capture may be years old).
+    """
+    by_name = {st.name: st for st in settings.stations}
+    now = utc_now or (lambda: dt.datetime.now(dt.UTC))
 
     def build(cfg: StationConfig) -> StationBundle:
-        core = FramingCore(consumer=None)  # the estimator's frame consumer plugs in here
+        st = by_name.get(cfg.name)
+        live = not isinstance(cfg.source, (FileSource, StdinSource))
+        pipeline = StationPipeline(
+            cfg.name,
+            settings.estimator,
+            position_ecef_m=st.position_ecef_m if st is not None else None,
+            reference_time=utc_to_gps(now()) if live else None,
+        )
         return StationBundle(
-            core=core, produces_epochs=False, alarms=StationAlarms(cfg.name, settings.alarms)
+            core=FramingCore(consumer=pipeline),
+            produces_epochs=True,
+            alarms=StationAlarms(cfg.name, settings.alarms),
         )
 
     return build
@@ -148,7 +169,7 @@ def build_daemon_snapshot(
                 ingest=IngestFigures(
                     bytes_total=st.bytes_total,
                     frames_total=d.frames_total,
-                    crc_errors_total=d.crc_errors_total,
+                    crc_errors_total=d.crc_errors_total + d.checksum_errors_total,
                     discarded_bytes_total=d.discarded_bytes_total,
                     reconnects_total=st.reconnects_total,
                     connected=st.connected,

@@ -59,6 +59,12 @@ RETRYABLE_ERRORS: tuple[type[Exception], ...] = (TransportError,)
 TOLERATED_DECODE_ERRORS: tuple[type[Exception], ...] = (ParseError,)
 
 
+#: A paced replay reads this many bytes at a time (an MSM4 epoch of ~40 satellites is ~1.5 kB)...
+PACED_READ_BYTES = 1024
+#: ...and queues at most this many chunks ahead of the estimator.
+PACED_QUEUE_CHUNKS = 4
+
+
 class StationState(enum.StrEnum):
     STARTING = "starting"
     CONNECTING = "connecting"
@@ -159,8 +165,16 @@ class StationRunner:
         self._opener = opener or (lambda spec, pw: open_transport(spec, password=pw))
         self._rng = rng
         policy = Overflow.WAIT if config.finite else Overflow.DROP_OLDEST
+        qsize, self._read_size = config.queue_size, config.read_size
+        if isinstance(config.source, FileSource) and config.source.speed > 0:
+            # Paced replay: pacing happens per chunk, so chunks must hold about one epoch, and
+            # reading ahead only costs memory.
+            qsize, self._read_size = (
+                min(qsize, PACED_QUEUE_CHUNKS),
+                min(self._read_size, PACED_READ_BYTES),
+            )
         self.queue: BoundedQueue[bytes | object] = BoundedQueue(
-            config.queue_size, policy, stage="estimator", station=config.name
+            qsize, policy, stage="estimator", station=config.name
         )
         limits = config.stall
         if not produces_epochs:
@@ -307,10 +321,10 @@ class StationRunner:
             deadline = det.deadline()
             try:
                 if deadline == float("inf"):
-                    data = await transport.read(self.config.read_size)
+                    data = await transport.read(self._read_size)
                 else:
                     async with asyncio.timeout_at(deadline):
-                        data = await transport.read(self.config.read_size)
+                        data = await transport.read(self._read_size)
             except TimeoutError:
                 data = None
             now = loop.time()

@@ -44,7 +44,7 @@ def format_summary(s: StationStatistics, *, epoch_rate_hz: float | None = None) 
     if snap is not None:
         t = snap.time.to_utc().strftime("%H:%M:%S")
         parts += [
-            f"{t} GPS-UTC",
+            f"{t} UTC",
             f"sats {snap.n_sats:2d}",
             f"VTEC {_num(snap.vtec_tecu, '5.1f')} TECU",
             f"ROTI max {_num(snap.roti_max_tecu_per_min, '.2f')} TECU/min",

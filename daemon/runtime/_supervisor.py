@@ -56,6 +56,8 @@ class DaemonOptions:
     checkpoint_max_age_s: float = 6 * 3600.0
     summary_interval_s: float = 10.0
     status_interval_s: float = 1.0
+    #: Seconds between MQTT daemon-health messages (the publisher's ``health_interval_s``).
+    health_interval_s: float = 10.0
     stop_timeout_s: float = 4.0
     #: Stop when every station's source has ended (replays, stdin); live sources never end.
     exit_when_sources_end: bool = True
@@ -111,6 +113,8 @@ class Daemon:
         self._tg: asyncio.TaskGroup | None = None
         self.ready = asyncio.Event()
         self.stats_history: dict[str, tuple[float, int]] = {}
+        #: The last statistics of each station stopped (at shutdown or by a reload).
+        self.stopped_statistics: dict[str, StationStatistics] = {}
 
     # -- control (sync, safe from signal handlers) --------------------------------------------------
     def request_stop(self) -> None:
@@ -146,11 +150,8 @@ class Daemon:
                     transitions = alarms.observe_fix(item)
             elif isinstance(item, SourceEvent):
                 log.debug("%s: source %s %s", item.station, item.state.value, item.detail)
-            if transitions:
-                for tr in transitions:
-                    log.warning("%s: alarm %s", name, tr)
-                if pub is not None:
-                    pub.publish_transitions_nowait(transitions)
+            if transitions and pub is not None:  # the alarm engine logs each transition itself
+                pub.publish_transitions_nowait(transitions)
 
         return emit
 
@@ -170,7 +171,11 @@ class Daemon:
                 bundle.core.load_state_dict(state)
                 log.info("%s: restored checkpointed state", cfg.name)
         runner = StationRunner(
-            cfg, bundle.core, emit=self._emit_for(cfg.name), produces_epochs=bundle.produces_epochs
+            cfg,
+            bundle.core,
+            emit=self._emit_for(cfg.name),
+            produces_epochs=bundle.produces_epochs,
+            on_finished=self._wake.set,
         )
         running = _Running(runner=runner, bundle=bundle)
         self._stations[cfg.name] = running
@@ -185,6 +190,7 @@ class Daemon:
         for task in running.tasks:
             task.cancel()
         await asyncio.wait(running.tasks)
+        self.stopped_statistics[name] = running.runner.statistics()
         self._checkpoint_one(running)
 
     def _checkpoint_one(self, running: _Running) -> None:
@@ -250,7 +256,7 @@ class Daemon:
         loop = asyncio.get_running_loop()
         wd = watchdog_interval_s()
         opts = self.options
-        last_wd = last_summary = loop.time()
+        last_wd = last_summary = last_health = loop.time()
         last_status = ""
         while True:
             await asyncio.sleep(opts.status_interval_s)
@@ -261,6 +267,13 @@ class Daemon:
             if status != last_status:
                 self.notifier.notify(f"STATUS={status}")
                 last_status = status
+            if (
+                self._publisher is not None
+                and self._build_snapshot is not None
+                and now - last_health >= opts.health_interval_s
+            ):
+                self._publisher.publish_health_nowait(self._build_snapshot(self))
+                last_health = now
             if wd is not None and now - last_wd >= wd:
                 stuck = [
                     r.runner.name for r in self._stations.values() if r.runner.is_stuck(now, 2 * wd)
@@ -331,6 +344,9 @@ class Daemon:
                 if self._publisher is not None:
                     await self._publisher.wait_ready()
                 self._publish_status()
+                if self._publisher is not None:  # retained alarm states, all "normal" at start
+                    for alarms in self.station_alarms():
+                        self._publisher.publish_alarm_states_nowait(alarms.statuses())
                 self.notifier.notify("READY=1", f"STATUS={format_status(self.statistics())}")
                 self.ready.set()
                 log.info("ready: %d station(s)", len(self._stations))

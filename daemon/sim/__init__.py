@@ -6,6 +6,7 @@ observation and navigation files, truth CSV tables; loopback TCP / NTRIP servers
 """
 
 from ._constellation import Constellation, EphemerisSeries, build_constellation
+from ._demo import DEMO_LIMIT_BYTES, DEMO_SEED, DEMO_STATION, build_demo, demo_path
 from ._engine import BLOCK_EPOCHS, Simulator
 from ._observe import BlockGeometry, SimBlock
 from ._output import SimSummary, Sinks, iter_stream, nav_ephemerides, rinex_header, run_to_sinks
@@ -30,6 +31,9 @@ from ._truth import BIAS_COLUMNS, GRADIENT_COLUMNS, TRUTH_COLUMNS
 __all__ = [
     "BIAS_COLUMNS",
     "BLOCK_EPOCHS",
+    "DEMO_LIMIT_BYTES",
+    "DEMO_SEED",
+    "DEMO_STATION",
     "GRADIENT_COLUMNS",
     "SCENARIO_HELP",
     "TRUTH_COLUMNS",
@@ -53,7 +57,9 @@ __all__ = [
     "StreamGap",
     "block_epochs",
     "build_constellation",
+    "build_demo",
     "build_scenario",
+    "demo_path",
     "epoch_of",
     "iter_stream",
     "nav_ephemerides",

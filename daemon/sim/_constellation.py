@@ -1,13 +1,13 @@
 """Invented Walker-like constellations as broadcast ephemerides that the orbit code propagates.
 
 Every value is built on the LSB grid of its RTCM field (RTCM 10403.3 Tables 3.5-21, -22, -19, -20;
-finest common grid across 1019/1045/1042), so the ephemeris a receiver decodes is the simulator's
+on the coarsest LSB of each field across 1019/1045/1042), so the ephemeris a receiver decodes is the simulator's
 truth to the last bit. Consecutive sets continue the same orbit: the per-set increments of M0, Ω0
 and a_f0 are whole LSBs, by choosing √A (mean motion), Ω̇ and a_f1 on grids that make them so. BeiDou
 GEO node terms and GLONASS state vectors cannot be kept on the grid across sets: their truth steps by
 up to a few centimetres (GEO) or about 10 cm and 2 cm/s (GLONASS, after trading a few LSBs of
 position against velocity, see :func:`_glonass_on_grid`) at set changes, exactly as the broadcast
-orbits do.
+orbits do. Across a week rollover Ω0 is re-referenced to the new week, which costs about 1 cm.
 
 Validity windows (continuous GPS seconds, SCIENCE.md §6): GPS t_oe every 2 h, used ±1 h; Galileo
 every hour, ±30 min; BeiDou every BDT hour (GPS + 14 s), ±30 min; GLONASS t_b every 30 min of
@@ -22,7 +22,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from ionwarden.daemon.geo import KeplerBatch
+from ionwarden.daemon.geo import GlonassBatch, KeplerBatch, glonass_state
 from ionwarden.daemon.geo._constants import (
     MU_BDS_M3PS2,
     MU_GAL_M3PS2,
@@ -31,7 +31,7 @@ from ionwarden.daemon.geo._constants import (
     OMEGA_E_GAL_RADPS,
     OMEGA_E_GPS_RADPS,
 )
-from ionwarden.daemon.geo._glonass import GlonassBatch, glonass_state, rk4_propagate
+from ionwarden.daemon.geo._glonass import rk4_propagate
 from ionwarden.parsers import (
     BDS_GPS_OFFSET_S,
     SECONDS_PER_WEEK,

@@ -52,6 +52,7 @@ BLOCK_EPOCHS = 300
 #: Signal-travel guess at which orbits are propagated; the exact time is reached by a linear step.
 _TAU0_S = 0.075
 _ROT_LAG_S = 30.0
+_ROTI_WINDOW_S = 300.0
 _CLOCK_STEER_S = 1e-3
 
 
@@ -145,6 +146,33 @@ class Simulator:
                 )
                 for s in range(len(self.scenario.stations))
             ]
+
+    def _roti(
+        self, st: StationState, rot: npt.NDArray[np.float64], cols: npt.NDArray[np.intp]
+    ) -> npt.NDArray[np.float64]:
+        """Truth ROTI: standard deviation of the ROT samples of the last 5 min (SCIENCE.md §5),
+        NaN until the window holds at least half its samples."""
+        sc = self.scenario
+        win = max(2, round(_ROTI_WINDOW_S * sc.rate_hz))
+        e = rot.shape[0]
+        full = np.full((e, self.sats.shape[0]), np.nan)
+        full[:, cols] = rot
+        hist = np.concatenate([st.rot_hist, full], axis=0)
+        st.rot_hist = hist[-(win - 1) :] if win > 1 else hist[:0]
+        ok = np.isfinite(hist)
+        x = np.where(ok, hist, 0.0)
+        zero = np.zeros((1, hist.shape[1]))
+        c_n = np.concatenate([zero, np.cumsum(ok, axis=0)])
+        c_s = np.concatenate([zero, np.cumsum(x, axis=0)])
+        c_q = np.concatenate([zero, np.cumsum(x * x, axis=0)])
+        end = np.arange(hist.shape[0] - e, hist.shape[0]) + 1
+        start = np.maximum(end - win, 0)
+        n = c_n[end] - c_n[start]
+        mean = (c_s[end] - c_s[start]) / np.maximum(n, 1)
+        var = (c_q[end] - c_q[start]) / np.maximum(n, 1) - mean * mean
+        roti = np.sqrt(np.maximum(var, 0.0))
+        roti = np.where((n >= win / 2) & np.isfinite(full), roti, np.nan)
+        return np.asarray(roti[:, cols], dtype=np.float64)
 
     # --- one station, one block -------------------------------------------------------------
     def _clock(
@@ -241,6 +269,7 @@ class Simulator:
                     lag * sc.interval_s / 60.0
                 )
         st.stec_hist = hist[-lag:]
+        roti = self._roti(st, rot, cols)
         trop = zenith_trop * tropo_mapping(el_pos)
         geom = BlockGeometry(
             station=s_idx,
@@ -260,6 +289,7 @@ class Simulator:
             stec_tecu=stec,
             vtec_tecu=vtec,
             rot_tecu_per_min=rot,
+            roti_tecu_per_min=roti,
             ipp_lat_rad=ipp_lat,
             ipp_lon_rad=ipp_lon,
             tropo_m=trop,

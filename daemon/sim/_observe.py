@@ -52,6 +52,7 @@ class StationState:
         self.half_from = np.full(shape, np.inf)
         self.half_until = np.full(shape, -np.inf)
         self.stec_hist = np.full((0, n_sats), np.nan)
+        self.rot_hist = np.full((0, n_sats), np.nan)
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -75,6 +76,7 @@ class BlockGeometry:
     stec_tecu: npt.NDArray[np.float64]
     vtec_tecu: npt.NDArray[np.float64]
     rot_tecu_per_min: npt.NDArray[np.float64]
+    roti_tecu_per_min: npt.NDArray[np.float64]
     ipp_lat_rad: npt.NDArray[np.float64]
     ipp_lon_rad: npt.NDArray[np.float64]
     tropo_m: npt.NDArray[np.float64]

@@ -15,8 +15,8 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from ionwarden.daemon.geo import KeplerBatch, kepler_state
-from ionwarden.daemon.geo._glonass import GLONASS_STEP_S, GlonassBatch
+from ionwarden.daemon.geo import GlonassBatch, KeplerBatch, kepler_state
+from ionwarden.daemon.geo._glonass import GLONASS_STEP_S
 
 if TYPE_CHECKING:
     import numpy.typing as npt

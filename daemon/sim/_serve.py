@@ -55,11 +55,16 @@ def _check_loopback(host: str) -> None:
 
 
 async def _pump(
-    writer: asyncio.StreamWriter, stream: Iterator[tuple[float, bytes]], speed: float, chunked: bool
-) -> int:
+    writer: asyncio.StreamWriter,
+    stream: Iterator[tuple[float, bytes]],
+    speed: float,
+    chunked: bool,
+    sent: list[int],
+) -> None:
+    """Write the stream (paced at ``speed`` × real time); ``sent[0]`` counts payload bytes as
+    they go, so a client that leaves early is still accounted for."""
     loop = asyncio.get_running_loop()
     t0 = loop.time()
-    sent = 0
     for t_rel, data in stream:
         if speed > 0.0:
             delay = t0 + t_rel / speed - loop.time()
@@ -69,11 +74,10 @@ async def _pump(
             continue
         writer.write(b"%x\r\n%s\r\n" % (len(data), data) if chunked else data)
         await writer.drain()
-        sent += len(data)
+        sent[0] += len(data)
     if chunked:
         writer.write(b"0\r\n\r\n")
         await writer.drain()
-    return sent
 
 
 class _Server:
@@ -98,7 +102,7 @@ class _Server:
         self._accepted = 0
         self._done = asyncio.Event()
         self._first = asyncio.Event()
-        self.bytes_sent = 0
+        self._sent = [0]
 
     async def _handle(self, reader: asyncio.StreamReader, writer: asyncio.StreamWriter) -> None:
         if self._accepted >= self._opt.max_clients:
@@ -110,7 +114,7 @@ class _Server:
             if self._ntrip:
                 await self._ntrip_session(reader, writer)
             else:
-                self.bytes_sent += await _pump(writer, self._factory(), self._opt.speed, False)
+                await _pump(writer, self._factory(), self._opt.speed, False, self._sent)
         except (ConnectionError, TimeoutError) as exc:  # a client going away is routine here
             _LOG.info("simulate: client ended early: %s", exc)
         finally:
@@ -177,7 +181,7 @@ class _Server:
             )
         else:
             writer.write(f"{status} 200 OK\r\n\r\n".encode())
-        self.bytes_sent += await _pump(writer, factory(), self._opt.speed, v2)
+        await _pump(writer, factory(), self._opt.speed, v2, self._sent)
 
     async def run(self, port_ready: asyncio.Future[int] | None) -> int:
         server = await asyncio.start_server(
@@ -196,7 +200,7 @@ class _Server:
                 await self._done.wait()
             finally:
                 server.close()
-        return self.bytes_sent
+        return self._sent[0]
 
 
 async def serve_tcp(

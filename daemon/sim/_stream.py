@@ -12,7 +12,7 @@ channels before the first MSM4, which carries none):
 4. on whole seconds: GGA, RMC and GST, and every ``gsv_every_s`` the GSV groups (one per
    constellation) (NMEA 0183 §6.3).
 
-Epochs inside a scenario stream gap produce no bytes. Pure: the caller owns every file and socket.
+Epochs inside a scenario stream gap or receiver restart produce no bytes. Pure: the caller owns every file and socket.
 """
 
 from __future__ import annotations
@@ -224,9 +224,11 @@ class StreamComposer:
         """Everything the receiver sends for epoch ``e`` of ``block`` (b"" inside a stream gap)."""
         if not block.in_stream[e]:
             return b""
+        rel = float(block.geometry.epoch_index[e]) / self._sim.scenario.rate_hz
+        if any(r.t_s <= rel < r.t_s + r.duration_s for r in self._sim.scenario.restarts):
+            return b""  # a rebooting receiver sends nothing at all
         epoch = epoch_of(block, e, self._station.station_id)
         t = epoch.time.total_s
-        rel = t - self._sim.scenario.start.total_s
         parts: list[bytes] = []
         if not self._started or _on_grid(rel, self._station_every_s):
             parts.append(self._ref)

@@ -36,7 +36,7 @@ __all__ = [
 C_MPS = 299_792_458.0
 TRUTH_COLUMNS = (
     "station", "week", "tow_s", "sat", "az_deg", "el_deg", "ipp_lat_deg", "ipp_lon_deg",
-    "stec_tecu", "vtec_tecu", "rot_tecu_per_min", "iono_l1_m", "range_m", "sat_clock_m",
+    "stec_tecu", "vtec_tecu", "rot_tecu_per_min", "roti_tecu_per_min", "iono_l1_m", "range_m", "sat_clock_m",
     "rx_clock_m", "tropo_m", "if_expected_m", "n_signals", "slip_signals", "in_stream",
 )  # fmt: skip
 BIAS_COLUMNS = ("station", "sat", "signal", "freq_hz", "sat_bias_m", "rx_bias_m")
@@ -77,6 +77,7 @@ def format_truth(block: SimBlock, station: str, header: bool = False) -> str:
         _fmt(g.stec_tecu[rows], 4),
         _fmt(g.vtec_tecu[rows], 4),
         _fmt(g.rot_tecu_per_min[rows], 4),
+        _fmt(g.roti_tecu_per_min[rows], 4),
         _fmt(block.iono_m[e_i, s_i, 0], 4),
         _fmt(g.range_m[rows], 4),
         _fmt(C_MPS * g.sat_clock_s[rows], 4),

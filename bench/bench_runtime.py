@@ -1,0 +1,112 @@
+"""Runtime cost: CPU per 1 Hz station through the full pipeline, many stations in one process, RSS.
+
+    .venv/bin/python bench/bench_runtime.py [--stations 200] [--seconds 30]
+
+1. Pipeline only (framer + MSM decode + estimator, no asyncio): CPU per epoch over the bundled demo
+   capture, reported as % of one core for a 1 Hz station.
+2. The real daemon (one root TaskGroup, a file source per station replayed at 1x real time, so
+   every station delivers one epoch per second): 20 stations (RSS), then N stations (default 200)
+   sustained for S seconds: process CPU % of one core, epochs delivered vs expected, queue peaks.
+Figures depend on the machine and on other load (the dev machines are shared: say so when quoting).
+"""
+
+from __future__ import annotations
+
+import argparse
+import asyncio
+import resource
+import time
+from pathlib import Path
+
+import numpy as np
+
+from ionwarden.daemon.config import EstimatorSettings
+from ionwarden.daemon.estimator import StationPipeline, StationSnapshot
+from ionwarden.daemon.ingest import FileSource
+from ionwarden.daemon.runtime import FramingCore, StationConfig
+from ionwarden.daemon.runtime._supervisor import Daemon, DaemonOptions, StationBundle
+
+DEMO = Path(__file__).resolve().parents[1] / "daemon" / "data" / "demo.bin"
+
+
+def rss_mb() -> float:
+    for line in Path("/proc/self/status").read_text().splitlines():
+        if line.startswith("VmRSS:"):
+            return int(line.split()[1]) / 1024
+    return float("nan")
+
+
+def pipeline_only(data: bytes) -> None:
+    core = FramingCore(consumer=StationPipeline("bench", EstimatorSettings()))
+    chunk = 4096
+    cells = []
+    t0 = time.process_time()
+    n = 0
+    for i in range(0, len(data), chunk):
+        for out in core.feed(data[i : i + chunk]):
+            if isinstance(out, StationSnapshot):
+                n += 1
+                cells.append(out.cell_sat.size)
+    dt = time.process_time() - t0
+    print(
+        f"[pipeline] demo capture: {len(data) / 1e6:.2f} MB, {n} epochs, "
+        f"{np.mean(cells):.0f} cells/epoch (satellite x signal), {core.counts().frames_total} frames"
+    )
+    print(
+        f"[pipeline] CPU {dt:.2f} s -> {1e3 * dt / n:.3f} ms/epoch "
+        f"-> {100 * dt / n:.3f} % of one core per 1 Hz station "
+        f"(~{90 / np.mean(cells) * 100 * dt / n:.3f} % scaled to 30 sats x 3 signals = 90 cells)"
+    )
+
+
+def factory(cfg: StationConfig) -> StationBundle:
+    pipe = StationPipeline(cfg.name, EstimatorSettings())
+    return StationBundle(core=FramingCore(consumer=pipe), produces_epochs=True)
+
+
+async def fleet(n: int, seconds: float) -> tuple[float, float, int, int, int]:
+    stations = tuple(
+        StationConfig(
+            name=f"st{i:03d}", source=FileSource(path=str(DEMO), speed=1.0), queue_size=64
+        )
+        for i in range(n)
+    )
+    daemon = Daemon(
+        DaemonOptions(stations=stations, summary_interval_s=0, exit_when_sources_end=False),
+        factory=factory,
+    )
+    async with asyncio.TaskGroup() as tg:
+        tg.create_task(daemon.run(), name="bench.daemon")
+        await daemon.ready.wait()
+        await asyncio.sleep(3.0)  # warm-up: first ephemerides, first epochs
+        e0 = sum(s.epochs_total for s in daemon.statistics())
+        c0, w0 = time.process_time(), time.monotonic()
+        await asyncio.sleep(seconds)
+        cpu, wall = time.process_time() - c0, time.monotonic() - w0
+        stats = daemon.statistics()
+        daemon.request_stop()
+    epochs = sum(s.epochs_total for s in stats) - e0
+    peak = max(s.queue.peak for s in stats)
+    drops = sum(s.queue.dropped_total for s in stats)
+    return cpu, wall, epochs, peak, drops
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--stations", type=int, default=200)
+    ap.add_argument("--seconds", type=float, default=30.0)
+    args = ap.parse_args()
+    print(f"[daemon] RSS after imports, no station: {rss_mb():.0f} MB")
+    for n, secs in ((20, min(args.seconds, 15.0)), (args.stations, args.seconds)):
+        cpu, wall, epochs, peak, drops = asyncio.run(fleet(n, secs))
+        print(
+            f"[daemon] {n} stations x 1 Hz for {wall:.1f} s: CPU {100 * cpu / wall:.1f} % of one core "
+            f"({100 * cpu / wall / n:.3f} %/station), epochs {epochs} of ~{int(n * wall)} expected, "
+            f"queue peak {peak}, drops {drops}, RSS now {rss_mb():.0f} MB, "
+            f"peak RSS {resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024:.0f} MB"
+        )
+    pipeline_only(DEMO.read_bytes())
+
+
+if __name__ == "__main__":
+    main()
