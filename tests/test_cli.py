@@ -75,3 +75,13 @@ def test_logging_json_format_one_object_per_line(capsys: pytest.CaptureFixture[s
     finally:
         root.handlers[:], level = saved
         root.setLevel(level)
+
+
+@pytest.mark.slow
+def test_cli_bench_prints_measured_figures(capsys: pytest.CaptureFixture[str]) -> None:
+    """`ionwarden bench` measures decode and pipeline throughput on the bundled demo."""
+    assert main(["bench", "--seconds", "0.01"]) == 0
+    out = capsys.readouterr().out
+    assert "decode" in out
+    assert "pipeline" in out
+    assert "epochs/s" in out

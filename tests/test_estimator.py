@@ -254,7 +254,7 @@ def test_estimator_receiver_bias_estimated_and_persisted():
     state = json.loads(json.dumps(est.state_dict()))
     fresh = StationEstimator()
     fresh.load_state(state)
-    np.testing.assert_allclose(fresh.rx_bias.bias, est.rx_bias.bias)
+    np.testing.assert_allclose(fresh.biases.rx.bias, est.biases.rx.bias)
     with pytest.raises(ValueError, match="version"):
         fresh.load_state({"version": 99})
 
@@ -281,7 +281,11 @@ def test_estimator_time_reset_restarts_arcs():
 
 def test_estimator_twenty_hz_rot_uses_thirty_second_lag():
     """StationEstimator at 20 Hz differences STEC 30 s apart (SCIENCE.md §5): ROT within 0.1 TECU/min of the truth."""
-    tr = generate(Scenario(n_sats=4, duration_s=90.0, interval_s=0.05, wave_amp_tecu=0.5, signals=("1C", "2W")))
+    tr = generate(
+        Scenario(
+            n_sats=4, duration_s=90.0, interval_s=0.05, wave_amp_tecu=0.5, signals=("1C", "2W")
+        )
+    )
     snaps = run(tr, StationEstimator())
     rot = stack(snaps, tr, "rot_tecu_per_min")
     lag = 600  # 30 s at 20 Hz

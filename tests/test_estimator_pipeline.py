@@ -117,8 +117,8 @@ def test_pipeline_state_survives_runtime_checkpoint(tmp_path, rtk134):
     assert back is not None
     fresh = StationPipeline("RTK134")
     fresh.load_state_dict(back)
-    np.testing.assert_allclose(fresh.estimator.rx_bias.bias, p.estimator.rx_bias.bias)
-    np.testing.assert_allclose(fresh.estimator.rx_bias.normal, p.estimator.rx_bias.normal)
+    np.testing.assert_allclose(fresh.estimator.biases.rx.bias, p.estimator.biases.rx.bias)
+    np.testing.assert_allclose(fresh.estimator.biases.rx.normal, p.estimator.biases.rx.normal)
 
 
 def test_pipeline_position_precedence():

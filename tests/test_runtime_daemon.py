@@ -355,3 +355,43 @@ def test_daemon_feeds_the_exporter_real_scrape() -> None:
     assert float(m.group(1)) > 0
     assert 'ionwarden_ingest_connected{station="a"} 1.0' in body
     assert re.search(r'ionwarden_queue_capacity\{stage="estimator",station="a"\} 64', body)
+
+
+def test_daemon_garbage_flood_on_one_station_does_not_starve_another() -> None:
+    """Daemon keeps a 1 Hz station on time while another station's receiver spews 20 MB of noise."""
+    noise = random.Random(5).randbytes(1 << 20)  # common practice: seeded noise
+
+    async def spew(_r: asyncio.StreamReader, w: asyncio.StreamWriter) -> None:
+        for _ in range(20):
+            w.write(noise)
+            await w.drain()
+        await asyncio.sleep(3600)
+
+    async def main() -> None:
+        loop = asyncio.get_running_loop()
+        cores: dict[str, StandInCore] = {}
+        async with Fleet(1) as fleet, ScriptedServer(spew) as bad:
+            opts = DaemonOptions(
+                stations=(_station("good", fleet.ports()[0]), _station("noisy", bad.port)),
+                summary_interval_s=0,
+            )
+            daemon = Daemon(opts, factory=_factory(cores))
+            async with asyncio.TaskGroup() as tg:
+                tg.create_task(daemon.run(), name="test.daemon")
+                await daemon.ready.wait()
+                t0 = loop.time()
+                while True:
+                    noisy = next(s for s in daemon.statistics() if s.station == "noisy")
+                    if noisy.bytes_total >= 20 << 20 and noisy.queue.depth == 0:
+                        break
+                    await asyncio.sleep(1.0)
+                elapsed = loop.time() - t0
+                good = next(s for s in daemon.statistics() if s.station == "good")
+                daemon.request_stop()
+        assert noisy.decoder.discarded_bytes_total + noisy.queue.dropped_total * 65536 >= 19 << 20
+        seq = [int.from_bytes(p[2:6], "big") for p in cores["good"].seen]
+        assert seq == list(range(len(seq)))  # no frame of the good station lost
+        assert len(seq) >= int(elapsed) - 1  # and it kept pace at 1 Hz throughout
+        assert good.queue.dropped_total == 0
+
+    run_virtual(main())

@@ -47,7 +47,14 @@ def test_run_process_notifies_reloads_on_sighup_and_stops_on_sigterm(tmp_path: P
         sock.bind(str(notify))
         env = dict(os.environ, NOTIFY_SOCKET=str(notify), PYTHONPATH=str(REPO))
         proc = subprocess.Popen(
-            [sys.executable, "-m", "ionwarden.daemon.cli", "run", "--config", str(cfg)],
+            [
+                sys.executable,
+                "-c",
+                "import sys; from ionwarden.daemon.cli import main; sys.exit(main())",
+                "run",
+                "--config",
+                str(cfg),
+            ],
             env=env,
             stdout=subprocess.DEVNULL,
             stderr=subprocess.PIPE,

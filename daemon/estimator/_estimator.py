@@ -24,12 +24,12 @@ import numpy.typing as npt
 
 from ionwarden.daemon.config import EstimatorSettings
 from ionwarden.daemon.geo import mapping_factor
-from ionwarden.parsers import MAX_SAT_ID, SYSTEMS, sat_id
+from ionwarden.parsers import MAX_SAT_ID
 
 from ._arcs import REASON_NAMES, REASON_PAIR, ArcState, SlipThresholds
+from ._biases import BiasModel
 from ._geometry import Geometry
 from ._pairs import C_MPS, PairTable, band_delays_s, iono_coefficients
-from ._rxbias import ReceiverBias
 from ._snapshot import SatelliteFigures, StationSnapshot
 from ._state import (
     ALPHA,
@@ -64,10 +64,6 @@ __all__ = ["StationEstimator"]
 F64 = npt.NDArray[np.float64]
 Idx = npt.NDArray[np.intp]
 N_SIG = 10 * 32  # packed signal codes are band*32 + attribute, bands 0–9
-#: A receiver-bias estimate is applied to STEC once its 1-σ is at most this (TECU).
-_BIAS_APPLY_SIGMA_TECU = 3.0
-#: Samples (one per receiver-bias update) before a satellite's combined bias is applied.
-_COMB_MIN_SAMPLES = 8.0
 #: An epoch this much older than the last one restarts the time-dependent state (s).
 _TIME_RESET_S = 3600.0
 #: Epoch intervals remembered to estimate the sampling interval (median).
@@ -90,7 +86,6 @@ class StationEstimator:
         self.settings = cfg
         self.station = station
         self.pairs = PairTable.from_config(cfg.pairs)
-        w = self.pairs.width
         self._shell_m = cfg.shell_height_km * 1000.0
         self._mask_rad = math.radians(cfg.elevation_mask_deg)
         S = MAX_SAT_ID
@@ -102,23 +97,7 @@ class StationEstimator:
         )
         self.rot_ring = LagRing(S, cfg.rot_interval_s)
         self.roti_window = SlotStd(S, cfg.roti_window_s, cfg.roti_sample_s)
-        labels = [f"{SYSTEMS[s]}:{lab}" if lab else "" for s in range(len(SYSTEMS)) for lab in
-                  (*self.pairs.labels[s], *([""] * (w - len(self.pairs.labels[s]))))]  # fmt: skip
-        self.rx_bias = ReceiverBias(labels, cfg.receiver_bias_memory_s)
-        # Per-satellite state (S slots).
-        self._dcb_override_ns = np.full((S, w), np.nan)
-        #: Satellite code-bias term of P2 − P1 per (satellite, pair rank), m: c·(d₂ − d₁) from the
-        #: broadcast group delays (0 where unknown) or −c·DCB from config; × K gives TECU.
-        self._sat_bias_m = np.zeros((S, w))
-        self._sat_bias_known = np.zeros((S, w), np.bool_)
-        #: Satellites without a known satellite bias (GLONASS, GPS L5 …) stay out of the
-        #: receiver-bias fit; their combined satellite + receiver bias (TECU) is the
-        #: forgetting-weighted mean of their residual from the fitted VTEC model instead.
-        self._comb_sum = np.zeros((S, w))
-        self._comb_weight = np.zeros((S, w))
-        self._comb_applied = np.zeros((S, w))
-        self._comb_count = np.zeros((S, w))
-        self._fit_all = True
+        self.biases = BiasModel(self.pairs, cfg, S)
         self._seen = np.zeros(S, np.int64)
         # Per-cell lookup by (satellite, signal), stamped per epoch instead of cleared.
         self._cell_stamp = np.zeros((S, N_SIG), np.int64)
@@ -129,40 +108,13 @@ class StationEstimator:
         self._interval = 1.0  # s, median of the recent epoch intervals
         self._last_eph: dict[int, KeplerEphemeris | GlonassEphemeris] = {}
         self._n_epochs = 0
-        self._rb_last_t = -math.inf
         self._last_roti_median = math.nan
-        self._ref_group = -1
-        #: Receiver bias per group as applied to STEC: the estimate once its σ is below
-        #: _BIAS_APPLY_SIGMA_TECU, else 0 (a poorly determined estimate would only add noise).
-        self._bias_applied = np.zeros(len(labels))
         self._last: StationSnapshot | None = None
         self.counters: dict[str, int] = {"epochs": 0, "epochs_out_of_order": 0, "cells_unusable": 0}
         for name in REASON_NAMES.values():
             self.counters[f"arcs_{name}"] = 0
-        self._apply_dcb_overrides(cfg.satellite_dcb_ns)
 
     # -- inputs other than observations -----------------------------------------------------------
-    def _apply_dcb_overrides(self, table: dict[str, dict[str, float]]) -> None:
-        for sat_name, per_pair in table.items():
-            sat = sat_id(sat_name[0], int(sat_name[1:]))
-            labels = self.pairs.labels[sat // 100]
-            for label, ns in per_pair.items():
-                if label not in labels:
-                    raise ValueError(f"satellite_dcb_ns.{sat_name}: pair {label!r} not configured")
-                self._dcb_override_ns[sat, labels.index(label)] = ns
-            self._set_satellite_bias(sat, np.full(10, np.nan))
-
-    def _set_satellite_bias(self, sat: int, delays_s: F64) -> None:
-        """Fill the (satellite, rank) bias row from band delays and the config overrides."""
-        sysi = sat // 100
-        band1 = self.pairs.sig1[sysi] // 32
-        band2 = self.pairs.sig2[sysi] // 32
-        row = C_MPS * (delays_s[band2] - delays_s[band1])
-        over = self._dcb_override_ns[sat]
-        row = np.where(np.isnan(over), row, -C_MPS * over * 1e-9)
-        self._sat_bias_known[sat] = ~np.isnan(row)
-        self._sat_bias_m[sat] = np.where(np.isnan(row), 0.0, row)
-
     def add_ephemeris(self, eph: KeplerEphemeris | GlonassEphemeris) -> None:
         """Use a broadcast ephemeris for geometry and its group delays for the satellite bias."""
         if not 0 <= eph.sat < MAX_SAT_ID or self._last_eph.get(eph.sat) == eph:
@@ -172,7 +124,7 @@ class StationEstimator:
         self.geometry.add_ephemeris(eph, t)
         delays = band_delays_s(eph)
         if np.isfinite(delays).any():
-            self._set_satellite_bias(eph.sat, delays)
+            self.biases.set_delays(eph.sat, delays)
 
     def set_receiver_position(self, ecef_m: npt.ArrayLike, source: str) -> None:
         """Receiver antenna position (ECEF m) from config, RTCM 1005/1006 or GGA."""
@@ -295,9 +247,7 @@ class StationEstimator:
         )
         self._last_roti_median = st.roti_median
         # The snapshot reports the receiver bias that was applied to this epoch's STEC.
-        ref = self._ref_group
-        bias_ref = float(self._bias_applied[ref]) if ref >= 0 else math.nan
-        sigma_ref = float(self.rx_bias.sigma[ref]) if ref >= 0 else math.nan
+        bias_ref, sigma_ref = self.biases.reference()
         self._update_receiver_bias(
             t, figs, has=has, el_all=el_all, mapping=mapping, x_km=x_km, y_km=y_km
         )
@@ -429,14 +379,8 @@ class StationEstimator:
         g[:, LEV_SW] = sw
         g[:, LEV_MEAN] = lev
         stec_raw = gf_tecu + lev
-        b_sat = k * self._sat_bias_m[idx, rank]
-        group = (idx // 100) * self.pairs.width + rank
-        known = self._sat_bias_known[idx, rank] | self._fit_all
-        stec = (
-            stec_raw
-            - b_sat
-            - np.where(known, self._bias_applied[group], self._comb_applied[idx, rank])
-        )
+        b_sat, total_bias, group = self.biases.correction(idx, rank, k)
+        stec = stec_raw - total_bias
 
         # ROT over the lag, from the arc-relative levelled phase; ROTI over the window.
         rel = gf_tecu - g[:, GF0]
@@ -469,7 +413,6 @@ class StationEstimator:
             "stec_raw": stec_raw,
             "b_sat": b_sat,
             "group": group,
-            "known": known,
             "idx": idx,
             "rank": rank,
             "n_arc": n_arc,
@@ -491,51 +434,25 @@ class StationEstimator:
         self, t: float, figs: dict[str, Any], *, has: npt.NDArray[np.bool_], el_all: F64,
         mapping: F64, x_km: F64, y_km: F64,
     ) -> None:  # fmt: skip
-        if t - self._rb_last_t < self.settings.receiver_bias_update_s:
+        """Feed the bias model every ``receiver_bias_update_s`` with mature arcs above the mask,
+        weighted by sin²el and down-weighted when the ionosphere is disturbed (ROTI)."""
+        if not self.biases.due(t):
             return
         el = el_all[has]
-        interval = self._interval
         use = (
             (el >= self._mask_rad)
-            & (figs["n_arc"] * interval >= self.settings.receiver_bias_min_arc_s)
-            & np.isfinite(x_km[has])
-            & np.isfinite(figs["stec_raw"])
+            & (figs["n_arc"] * self._interval >= self.settings.receiver_bias_min_arc_s)
+            & ~np.isnan(x_km[has])
+            & ~np.isnan(figs["stec_raw"])
         )
-        if int(use.sum()) < 5:
-            return
-        self._rb_last_t = t
         roti_med = self._last_roti_median
         quiet = 1.0 / (1.0 + (roti_med / 0.25) ** 2) if math.isfinite(roti_med) else 1.0
         y = figs["stec_raw"] - figs["b_sat"]
-        fit = use & self._sat_bias_known[figs["idx"], figs["rank"]]
-        # Without broadcast group delays at all (e.g. no ephemerides): treat them all as 0.
-        self._fit_all = bool(np.count_nonzero(fit) < 5)
-        if self._fit_all:
-            fit = use
-        mp, xk, yk = mapping[has], x_km[has], y_km[has]
-        ok = self.rx_bias.add_epoch(
-            t, y=y[fit], mapping=mp[fit], x_km=xk[fit], y_km=yk[fit],
-            group=figs["group"][fit], weight=quiet * np.sin(el[fit]) ** 2,
+        self.biases.update(
+            t, y=y[use], idx=figs["idx"][use], rank=figs["rank"][use], group=figs["group"][use],
+            mapping=mapping[has][use], x_km=x_km[has][use], y_km=y_km[has][use],
+            weight=quiet * np.sin(el[use]) ** 2,
         )  # fmt: skip
-        other = use & ~fit
-        if ok and other.any():
-            lam = math.exp(
-                -self.settings.receiver_bias_update_s / self.settings.receiver_bias_memory_s
-            )
-            self._comb_sum *= lam
-            self._comb_weight *= lam
-            res = y[other] - self.rx_bias.vtec_model(mp[other], xk[other], yk[other])
-            s_o, r_o = figs["idx"][other], figs["rank"][other]
-            w_o = quiet * np.sin(el[other]) ** 2
-            self._comb_sum[s_o, r_o] += w_o * res
-            self._comb_weight[s_o, r_o] += w_o
-            self._comb_count *= lam
-            self._comb_count[s_o, r_o] += 1.0
-            ready = self._comb_count >= _COMB_MIN_SAMPLES
-            self._comb_applied = np.where(
-                ready, self._comb_sum / np.maximum(self._comb_weight, 1e-12), 0.0
-            )
-        self._after_bias_update()
 
     def _restart_time(self) -> None:
         """Time went far backwards: forget everything tied to time (arcs, windows), keep the
@@ -548,7 +465,7 @@ class StationEstimator:
         )
         self._last_epoch_t = -math.inf
         self._intervals.fill(np.nan)
-        self._rb_last_t = -math.inf
+        self.biases.last_t = -math.inf
 
     def _counters(self) -> dict[str, int]:
         """Counters for the snapshot; the ephemeris store's are refreshed every 32 epochs (its
@@ -562,18 +479,6 @@ class StationEstimator:
             self.counters["ephemerides_inconsistent"] = st.inconsistent
             self.counters.update(self.geometry.counters)
         return dict(self.counters)
-
-    def _after_bias_update(self) -> None:
-        good = self.rx_bias.sigma <= _BIAS_APPLY_SIGMA_TECU
-        self._bias_applied = np.where(good, self.rx_bias.bias, 0.0)
-        self._ref_group = self._reference_group()
-
-    def _reference_group(self) -> int:
-        """The group whose receiver bias the snapshot reports: the best-determined one."""
-        sig = self.rx_bias.sigma
-        if not np.isfinite(sig).any():
-            return -1
-        return int(np.nanargmin(sig))
 
     def _empty(self, epoch: ObsEpoch) -> StationSnapshot:
         e = np.zeros(0)
@@ -598,13 +503,12 @@ class StationEstimator:
     # -- persistence --------------------------------------------------------------------------------
     def state_dict(self) -> dict[str, Any]:
         """What survives a restart: the receiver-bias normal equations (plain JSON types)."""
-        return {"version": 1, "station": self.station, "receiver_bias": self.rx_bias.state_dict()}
+        return {"version": 1, "station": self.station, "receiver_bias": self.biases.state_dict()}
 
     def load_state(self, state: dict[str, Any]) -> None:
         if int(state.get("version", -1)) != 1:
             raise ValueError(f"unknown estimator state version {state.get('version')!r}")
-        self.rx_bias.load_state(state["receiver_bias"])
-        self._after_bias_update()
+        self.biases.load_state(state["receiver_bias"])
 
     def copy(self) -> StationEstimator:
         """An independent deep copy (the whole rolling state)."""
