@@ -4,8 +4,8 @@
 
 1. Pipeline only (framer + MSM decode + estimator, no asyncio): CPU per epoch over the bundled demo
    capture, reported as % of one core for a 1 Hz station.
-2. The real daemon (one root TaskGroup, a file source per station replayed at 1x real time, so
-   every station delivers one epoch per second): 20 stations (RSS), then N stations (default 200)
+2. The real daemon (one root TaskGroup; per station a loopback TCP "receiver" pushing the demo at
+   its real rate, or with --source file a paced file replay: one epoch per second per station): 20 stations (RSS), then N stations (default 200)
    sustained for S seconds: process CPU % of one core, epochs delivered vs expected, queue peaks.
 Figures depend on the machine and on other load (the dev machines are shared: say so when quoting).
 """
@@ -22,7 +22,7 @@ import numpy as np
 
 from ionwarden.daemon.config import EstimatorSettings
 from ionwarden.daemon.estimator import StationPipeline, StationSnapshot
-from ionwarden.daemon.ingest import FileSource
+from ionwarden.daemon.ingest import FileSource, TcpSource
 from ionwarden.daemon.runtime import FramingCore, StationConfig
 from ionwarden.daemon.runtime._supervisor import Daemon, DaemonOptions, StationBundle
 
@@ -64,12 +64,38 @@ def factory(cfg: StationConfig) -> StationBundle:
     return StationBundle(core=FramingCore(consumer=pipe), produces_epochs=True)
 
 
-async def fleet(n: int, seconds: float) -> tuple[float, float, int, int, int]:
+async def _receiver(data: bytes, writer: asyncio.StreamWriter, stop: asyncio.Event) -> None:
+    """A loopback 'receiver' sending the demo at its real rate: 1/1200 of the capture per second."""
+    step = len(data) // 1200
+    try:
+        for i in range(0, len(data), step):
+            writer.write(data[i : i + step])
+            await writer.drain()
+            try:
+                await asyncio.wait_for(stop.wait(), 1.0)
+                return
+            except TimeoutError:
+                pass
+    except ConnectionError:
+        pass
+    finally:
+        writer.close()
+
+
+async def fleet(n: int, seconds: float, source: str) -> tuple[float, float, int, int, int]:
+    servers: list[asyncio.Server] = []
+    stop = asyncio.Event()
+    if source == "tcp":
+        data = DEMO.read_bytes()
+        servers = [
+            await asyncio.start_server(lambda _r, w: _receiver(data, w, stop), "127.0.0.1", 0)
+            for _ in range(n)
+        ]
+        sources = [TcpSource(host="127.0.0.1", port=s.sockets[0].getsockname()[1]) for s in servers]
+    else:
+        sources = [FileSource(path=str(DEMO), speed=1.0) for _ in range(n)]
     stations = tuple(
-        StationConfig(
-            name=f"st{i:03d}", source=FileSource(path=str(DEMO), speed=1.0), queue_size=64
-        )
-        for i in range(n)
+        StationConfig(name=f"st{i:03d}", source=src, queue_size=64) for i, src in enumerate(sources)
     )
     daemon = Daemon(
         DaemonOptions(stations=stations, summary_interval_s=0, exit_when_sources_end=False),
@@ -85,6 +111,10 @@ async def fleet(n: int, seconds: float) -> tuple[float, float, int, int, int]:
         cpu, wall = time.process_time() - c0, time.monotonic() - w0
         stats = daemon.statistics()
         daemon.request_stop()
+    stop.set()
+    for srv in servers:
+        srv.close()
+    await asyncio.sleep(0.2)  # let the receivers return
     epochs = sum(s.epochs_total for s in stats) - e0
     peak = max(s.queue.peak for s in stats)
     drops = sum(s.queue.dropped_total for s in stats)
@@ -95,12 +125,18 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--stations", type=int, default=200)
     ap.add_argument("--seconds", type=float, default=30.0)
+    ap.add_argument(
+        "--source",
+        choices=("tcp", "file"),
+        default="tcp",
+        help="tcp: loopback receivers pushing the demo at 1 Hz (live-like); file: paced replays",
+    )
     args = ap.parse_args()
     print(f"[daemon] RSS after imports, no station: {rss_mb():.0f} MB")
     for n, secs in ((20, min(args.seconds, 15.0)), (args.stations, args.seconds)):
-        cpu, wall, epochs, peak, drops = asyncio.run(fleet(n, secs))
+        cpu, wall, epochs, peak, drops = asyncio.run(fleet(n, secs, args.source))
         print(
-            f"[daemon] {n} stations x 1 Hz for {wall:.1f} s: CPU {100 * cpu / wall:.1f} % of one core "
+            f"[daemon/{args.source}] {n} stations x 1 Hz for {wall:.1f} s: CPU {100 * cpu / wall:.1f} % of one core "
             f"({100 * cpu / wall / n:.3f} %/station), epochs {epochs} of ~{int(n * wall)} expected, "
             f"queue peak {peak}, drops {drops}, RSS now {rss_mb():.0f} MB, "
             f"peak RSS {resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024:.0f} MB"

@@ -8,8 +8,10 @@ and counted. ``feed(b"")`` marks the end of the stream.
 
 Resynchronisation: a candidate that fails (reserved bits set, CRC or checksum mismatch, malformed
 sentence) is abandoned by ONE byte, never by its claimed length, so a false 0xD3 inside NMEA or binary
-cannot swallow the next real frame. The scanner keeps its position between calls: bytes already
-searched are not searched again while more data is awaited.
+cannot swallow the next real frame. The price is latency, not loss: a false preamble holds the
+frames behind it until its claimed length (at most 1029 bytes) has arrived and failed its CRC. The
+scanner keeps its position between calls: bytes already searched are not searched again while more
+data is awaited.
 """
 
 from __future__ import annotations

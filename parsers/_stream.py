@@ -36,7 +36,7 @@ import numpy as np
 from ._ephemeris import GlonassEphemeris, KeplerEphemeris
 from ._epoch import ObsEpoch
 from ._errors import ParseError
-from ._framer import Framer, FramerStatistics, NmeaFrame, RtcmFrame
+from ._framer import Frame, Framer, FramerStatistics, NmeaFrame, RtcmFrame
 from ._gnsstime import BDS_GPS_OFFSET_S, GpsTime, utc_to_gps
 from ._msm import MSM_TYPES, MsmMessage, decode_msm, new_glo_channel_table
 from ._msm_time import LEAP_NOW_S, circular_gap_ms, gps_ms_of_day, leap_at, resolve_epoch
@@ -53,7 +53,7 @@ from ._rtcm_misc import DECODERS, DecodeContext
 from ._rtcm_station import ReceiverDescriptor, StationReference
 
 if TYPE_CHECKING:
-    from collections.abc import Callable, Mapping
+    from collections.abc import Callable, Iterable, Mapping
 
 __all__ = [
     "MAX_HELD_EPOCHS",
@@ -176,13 +176,22 @@ class StreamDecoder:
     # --- public -------------------------------------------------------------------------------
     def feed(self, data: bytes | bytearray | memoryview) -> list[Message]:
         """Add stream bytes; return every message they complete. ``b""`` ends the stream."""
+        return self.feed_frames(self._framer.feed(data), end_of_stream=not data)
+
+    def feed_frames(self, frames: Iterable[Frame], *, end_of_stream: bool = False) -> list[Message]:
+        """Decode frames already split and checked by a :class:`Framer` the caller owns.
+
+        ``end_of_stream`` closes the open epoch and counts epochs still waiting for a reference
+        as unresolved (what ``feed(b"")`` does). The caller's framer keeps its own statistics;
+        ``statistics().framer`` then describes only bytes given to :meth:`feed`.
+        """
         out: list[Message] = []
-        for frame in self._framer.feed(data):
+        for frame in frames:
             if isinstance(frame, RtcmFrame):
                 self._on_rtcm(frame, out)
             else:
                 self._on_nmea(frame, out)
-        if not data:
+        if end_of_stream:
             self._close_open(out)
             while self._held:  # still no reference at the end: count, never guess
                 self._held.popleft()

@@ -293,3 +293,17 @@ def test_estimator_twenty_hz_rot_uses_thirty_second_lag():
     d = rot[lag:] - truth
     assert np.isfinite(d).mean() > 0.95
     assert np.sqrt(np.nanmean(d**2)) < 0.1
+
+
+def test_estimator_satellite_dcb_override_from_config():
+    """StationEstimator subtracts a configured satellite DCB: STEC shifts by +K·c·DCB (SCIENCE.md §3 K; DCB = band-1 − band-2 delay)."""
+    base = StationEstimator()
+    over = StationEstimator(EstimatorSettings(satellite_dcb_ns={"G05": {"1C-2W": 2.0}}))
+    for k in range(3):
+        a = base.update(_epoch(float(k)))
+        b = over.update(_epoch(float(k)))
+    k_l1l2 = 9.5196  # TECU per metre, GPS L1/L2 (SCIENCE.md §3 table)
+    shift = b.satellites.stec_tecu[0] - a.satellites.stec_tecu[0]
+    assert shift == pytest.approx(k_l1l2 * 299_792_458.0 * 2e-9, rel=1e-4)
+    with pytest.raises(ValueError, match="not configured"):
+        StationEstimator(EstimatorSettings(satellite_dcb_ns={"G05": {"1C-9Z": 1.0}}))

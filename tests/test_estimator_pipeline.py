@@ -129,3 +129,16 @@ def test_pipeline_position_precedence():
     np.testing.assert_allclose(p.estimator.geometry.rx_ecef, P433_XYZ)
     with pytest.raises(KeyError):
         p.set_position((0.0, 0.0, 0.0), "bogus")
+
+
+def test_pipeline_gga_gst_give_fix_status(real_data):
+    """StationPipeline reports GGA fix quality and GST sigmas of the same second as FixStatus (pygnssutils_pygpsdata-nmea.log)."""
+    data = (real_data / "nmea/pygnssutils_pygpsdata-nmea.log").read_bytes()
+    p = StationPipeline("NM")
+    fixes = [o for o in p.feed(data) + p.feed(b"") if isinstance(o, FixStatus)]
+    assert fixes
+    assert fixes[0].quality in (1, 2, 4, 5)  # NMEA 0183 GGA quality indicator
+    assert fixes[0].time is None  # no observation epoch yet to date the GGA time of day
+    with_gst = [f for f in fixes if np.isfinite(f.sigma_lat_m)]
+    assert with_gst  # the file carries a GNGST for the GGA second (PROVENANCE.md)
+    assert p.position_source == "gga"

@@ -176,3 +176,27 @@ def test_truth_roti_in_scintillation():
     assert ok.sum() > 500
     ratio = q["roti"][ok] / truth[ok]
     assert np.mean(np.abs(ratio - 1.0) < 0.2) > 0.95
+
+
+def test_truth_combined_biases_survive_checkpoint(tmp_path):
+    """The learnt GLONASS combined biases survive state_dict → runtime npz checkpoint → load_state."""
+    from ionwarden.daemon.runtime._checkpoint import load_checkpoint, save_checkpoint
+
+    sc = dataclasses.replace(
+        build_scenario("quiet-day", duration_s=900.0, rate_hz=1.0), systems="GR"
+    )
+    sim = Simulator(sc)
+    pipe = StationPipeline("HARC", position_ecef_m=sim.station_ecef(0), ephemerides_per_sat=400)
+    pipe.handle(nav_ephemerides(sim))
+    for blocks in sim.run():
+        pipe.handle(block_epochs(blocks[0], 41))
+    b = pipe.estimator.biases
+    assert np.isfinite(b.comb_applied).sum() >= 3  # several GLONASS satellites learnt
+    save_checkpoint(tmp_path, "HARC", pipe.state_dict(), fp="f", wall_time_s=0.0)
+    state = load_checkpoint(tmp_path, "HARC", fp="f", wall_time_s=1.0, max_age_s=10.0)
+    assert state is not None
+    fresh = StationPipeline("HARC")
+    fresh.load_state_dict(state)
+    fb = fresh.estimator.biases
+    np.testing.assert_allclose(fb.comb_applied, b.comb_applied, equal_nan=True)
+    np.testing.assert_allclose(fb.rx.bias, b.rx.bias)

@@ -78,3 +78,17 @@ def test_process_bad_position_rejected(real_data, tmp_path, capsys, bad):
     )
     assert rc == 2
     assert "--position" in capsys.readouterr().err
+
+
+def test_process_uses_config_estimator_section(real_data, tmp_path):
+    """process applies [estimator] from --config (an 89° mask: no station VTEC from lower satellites)."""
+    cfg = tmp_path / "c.toml"
+    cfg.write_text("[estimator]\nelevation_mask_deg = 89.0\n")
+    out = tmp_path / "o.csv"
+    summary = tmp_path / "s.csv"
+    rc = main(["process", str(real_data / P433), "--nav", str(real_data / "rinex/brdc0010.19n"),
+               "--out", str(out), "--summary", str(summary), "--config", str(cfg), "--no-progress"])  # fmt: skip
+    assert rc == 0
+    with summary.open() as f:
+        srows = list(csv.DictReader(f))
+    assert all(r["vtec_tecu"] == "" for r in srows)  # nothing above 89°

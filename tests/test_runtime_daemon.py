@@ -240,7 +240,9 @@ def test_daemon_summary_lines_are_printed_per_station() -> None:
         async with Fleet(2) as fleet:
             p = fleet.ports()
             opts = DaemonOptions(
-                stations=(_station("a", p[0]), _station("b", p[1])), summary_interval_s=10
+                stations=(_station("a", p[0]), _station("b", p[1])),
+                summary_interval_s=10,
+                status_interval_s=5,
             )
             daemon = Daemon(opts, factory=_factory({}), summary=lines.append)
             async with asyncio.TaskGroup() as tg:
@@ -249,7 +251,7 @@ def test_daemon_summary_lines_are_printed_per_station() -> None:
                 await asyncio.sleep(25)
                 daemon.request_stop()
 
-    run_virtual(main())
+    run_virtual(main(), real_poll_s=0.02)
     assert len(lines) == 4
     assert lines[0].startswith("a ")
     assert lines[1].startswith("b ")
@@ -395,3 +397,39 @@ def test_daemon_garbage_flood_on_one_station_does_not_starve_another() -> None:
         assert good.queue.dropped_total == 0
 
     run_virtual(main())
+
+
+def test_daemon_raises_the_stream_stall_alarm_for_a_silent_station() -> None:
+    """Daemon feeds each station's stall age to its alarms: a silent source raises stream-stall."""
+    import datetime as dt
+
+    from ionwarden.daemon.alarms import AlarmKind, AlarmState, StationAlarms
+    from ionwarden.daemon.config import AlarmSettings
+
+    async def silent(_r: asyncio.StreamReader, _w: asyncio.StreamWriter) -> None:
+        await asyncio.sleep(3600)
+
+    alarms = StationAlarms("quiet", AlarmSettings())
+
+    def build(cfg: StationConfig) -> StationBundle:
+        return StationBundle(core=StandInCore(), produces_epochs=False, alarms=alarms)
+
+    async def main() -> None:
+        async with ScriptedServer(silent) as rx:
+            opts = DaemonOptions(
+                stations=(_station("quiet", rx.port),), summary_interval_s=0, status_interval_s=5
+            )
+            daemon = Daemon(
+                opts,
+                factory=build,
+                utc_now=lambda: dt.datetime(2026, 3, 18, 13, 30, tzinfo=dt.UTC),
+            )
+            async with asyncio.TaskGroup() as tg:
+                tg.create_task(daemon.run(), name="test.daemon")
+                await daemon.ready.wait()
+                await asyncio.sleep(90)  # virtual: past the default 30 s stall threshold
+                daemon.request_stop()
+
+    run_virtual(main())
+    stall = next(s for s in alarms.statuses() if s.kind is AlarmKind.STREAM_STALL)
+    assert stall.state is AlarmState.ACTIVE

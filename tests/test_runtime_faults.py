@@ -349,3 +349,63 @@ def _snapshot(total_s: float) -> object:
         cell_sat=np.zeros(0, np.int16), cell_sig=np.zeros(0, np.uint16), cell_el_deg=e,
         cell_cn0_dbhz=np.zeros(0, np.float32),
     )  # fmt: skip
+
+
+def test_station_listener_waits_for_its_receiver_without_stalling() -> None:
+    """StationRunner on tcp-listen stays 'listening' (no stall) until a receiver connects, then streams."""
+    import socket as _socket
+
+    from ionwarden.daemon.ingest import TcpListenSource
+
+    with _socket.socket() as probe:  # a free port for the listener
+        probe.bind(("127.0.0.1", 0))
+        port = probe.getsockname()[1]
+
+    async def main() -> None:
+        core = StandInCore()
+        events: list[object] = []
+        changed = asyncio.Event()
+
+        def emit(item: object) -> None:
+            events.append(item)
+            changed.set()
+
+        runner = StationRunner(_cfg(TcpListenSource(host="127.0.0.1", port=port)), core, emit=emit)
+        async with asyncio.TaskGroup() as tg:
+            tasks = [
+                tg.create_task(runner.ingest_loop(), name="daemon.ingest[st1]"),
+                tg.create_task(runner.estimate_loop(), name="daemon.estimate[st1]"),
+            ]
+            await asyncio.sleep(60)  # virtual: six times the no-data limit
+            assert runner.state is StationState.CONNECTING
+            assert runner.statistics().stalls_total == 0
+            _, w = await asyncio.open_connection("127.0.0.1", port)
+            w.write(frames(0, 3))
+            async with asyncio.timeout(30):
+                while len(core.seen) < 3:
+                    changed.clear()
+                    await changed.wait()
+            for t in tasks:
+                t.cancel()
+            w.close()
+        assert (StationState.CONNECTING, "listening") in states(events)
+        assert seqs(core) == [0, 1, 2]
+
+    run_virtual(main())
+
+
+def test_station_is_stuck_only_when_input_waits_without_progress() -> None:
+    """StationRunner.is_stuck is true once queued input waited limit_s with no estimate step."""
+
+    async def main() -> None:
+        loop = asyncio.get_running_loop()
+        runner = StationRunner(
+            _cfg(TcpSource(host="127.0.0.1", port=9)), StandInCore(), emit=lambda _: None
+        )
+        now = loop.time()
+        assert not runner.is_stuck(now + 100, 10)  # idle with nothing queued is healthy
+        runner.queue.put_nowait(b"x")
+        assert not runner.is_stuck(now + 5, 10)
+        assert runner.is_stuck(now + 11, 10)
+
+    run_virtual(main())

@@ -272,3 +272,16 @@ def test_stream_glonass_unknown_day_resolved_by_time_of_day():
     (epoch,) = _epochs(msgs)
     assert epoch.time == truth
     assert 1087 in epoch.sources
+
+
+def test_stream_feed_frames_equals_feed(real_data):
+    """StreamDecoder.feed_frames on a caller's Framer output gives what feed gives on the bytes (ntrip_encode_none.bin)."""
+    data = (real_data / "rtcm" / "pygnssutils_ntrip_encode_none.bin").read_bytes()
+    by_bytes, _ = _run(data)
+    framer = Framer()
+    dec = StreamDecoder()
+    by_frames = dec.feed_frames(framer.feed(data))
+    by_frames += dec.feed_frames(framer.feed(b""), end_of_stream=True)
+    assert [type(m) for m in by_frames] == [type(m) for m in by_bytes]
+    assert [m.time for m in _epochs(by_frames)] == [m.time for m in _epochs(by_bytes)]
+    assert dec.statistics().framer.bytes_total == 0  # the caller's framer did the framing

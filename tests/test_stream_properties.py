@@ -69,3 +69,32 @@ def test_stream_mutated_real_frames_never_raise(data, flips, length_change):
     stats = dec.statistics()
     assert stats.framer.rtcm_frames == 3
     _check_bounded(dec)
+
+
+@settings(max_examples=25, deadline=None)
+@given(st.lists(st.integers(min_value=1, max_value=5000), min_size=1, max_size=30))
+def test_stream_chunking_does_not_change_output(cuts):
+    """StreamDecoder gives the same messages for any chunking of the u-blox NMEA+UBX+RTCM capture (pygpsdata-rtcm3.log)."""
+    data = _ublox_sample()
+
+    def summary(msgs):
+        return [
+            (type(m).__name__, getattr(m, "time", None), len(getattr(m, "sat", ()))) for m in msgs
+        ]
+
+    whole = StreamDecoder()
+    expected = summary(whole.feed(data) + whole.feed(b""))
+    dec = StreamDecoder()
+    got, pos = [], 0
+    for c in [*cuts, len(data)]:
+        if data[pos : pos + c]:
+            got += dec.feed(data[pos : pos + c])
+        pos += c
+    got += dec.feed(b"")
+    assert summary(got) == expected
+    assert dec.statistics().epochs == whole.statistics().epochs > 0
+
+
+@cache
+def _ublox_sample() -> bytes:
+    return (REAL_DATA / "rtcm" / "pygnssutils_pygpsdata-rtcm3.log").read_bytes()[:40_000]

@@ -303,6 +303,8 @@ def run(args: argparse.Namespace) -> int:
                     out.write("\n".join(rows) + "\n")
                 if summary:
                     summary.write(summary_row(snap, fmt) + "\n")
+    except BrokenPipeError:
+        raise  # `ionwarden process … --out - | head`: the CLI entry point handles it
     except (DaemonError, OSError, ValueError) as exc:
         return die(f"process: {current}: {exc}", 1)
     finally:

@@ -89,6 +89,11 @@ class SlipThresholds:
     rate_weight: float = 0.1
 
 
+def _sel(all_true: bool, mask: npt.NDArray[np.bool_], a: F64, b: F64 | float) -> F64:
+    """``np.where(mask, a, b)``, skipped when the caller knows the mask is all True."""
+    return a if all_true else np.where(mask, a, b)
+
+
 class ArcState:
     """Slip detection over the gathered state block of one epoch (see ``_state``)."""
 
@@ -124,18 +129,15 @@ class ArcState:
         th = self.th
         dt = t - g[:, LAST_T]
         prev_rank = g[:, RANK]
-        lock_drop = ((lock < g[:, LOCK1 : LOCK2 + 1]) & (lock >= 0)) | (
-            locktime < g[:, LT1 : LT2 + 1]
-        )
-        reason = (
-            np.isnan(dt) * REASON_FIRST
-            | (dt > gap_s) * REASON_GAP
-            | ((prev_rank >= 0) & (prev_rank != rank)) * REASON_PAIR
-            | (lli_lost | (half != g[:, HALF1 : HALF2 + 1]).any(axis=1)) * REASON_LLI
-            | lock_drop.any(axis=1) * REASON_LOCK
-        )
-        # Jump tests only where the arc continues so far.
-        cont = reason == 0
+        lock_drop = (
+            ((lock < g[:, LOCK1 : LOCK2 + 1]) & (lock >= 0)) | (locktime < g[:, LT1 : LT2 + 1])
+        ).any(axis=1)
+        first = np.isnan(dt)
+        gap = dt > gap_s
+        pair = (prev_rank >= 0) & (prev_rank != rank)
+        lli = lli_lost | (half != g[:, HALF1 : HALF2 + 1]).any(axis=1)
+        hard = first | gap | pair | lli | lock_drop
+        # Jump tests (they count only where the arc continues so far).
         mw_res = mw_m - g[:, MW_MEAN]
         mw_thr = np.maximum(
             th.mw_k_sigma * np.sqrt(g[:, MW_VAR]), th.mw_floor_wl_cycles * g[:, LWL]
@@ -145,37 +147,53 @@ class ArcState:
         )
         n = g[:, N]
         tracked = n >= 2
-        pred = g[:, GF_LEVEL] + np.where(tracked, g[:, GF_RATE], 0.0) * dt
+        all_tracked = bool(tracked.all())
+        pred = g[:, GF_LEVEL] + _sel(all_tracked, tracked, g[:, GF_RATE], 0.0) * dt
         gf_res = gf_m - pred
         gf_thr = np.maximum(
             th.gf_k_sigma * np.sqrt(g[:, GF_VAR]),
             (th.gf_floor_m + th.gf_floor_m_per_s * dt) * el_factor,
         )
-        reason |= (cont & (np.abs(mw_res) > mw_thr)) * REASON_MW
-        reason |= (cont & (np.abs(gf_res) > gf_thr)) * REASON_GF
-        new = reason != 0
+        mw_jump = np.abs(mw_res) > mw_thr
+        gf_jump = np.abs(gf_res) > gf_thr
+        new = hard | mw_jump | gf_jump
+        all_ok = not new.any()  # the common case: nothing restarts this epoch
+        if all_ok:
+            reason = np.zeros(m, np.int64)
+        else:
+            cont = ~hard
+            reason = (
+                first * REASON_FIRST | gap * REASON_GAP | pair * REASON_PAIR | lli * REASON_LLI
+                | lock_drop * REASON_LOCK | (cont & mw_jump) * REASON_MW
+                | (cont & gf_jump) * REASON_GF
+            )  # fmt: skip
         ok = ~new
 
         # Continuing arcs learn from their residuals; new arcs restart.
         w = th.ema_weight
-        g[:, MW_VAR] = np.where(ok, (1.0 - w) * g[:, MW_VAR] + w * mw_res * mw_res, g[:, MW_VAR])
+        mw_var = g[:, MW_VAR]
+        g[:, MW_VAR] = _sel(all_ok, ok, (1.0 - w) * mw_var + w * mw_res * mw_res, mw_var)
         # GF: the scatter learns only once the rate prediction is in use; α–β tracker: the
         # level absorbs part of the residual, the rate a smaller part (the second sample of an
         # arc sets the rate from a plain difference).
+        gf_var = g[:, GF_VAR]
         learn = ok & tracked
-        g[:, GF_VAR] = np.where(learn, (1.0 - w) * g[:, GF_VAR] + w * gf_res * gf_res, g[:, GF_VAR])
-        second = n == 1
-        rate = np.where(
-            second, (gf_m - g[:, GF_LEVEL]) / dt, g[:, GF_RATE] + th.rate_weight * gf_res / dt
+        g[:, GF_VAR] = _sel(
+            all_ok and all_tracked, learn, (1.0 - w) * gf_var + w * gf_res * gf_res, gf_var
         )
-        g[:, GF_RATE] = np.where(ok, rate, 0.0)
-        level = np.where(second, gf_m, pred + th.level_weight * gf_res)
-        g[:, GF_LEVEL] = np.where(ok, level, gf_m)
-        n_new = np.where(ok, n + 1.0, 1.0)
+        rate = g[:, GF_RATE] + th.rate_weight * gf_res / dt
+        level = pred + th.level_weight * gf_res
+        if not all_tracked:
+            second = n == 1
+            rate = np.where(second, (gf_m - g[:, GF_LEVEL]) / dt, rate)
+            level = np.where(second, gf_m, level)
+        g[:, GF_RATE] = _sel(all_ok, ok, rate, 0.0)
+        g[:, GF_LEVEL] = _sel(all_ok, ok, level, gf_m)
+        n_new = _sel(all_ok, ok, n + 1.0, 1.0)
         g[:, N] = n_new
-        g[:, MW_MEAN] = np.where(ok, g[:, MW_MEAN] + mw_res / n_new, mw_m)
-        k = int(np.count_nonzero(new))
-        if k:
+        g[:, MW_MEAN] = _sel(all_ok, ok, g[:, MW_MEAN] + mw_res / n_new, mw_m)
+        if not all_ok:
+            k = int(np.count_nonzero(new))
             g[new, ARC] = self.next_arc + np.arange(k)
             self.next_arc += k
         g[:, LAST_T] = t

@@ -8,8 +8,9 @@ Axes: ``S`` satellite slots × ``W`` pair ranks of the pair table; ``m`` satelli
   plane of VTEC), applied once its 1-σ is at most ``APPLY_SIGMA_TECU``.
 * Satellites whose satellite part is unknown (GLONASS FDMA, GPS L5 without CNAV ISC, …) stay out
   of that fit: their combined satellite + receiver bias is the forgetting-weighted mean of their
-  residual from each fitted VTEC plane, applied after ``COMB_MIN_SAMPLES`` samples. Without any
-  known satellite part at all (no ephemerides), every satellite enters the fit with 0.
+  residual from each fitted VTEC plane, applied after ``COMB_MIN_SAMPLES`` samples (until then
+  their STEC is NaN). Without any known satellite part at all (no ephemerides), every satellite
+  enters the fit with 0 and STEC carries the (unknown) satellite biases.
 """
 
 from __future__ import annotations
@@ -58,8 +59,9 @@ class BiasModel:
         self.comb_sum = np.zeros((n_slots, w))
         self.comb_weight = np.zeros((n_slots, w))
         self.comb_count = np.zeros((n_slots, w))
-        self.comb_applied = np.zeros((n_slots, w))
+        self.comb_applied = np.full((n_slots, w), np.nan)
         self.fit_all = True
+        self.fitted = False
         self.applied = np.zeros(len(labels))
         self.ref_group = -1
         self.last_t = -math.inf
@@ -81,10 +83,14 @@ class BiasModel:
         over = self.override_ns[sat]
         row = np.where(np.isnan(over), row, -C_MPS * over * 1e-9)
         self.sat_known[sat] = ~np.isnan(row)
+        if not self.fitted:  # before the first fit: "no satellite part known at all" mode?
+            self.fit_all = not bool(self.sat_known.any())
         self.sat_m[sat] = np.where(np.isnan(row), 0.0, row)
 
     def correction(self, idx: Idx, rank: Idx, k: F64) -> tuple[F64, F64, Idx]:
-        """(satellite part in TECU, total to subtract from STEC_raw, receiver group) per satellite."""
+        """(satellite part in TECU, total to subtract from STEC_raw, receiver group) per satellite;
+        the total is NaN for a satellite whose satellite part is unknown and whose combined bias
+        is not learnt yet (its STEC would be off by tens of TECU: better unknown than wrong)."""
         b_sat = k * self.sat_m[idx, rank]
         group = (idx // 100) * self.pairs.width + rank
         known = self.sat_known[idx, rank] | self.fit_all
@@ -112,6 +118,7 @@ class BiasModel:
         if m < _MIN_FIT:
             return
         self.last_t = t
+        self.fitted = True
         fit = self.sat_known[idx, rank]
         self.fit_all = bool(np.count_nonzero(fit) < _MIN_FIT)
         if self.fit_all:
@@ -133,7 +140,7 @@ class BiasModel:
             self.comb_count[s_o, r_o] += 1.0
             ready = self.comb_count >= COMB_MIN_SAMPLES
             self.comb_applied = np.where(
-                ready, self.comb_sum / np.maximum(self.comb_weight, 1e-12), 0.0
+                ready, self.comb_sum / np.maximum(self.comb_weight, 1e-12), np.nan
             )
         self._refresh()
 
@@ -143,8 +150,41 @@ class BiasModel:
         self.ref_group = int(np.nanargmin(sig)) if np.isfinite(sig).any() else -1
 
     def state_dict(self) -> dict[str, Any]:
-        return self.rx.state_dict()
+        """The receiver-bias normal equations plus the learnt combined biases (sparse lists)."""
+        out = self.rx.state_dict()
+        sat, rank = np.nonzero(self.comb_count > 0)
+        out["combined"] = {
+            "labels": [
+                self.pairs.labels[s // 100][r]
+                for s, r in zip(sat.tolist(), rank.tolist(), strict=True)
+            ],
+            "sat": sat.tolist(),
+            "sum": self.comb_sum[sat, rank].tolist(),
+            "weight": self.comb_weight[sat, rank].tolist(),
+            "count": self.comb_count[sat, rank].tolist(),
+        }
+        return out
 
     def load_state(self, state: dict[str, Any]) -> None:
         self.rx.load_state(state)
+        comb = state.get("combined")
+        if comb is not None and len(comb["sat"]):
+            for sat, label, cs, cw, cc in zip(
+                np.asarray(comb["sat"]).tolist(), [str(x) for x in comb["labels"]],
+                np.asarray(comb["sum"], dtype=np.float64).tolist(),
+                np.asarray(comb["weight"], dtype=np.float64).tolist(),
+                np.asarray(comb["count"], dtype=np.float64).tolist(), strict=True,
+            ):  # fmt: skip
+                have = self.pairs.labels[int(sat) // 100]
+                if label in have:  # pairs no longer configured are dropped
+                    r = have.index(label)
+                    self.comb_sum[sat, r], self.comb_weight[sat, r], self.comb_count[sat, r] = (
+                        cs,
+                        cw,
+                        cc,
+                    )
+            ready = self.comb_count >= COMB_MIN_SAMPLES
+            self.comb_applied = np.where(
+                ready, self.comb_sum / np.maximum(self.comb_weight, 1e-12), np.nan
+            )
         self._refresh()

@@ -1,9 +1,11 @@
 """The rolling ionosphere estimator of one station: ObsEpoch in, StationSnapshot out.
 
 Pure and vectorised (STYLE rules 21–22): ``update(epoch)`` takes time from the epoch and never
-reads a clock; per-satellite state is a set of preallocated arrays indexed by satellite id
-(``S = MAX_SAT_ID`` slots); each epoch works on the ``m`` satellites present with numpy fancy
-indexing, never a per-satellite Python branch.
+reads a clock; per-satellite state is one preallocated (S, NCOL) matrix indexed by satellite id
+(``S = MAX_SAT_ID`` slots, columns in ``_state``), gathered once and scattered once per epoch for
+the ``m`` satellites present; rolling windows are ring buffers (``_windows``); no per-satellite
+Python branch on the hot path. Pair choice per satellite: the first configured pair (``_pairs``)
+whose two signals both have code and phase this epoch; a change of pair starts a new arc.
 
 Symbols per satellite (SCIENCE.md §2–§9): P1, P2 code (m); L1, L2 phase (m = cycles·c/f); K
 (TECU/m); GF = L1 − L2; MW Melbourne–Wübbena; STEC_raw = K·GF + levelling offset (TECU), the
@@ -100,8 +102,18 @@ class StationEstimator:
         self.biases = BiasModel(self.pairs, cfg, S)
         self._seen = np.zeros(S, np.int64)
         # Per-cell lookup by (satellite, signal), stamped per epoch instead of cleared.
-        self._cell_stamp = np.zeros((S, N_SIG), np.int64)
-        self._cell_index = np.zeros((S, N_SIG), np.intp)
+        # Only signals named in the pair table matter: map their packed codes to compact slots
+        # (the rest, and the table's padding code 0, to one never-stamped slot) so the per-cell
+        # tables stay small enough for the CPU cache.
+        codes = np.unique(np.concatenate((self.pairs.sig1.ravel(), self.pairs.sig2.ravel())))
+        codes = codes[codes > 0]
+        self._sig_slot = np.full(N_SIG, codes.shape[0], np.intp)
+        self._sig_slot[codes] = np.arange(codes.shape[0])
+        self._n_sig_slots = int(codes.shape[0])
+        self._c1 = self._sig_slot[self.pairs.sig1]
+        self._c2 = self._sig_slot[self.pairs.sig2]
+        self._cell_stamp = np.zeros((S, codes.shape[0] + 1), np.int64)
+        self._cell_index = np.zeros((S, codes.shape[0] + 1), np.intp)
         self._stamp = 0
         self._last_epoch_t = -math.inf
         self._intervals = np.full(_INTERVAL_HISTORY, np.nan)
@@ -139,6 +151,8 @@ class StationEstimator:
     # -- the hot path -------------------------------------------------------------------------------
     def update(self, epoch: ObsEpoch) -> StationSnapshot:
         """Process one epoch (time from the epoch) and return the station snapshot."""
+        n = epoch.sat.shape[0]
+        assert epoch.sig.shape == epoch.pseudorange_m.shape == epoch.phase_cycles.shape == (n,)
         t = epoch.time.total_s
         if t <= self._last_epoch_t - _TIME_RESET_S:
             self._restart_time()  # a replay restarted, or the receiver's clock was reset
@@ -161,7 +175,7 @@ class StationEstimator:
         return snap
 
     def _update(self, epoch: ObsEpoch, t: float, interval: float) -> StationSnapshot:
-
+        # Cells usable for a pair: known satellite/signal, code and phase and frequency present.
         sat = epoch.sat.astype(np.intp)
         sig = epoch.sig.astype(np.intp)
         in_range = (sat >= 0) & (sat < MAX_SAT_ID) & (sig < N_SIG)
@@ -175,15 +189,17 @@ class StationEstimator:
         )
         self.counters["cells_unusable"] += int(in_range.sum() - usable.sum())
         self._stamp += 1
-        cells = np.flatnonzero(usable)
-        self._cell_stamp[sat[cells], sig[cells]] = self._stamp
-        self._cell_index[sat[cells], sig[cells]] = cells
+        slot = self._sig_slot[np.where(in_range, sig, 0)]
+        cells = np.flatnonzero(usable & (slot < self._n_sig_slots))
+        self._cell_stamp[sat[cells], slot[cells]] = self._stamp
+        self._cell_index[sat[cells], slot[cells]] = cells
 
+        # Satellites present, and per satellite the first configured pair with both signals.
         self._seen[sat[in_range]] = self._stamp
         present = np.flatnonzero(self._seen == self._stamp)  # sorted, unique
         sysi = present // 100
-        c1 = self.pairs.sig1[sysi]
-        c2 = self.pairs.sig2[sysi]
+        c1 = self._c1[sysi]
+        c2 = self._c2[sysi]
         col = present[:, None]
         avail = (self._cell_stamp[col, c1] == self._stamp) & (
             self._cell_stamp[col, c2] == self._stamp
@@ -193,16 +209,14 @@ class StationEstimator:
         idx = present[has]
         rank = rank_all[has]
         rows = np.flatnonzero(has)
-        s1 = c1[rows, rank]
-        s2 = c2[rows, rank]
-        i1 = self._cell_index[idx, s1]
-        i2 = self._cell_index[idx, s2]
+        i1 = self._cell_index[idx, c1[rows, rank]]
+        i2 = self._cell_index[idx, c2[rows, rank]]
 
         el_all, az_all, ipp_lat, ipp_lon, geo_source = self.geometry.lookup(present, t)
         el = el_all[has]
         figs = self._dual(
             epoch, t=t, interval=interval, idx=idx, rank=rank,
-            s1=s1, s2=s2, i1=i1, i2=i2, el=el,
+            i1=i1, i2=i2, el=el,
         )  # fmt: skip
 
         # Assemble per-satellite output over every satellite present (NaN where single-frequency).
@@ -317,8 +331,6 @@ class StationEstimator:
         interval: float,
         idx: Idx,
         rank: Idx,
-        s1: Idx,
-        s2: Idx,
         i1: Idx,
         i2: Idx,
         el: F64,

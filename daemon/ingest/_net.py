@@ -106,6 +106,10 @@ class TcpListenTransport:
         log.info("%s: receiver connected from %s", self._what, peer)
         self._peer.set_result(TcpTransport(reader, writer, what=f"{self._what} peer {peer}"))
 
+    async def wait_peer(self) -> None:
+        """Wait until a receiver has connected (the first :meth:`read` waits for it too)."""
+        await asyncio.shield(self._peer)
+
     async def read(self, max_bytes: int) -> bytes:
         if self._closed:
             raise TransportError(f"{self._what}: read after close")

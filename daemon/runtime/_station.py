@@ -25,6 +25,7 @@ from ionwarden.daemon.ingest import (
     FileSource,
     SourceRejectedError,
     StdinSource,
+    TcpListenTransport,
     open_transport,
 )
 
@@ -35,7 +36,7 @@ from ._stall import StallDetector, StallKind, StallLimits
 
 if TYPE_CHECKING:
     import random
-    from collections.abc import Awaitable, Callable
+    from collections.abc import Awaitable, Callable, Iterator
 
     from ionwarden.daemon.ingest import SourceSpec, Transport
 
@@ -157,7 +158,9 @@ class StationRunner:
         rng: random.Random | None = None,
         produces_epochs: bool = True,
         on_finished: Callable[[], None] | None = None,
+        on_latency: Callable[[str, float], None] | None = None,
     ):
+        self._on_latency = on_latency
         self._on_finished = on_finished
         self.config = config
         self.core = core
@@ -173,7 +176,8 @@ class StationRunner:
                 min(qsize, PACED_QUEUE_CHUNKS),
                 min(self._read_size, PACED_READ_BYTES),
             )
-        self.queue: BoundedQueue[bytes | object] = BoundedQueue(
+        # Items: (monotonic arrival time, bytes) or one of the _BREAK/_END markers.
+        self.queue: BoundedQueue[tuple[float, bytes] | object] = BoundedQueue(
             qsize, policy, stage="estimator", station=config.name
         )
         limits = config.stall
@@ -294,9 +298,8 @@ class StationRunner:
             self._connected = False
             self.started.set()
 
-    async def _retry(self, exc: Exception, delays: object) -> None:
-        assert hasattr(delays, "__next__")
-        delay: float = next(delays)
+    async def _retry(self, exc: Exception, delays: Iterator[float]) -> None:
+        delay = next(delays)
         if isinstance(exc, SourceRejectedError):
             self._set_state(StationState.REFUSED, exc.status)
             log.error("%s: %s; retrying in %.1f s", self.name, exc, delay)
@@ -313,6 +316,9 @@ class StationRunner:
         """Read until EOF (return True) or a stall / transport error (raise)."""
         det = self._detector
         loop = self._loop
+        if isinstance(transport, TcpListenTransport):  # stall timers start once a receiver is in
+            self._set_state(StationState.CONNECTING, "listening")
+            await transport.wait_peer()
         det.reset(loop.time())
         self._connected = True
         self._set_state(StationState.STREAMING)
@@ -347,7 +353,7 @@ class StationRunner:
             self._bytes += len(data)
             self._last_data = now
             det.saw_data(now)
-            await self.queue.put(data)
+            await self.queue.put((now, data))
             det.saw_data(loop.time())  # time spent waiting on our own queue is not the source's
 
     # -- estimate ---------------------------------------------------------------------------------
@@ -363,18 +369,20 @@ class StationRunner:
                 if item is _BREAK:
                     self._handle(self.core.end_stream())
                 else:
-                    assert isinstance(item, bytes)
+                    assert isinstance(item, tuple)
+                    arrived, chunk = item
                     frames_before = self.core.counts().frames_total
                     try:
-                        outputs = self.core.feed(item)
+                        outputs = self.core.feed(chunk)
                     except TOLERATED_DECODE_ERRORS as exc:
                         self._decode_errors += 1
                         log.warning("%s: decode error, chunk skipped: %s", self.name, exc)
                         outputs = ()
                     if self.core.counts().frames_total > frames_before:
                         self._detector.saw_frame(loop.time())
-                    delay = self._handle(outputs)
-                    if delay > 0:
+                    delay = self._handle(outputs, arrived)
+                    if delay > 0:  # replay pacing is planned idleness, not a stuck pipeline
+                        self._progress = loop.time() + delay
                         await asyncio.sleep(delay)
                 self._progress = loop.time()
                 await asyncio.sleep(0)  # one chunk per turn: a garbage flood never starves others
@@ -383,7 +391,7 @@ class StationRunner:
             if self._on_finished is not None:
                 self._on_finished()
 
-    def _handle(self, outputs: object) -> float:
+    def _handle(self, outputs: object, arrived: float | None = None) -> float:
         """Count and emit outputs; return the replay pacing delay (s) they call for."""
         now = self._loop.time()
         delay = 0.0
@@ -396,6 +404,9 @@ class StationRunner:
                 self._detector.saw_epoch(now)
                 if self._pacer is not None:
                     delay = max(delay, self._pacer.delay(out.time.total_s, now))
+                elif self._on_latency is not None and arrived is not None:
+                    # bytes that completed the epoch read → snapshot out (queue wait + decode)
+                    self._on_latency(self.name, now - arrived)
             elif isinstance(out, FixStatus):
                 self._fixes += 1
                 self._latest_fix = out

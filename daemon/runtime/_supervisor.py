@@ -176,6 +176,7 @@ class Daemon:
             emit=self._emit_for(cfg.name),
             produces_epochs=bundle.produces_epochs,
             on_finished=self._wake.set,
+            on_latency=self._exporter.observe_epoch_latency if self._exporter is not None else None,
         )
         running = _Running(runner=runner, bundle=bundle)
         self._stations[cfg.name] = running

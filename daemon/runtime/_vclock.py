@@ -2,9 +2,10 @@
 
 Timers (``asyncio.sleep``, ``asyncio.timeout``, ``call_later``) run on ``loop.time()``, which here
 is the real monotonic clock plus an offset. Whenever the loop would sleep longer than
-``real_poll_s`` with nothing to do, it polls real I/O for ``real_poll_s`` and then jumps the offset
-to the next timer ("autojump"): a 30 s backoff or a 60 s stall limit passes in milliseconds while
-real sockets, pipes and ptys still deliver their data. Nothing in production uses it.
+``real_poll_s`` with nothing to do, it polls real I/O for ``real_poll_s`` (0.1 s by default: long
+enough for loopback I/O on a loaded machine) and then jumps the offset to the next timer
+("autojump"): a 30 s backoff or a 60 s stall limit passes in a fraction of a second while real
+sockets, pipes and ptys still deliver their data. Nothing in production uses it.
 """
 
 from __future__ import annotations
@@ -43,7 +44,7 @@ class _JumpingSelector:
 class VirtualClockLoop(asyncio.SelectorEventLoop):
     """``SelectorEventLoop`` whose clock jumps over idle time (see the module docstring)."""
 
-    def __init__(self, real_poll_s: float = 0.05):
+    def __init__(self, real_poll_s: float = 0.1):
         self.offset_s = 0.0
         inner = selectors.DefaultSelector()
         super().__init__(inner)
@@ -53,7 +54,7 @@ class VirtualClockLoop(asyncio.SelectorEventLoop):
         return time.monotonic() + self.offset_s
 
 
-def run_virtual(coro: Coroutine[Any, Any, T], *, real_poll_s: float = 0.05) -> T:
+def run_virtual(coro: Coroutine[Any, Any, T], *, real_poll_s: float = 0.1) -> T:
     """``asyncio.run`` on a :class:`VirtualClockLoop`."""
     with asyncio.Runner(loop_factory=lambda: VirtualClockLoop(real_poll_s)) as runner:
         return runner.run(coro)
