@@ -291,3 +291,52 @@ def test_udp_drops_the_oldest_datagram_when_its_queue_is_full() -> None:
         await t.aclose()
 
     run_virtual(main())
+
+
+def test_serial_applies_baud_stopbits_and_flow_from_the_url() -> None:
+    """SerialTransport sets the tty to the URL's baud, stop bits and RTS/CTS (termios, POSIX)."""
+    import termios
+
+    from ionwarden.daemon.ingest import parse_source
+
+    async def main() -> None:
+        master, slave = os.openpty()
+        try:
+            spec = parse_source(
+                # parity stays N: a Linux pty refuses parity through the asyncio adapter (EINVAL)
+                f"serial://{os.ttyname(slave)}?baud=38400&stopbits=2&flow=rtscts"
+            )
+            assert isinstance(spec, SerialSource)
+            t = await SerialTransport.open(spec)
+            try:
+                _iflag, _oflag, cflag, _lflag, ispeed, ospeed, _cc = termios.tcgetattr(slave)
+                assert ispeed == ospeed == termios.B38400
+                assert not cflag & termios.PARENB
+                assert cflag & termios.CSTOPB  # two stop bits
+                assert cflag & termios.CRTSCTS
+                assert cflag & termios.CSIZE == termios.CS8
+            finally:
+                await t.aclose()
+        finally:
+            os.close(slave)
+            os.close(master)
+
+    run_virtual(main())
+
+
+def test_serial_settings_the_device_refuses_become_a_transport_error() -> None:
+    """SerialTransport turns a tty's refusal of the port settings into a TransportError (retryable)."""
+    from ionwarden.daemon.ingest import parse_source
+
+    async def main() -> None:
+        master, slave = os.openpty()
+        try:
+            spec = parse_source(f"serial://{os.ttyname(slave)}?parity=E")
+            assert isinstance(spec, SerialSource)
+            with pytest.raises(TransportError, match="refused the port settings"):
+                await SerialTransport.open(spec)
+        finally:
+            os.close(slave)
+            os.close(master)
+
+    run_virtual(main())

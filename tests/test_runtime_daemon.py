@@ -433,3 +433,27 @@ def test_daemon_raises_the_stream_stall_alarm_for_a_silent_station() -> None:
     run_virtual(main())
     stall = next(s for s in alarms.statuses() if s.kind is AlarmKind.STREAM_STALL)
     assert stall.state is AlarmState.ACTIVE
+
+
+def test_daemon_checkpoints_periodically_while_running(tmp_path: Path) -> None:
+    """Daemon writes each station's checkpoint every checkpoint_interval_s, not only at stop."""
+    state = tmp_path / "state"
+
+    async def main() -> None:
+        async with Fleet(1) as fleet:
+            opts = DaemonOptions(
+                stations=(_station("a", fleet.ports()[0]),),
+                state_dir=state,
+                checkpoint_interval_s=10,
+                summary_interval_s=0,
+                status_interval_s=5,
+            )
+            daemon = Daemon(opts, factory=_factory({}))
+            async with asyncio.TaskGroup() as tg:
+                tg.create_task(daemon.run(), name="test.daemon")
+                await daemon.ready.wait()
+                await asyncio.sleep(12)
+                assert (state / "checkpoint-a.npz").is_file()  # written while running
+                daemon.request_stop()
+
+    run_virtual(main(), real_poll_s=0.02)

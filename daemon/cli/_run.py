@@ -156,3 +156,8 @@ def run(args: argparse.Namespace) -> int:
         return die(f"config: {exc}")
     except OutputError as exc:
         return die(f"run: {exc}", 1)
+    except ExceptionGroup as group:  # from the root TaskGroup: one line when it is one of ours
+        ours = group.subgroup(lambda e: isinstance(e, OutputError | ConfigError))
+        if ours is not group:  # subgroup() returns the group itself when every leaf matched
+            raise
+        return die(f"run: {group.exceptions[0]}", 1)

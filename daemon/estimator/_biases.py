@@ -87,15 +87,17 @@ class BiasModel:
             self.fit_all = not bool(self.sat_known.any())
         self.sat_m[sat] = np.where(np.isnan(row), 0.0, row)
 
-    def correction(self, idx: Idx, rank: Idx, k: F64) -> tuple[F64, F64, Idx]:
-        """(satellite part in TECU, total to subtract from STEC_raw, receiver group) per satellite;
-        the total is NaN for a satellite whose satellite part is unknown and whose combined bias
-        is not learnt yet (its STEC would be off by tens of TECU: better unknown than wrong)."""
-        b_sat = k * self.sat_m[idx, rank]
-        group = (idx // 100) * self.pairs.width + rank
-        known = self.sat_known[idx, rank] | self.fit_all
-        rx = np.where(known, self.applied[group], self.comb_applied[idx, rank])
-        return b_sat, b_sat + rx, group
+    def correction(self, flat: Idx, group: Idx, k: F64) -> tuple[F64, F64]:
+        """(satellite part in TECU, total to subtract from STEC_raw) per satellite, for the
+        satellites/ranks at ``flat = sat·W + rank`` in receiver groups ``group``; the total is
+        NaN for a satellite whose satellite part is unknown and whose combined bias is not
+        learnt yet (its STEC would be off by tens of TECU: better unknown than wrong)."""
+        b_sat = k * self.sat_m.ravel().take(flat)
+        rx = self.applied.take(group)
+        if not self.fit_all:
+            known = self.sat_known.ravel().take(flat)
+            rx = np.where(known, rx, self.comb_applied.ravel().take(flat))
+        return b_sat, b_sat + rx
 
     def reference(self) -> tuple[float, float]:
         """(applied bias, σ) of the best-determined receiver group, NaN before any estimate."""

@@ -30,16 +30,13 @@ from ionwarden.parsers import MAX_SAT_ID
 
 from ._arcs import REASON_NAMES, REASON_PAIR, ArcState, SlipThresholds
 from ._biases import BiasModel
+from ._cells import IFP_ROW, MP1_ROW, CellRouter, EpochLayout
 from ._geometry import Geometry
-from ._pairs import C_MPS, PairTable, band_delays_s, iono_coefficients
+from ._pairs import PairTable, band_delays_s
 from ._snapshot import SatelliteFigures, StationSnapshot
 from ._state import (
-    ALPHA,
     ARC,
-    BETA,
     F1,
-    F2,
-    GAMMA,
     GF0,
     HATCH,
     IFL_PREV,
@@ -47,7 +44,6 @@ from ._state import (
     LAST_T,
     LEV_MEAN,
     LEV_SW,
-    LWL,
     MP1,
     MP2,
     NOISE,
@@ -100,21 +96,7 @@ class StationEstimator:
         self.rot_ring = LagRing(S, cfg.rot_interval_s)
         self.roti_window = SlotStd(S, cfg.roti_window_s, cfg.roti_sample_s)
         self.biases = BiasModel(self.pairs, cfg, S)
-        self._seen = np.zeros(S, np.int64)
-        # Per-cell lookup by (satellite, signal), stamped per epoch instead of cleared.
-        # Only signals named in the pair table matter: map their packed codes to compact slots
-        # (the rest, and the table's padding code 0, to one never-stamped slot) so the per-cell
-        # tables stay small enough for the CPU cache.
-        codes = np.unique(np.concatenate((self.pairs.sig1.ravel(), self.pairs.sig2.ravel())))
-        codes = codes[codes > 0]
-        self._sig_slot = np.full(N_SIG, codes.shape[0], np.intp)
-        self._sig_slot[codes] = np.arange(codes.shape[0])
-        self._n_sig_slots = int(codes.shape[0])
-        self._c1 = self._sig_slot[self.pairs.sig1]
-        self._c2 = self._sig_slot[self.pairs.sig2]
-        self._cell_stamp = np.zeros((S, codes.shape[0] + 1), np.int64)
-        self._cell_index = np.zeros((S, codes.shape[0] + 1), np.intp)
-        self._stamp = 0
+        self.cells = CellRouter(self.pairs)
         self._last_epoch_t = -math.inf
         self._intervals = np.full(_INTERVAL_HISTORY, np.nan)
         self._interval = 1.0  # s, median of the recent epoch intervals
@@ -169,137 +151,88 @@ class StationEstimator:
         self._n_epochs += 1
         self.counters["epochs"] += 1
         # NaN marks "unknown" throughout: silence the invalid/0-division warnings it causes.
-        with np.errstate(invalid="ignore", divide="ignore"):
+        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
             snap = self._update(epoch, t, self._interval)
         self._last = snap
         return snap
 
     def _update(self, epoch: ObsEpoch, t: float, interval: float) -> StationSnapshot:
-        # Cells usable for a pair: known satellite/signal, code and phase and frequency present.
-        sat = epoch.sat.astype(np.intp)
-        sig = epoch.sig.astype(np.intp)
-        in_range = (sat >= 0) & (sat < MAX_SAT_ID) & (sig < N_SIG)
-        usable = (
-            in_range
-            & (sig >= 32)
-            & np.isfinite(epoch.pseudorange_m)
-            & np.isfinite(epoch.phase_cycles)
-            & np.isfinite(epoch.freq_hz)
-            & (epoch.pseudorange_m > 0.0)
-        )
-        self.counters["cells_unusable"] += int(in_range.sum() - usable.sum())
-        self._stamp += 1
-        slot = self._sig_slot[np.where(in_range, sig, 0)]
-        cells = np.flatnonzero(usable & (slot < self._n_sig_slots))
-        self._cell_stamp[sat[cells], slot[cells]] = self._stamp
-        self._cell_index[sat[cells], slot[cells]] = cells
-
-        # Satellites present, and per satellite the first configured pair with both signals.
-        self._seen[sat[in_range]] = self._stamp
-        present = np.flatnonzero(self._seen == self._stamp)  # sorted, unique
-        sysi = present // 100
-        c1 = self._c1[sysi]
-        c2 = self._c2[sysi]
-        col = present[:, None]
-        avail = (self._cell_stamp[col, c1] == self._stamp) & (
-            self._cell_stamp[col, c2] == self._stamp
-        )
-        has = avail.any(axis=1)
-        rank_all = avail.argmax(axis=1)
-        idx = present[has]
-        rank = rank_all[has]
-        rows = np.flatnonzero(has)
-        i1 = self._cell_index[idx, c1[rows, rank]]
-        i2 = self._cell_index[idx, c2[rows, rank]]
-
-        el_all, az_all, ipp_lat, ipp_lon, geo_source = self.geometry.lookup(present, t)
-        el = el_all[has]
-        figs = self._dual(
-            epoch, t=t, interval=interval, idx=idx, rank=rank,
-            i1=i1, i2=i2, el=el,
-        )  # fmt: skip
-
-        # Assemble per-satellite output over every satellite present (NaN where single-frequency).
+        lay = self.cells.layout(epoch)
+        self.counters["cells_unusable"] += lay.n_unusable
+        present = lay.present
         m = present.shape[0]
+        geo, geo_source = self.geometry.lookup(present, t)
+        el_all = geo[0]
+        # sin(el) once: levelling weights, station weights and receiver-bias weights use it.
+        sin_all = np.sin(el_all)
+        el = el_all if lay.all_dual else el_all[lay.has]
+        sin_el = sin_all if lay.all_dual else sin_all[lay.has]
+        figs = self._dual(epoch, lay, t=t, interval=interval, el=el, sin_el=sin_el)
 
-        fields = (
-            "stec",
-            "rot",
-            "roti",
-            "iono_l1",
-            "if_code",
-            "if_phase",
-            "hatch",
-            "mp1",
-            "mp2",
-            "noise_factor",
-        )
-        block = np.full((len(fields), m), np.nan)
-        for j, name in enumerate(fields):
-            block[j, has] = figs[name]
-        row = dict(zip(fields, block, strict=True))
-
-        def spread(name: str) -> F64:
-            return row[name]
+        def spread(a: F64) -> F64:
+            """A per-pair-satellite array over every satellite present (NaN single-frequency)."""
+            if lay.all_dual:
+                return a
+            out = np.full(m, np.nan)
+            out[lay.has] = a
+            return out
 
         mapping = mapping_factor(el_all, self._shell_m)
-        stec = spread("stec")
+        stec = spread(figs["stec"])
         vtec = np.where(el_all > 0.0, stec / mapping, np.nan)
-        rot = spread("rot")
-        roti = spread("roti")
+        rot = spread(figs["rot"])
+        roti = spread(figs["roti"])
         x_km, y_km = pierce_offsets_km(
-            self.geometry.lat_rad, self.geometry.lon_rad, ipp_lat, ipp_lon, self._shell_m
+            self.geometry.lat_rad, self.geometry.lon_rad, geo[2], geo[3], self._shell_m
         )
         st = station_figures(
-            el_rad=el_all,
-            vtec=vtec,
-            rot=rot,
-            roti=roti,
-            x_km=x_km,
-            y_km=y_km,
+            el_rad=el_all, sin_el=sin_all, vtec=vtec, rot=rot, roti=roti, x_km=x_km, y_km=y_km,
             mask_rad=self._mask_rad,
-        )
+        )  # fmt: skip
         self._last_roti_median = st.roti_median
         # The snapshot reports the receiver bias that was applied to this epoch's STEC.
         bias_ref, sigma_ref = self.biases.reference()
-        self._update_receiver_bias(
-            t, figs, has=has, el_all=el_all, mapping=mapping, x_km=x_km, y_km=y_km
-        )
+        if self.biases.due(t):
+            self._update_receiver_bias(
+                t, figs, lay=lay, el_all=el_all, sin_all=sin_all, mapping=mapping, x_km=x_km,
+                y_km=y_km,
+            )  # fmt: skip
 
-        slip = np.zeros(m, np.bool_)
-        slip[has] = figs["new"]
-        arc_id = np.full(m, -1, np.int32)
-        arc_id[has] = figs["arc"]
-        switch = np.zeros(m, np.bool_)
-        switch[has] = figs["pair_switch"]
-        codes = sysi * self.pairs.width + rank_all
-        labels = np.where(has, self.pairs.label_of_code[codes], "")
+        if lay.all_dual:
+            slip, arc_id, switch = figs["new"], figs["arc"], figs["pair_switch"]
+        else:
+            slip = np.zeros(m, np.bool_)
+            slip[lay.has] = figs["new"]
+            arc_id = np.full(m, -1, np.int32)
+            arc_id[lay.has] = figs["arc"]
+            switch = np.zeros(m, np.bool_)
+            switch[lay.has] = figs["pair_switch"]
+        # Degrees once for el, az, pierce lat, lon; a NaN slot after them for cells out of range.
+        deg = np.empty((4, m + 1))
+        np.degrees(geo, out=deg[:, :m])
+        deg[0, m] = np.nan
         sats = SatelliteFigures(
-            sat=present.astype(np.int16),
-            pair=tuple(labels.tolist()),
-            el_deg=np.degrees(el_all),
-            az_deg=np.degrees(az_all),
-            ipp_lat_deg=np.degrees(ipp_lat),
-            ipp_lon_deg=np.degrees(ipp_lon),
+            sat=lay.sat16,
+            pair=lay.labels,
+            el_deg=deg[0, :m],
+            az_deg=deg[1, :m],
+            ipp_lat_deg=deg[2, :m],
+            ipp_lon_deg=deg[3, :m],
             stec_tecu=stec,
             vtec_tecu=vtec,
             rot_tecu_per_min=rot,
             roti_tecu_per_min=roti,
-            iono_l1_m=spread("iono_l1"),
-            if_code_m=spread("if_code"),
-            if_phase_m=spread("if_phase"),
-            if_code_smoothed_m=spread("hatch"),
+            iono_l1_m=spread(figs["iono_l1"]),
+            if_code_m=spread(figs["if_code"]),
+            if_phase_m=spread(figs["if_phase"]),
+            if_code_smoothed_m=spread(figs["hatch"]),
             slip=slip,
             arc_id=arc_id,
-            mp1_m=spread("mp1"),
-            mp2_m=spread("mp2"),
-            if_noise_factor=spread("noise_factor"),
+            mp1_m=spread(figs["mp1"]),
+            mp2_m=spread(figs["mp2"]),
+            if_noise_factor=spread(figs["noise_factor"]),
             pair_switch=switch,
         )
-        el_slot = np.full(MAX_SAT_ID, np.nan)
-        el_slot[present] = el_all
-        cell_el = np.full(sat.shape[0], np.nan)
-        cell_el[in_range] = np.degrees(el_slot[sat[in_range]])
         return StationSnapshot(
             station=self.station,
             time=epoch.time,
@@ -311,87 +244,71 @@ class StationEstimator:
             gradient_mm_per_km=st.gradient_mm_per_km,
             gradient_tecu_per_km=st.gradient_tecu_per_km,
             gradient_azimuth_deg=st.gradient_azimuth_deg,
-            dual_freq_fraction=float(idx.shape[0] / m) if m else math.nan,
+            dual_freq_fraction=float(lay.idx.shape[0] / m) if m else math.nan,
             receiver_bias_tecu=bias_ref,
             receiver_bias_sigma_tecu=sigma_ref,
             satellites=sats,
             cell_sat=epoch.sat,
             cell_sig=epoch.sig,
-            cell_el_deg=cell_el,
+            cell_el_deg=deg[0].take(lay.cell_pos),
             cell_cn0_dbhz=epoch.cn0_dbhz,
             geometry_source=geo_source if m else "none",
             counters=self._counters(),
         )
 
     def _dual(
-        self,
-        epoch: ObsEpoch,
-        *,
-        t: float,
-        interval: float,
-        idx: Idx,
-        rank: Idx,
-        i1: Idx,
-        i2: Idx,
-        el: F64,
+        self, epoch: ObsEpoch, lay: EpochLayout, *, t: float, interval: float, el: F64, sin_el: F64
     ) -> dict[str, Any]:
-        """All dual-frequency figures of the satellites ``idx`` (arrays of length m).
+        """All dual-frequency figures of the ``d`` satellites ``lay.idx`` (arrays of length d).
 
         The state rows of ``idx`` are gathered once into ``g`` and scattered back at the end.
-        Cell values come as (2, m) arrays: row 0 band 1, row 1 band 2 of each pair.
+        Cell values come as (2, d) arrays: row 0 band 1, row 1 band 2 of each pair; the linear
+        combinations of SCIENCE.md §3/§9 come out of one product with ``lay.comb``.
         """
-        m = idx.shape[0]
-        g = self.state[idx]
-        i12 = np.concatenate((i1, i2))
-        f = epoch.freq_hz[i12].reshape(2, m)
-        p = epoch.pseudorange_m[i12].reshape(2, m)
-        lm = epoch.phase_cycles[i12].reshape(2, m) * (C_MPS / f)  # phase in metres
-        f1, f2 = f
-        p1, p2 = p
-        l1, l2 = lm
-        if not (np.array_equal(g[:, F1], f1) and np.array_equal(g[:, F2], f2)):
-            co = iono_coefficients(f1, f2)
-            g[:, F1], g[:, F2] = f1, f2
-            g[:, K], g[:, ALPHA], g[:, BETA], g[:, GAMMA] = (
-                co.k_tecu_per_m,
-                co.alpha,
-                co.beta,
-                co.gamma,
-            )
-            g[:, LWL], g[:, L1M], g[:, NOISE] = co.lambda_wl_m, co.l1_m_per_tecu, co.noise_factor
-        k, alpha, beta, gamma = g[:, K], g[:, ALPHA], g[:, BETA], g[:, GAMMA]
-        gf = l1 - l2
-        fl = f * lm
-        fp = f * p
-        mw = (fl[0] - fl[1]) / (f1 - f2) - (fp[0] + fp[1]) / (f1 + f2)
-        lli_lost = np.asarray((epoch.lli[i12].reshape(2, m) & 1).any(axis=0), dtype=np.bool_)
+        idx = lay.idx
+        i12 = lay.i12
+        d = idx.shape[0]
+        g = self.state.take(idx, axis=0)
+        g[:, F1:] = lay.coefs
+        meas = np.empty((4, d))
+        np.multiply(epoch.phase_cycles.take(i12).reshape(2, d), lay.wavelength_m, out=meas[:2])
+        meas[2:] = epoch.pseudorange_m.take(i12).reshape(2, d)
+        comb = (lay.comb * meas).sum(axis=1)
+        gf, mw, lev_x, gf_tecu, if_code, if_phase = comb[: IFP_ROW + 1]
+        mp = comb[MP1_ROW:]
+        if epoch.lli.any():
+            lli_lost = (epoch.lli.take(i12).reshape(2, d) & 1).any(axis=0)
+        else:
+            lli_lost = lay.no_lli
         gap_s = max(self.settings.max_gap_s, self.settings.gap_samples * interval)
         new, reason = self.arcs.detect(
-            g, t=t, rank=rank.astype(np.float64), mw_m=mw, gf_m=gf, el_rad=el,
-            lock=epoch.lock_indicator[i12].reshape(2, m).T,
-            locktime=epoch.lock_time_s[i12].reshape(2, m).T,
-            half=epoch.half_cycle[i12].reshape(2, m).T, lli_lost=lli_lost, gap_s=gap_s,
+            g, t=t, rank=lay.rank_f, mw_m=mw, gf_m=gf, el_rad=el,
+            lock=epoch.lock_indicator.take(i12).reshape(2, d).T,
+            locktime=epoch.lock_time_s.take(i12).reshape(2, d).T,
+            half=epoch.half_cycle.take(i12).reshape(2, d).T, lli_lost=lli_lost, gap_s=gap_s,
         )  # fmt: skip
-        if new.any():
+        any_new = reason.any()
+        if any_new:
             for bit, name in REASON_NAMES.items():
                 self.counters[f"arcs_{name}"] += int(np.count_nonzero(reason & bit))
-        gf_tecu = k * gf
         n_arc = g[:, N]
         # Arc starts reset every per-arc accumulator (levelling, ROT origin, Hatch, MP means).
         keep = ~new
-        g[:, GF0] = np.where(keep, g[:, GF0], gf_tecu)
+        if any_new:
+            g[:, GF0] = np.where(keep, g[:, GF0], gf_tecu)
 
         # Levelling: running sin²el-weighted mean of K·(P2 − P1) − K·GF over the arc.
-        s_el = np.maximum(np.sin(el), 0.1)
-        w = np.where(np.isnan(el), 1.0, s_el * s_el)
-        sw = np.where(keep, g[:, LEV_SW], 0.0) + w
-        x = k * (p2 - p1) - gf_tecu
-        lev = np.where(keep, g[:, LEV_MEAN], x)
-        lev += (w / sw) * (x - lev)
+        s_el = np.maximum(sin_el, 0.1)
+        s_el *= s_el
+        w = np.where(np.isnan(el), 1.0, s_el)
+        sw = np.where(keep, g[:, LEV_SW], 0.0) if any_new else g[:, LEV_SW]
+        sw += w
+        lev = np.where(keep, g[:, LEV_MEAN], lev_x) if any_new else g[:, LEV_MEAN]
+        lev += (w / sw) * (lev_x - lev)
         g[:, LEV_SW] = sw
         g[:, LEV_MEAN] = lev
         stec_raw = gf_tecu + lev
-        b_sat, total_bias, group = self.biases.correction(idx, rank, k)
+        b_sat, total_bias = self.biases.correction(lay.bias_flat, lay.group, g[:, K])
         stec = stec_raw - total_bias
 
         # ROT over the lag, from the arc-relative levelled phase; ROTI over the window.
@@ -403,30 +320,25 @@ class StationEstimator:
         self.roti_window.push(t, idx, rot)
         roti = self.roti_window.std(idx, self.settings.roti_min_samples)
 
-        # Iono-free code/phase, Hatch filter (reset per arc), code-minus-carrier multipath.
-        if_code = alpha * p1 + beta * p2
-        if_phase = alpha * l1 + beta * l2
+        # Hatch filter (reset per arc) of the iono-free code, code-minus-carrier multipath.
         n_h = np.minimum(n_arc, max(self.settings.hatch_window_s / interval, 1.0))
         prev = g[:, HATCH] + if_phase - g[:, IFL_PREV]
-        hatch = np.where(new, if_code, if_code / n_h + (n_h - 1.0) / n_h * prev)
+        hatch = if_code / n_h + (n_h - 1.0) / n_h * prev
+        if any_new:
+            hatch = np.where(new, if_code, hatch)
         g[:, HATCH] = hatch
         g[:, IFL_PREV] = if_phase
-        g1 = 2.0 / (gamma - 1.0)
-        mp = np.empty((m, 2))
-        mp[:, 0] = p1 - (1.0 + g1) * l1 + g1 * l2
-        mp[:, 1] = p2 - gamma * g1 * l1 + (gamma * g1 - 1.0) * l2
-        mp_mean = np.where(keep[:, None], g[:, MP1 : MP2 + 1], 0.0)
-        mp_mean += (mp - mp_mean) / n_arc[:, None]
-        g[:, MP1 : MP2 + 1] = mp_mean
+        mp_mean = g[:, MP1 : MP2 + 1].T
+        if any_new:
+            mp_mean = np.where(keep, mp_mean, 0.0)
+        mp_mean += (mp - mp_mean) / n_arc
+        g[:, MP1 : MP2 + 1] = mp_mean.T
         self.state[idx] = g
         mp -= mp_mean
         return {
             "stec": stec,
             "stec_raw": stec_raw,
             "b_sat": b_sat,
-            "group": group,
-            "idx": idx,
-            "rank": rank,
             "n_arc": n_arc,
             "rot": rot,
             "roti": roti,
@@ -434,8 +346,8 @@ class StationEstimator:
             "if_code": if_code,
             "if_phase": if_phase,
             "hatch": hatch,
-            "mp1": mp[:, 0],
-            "mp2": mp[:, 1],
+            "mp1": mp[0],
+            "mp2": mp[1],
             "noise_factor": g[:, NOISE],
             "arc": arc,
             "new": new,
@@ -443,13 +355,12 @@ class StationEstimator:
         }
 
     def _update_receiver_bias(
-        self, t: float, figs: dict[str, Any], *, has: npt.NDArray[np.bool_], el_all: F64,
+        self, t: float, figs: dict[str, Any], *, lay: EpochLayout, el_all: F64, sin_all: F64,
         mapping: F64, x_km: F64, y_km: F64,
     ) -> None:  # fmt: skip
-        """Feed the bias model every ``receiver_bias_update_s`` with mature arcs above the mask,
-        weighted by sin²el and down-weighted when the ionosphere is disturbed (ROTI)."""
-        if not self.biases.due(t):
-            return
+        """Feed the bias model (every ``receiver_bias_update_s``) with mature arcs above the
+        mask, weighted by sin²el and down-weighted when the ionosphere is disturbed (ROTI)."""
+        has = lay.has
         el = el_all[has]
         use = (
             (el >= self._mask_rad)
@@ -461,9 +372,9 @@ class StationEstimator:
         quiet = 1.0 / (1.0 + (roti_med / 0.25) ** 2) if math.isfinite(roti_med) else 1.0
         y = figs["stec_raw"] - figs["b_sat"]
         self.biases.update(
-            t, y=y[use], idx=figs["idx"][use], rank=figs["rank"][use], group=figs["group"][use],
+            t, y=y[use], idx=lay.idx[use], rank=lay.rank[use], group=lay.group[use],
             mapping=mapping[has][use], x_km=x_km[has][use], y_km=y_km[has][use],
-            weight=quiet * np.sin(el[use]) ** 2,
+            weight=quiet * sin_all[has][use] ** 2,
         )  # fmt: skip
 
     def _restart_time(self) -> None:

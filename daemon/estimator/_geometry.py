@@ -37,10 +37,10 @@ class Geometry:
     ) -> None:
         self.refresh_s = float(refresh_s)
         self.shell_m = shell_m
-        #: Cached orbit geometry per slot: el, az, pierce-point lat, lon (rad) at ``t_orbit``,
-        #: and their rates (rad/s) from the last two refreshes.
-        self.geo = np.full((n_slots, 4), np.nan)
-        self.rate = np.zeros((n_slots, 4))
+        #: Cached orbit geometry per slot: rows el, az, pierce-point lat, lon (rad) at
+        #: ``t_orbit``, and their rates (rad/s) from the last two refreshes; (4, S).
+        self.geo = np.full((4, n_slots), np.nan)
+        self.rate = np.zeros((4, n_slots))
         self.t_orbit = np.full(n_slots, np.nan)
         self.gsv_el = np.full(n_slots, np.nan)
         self.gsv_az = np.full(n_slots, np.nan)
@@ -91,37 +91,44 @@ class Geometry:
             self.t_orbit[eph.sat] = np.nan
 
     # -- lookup ---------------------------------------------------------------------------------
-    def lookup(self, sats: Idx, t_s: float) -> tuple[F64, F64, F64, F64, str]:
-        """(el, az, pierce-point lat, lon) in radians for the satellites at ``t_s`` (NaN where
-        unknown) and the source: "ephemeris", "gsv", "ephemeris+gsv" or "none".
+    def lookup(self, sats: Idx, t_s: float) -> tuple[F64, str]:
+        """Rows (el, az, pierce-point lat, lon) in radians, shape (4, m), for the satellites at
+        ``t_s`` (NaN where unknown) and the source: "ephemeris", "gsv", "ephemeris+gsv" or
+        "none".
 
         Orbit geometry is recomputed for all ``sats`` at once when the last refresh is older
         than ``refresh_s`` or a satellite has no cached value yet (one vectorised call; the
         ephemeris store's selection cache then hits for the unchanged satellite list).
         """
-        if self.rx_ecef is not None and self.has_ephemeris:
-            fresh = np.abs(t_s - self.t_orbit[sats]) <= self.refresh_s
-            if not fresh.all():
-                self._refresh(sats, t_s)
+        dt = t_s - self.t_orbit.take(sats)
+        orbits = self.rx_ecef is not None and self.has_ephemeris
+        if orbits and not (np.abs(dt) <= self.refresh_s).all():
+            self._refresh(sats, t_s)
+            dt = t_s - self.t_orbit.take(sats)
         # Linear extrapolation from the last refresh: second-order error < 0.001° over 30 s.
-        dt = (t_s - self.t_orbit[sats])[:, None]
-        geo = self.geo[sats] + self.rate[sats] * dt
-        el, az, lat, lon = geo.T
+        geo = self.rate.take(sats, axis=1)
+        geo *= dt
+        geo += self.geo.take(sats, axis=1)
+        el, az, lat, lon = geo
         have = ~np.isnan(el)
-        if have.all() and sats.size:
-            return el, az % _TWO_PI, lat, (lon + np.pi) % _TWO_PI - np.pi, "ephemeris"
-        gsv_ok = ~have & (np.abs(t_s - self.gsv_t[sats]) <= GSV_MAX_AGE_S)
-        source = "ephemeris" if have.any() else "none"
-        if gsv_ok.any():
-            g = sats[gsv_ok]
-            el[gsv_ok] = self.gsv_el[g]
-            az[gsv_ok] = self.gsv_az[g]
-            if math.isfinite(self.lat_rad):
-                lat[gsv_ok], lon[gsv_ok] = pierce_point(
-                    self.lat_rad, self.lon_rad, az[gsv_ok], el[gsv_ok], self.shell_m
-                )
-            source = "gsv" if not have.any() else "ephemeris+gsv"
-        return el, az % _TWO_PI, lat, (lon + np.pi) % _TWO_PI - np.pi, source
+        source = "ephemeris"
+        if not (sats.size and have.all()):
+            gsv_ok = ~have & (np.abs(t_s - self.gsv_t[sats]) <= GSV_MAX_AGE_S)
+            source = "ephemeris" if have.any() else "none"
+            if gsv_ok.any():
+                g = sats[gsv_ok]
+                el[gsv_ok] = self.gsv_el[g]
+                az[gsv_ok] = self.gsv_az[g]
+                if math.isfinite(self.lat_rad):
+                    lat[gsv_ok], lon[gsv_ok] = pierce_point(
+                        self.lat_rad, self.lon_rad, az[gsv_ok], el[gsv_ok], self.shell_m
+                    )
+                source = "gsv" if not have.any() else "ephemeris+gsv"
+        az %= _TWO_PI
+        lon += np.pi
+        lon %= _TWO_PI
+        lon -= np.pi
+        return geo, source
 
     def _refresh(self, sats: Idx, t_s: float) -> None:
         """Recompute orbit geometry for ``sats`` (slots without a usable ephemeris become NaN)
@@ -137,11 +144,11 @@ class Geometry:
         )
         span = (t_s - self.t_orbit[sats])[:, None]
         with np.errstate(invalid="ignore", divide="ignore"):
-            diff = new - self.geo[sats]
+            diff = new - self.geo[:, sats].T
             diff[:, 1] = (diff[:, 1] + np.pi) % _TWO_PI - np.pi  # azimuth and longitude wrap
             diff[:, 3] = (diff[:, 3] + np.pi) % _TWO_PI - np.pi
             rate = diff / span
         usable = (span > 0.0) & (span < 4.0 * self.refresh_s)
-        self.rate[sats] = np.where(usable & ~np.isnan(rate), rate, 0.0)
-        self.geo[sats] = new
+        self.rate[:, sats] = np.where(usable & ~np.isnan(rate), rate, 0.0).T
+        self.geo[:, sats] = new.T
         self.t_orbit[sats] = t_s

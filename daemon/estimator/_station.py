@@ -44,16 +44,20 @@ def pierce_offsets_km(
 
 
 def station_figures(
-    *, el_rad: F64, vtec: F64, rot: F64, roti: F64, x_km: F64, y_km: F64, mask_rad: float
-) -> StationFigures:
-    """Station summary over satellites at or above ``mask_rad`` (all when elevation is unknown)."""
+    *, el_rad: F64, vtec: F64, rot: F64, roti: F64, x_km: F64, y_km: F64, mask_rad: float,
+    sin_el: F64 | None = None,
+) -> StationFigures:  # fmt: skip
+    """Station summary over satellites at or above ``mask_rad`` (all when elevation is unknown);
+    ``sin_el`` is sin(el_rad) when the caller has it already."""
     m = el_rad.shape[0]
     for a in (vtec, rot, roti, x_km, y_km):
         assert a.shape == (m,), (a.shape, m)
     known = np.isfinite(el_rad)
     above = (el_rad >= mask_rad) if known.any() else np.ones(m, np.bool_)
-    s_el = np.sin(np.clip(el_rad, 0.0, None))
-    w = np.where(known, s_el * s_el, 1.0)
+    # sin(max(el, 0)) = max(sin el, 0) for el in [−90°, 90°]
+    s_el = np.maximum(np.sin(el_rad) if sin_el is None else sin_el, 0.0)
+    s_el *= s_el
+    w = np.where(known, s_el, 1.0)
 
     use = above & np.isfinite(vtec)
     wu = w[use]

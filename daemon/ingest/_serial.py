@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import asyncio
 import logging
+import termios
 from contextlib import contextmanager
 from typing import TYPE_CHECKING, Self
 
@@ -46,6 +47,8 @@ def _map_serial(what: str) -> Iterator[None]:
             yield
     except serial.SerialException as exc:  # pyserial's own type (an OSError subclass without errno)
         raise SourceUnavailableError(f"{what}: {exc}") from exc
+    except termios.error as exc:  # the tty refused a setting (not an OSError): say which device
+        raise TransportError(f"{what}: the device refused the port settings: {exc}") from exc
 
 
 class SerialTransport:

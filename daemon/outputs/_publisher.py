@@ -56,6 +56,18 @@ TRANSIENT_MQTT_ERRORS: tuple[type[BaseException], ...] = (aiomqtt.MqttError,)
 GOODBYE_TIMEOUT_S = 2.0
 
 
+def _raise_if_cancelled() -> None:
+    """Re-raise a cancellation that ``asyncio.wait_for`` swallowed.
+
+    aiomqtt 2.x waits for CONNACK and PUBACK with ``asyncio.wait_for``, which on Python < 3.12 can
+    drop a cancellation that arrives as the awaited future completes (CPython gh-86296); the task
+    then stays "cancelling" but runs on. Called after each such await, so shutdown never hangs.
+    """
+    task = asyncio.current_task()
+    if task is not None and task.cancelling():
+        raise asyncio.CancelledError
+
+
 def _utc_now() -> dt.datetime:
     return dt.datetime.now(dt.UTC)
 
@@ -323,6 +335,7 @@ class MqttPublisher:
             while not self._stop.is_set():
                 try:
                     async with self._client() as client:
+                        _raise_if_cancelled()
                         self._set_connected(True)
                         self._connects += 1
                         self._ready.set()
@@ -347,7 +360,8 @@ class MqttPublisher:
                         delay,
                     )
                     with contextlib.suppress(TimeoutError):
-                        await asyncio.wait_for(self._stop.wait(), timeout=delay)
+                        async with asyncio.timeout(delay):
+                            await self._stop.wait()
         finally:
             self._set_connected(False)
             self._running = False
@@ -373,6 +387,7 @@ class MqttPublisher:
         )
         try:
             await self._publish(client, online)
+            _raise_if_cancelled()
             while True:
                 msg = self._buffer.peek()
                 if msg is None:
@@ -385,6 +400,7 @@ class MqttPublisher:
                 # One at a time: with Nagle's algorithm on the broker (mosquitto's default),
                 # pipelined PUBACKs stall ~40 ms on delayed ACKs; measured in bench_outputs.py.
                 await self._publish(client, msg)
+                _raise_if_cancelled()
                 self._buffer.pop(msg)
                 self._published += 1
                 if self._on_published is not None:

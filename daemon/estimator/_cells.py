@@ -1,0 +1,196 @@
+"""Which cells of an epoch feed which satellite's frequency pair: the epoch layout, cached.
+
+Axes: ``n`` cells of the epoch, ``m`` satellites present (sorted ids), ``d`` of them with a usable
+pair (``idx``), ``S`` satellite slots (``MAX_SAT_ID``). A receiver sends the same satellites,
+signals and carrier frequencies epoch after epoch, and which cells are usable (code and phase
+present) rarely changes; everything that depends only on that — the pair chosen per satellite
+(the first configured pair whose two signals both have code, phase and frequency), the cell
+indices of its two signals, the pair labels, and the per-satellite pair constants of SCIENCE.md §3
+(K, α, β, γ, λ_WL, L1 metres per TECU, noise factor) folded into one coefficient matrix — is
+computed when the layout changes (key: the bytes of ``sat``, ``sig``, ``freq_hz`` and the usable
+mask) and reused otherwise.
+
+Linear combinations per satellite (rows of :attr:`EpochLayout.comb`, over the measurement rows
+L1, L2, P1, P2 in metres): GF = L1 − L2; MW = (f1·L1 − f2·L2)/(f1 − f2) − (f1·P1 + f2·P2)/(f1 + f2);
+levelling sample K·(P2 − P1) − K·GF; K·GF; IF code α·P1 + β·P2; IF phase α·L1 + β·L2; raw
+multipath MP1 = P1 − (1 + g)·L1 + g·L2 and MP2 = P2 − γ·g·L1 + (γ·g − 1)·L2 with g = 2/(γ − 1)
+(SCIENCE.md §3, §9).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import TYPE_CHECKING
+
+import numpy as np
+import numpy.typing as npt
+
+from ionwarden.parsers import MAX_SAT_ID
+
+from ._pairs import C_MPS, iono_coefficients
+
+if TYPE_CHECKING:
+    from ionwarden.parsers import ObsEpoch
+
+    from ._pairs import PairTable
+
+__all__ = ["COMB_NAMES", "N_SIG", "CellRouter", "EpochLayout"]
+
+F64 = npt.NDArray[np.float64]
+Idx = npt.NDArray[np.intp]
+N_SIG = 10 * 32  # packed signal codes are band*32 + attribute, bands 0–9
+#: Rows of the combination matrix (see module doc).
+COMB_NAMES = ("gf", "mw", "lev_x", "gf_tecu", "if_code", "if_phase", "mp1", "mp2")
+(GF_ROW, MW_ROW, LEVX_ROW, GFT_ROW, IFC_ROW, IFP_ROW, MP1_ROW, MP2_ROW) = range(len(COMB_NAMES))
+
+
+@dataclass(slots=True, eq=False, kw_only=True)
+class EpochLayout:
+    """Everything about one epoch that depends only on its layout (see module doc)."""
+
+    key: bytes
+    n_unusable: int
+    present: Idx  # (m,) satellite ids present, sorted
+    sat16: npt.NDArray[np.int16]  # (m,) the same as int16, read-only (goes into snapshots)
+    has: npt.NDArray[np.bool_]  # (m,) satellite has a usable pair
+    all_dual: bool
+    rank_all: Idx  # (m,) pair rank (0 where none)
+    idx: Idx  # (d,) satellite ids with a pair
+    rank: Idx  # (d,)
+    rank_f: F64  # (d,) the same as float (state column)
+    i12: Idx  # (2d,) cell index of band 1 then band 2 of each pair
+    labels: tuple[str, ...]  # (m,) pair label ("" single-frequency)
+    cell_pos: Idx  # (n,) position of each cell's satellite in ``present`` (m: out of range)
+    bias_flat: Idx  # (d,) flat index sat·W + rank into the (S, W) bias tables
+    group: Idx  # (d,) receiver-bias group (system, rank)
+    wavelength_m: F64  # (2, d) c/f of band 1 and band 2
+    coefs: F64  # (d, 9) state columns F1 … NOISE: f1, f2, K, α, β, γ, λ_WL, L1 m/TECU, noise
+    comb: F64  # (len(COMB_NAMES), 4, d) combination coefficients over L1, L2, P1, P2
+    no_lli: npt.NDArray[np.bool_]  # (d,) all False, read-only
+
+
+class CellRouter:
+    """Maps an epoch's cells to pairs, caching the result while the layout repeats."""
+
+    def __init__(self, pairs: PairTable) -> None:
+        self.pairs = pairs
+        S = MAX_SAT_ID
+        # Only signals named in the pair table matter: map their packed codes to compact slots
+        # (the rest, and the table's padding code 0, to one never-stamped slot) so the per-cell
+        # tables stay small enough for the CPU cache.
+        codes = np.unique(np.concatenate((pairs.sig1.ravel(), pairs.sig2.ravel())))
+        codes = codes[codes > 0]
+        self._sig_slot = np.full(N_SIG, codes.shape[0], np.intp)
+        self._sig_slot[codes] = np.arange(codes.shape[0])
+        self._n_sig_slots = int(codes.shape[0])
+        self._c1 = self._sig_slot[pairs.sig1]
+        self._c2 = self._sig_slot[pairs.sig2]
+        # Per-cell lookup by (satellite, signal), stamped per layout instead of cleared.
+        self._cell_stamp = np.zeros((S, codes.shape[0] + 1), np.int64)
+        self._cell_index = np.zeros((S, codes.shape[0] + 1), np.intp)
+        self._seen = np.zeros(S, np.int64)
+        self._stamp = 0
+        self._last: EpochLayout | None = None
+        self.rebuilds = 0
+
+    def layout(self, epoch: ObsEpoch) -> EpochLayout:
+        """The layout of ``epoch`` (the cached one when sat, sig, freq and usability repeat)."""
+        pr = epoch.pseudorange_m
+        # Usable values: code > 0 and code, phase, frequency finite (their product is finite
+        # exactly when all three are: |values| < 1e9 · 1e9 · 1e10 never overflow).
+        ok = (pr > 0.0) & np.isfinite(pr * epoch.phase_cycles * epoch.freq_hz)
+        key = b"".join((epoch.sat.tobytes(), epoch.sig.tobytes(), epoch.freq_hz.tobytes(),
+                        ok.tobytes()))  # fmt: skip
+        last = self._last
+        if last is not None and last.key == key:
+            return last
+        self._last = lay = self._build(epoch, ok, key)
+        self.rebuilds += 1
+        return lay
+
+    def _build(self, epoch: ObsEpoch, ok: npt.NDArray[np.bool_], key: bytes) -> EpochLayout:
+        sat = epoch.sat.astype(np.intp)
+        sig = epoch.sig.astype(np.intp)
+        in_range = (sat >= 0) & (sat < MAX_SAT_ID) & (sig < N_SIG)
+        usable = in_range & (sig >= 32) & ok
+        self._stamp += 1
+        stamp = self._stamp
+        slot = self._sig_slot[np.where(in_range, sig, 0)]
+        cells = np.flatnonzero(usable & (slot < self._n_sig_slots))
+        self._cell_stamp[sat[cells], slot[cells]] = stamp
+        self._cell_index[sat[cells], slot[cells]] = cells
+
+        # Satellites present, and per satellite the first configured pair with both signals.
+        self._seen[sat[in_range]] = stamp
+        present = np.flatnonzero(self._seen == stamp)  # sorted, unique
+        sysi = present // 100
+        c1 = self._c1[sysi]
+        c2 = self._c2[sysi]
+        col = present[:, None]
+        avail = (self._cell_stamp[col, c1] == stamp) & (self._cell_stamp[col, c2] == stamp)
+        has = avail.any(axis=1)
+        rank_all = avail.argmax(axis=1)
+        idx = present[has]
+        rank = rank_all[has]
+        rows = np.flatnonzero(has)
+        i1 = self._cell_index[idx, c1[rows, rank]]
+        i2 = self._cell_index[idx, c2[rows, rank]]
+        i12 = np.concatenate((i1, i2))
+        d = idx.shape[0]
+        m = present.shape[0]
+
+        width = self.pairs.width
+        codes = sysi * width + rank_all
+        labels = np.where(has, self.pairs.label_of_code[codes], "")
+        cell_pos = np.full(sat.shape[0], m, np.intp)
+        cell_pos[in_range] = np.searchsorted(present, sat[in_range])
+
+        f = epoch.freq_hz[i12].reshape(2, d)
+        f1, f2 = f
+        co = iono_coefficients(f1, f2)
+        coefs = np.stack(
+            (f1, f2, co.k_tecu_per_m, co.alpha, co.beta, co.gamma, co.lambda_wl_m,
+             co.l1_m_per_tecu, co.noise_factor), axis=1,
+        )  # fmt: skip
+        k, a, b, gam = co.k_tecu_per_m, co.alpha, co.beta, co.gamma
+        g1 = 2.0 / (gam - 1.0)
+        one = np.ones(d)
+        zero = np.zeros(d)
+        # Rows over (L1, L2, P1, P2); see COMB_NAMES and the module doc.
+        comb = np.array(
+            [
+                [one, -one, zero, zero],
+                [f1 / (f1 - f2), -f2 / (f1 - f2), -f1 / (f1 + f2), -f2 / (f1 + f2)],
+                [-k, k, -k, k],
+                [k, -k, zero, zero],
+                [zero, zero, a, b],
+                [a, b, zero, zero],
+                [-(1.0 + g1), g1, one, zero],
+                [-gam * g1, gam * g1 - 1.0, zero, one],
+            ]
+        ).reshape(len(COMB_NAMES), 4, d)
+        sat16 = present.astype(np.int16)
+        no_lli = np.zeros(d, np.bool_)
+        for arr in (present, sat16, has, rank_all, idx, rank, i12, cell_pos, no_lli):
+            arr.setflags(write=False)
+        return EpochLayout(
+            key=key,
+            n_unusable=int(np.count_nonzero(in_range) - np.count_nonzero(usable)),
+            present=present,
+            sat16=sat16,
+            has=has,
+            all_dual=bool(d == m),
+            rank_all=rank_all,
+            idx=idx,
+            rank=rank,
+            rank_f=rank.astype(np.float64),
+            i12=i12,
+            labels=tuple(labels.tolist()),
+            cell_pos=cell_pos,
+            bias_flat=idx * width + rank,
+            group=sysi[has] * width + rank,
+            wavelength_m=C_MPS / f,
+            coefs=coefs,
+            comb=comb,
+            no_lli=no_lli,
+        )
