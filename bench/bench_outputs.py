@@ -5,7 +5,10 @@
    (IONWARDEN_TEST_MQTT_HOST/PORT, default 127.0.0.1:1883): per epoch, the alarm engine and the
    formatting run, then the publisher queues and sends. Latency = from the snapshot handed to the
    outputs (alarm evaluation + formatting included) to the broker's PUBACK for its summary.
-2. Exporter: the text exposition for 20 stations × 40 satellites, in-process and over real HTTP.
+2. Frame received → summary PUBACK with the real estimator pipeline: the simulator's invented
+   quiet-day stream replayed as 20 stations, fed epoch by epoch through StationPipeline, alarms
+   and the publisher (shared broker); epochs all at the top of the second, then spread over it.
+3. Exporter: the text exposition for 20 stations × 40 satellites, in-process and over real HTTP.
 
 Usage: .venv/bin/python bench/bench_outputs.py [--seconds 20] [--stations 20] [--sats 40]
 Targets (issue 8): publish-ack p99 ≤ 10 ms; scrape ≤ 50 ms. The machine may be shared: figures are
@@ -31,6 +34,7 @@ from prometheus_client import CollectorRegistry, generate_latest
 
 from ionwarden.daemon.alarms import StationAlarms
 from ionwarden.daemon.config import AlarmSettings, MqttSettings, PrometheusSettings
+from ionwarden.daemon.estimator import FixStatus, StationPipeline, StationSnapshot
 from ionwarden.daemon.outputs import (
     DaemonSnapshot,
     Exporter,
@@ -40,6 +44,7 @@ from ionwarden.daemon.outputs import (
     StationFigures,
     summary_payload,
 )
+from ionwarden.daemon.sim import Simulator, build_scenario, iter_stream
 from tests._mqtt_support import PrivateBroker
 from tests._outputs_support import T0, make_snapshot
 
@@ -110,6 +115,59 @@ async def bench_mqtt(
     )
 
 
+async def bench_frames(
+    seconds: int, n_stations: int, *, host: str, port: int, stagger: bool
+) -> None:
+    """Frame bytes received → estimator pipeline → alarms → summary PUBACK, on the simulator's
+    invented quiet-day stream (one simulated receiver replayed as ``n_stations`` stations)."""
+    sc = build_scenario("quiet-day", duration_s=seconds + 1.0)
+    chunks = [data for _, data in iter_stream(Simulator(sc), 0)]
+    settings = MqttSettings(host=host, port=port, topic_prefix=f"iwbench/{os.getpid()}")
+    submitted: dict[bytes, float] = {}
+    acked: list[float] = []
+
+    def on_published(msg: OutboundMessage, _queued_to_ack_s: float) -> None:
+        t0 = submitted.pop(msg.payload, None)
+        if t0 is not None:
+            acked.append(time.perf_counter() - t0)
+
+    names = [f"ST{i:02d}" for i in range(n_stations)]
+    pipes = [StationPipeline(n, reference_time=sc.start) for n in names]
+    engines = [StationAlarms(n, AlarmSettings()) for n in names]
+    for p in pipes:  # first epoch: ephemerides and arc set-up, not timed
+        p.feed(chunks[0])
+    est: list[float] = []
+    pub = MqttPublisher(settings, on_published=on_published)
+    async with asyncio.TaskGroup() as tg:
+        tg.create_task(pub.run(), name="daemon.output[mqtt]")
+        await asyncio.wait_for(pub.wait_connected(), 10)
+        loop = asyncio.get_running_loop()
+        start = loop.time()
+        for s, chunk in enumerate(chunks[1:]):
+            for i in range(n_stations):
+                offset = i / n_stations if stagger else 0.0
+                await asyncio.sleep(max(0.0, start + s + offset - loop.time()))
+                t0 = time.perf_counter()
+                for out in pipes[i].feed(chunk):
+                    if isinstance(out, StationSnapshot):
+                        est.append(time.perf_counter() - t0)
+                        pub.publish_transitions_nowait(engines[i].observe_snapshot(out))
+                        pub.publish_snapshot_nowait(out)
+                        submitted[summary_payload(out)] = t0
+                    elif isinstance(out, FixStatus):
+                        pub.publish_transitions_nowait(engines[i].observe_fix(out))
+        await asyncio.wait_for(pub.wait_drained(), 30)
+        pub.stop()
+    ms = [x * 1e3 for x in acked]
+    e = [x * 1e3 for x in est]
+    how = "spread over the second" if stagger else "all at the top of the second"
+    print(
+        f"Frames -> summary PUBACK [{n_stations} stations x 1 Hz x {len(chunks) - 1} s, epochs {how}, "
+        f"real estimator on simulated quiet-day stream]: n={len(ms)} p50={pct(ms, 0.5):.2f} ms "
+        f"p99={pct(ms, 0.99):.2f} ms; estimator per epoch median={statistics.median(e):.2f} ms"
+    )
+
+
 def bench_exporter(n_stations: int, n_sats: int, repeats: int = 50) -> None:
     stations = []
     alarms = []
@@ -174,6 +232,10 @@ def main() -> None:
         try:
             label = "private mosquitto, set_tcp_nodelay true"
             asyncio.run(run(host="127.0.0.1", port=broker.port, label=label))
+            for stagger in (False, True):
+                asyncio.run(
+                    bench_frames(args.seconds, args.stations, host=host, port=port, stagger=stagger)
+                )
         finally:
             broker.stop()
     bench_exporter(args.stations, args.sats)

@@ -132,6 +132,8 @@ class _Layout:
     signal_id: npt.NDArray[np.uint8]
     freq_hz: _F64
     glo_fdma: bool
+    #: Per-cell ``GLO_NO_CHANNEL`` (read-only), the channel column of non-GLONASS messages.
+    no_channel: npt.NDArray[np.int8]
 
 
 _LAYOUTS: dict[tuple[int, int, int, int], _Layout] = {}
@@ -201,7 +203,8 @@ def _layout(
     sat = sat_ids[cell_sat]
     sig = system.signals[cell_sig]
     freq = frequencies_hz(sat, sig)
-    for arr in (sat_ids, sat, sig, freq, cell_sat):
+    no_channel = np.full(len(cells), GLO_NO_CHANNEL, np.int8)
+    for arr in (sat_ids, sat, sig, freq, cell_sat, no_channel):
         arr.setflags(write=False)  # shared by every message with this layout
     return _Layout(
         nbytes=(pos + 7) // 8,
@@ -219,6 +222,7 @@ def _layout(
         signal_id=cell_sig.astype(np.uint8),
         freq_hz=freq,
         glo_fdma=system.letter == "R",
+        no_channel=no_channel,
     )
 
 
@@ -310,7 +314,7 @@ def decode_msm(payload: bytes, glo_channels: npt.NDArray[np.int8] | None = None)
         glo_channel = sat_ch[cell_sat]
         freq = frequencies_hz(lay.sat, lay.sig, glo_channel)
     else:
-        glo_channel = np.full(ncell, GLO_NO_CHANNEL, np.int8)
+        glo_channel = lay.no_channel
 
     epoch = (head >> 186) & 0x3FFF_FFFF  # bits 24–53
     return MsmMessage(

@@ -5,63 +5,54 @@ message per constellation (more if NSat × NSig would exceed 64 cells), the mult
 (DF393) set on all but the last. Per satellite the rough range is the mean pseudorange rounded to
 2⁻¹⁰ ms and the rough rate the mean rate rounded to 1 m/s; a cell whose fine value does not fit its
 field, or is NaN, is sent as the field's "invalid" code (the most negative value).
+
+The whole epoch is encoded at once, with no per-satellite or per-cell Python loop (STYLE rule 21):
+``_msm_layout`` gives (cached) where every cell and field goes; here the values are computed on
+its axes (``n`` cells in message order, ``nu`` satellites) and packed and framed by its plans.
+Per-satellite means are summed exactly as ``np.nanmean`` sums, so the frames are the same bytes
+as those of the earlier one-satellite-at-a-time encoder (a copy of which the tests keep).
 """
 
 from __future__ import annotations
 
-import math
 from typing import TYPE_CHECKING, Final
 
 import numpy as np
 import numpy.typing as npt
 
-from ._bitio import BitWriter
-from ._crc import frame_rtcm
 from ._gnsstime import BDS_GPS_OFFSET_S, SECONDS_PER_WEEK, GpsTime, leap_seconds_at
-from ._msm_tables import (
-    CELL_FIELDS,
-    LOCK_TIME_DF402_S,
-    LOCK_TIME_DF407_S,
-    MSM_SYSTEMS,
-    SAT_FIELDS,
-    SPEED_OF_LIGHT_MPS,
-    MsmSystem,
-)
+from ._msm_layout import SYSTEMS_IN_ORDER, EncodeLayout, encode_layout
+from ._msm_tables import LOCK_TIME_DF402_S, LOCK_TIME_DF407_S, SPEED_OF_LIGHT_MPS, MsmSystem
 
 if TYPE_CHECKING:
     from ._epoch import ObsEpoch
 
 __all__ = ["encode_msm"]
 
+_F64 = npt.NDArray[np.float64]
+_I64 = npt.NDArray[np.int64]
 _LIGHT_MS_M: Final = SPEED_OF_LIGHT_MPS / 1000.0
-_MAX_CELLS: Final = 64  # RTCM 10403.3 §3.5.12.3: NSat × NSig ≤ 64
 _FINE_PR_RANGE_MS: Final = 2.0**-10  # DF400/DF405 span ±2⁻¹⁰ ms
 _FINE_PH_RANGE_MS: Final = 2.0**-8  # DF401/DF406 span ±2⁻⁸ ms
-_SYSTEM_ORDER: Final = "GRECJSI"
+_FLOAT_MAX: Final = float(np.finfo(np.float64).max)
+#: Lock-time tables with reserved (NaN) indicators never chosen (searchsorted needs them sorted).
+_LOCK_DF402_S: Final = np.nan_to_num(LOCK_TIME_DF402_S.astype(np.float64), nan=np.inf)
+_LOCK_DF407_S: Final = np.nan_to_num(LOCK_TIME_DF407_S.astype(np.float64), nan=np.inf)
 
 
-def _system_block(letter: str) -> int:
-    return next(block for block, s in MSM_SYSTEMS.items() if s.letter == letter)
-
-
-def _fit_signed(values: npt.NDArray[np.float64], width: int) -> list[int]:
+def _fit_signed(values: _F64, width: int) -> _I64:
     """Round to a signed ``width``-bit code; NaN or out of range → the invalid (most negative) code."""
     lo = -(1 << (width - 1))
-    out = []
-    for v in values.tolist():
-        if math.isnan(v):
-            out.append(lo)
-            continue
-        code = round(v)
-        out.append(code if lo < code <= -lo - 1 else lo)
-    return out
+    code = np.rint(values)
+    ok = (code > lo) & (code <= -lo - 1)
+    return np.where(ok, code, lo).astype(np.int64)
 
 
-def _lock_code(lock_s: npt.NDArray[np.float32], table: npt.NDArray[np.float32]) -> list[int]:
+def _lock_code(lock_s: npt.NDArray[np.float32], table: _F64) -> _I64:
     """Largest indicator whose minimum lock time does not exceed the lock time (NaN → 0)."""
-    valid = np.nan_to_num(table, nan=np.inf)
-    times = np.nan_to_num(lock_s.astype(np.float64), nan=0.0)
-    return (np.searchsorted(valid, times, side="right") - 1).clip(0).tolist()  # type: ignore[no-any-return]
+    # As np.nan_to_num(lock_s, nan=0.0): NaN → 0, +inf → the largest float.
+    times = np.minimum(np.where(np.isnan(lock_s), 0.0, lock_s.astype(np.float64)), _FLOAT_MAX)
+    return (np.searchsorted(table, times, side="right") - 1).clip(0).astype(np.int64)
 
 
 def _epoch_field(system: MsmSystem, total_s: float) -> int:
@@ -78,109 +69,54 @@ def _epoch_field(system: MsmSystem, total_s: float) -> int:
     return ms % week_ms
 
 
-def _encode_one(
-    epoch: ObsEpoch,
-    system: MsmSystem,
-    *,
-    level: int,
-    cells: npt.NDArray[np.intp],
-    sig_ids: dict[int, int],
-    multiple: bool,
-    station_id: int,
-    iods: int,
-) -> bytes:
-    sat = epoch.sat[cells]
-    sat_bits = sorted({int(s) - system.sat_base for s in sat.tolist()})
-    used_sig = sorted({sig_ids[int(g)] for g in epoch.sig[cells].tolist()})
-    nsat, nsig = len(sat_bits), len(used_sig)
-    sat_pos = {b: i for i, b in enumerate(sat_bits)}
-    sig_pos = {g: i for i, g in enumerate(used_sig)}
-    cell_idx = np.array(
-        [
-            sat_pos[int(s) - system.sat_base] * nsig + sig_pos[sig_ids[int(g)]]
-            for s, g in zip(sat.tolist(), epoch.sig[cells].tolist(), strict=True)
-        ],
-        np.intp,
-    )
-    order = np.argsort(cell_idx, kind="stable")
-    cells, cell_idx = cells[order], cell_idx[order]
-    cell_sat = cell_idx // nsig
+def _group_nanmeans(values: _F64, lay: EncodeLayout) -> tuple[_F64, npt.NDArray[np.intp]]:
+    """Mean and count of the non-NaN values of each satellite, per row of ``values`` (k, n).
 
-    pr_ms = epoch.pseudorange_m[cells] / _LIGHT_MS_M
+    Bit-identical to ``np.nanmean`` of each satellite's cells: that zeroes NaNs and calls
+    ``np.sum``, which adds fewer than 8 values in order and 8…128 values in 8 interleaved partial
+    sums (numpy pairwise summation, ``pairwise_sum`` in numpy's loops_utils); both are reproduced
+    column by column on a zero-padded (k, nu, width) matrix (adding a zero is exact).
+    """
+    nan = np.isnan(values)
+    k, nu = values.shape[0], lay.sat_start.shape[0]
+    mat = np.zeros((k, nu, lay.width))
+    mat[:, lay.cell_sat, lay.cell_col] = np.where(nan, 0.0, values)
+    count = np.add.reduceat((~nan).astype(np.intp), lay.sat_start, axis=1)
+    total = mat[:, :, 0].copy()
+    for j in range(1, lay.width):
+        total += mat[:, :, j]
+    for n, rows in lay.wide:
+        a = mat[:, rows, :n]
+        r = a[:, :, :8].copy()
+        stop = n - n % 8
+        for i in range(8, stop, 8):
+            r += a[:, :, i : i + 8]
+        s = ((r[..., 0] + r[..., 1]) + (r[..., 2] + r[..., 3])) + (
+            (r[..., 4] + r[..., 5]) + (r[..., 6] + r[..., 7])
+        )
+        for i in range(stop, n):
+            s += a[:, :, i]
+        total[:, rows] = s
     with np.errstate(invalid="ignore", divide="ignore"):
-        ph_ms = epoch.phase_cycles[cells] / epoch.freq_hz[cells] * 1000.0
-    rough = np.full(nsat, np.nan)
-    rate = np.full(nsat, np.nan)
-    for k in range(nsat):
-        mine = cell_sat == k
-        base = pr_ms[mine]
-        if np.isnan(base).all():
-            base = ph_ms[mine]
-        if not np.isnan(base).all():
-            rough[k] = round(float(np.nanmean(base)) * 1024) / 1024
-        rr = epoch.range_rate_mps[cells][mine]
-        if not np.isnan(rr).all():
-            rate[k] = round(float(np.nanmean(rr)))
-    rough_ok = ~np.isnan(rough) & (rough >= 0) & (rough < 255)
-    rough[~rough_ok] = np.nan
-    fine_pr = pr_ms - rough[cell_sat]
-    fine_ph = ph_ms - rough[cell_sat]
-    fine_pr[np.abs(fine_pr) >= _FINE_PR_RANGE_MS] = np.nan
-    fine_ph[np.abs(fine_ph) >= _FINE_PH_RANGE_MS] = np.nan
+        return total / count, count
 
-    w = BitWriter()
-    w.u(12, system.base + level - 1).u(12, station_id)  # DF002, DF003
-    w.u(30, _epoch_field(system, epoch.time.total_s))
-    w.u(1, int(multiple)).u(3, iods).u(7, 0).u(2, 0).u(2, 0).u(1, 0).u(3, 0)  # DF393…DF418
-    satmask = sum(1 << (64 - b) for b in sat_bits)
-    sigmask = sum(1 << (32 - g) for g in used_sig)
-    w.u(64, satmask).u(32, sigmask)
-    cellmask = sum(1 << (nsat * nsig - 1 - int(c)) for c in cell_idx.tolist())
-    w.u(nsat * nsig, cellmask)
 
-    sat_values: dict[str, list[int]] = {
-        "DF397": [255 if math.isnan(r) else int(r) for r in rough.tolist()],
-        "DF398": [0 if math.isnan(r) else round((r - int(r)) * 1024) for r in rough.tolist()],
-        "DF399": _fit_signed(rate, 14),
-        "EXT": [0] * nsat,
-    }
-    if system.letter == "R":
-        ext = []
-        for k in range(nsat):
-            f = epoch.freq_hz[cells][(cell_sat == k)]
-            sg = epoch.sig[cells][(cell_sat == k)] // 32
-            chans = [
-                round((fv - 1602e6) / 0.5625e6) if b == 1 else round((fv - 1246e6) / 0.4375e6)
-                for fv, b in zip(f.tolist(), sg.tolist(), strict=True)
-                if b in (1, 2) and not math.isnan(fv)
-            ]
-            ext.append(chans[0] + 7 if chans and -7 <= chans[0] <= 6 else 15)
-        sat_values["EXT"] = ext
-    rate_fine = epoch.range_rate_mps[cells] - rate[cell_sat]
-    cn0 = epoch.cn0_dbhz[cells].astype(np.float64)
-    if level == 4:
-        cn0_code = np.nan_to_num(np.round(cn0), nan=0.0).clip(0, 63)
-        lock_code = _lock_code(epoch.lock_time_s[cells], LOCK_TIME_DF402_S)
-        fine = {"DF400": (fine_pr, 2**24, 15), "DF401": (fine_ph, 2**29, 22)}
-    else:
-        cn0_code = np.nan_to_num(np.round(cn0 * 16), nan=0.0).clip(0, 1023)
-        lock_code = _lock_code(epoch.lock_time_s[cells], LOCK_TIME_DF407_S)
-        fine = {"DF405": (fine_pr, 2**29, 20), "DF406": (fine_ph, 2**31, 24)}
-    cell_values: dict[str, list[int]] = {
-        name: _fit_signed(v * scale, width) for name, (v, scale, width) in fine.items()
-    }
-    cell_values["DF402"] = cell_values["DF407"] = lock_code
-    cell_values["DF420"] = epoch.half_cycle[cells].astype(int).tolist()
-    cell_values["DF403"] = cell_values["DF408"] = cn0_code.astype(int).tolist()
-    cell_values["DF404"] = _fit_signed(rate_fine * 1e4, 15)
-
-    for name, width, is_signed in SAT_FIELDS[level]:
-        for v in sat_values[name]:
-            w.s(width, v) if is_signed else w.u(width, v)
-    for name, width, is_signed in CELL_FIELDS[level]:
-        for v in cell_values[name]:
-            w.s(width, v) if is_signed else w.u(width, v)
-    return frame_rtcm(w.to_bytes())
+def _glonass_ext(freq_hz: _F64, sig: npt.NDArray[np.uint16], lay: EncodeLayout) -> _I64:
+    """DF419 + 7 per satellite from its first L1/L2 cell with a known frequency, else 15."""
+    band = sig // 32
+    with np.errstate(invalid="ignore"):
+        # GLONASS ICD §3.3.1.1: f = 1602 + 0.5625 k MHz (L1), 1246 + 0.4375 k MHz (L2).
+        chan = np.where(
+            band == 1,
+            np.rint((freq_hz - 1602e6) / 0.5625e6),
+            np.rint((freq_hz - 1246e6) / 0.4375e6),
+        )
+    usable = ((band == 1) | (band == 2)) & ~np.isnan(freq_hz)
+    n = freq_hz.shape[0]
+    first = np.minimum.reduceat(np.where(usable, np.arange(n), n), lay.sat_start)
+    k = chan[np.minimum(first, n - 1)]
+    ok = (first < n) & (k >= -7) & (k <= 6) & lay.sat_glo
+    return np.where(ok, k + 7, np.where(lay.sat_glo, 15, 0)).astype(np.int64)
 
 
 def encode_msm(
@@ -188,41 +124,85 @@ def encode_msm(
 ) -> list[bytes]:
     """Encode ``epoch`` as MSM4 or MSM7 frames, one per constellation (RTCM 10403.3 §3.5.12).
 
-    Cells whose signal code has no MSM signal id in their system's table are left out.
+    Cells whose signal code has no MSM signal id in their system's table are left out. Raises
+    ``ValueError`` for another level, a station id over 4095, an IODS outside 0…7, or two cells
+    with the same satellite and signal.
     """
     if level not in (4, 7):
         raise ValueError(f"MSM level must be 4 or 7, got {level}")
-    sid = epoch.station_id if station_id is None else station_id
-    sid = max(sid, 0)
-    jobs: list[tuple[MsmSystem, npt.NDArray[np.intp], dict[int, int]]] = []
-    sys_idx = epoch.sat.astype(np.intp) // 100
-    for letter in _SYSTEM_ORDER:
-        system = MSM_SYSTEMS[_system_block(letter)]
-        sig_ids = {int(code): i for i, code in enumerate(system.signals.tolist()) if code}
-        mine = np.flatnonzero(
-            (sys_idx == _SYSTEM_ORDER.index(letter))
-            & np.isin(epoch.sig, list(sig_ids))
-            & (epoch.sat.astype(np.intp) - system.sat_base >= 1)
-            & (epoch.sat.astype(np.intp) - system.sat_base <= 64)
-        )
-        if mine.size == 0:
-            continue
-        nsig = len({sig_ids[int(g)] for g in epoch.sig[mine].tolist()})
-        sats = sorted(set(epoch.sat[mine].tolist()))
-        per_msg = max(1, _MAX_CELLS // nsig)
-        for start in range(0, len(sats), per_msg):
-            chunk = np.isin(epoch.sat[mine], sats[start : start + per_msg])
-            jobs.append((system, mine[chunk], sig_ids))
-    return [
-        _encode_one(
-            epoch,
-            system,
-            level=level,
-            cells=cells,
-            sig_ids=sig_ids,
-            multiple=i < len(jobs) - 1,
-            station_id=sid,
-            iods=iods,
-        )
-        for i, (system, cells, sig_ids) in enumerate(jobs)
-    ]
+    sid = max(epoch.station_id if station_id is None else station_id, 0)
+    if sid >> 12:
+        raise ValueError(f"{sid} does not fit in uint12 (DF003 reference station id)")
+    if not 0 <= iods <= 7:
+        raise ValueError(f"{iods} does not fit in uint3 (DF409 IODS)")
+    lay = encode_layout(epoch.sat, epoch.sig, level)
+    if lay is None:
+        return []
+    cells, cell_sat = lay.cells, lay.cell_sat
+
+    # Rough range (DF397/DF398) and rough rate (DF399) per satellite, fine values per cell.
+    pr_ms = epoch.pseudorange_m[cells] / _LIGHT_MS_M
+    freq = epoch.freq_hz[cells]
+    rr = epoch.range_rate_mps[cells]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ph_ms = epoch.phase_cycles[cells] / freq * 1000.0
+    mean, count = _group_nanmeans(
+        np.stack((pr_ms, ph_ms, rr) if level == 7 else (pr_ms, ph_ms)), lay
+    )
+    with np.errstate(invalid="ignore", over="ignore"):
+        # The phase range stands in where a satellite has no pseudorange.
+        rough_q = np.rint(np.where(count[0] == 0, mean[1], mean[0]) * 1024)
+        rough = rough_q / 1024
+        rough_ok = (rough >= 0) & (rough < 255)
+    rough[~rough_ok] = np.nan
+    fine_pr = pr_ms - rough[cell_sat]
+    fine_ph = ph_ms - rough[cell_sat]
+    fine_pr[np.abs(fine_pr) >= _FINE_PR_RANGE_MS] = np.nan
+    fine_ph[np.abs(fine_ph) >= _FINE_PH_RANGE_MS] = np.nan
+    q = np.where(rough_ok, rough_q, 0.0).astype(np.int64)
+    df397 = np.where(rough_ok, q >> 10, 255)
+
+    cn0 = epoch.cn0_dbhz[cells].astype(np.float64)
+    half = epoch.half_cycle[cells].astype(np.int64)
+    if level == 4:
+        # Table 3.5-81: DF397, DF398; Table 3.5-82: DF400, DF401, DF402, DF420, DF403.
+        cn0_code = np.round(cn0).clip(0, 63)  # ±inf clip to the ends; NaN → 0 below
+        cn0_code[np.isnan(cn0_code)] = 0.0
+        parts = [
+            df397,
+            q & 1023,
+            _fit_signed(fine_pr * 2**24, 15),
+            _fit_signed(fine_ph * 2**29, 22),
+            _lock_code(epoch.lock_time_s[cells], _LOCK_DF402_S),
+            half,
+            cn0_code.astype(np.int64),
+        ]
+    else:
+        # Table 3.5-87: DF397, extended info, DF398, DF399; Table 3.5-88: DF405, DF406, DF407,
+        # DF420, DF408, DF404.
+        rate = np.rint(mean[2])
+        ext = _glonass_ext(freq, epoch.sig[cells], lay) if lay.any_glo else np.zeros_like(q)
+        cn0_code = np.round(cn0 * 16).clip(0, 1023)
+        cn0_code[np.isnan(cn0_code)] = 0.0
+        parts = [
+            df397,
+            ext,
+            q & 1023,
+            _fit_signed(rate, 14),
+            _fit_signed(fine_pr * 2**29, 20),
+            _fit_signed(fine_ph * 2**31, 24),
+            _lock_code(epoch.lock_time_s[cells], _LOCK_DF407_S),
+            half,
+            cn0_code.astype(np.int64),
+            _fit_signed((rr - rate[cell_sat]) * 1e4, 15),
+        ]
+
+    # Header (Table 3.5-78): the layout has the message numbers, DF393 and the masks.
+    head = lay.head.copy()
+    t = epoch.time.total_s
+    epoch_field = {k: _epoch_field(SYSTEMS_IN_ORDER[k], t) for k in set(lay.msg_sys)}
+    head[:, 1] = sid  # DF003
+    head[:, 2] = [epoch_field[k] for k in lay.msg_sys]
+    head[:, 4] = iods  # DF409
+    values = np.concatenate([head.view(np.int64).ravel(), *parts])[lay.perm]
+    return lay.frames.frame(lay.pack.pack(values))

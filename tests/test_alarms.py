@@ -95,7 +95,7 @@ def test_alarm_settings_reject_clear_above_raise():
 
 def test_station_alarms_storm_raises_and_clears_roti_once():
     """StationAlarms raises ROTI once after the hold and clears it once when the storm passes."""
-    settings = AlarmSettings()
+    settings = AlarmSettings(roti_statistic="max")
     out = [
         tr for tr in run_storm(StationAlarms("ALPHA", settings), 3000) if tr.kind is AlarmKind.ROTI
     ]
@@ -108,6 +108,20 @@ def test_station_alarms_storm_raises_and_clears_roti_once():
     assert out[0].severity is Severity.WARNING
     assert out[0].unit == "TECU/min"
     assert out[1].seq == out[0].seq + 1
+
+
+def test_station_alarms_roti_watches_the_median_by_default():
+    """StationAlarms judges ROTI on the median over satellites unless told to use the max."""
+    # make_snapshot: median = 0.8 × max; 0.6 max → 0.48 median, below raise_at 0.5.
+    quiet_median = StationAlarms("ALPHA", AlarmSettings())
+    worst = StationAlarms("ALPHA", AlarmSettings(roti_statistic="max"))
+    out_median, out_max = [], []
+    for t in range(120):
+        snap = make_snapshot(t=T0 + float(t), roti=0.6)
+        out_median += quiet_median.observe_snapshot(snap)
+        out_max += worst.observe_snapshot(snap)
+    assert [tr.alarm for tr in out_median] == []
+    assert [tr.alarm for tr in out_max] == ["roti"]
 
 
 def test_station_alarms_quiet_day_has_no_transitions():

@@ -429,3 +429,54 @@ def test_mqtt_swallowed_cancellation_is_raised_again():
             await task
 
     asyncio.run(main())
+
+
+def test_mqtt_health_is_rate_limited():
+    """MqttPublisher queues at most one health message per health_interval_s of its clock."""
+    clock = [100.0]
+    pub = MqttPublisher(
+        settings("127.0.0.1", free_port(), "p", health_interval_s=10.0), monotonic=lambda: clock[0]
+    )
+    snap = DaemonSnapshot(stations=(StationFigures(station="ALPHA"),))
+    for t in (100.0, 101.0, 109.9, 110.0, 115.0, 120.5):
+        clock[0] = t
+        pub.publish_health_nowait(snap)
+    assert pub.statistics().buffered_epoch == 3  # at 100, 110 and 120.5
+
+
+@pytest.mark.integration
+def test_mqtt_per_epoch_data_carries_v5_message_expiry(broker):
+    """MqttPublisher sets the MQTT v5 message expiry on per-epoch data (none on alarm events) and
+    the documented QoS per topic class."""
+    host, port = broker
+    prefix = unique_prefix()
+
+    async def main():
+        async with subscriber(host, port) as sub:
+            await sub.subscribe(f"{prefix}/ALPHA/#", qos=1)
+            pub = MqttPublisher(settings(host, port, prefix, epoch_expiry_s=42))
+            eng = StationAlarms("ALPHA", AlarmSettings(stall_after_s=5.0))
+            async with asyncio.TaskGroup() as tg:
+                tg.create_task(pub.run(), name="daemon.output[mqtt]")
+                await asyncio.wait_for(pub.wait_connected(), 10)
+                pub.publish_snapshot_nowait(make_snapshot("ALPHA"))
+                pub.publish_transitions_nowait(eng.observe_stall(9.0, T0 + 9.0))
+                pub.stop()
+            expiry = {}
+            qos = {}
+            async with asyncio.timeout(20):
+                async for msg in sub.messages:
+                    leaf = msg.topic.value.split("/")[-1]
+                    props = msg.properties
+                    expiry[leaf] = getattr(props, "MessageExpiryInterval", None)
+                    qos[leaf] = msg.qos
+                    if {"summary", "satellites", "events", "stream-stall"} <= set(expiry):
+                        return expiry, qos
+        return expiry, qos
+
+    expiry, qos = asyncio.run(main())
+    # Subscribed at QoS 1, so the delivered QoS is min(published, 1) (MQTT 5.0 §3.8.4).
+    assert qos == {"status": 1, "summary": 1, "satellites": 0, "events": 1, "stream-stall": 1}
+    assert 0 < expiry["satellites"] <= 42
+    assert 0 < expiry["summary"] <= 42  # the broker counts it down while holding the message
+    assert expiry["events"] is None

@@ -1,16 +1,21 @@
-"""MSM4/MSM7 encoder: encode → StreamDecoder round trips within the field resolution (hypothesis)."""
+"""MSM4/MSM7 encoder: round trips within the field resolution, byte identity with the old encoder."""
 
 from __future__ import annotations
+
+import warnings
 
 import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
+from ionwarden.daemon.sim import Simulator, block_epochs, build_scenario
 from ionwarden.parsers import EPOCH_DTYPES, GpsTime, ObsEpoch, frequencies_hz
-from ionwarden.parsers._msm_encode import encode_msm
+from ionwarden.parsers._msm_encode import _group_nanmeans, encode_msm
+from ionwarden.parsers._msm_layout import encode_layout
 from ionwarden.parsers._msm_tables import MSM_SYSTEMS
 from ionwarden.parsers._stream import StreamDecoder
+from tests._msm_encode_reference import encode_msm_reference
 
 C = 299_792_458.0
 _LETTERS = "GRECJSI"
@@ -146,3 +151,204 @@ def test_msm_encode_rejects_other_levels():
     """encode_msm raises ValueError for an MSM level other than 4 or 7."""
     with pytest.raises(ValueError):
         encode_msm(ObsEpoch.empty(GpsTime(2300, 0.0)), level=5)
+
+
+# --- Byte identity with the earlier scalar encoder (frozen in tests/_msm_encode_reference.py) ---
+
+_NASTY = st.one_of(st.just(float("nan")), st.floats(-1e12, 1e12, allow_nan=False))
+
+
+@st.composite
+def rough_epochs(draw) -> ObsEpoch:
+    """Epochs in any cell order with NaN, out-of-range and unsupported cells, up to 14 signals/sat."""
+    time = GpsTime(draw(st.integers(1, 2400)), draw(st.integers(0, 604_799_999)) / 1000)
+    cells: dict[tuple[int, int], None] = {}
+    for _ in range(draw(st.integers(1, 6))):
+        system = MSM_SYSTEMS[draw(st.sampled_from(sorted(MSM_SYSTEMS)))]
+        codes = [int(c) for c in system.signals if c]
+        sigs = draw(st.lists(st.sampled_from(codes), min_size=1, max_size=14, unique=True))
+        sigs += draw(st.lists(st.integers(0, 1100), max_size=1))  # maybe no MSM id
+        bits = draw(st.lists(st.integers(0, 66), min_size=1, max_size=40, unique=True))
+        for bit in bits:
+            for sig in sigs:
+                cells[(system.sat_base + bit, sig)] = None
+    cells.update(
+        dict.fromkeys(draw(st.lists(st.tuples(st.integers(-3, 800), st.integers(0, 2000)))))
+    )
+    keys = draw(st.permutations(sorted(cells)))
+    n = len(keys)
+    sat = np.array([k[0] for k in keys], np.int16)
+    sig = np.array([k[1] for k in keys], np.uint16)
+    chan = np.array(draw(st.lists(st.integers(-9, 8), min_size=n, max_size=n)), np.int8)
+    ok = (sat >= 0) & (sat < 700) & (sig // 32 < 10)  # frequencies_hz covers these
+    freq = np.full(n, np.nan)
+    freq[ok] = frequencies_hz(sat[ok], sig[ok], chan[ok])
+    freq[np.array(draw(st.lists(st.booleans(), min_size=n, max_size=n)), bool)] = np.nan
+    base = {int(s): draw(st.floats(-1e3, 8e7)) for s in set(sat.tolist())}
+    pr = np.array([base[int(s)] for s in sat]) + np.array(
+        draw(st.lists(st.floats(-400, 400), min_size=n, max_size=n))
+    )
+    rate = np.array([base[int(s)] / 1e4 - 3e3 for s in sat]) + np.array(
+        draw(st.lists(st.floats(-2, 2), min_size=n, max_size=n))
+    )
+    nasty = draw(st.lists(st.tuples(st.integers(0, 3), st.integers(0, n - 1), _NASTY), max_size=8))
+    phase = pr * np.nan_to_num(freq, nan=1.6e9) / C
+    for which, i, v in nasty:
+        (pr, phase, rate, freq)[which][i] = v if which != 3 else float("nan")
+    return ObsEpoch(
+        time=time,
+        station_id=draw(st.integers(-5, 4095)),
+        sat=sat,
+        sig=sig,
+        pseudorange_m=pr,
+        phase_cycles=phase,
+        range_rate_mps=rate,
+        cn0_dbhz=np.array(
+            draw(
+                st.lists(
+                    st.one_of(st.floats(-10, 90), st.just(np.nan), st.just(np.inf)),
+                    min_size=n,
+                    max_size=n,
+                )
+            ),
+            np.float32,
+        ),
+        lock_time_s=np.array(
+            draw(
+                st.lists(
+                    st.one_of(st.floats(-1, 1e6), st.just(np.nan), st.just(np.inf)),
+                    min_size=n,
+                    max_size=n,
+                )
+            ),
+            np.float32,
+        ),
+        lock_indicator=np.full(n, -1, np.int16),
+        half_cycle=np.array(draw(st.lists(st.booleans(), min_size=n, max_size=n)), np.bool_),
+        lli=np.zeros(n, np.uint8),
+        freq_hz=freq,
+    )
+
+
+@settings(max_examples=150, deadline=None)
+@given(rough_epochs(), st.sampled_from([4, 7]), st.integers(0, 7))
+def test_msm_encode_matches_reference_encoder_on_rough_epochs(epoch, level, iods):
+    """encode_msm gives the same bytes as the earlier scalar encoder for any epoch (frozen copy)."""
+    got = encode_msm(epoch, level=level, iods=iods)
+    assert got == encode_msm_reference(epoch, level=level, iods=iods)
+    assert got == encode_msm(epoch, level=level, iods=iods)  # second call: cached layout
+
+
+@settings(max_examples=40, deadline=None)
+@given(epochs())
+def test_msm_encode_matches_reference_encoder_on_physical_epochs(epoch):
+    """encode_msm gives the same bytes as the earlier scalar encoder on the round-trip epochs."""
+    for level in (4, 7):
+        assert encode_msm(epoch, level=level) == encode_msm_reference(epoch, level=level)
+
+
+@pytest.mark.parametrize(
+    ("scenario", "duration_s", "rate_hz"),
+    [("storm-front", 40.0, 1.0), ("band-outage", 3600.0, 1 / 30), ("scintillation", 600.0, 0.1)],
+)
+def test_msm_encode_matches_reference_encoder_on_simulator(scenario, duration_s, rate_hz):
+    """encode_msm gives the reference encoder's bytes for every simulated epoch (our scenarios)."""
+    sim = Simulator(build_scenario(scenario, duration_s=duration_s, rate_hz=rate_hz))
+    n = 0
+    for blocks in sim.run():
+        for block in blocks:
+            for epoch in block_epochs(block, 41, gaps=False):
+                for level in (4, 7):
+                    assert encode_msm(epoch, level=level) == encode_msm_reference(
+                        epoch, level=level
+                    )
+                n += 1
+    assert n > 10
+
+
+def test_msm_encode_splits_wide_satellites_like_reference():
+    """With 15 GPS signals per satellite a message holds 4 satellites (RTCM 10403.3 §3.5.12.3: NSat × NSig ≤ 64)."""
+    codes = [int(c) for c in MSM_SYSTEMS[107].signals if c]
+    sat = np.repeat(np.arange(1, 11, dtype=np.int16), len(codes))
+    sig = np.tile(np.array(codes, np.uint16), 10)
+    n = sat.shape[0]
+    rng = np.random.default_rng(5)
+    pr = 2.2e7 + rng.normal(0, 30, n)
+    pr[::7] = np.nan
+    arrays = {name: np.zeros(n, dtype) for name, dtype in EPOCH_DTYPES.items()}
+    arrays.update(sat=sat, sig=sig, pseudorange_m=pr, range_rate_mps=rng.normal(0, 500, n))
+    epoch = ObsEpoch(time=GpsTime(2300, 1000.0), **arrays)
+    frames = encode_msm(epoch, level=7)
+    assert len(frames) == 3  # 4 + 4 + 2 satellites
+    assert frames == encode_msm_reference(epoch, level=7)
+
+
+def test_msm_encode_rejects_duplicate_cells():
+    """encode_msm raises ValueError naming the satellite when two cells share satellite and signal."""
+    sat = np.array([5, 5], np.int16)
+    sig = np.array([34, 34], np.uint16)
+    arrays = {name: np.zeros(2, dtype) for name, dtype in EPOCH_DTYPES.items()}
+    arrays.update(sat=sat, sig=sig, pseudorange_m=np.full(2, 2.2e7))
+    with pytest.raises(ValueError, match="satellite 5"):
+        encode_msm(ObsEpoch(time=GpsTime(2300, 1.0), **arrays))
+
+
+@pytest.mark.parametrize(("station_id", "iods"), [(4096, 0), (1, 8), (1, -1)])
+def test_msm_encode_rejects_fields_that_do_not_fit(station_id, iods):
+    """encode_msm raises ValueError for a DF003 over 4095 or a DF409 outside 0…7 (RTCM 10403.3 Table 3.5-78)."""
+    sat = np.array([5], np.int16)
+    arrays = {name: np.zeros(1, dtype) for name, dtype in EPOCH_DTYPES.items()}
+    arrays.update(sat=sat, sig=np.array([34], np.uint16), pseudorange_m=np.full(1, 2.2e7))
+    with pytest.raises(ValueError, match="does not fit"):
+        encode_msm(ObsEpoch(time=GpsTime(2300, 1.0), **arrays), station_id=station_id, iods=iods)
+
+
+def test_msm_group_nanmeans_bit_identical_to_nanmean():
+    """_group_nanmeans equals np.nanmean of each satellite's cells bit for bit, 1 to 15 cells (numpy)."""
+    codes = [int(c) for c in MSM_SYSTEMS[107].signals if c]  # 15 GPS signal ids
+    sat = np.concatenate([np.full(k, k, np.int16) for k in range(1, 16)])
+    sig = np.concatenate([np.array(codes[:k], np.uint16) for k in range(1, 16)])
+    lay = encode_layout(sat, sig, 7)
+    assert lay is not None
+    rng = np.random.default_rng(11)
+    for _ in range(200):
+        values = rng.lognormal(0, 8, (2, sat.shape[0])) * rng.choice([-1.0, 1.0], (2, sat.shape[0]))
+        values[rng.random(values.shape) < 0.15] = np.nan
+        got, count = _group_nanmeans(values[:, lay.cells], lay)
+        for row in range(2):
+            cells = values[row, lay.cells]
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN satellites
+                want = [np.nanmean(cells[lay.cell_sat == k]) for k in range(15)]
+            np.testing.assert_array_equal(got[row], want)
+            assert count[row].tolist() == [
+                int((~np.isnan(cells[lay.cell_sat == k])).sum()) for k in range(15)
+            ]
+
+
+def _edge_epoch(pr_ms: list[float], fine_ms: float, rate: float, sig: int = 34) -> ObsEpoch:
+    n = len(pr_ms)
+    arrays = {name: np.zeros(n, dtype) for name, dtype in EPOCH_DTYPES.items()}
+    arrays.update(
+        sat=np.arange(1, n + 1, dtype=np.int16),
+        sig=np.full(n, sig, np.uint16),
+        pseudorange_m=np.array(pr_ms) * (C / 1000) + fine_ms * (C / 1000),
+        phase_cycles=(np.array(pr_ms) + 2 * fine_ms) * 1575.42e6 / 1000,
+        freq_hz=np.full(n, 1575.42e6),
+        range_rate_mps=np.full(n, rate),
+        cn0_dbhz=np.full(n, 63.49, np.float32),
+        lock_time_s=np.full(n, 524.288, np.float32),
+    )
+    return ObsEpoch(time=GpsTime(2300, 604_799.999), station_id=4095, **arrays)
+
+
+@pytest.mark.parametrize(
+    "fine_ms", [0.0, 2.0**-11, 2.0**-10 - 2.0**-40, 2.0**-10, -(2.0**-10), 0.004]
+)
+@pytest.mark.parametrize("rate", [0.0, 8191.4, 8191.5, -8191.5, -8192.0, 0.49999])
+def test_msm_encode_matches_reference_encoder_at_field_limits(fine_ms, rate):
+    """encode_msm agrees with the reference encoder at the DF397/DF399/DF400/DF405 range limits (RTCM 10403.3 DF397–DF406)."""
+    rough = [0.0, -(2.0**-11), 2.0**-11, 254.999, 255.0 - 2.0**-11, 255.0 - 2.0**-12, 255.0, 300.0]
+    epoch = _edge_epoch(rough, fine_ms, rate)
+    for level in (4, 7):
+        assert encode_msm(epoch, level=level) == encode_msm_reference(epoch, level=level)

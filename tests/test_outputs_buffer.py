@@ -10,24 +10,29 @@ from ionwarden.daemon.outputs import OutboundBuffer, OutboundMessage, Topic
 
 TOPIC = Topic("p/ALPHA/summary")
 
-# An operation: ("put", alarm_class) or ("ack", None).
+# An operation: ("put", class) or ("ack", None); class 0 alarm, 1 summary, 2 bulk.
 OPS = st.lists(
-    st.one_of(st.tuples(st.just("put"), st.booleans()), st.tuples(st.just("ack"), st.none())),
+    st.one_of(st.tuples(st.just("put"), st.integers(0, 2)), st.tuples(st.just("ack"), st.none())),
     max_size=200,
 )
 
 
 @given(ops=OPS, alarm_bound=st.integers(1, 8), epoch_bound=st.integers(1, 8))
 def test_buffer_is_bounded_ordered_and_counts_every_drop(ops, alarm_bound, epoch_bound):
-    """OutboundBuffer stays within its bounds, sends alarm class first and in order, and every
-    queued message is either sent, still queued, or counted as dropped."""
+    """OutboundBuffer stays within its bounds, sends alarm class first, then summaries, then bulk,
+    each in order, and every queued message is sent, still queued, or counted as dropped."""
     buf = OutboundBuffer(alarm_bound=alarm_bound, epoch_bound=epoch_bound)
     sent: list[OutboundMessage] = []
     put: list[OutboundMessage] = []
-    for n, (op, alarm_class) in enumerate(ops):
+    for n, (op, klass) in enumerate(ops):
         if op == "put":
             msg = OutboundMessage(
-                topic=TOPIC, payload=str(n).encode(), qos=1, retain=False, alarm_class=alarm_class
+                topic=TOPIC,
+                payload=str(n).encode(),
+                qos=1,
+                retain=False,
+                alarm_class=klass == 0,
+                bulk=klass == 2,
             )
             put.append(msg)
             buf.put_nowait(msg)
@@ -36,14 +41,16 @@ def test_buffer_is_bounded_ordered_and_counts_every_drop(ops, alarm_bound, epoch
             if msg is not None:
                 if buf.alarm_depth:
                     assert msg.alarm_class
+                elif msg.bulk:
+                    assert not buf._epoch  # no summary waits behind satellites/health
                 buf.pop(msg)
                 sent.append(msg)
         assert buf.alarm_depth <= alarm_bound
-        assert buf.epoch_depth <= epoch_bound
+        assert buf.epoch_depth <= 2 * epoch_bound
     queued = len(buf)
     assert len(put) == len(sent) + queued + buf.dropped_alarm + buf.dropped_epoch
-    for cls in (True, False):
-        order = [int(m.payload) for m in sent if m.alarm_class is cls]
+    for klass in ((True, False), (False, False), (False, True)):
+        order = [int(m.payload) for m in sent if (m.alarm_class, m.bulk) == klass]
         assert order == sorted(order)
 
 

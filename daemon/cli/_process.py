@@ -9,6 +9,7 @@ through the same :class:`StationPipeline` the daemon uses. Output: one row per e
 
 from __future__ import annotations
 
+import itertools
 import json
 import math
 import sys
@@ -219,7 +220,7 @@ def _epochs_from(
         parser = RinexObsParser()
         with open_rinex_text(path) as lines:
             positioned = False
-            for line in (*lines, ""):
+            for line in itertools.chain(lines, ("",)):  # streamed: never the whole file
                 for ep in parser.feed_line(line):
                     if (
                         not positioned

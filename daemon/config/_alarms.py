@@ -49,8 +49,10 @@ class AlarmSettings(Section):
 
     # ROTI classes 0.25 / 0.5 TECU/min (Pi et al. 1997 scale as usually quoted; from memory).
     roti: ThresholdAlarm = ThresholdAlarm(raise_at=0.5, clear_at=0.25)
-    #: Which station ROTI figure the ROTI alarm watches: the worst satellite or the median.
-    roti_statistic: Literal["max", "median"] = "max"
+    #: Which station ROTI figure the ROTI alarm watches: the median over satellites (default) or
+    #: the worst satellite. On the simulator's quiet-day stream the max sits near 0.3 TECU/min
+    #: (above the 0.25 clear level, so a max-based alarm never clears) while the median is ~0.13.
+    roti_statistic: Literal["max", "median"] = "median"
     # Largest |ROT| over satellites, TECU/min (30 s differences); ours.
     rot: ThresholdAlarm = ThresholdAlarm(
         raise_at=2.0, clear_at=1.0, raise_after_s=30.0, clear_after_s=120.0

@@ -40,6 +40,10 @@ APPLY_SIGMA_TECU = 3.0
 #: Samples (one per receiver-bias update) before a satellite's combined bias is applied.
 COMB_MIN_SAMPLES = 8.0
 _MIN_FIT = 5
+#: Floor of the per-epoch σ in the combined-bias weights (TECU): residual scatter per epoch.
+_COMB_SIGMA0_TECU = 0.3
+#: Arc length (samples) at which a residual's levelling error counts half in the combined bias.
+_COMB_ARC_SAMPLES = 300.0
 
 
 class BiasModel:
@@ -63,6 +67,8 @@ class BiasModel:
         self.fit_all = True
         self.fitted = False
         self.applied = np.zeros(len(labels))
+        #: Bumped whenever anything :meth:`correction` reads changes (lets callers cache it).
+        self.version = 0
         self.ref_group = -1
         self.last_t = -math.inf
         for name, per_pair in cfg.satellite_dcb_ns.items():
@@ -86,6 +92,7 @@ class BiasModel:
         if not self.fitted:  # before the first fit: "no satellite part known at all" mode?
             self.fit_all = not bool(self.sat_known.any())
         self.sat_m[sat] = np.where(np.isnan(row), 0.0, row)
+        self.version += 1
 
     def correction(self, flat: Idx, group: Idx, k: F64) -> tuple[F64, F64]:
         """(satellite part in TECU, total to subtract from STEC_raw) per satellite, for the
@@ -111,9 +118,10 @@ class BiasModel:
 
     def update(
         self, t: float, *, y: F64, idx: Idx, rank: Idx, group: Idx, mapping: F64, x_km: F64,
-        y_km: F64, weight: F64,
+        y_km: F64, weight: F64, arc_samples: F64 | None = None,
     ) -> None:  # fmt: skip
-        """One epoch of the fit: ``y`` = STEC_raw − satellite part (TECU) of usable satellites."""
+        """One epoch of the fit: ``y`` = STEC_raw − satellite part (TECU) of usable satellites;
+        ``arc_samples``: samples so far in each satellite's arc (levelling maturity)."""
         m = y.shape[0]
         for a in (idx, rank, group, mapping, x_km, y_km, weight):
             assert a.shape == (m,), (a.shape, m)
@@ -137,6 +145,16 @@ class BiasModel:
             self.comb_count *= lam
             res = y[other] - self.rx.vtec_model(mapping[other], x_km[other], y_km[other])
             s_o, r_o, w_o = idx[other], rank[other], weight[other]
+            # Early fits (receiver bias still converging, large σ) carry plane errors into every
+            # residual: weight each epoch by 1/(σ² + σ₀²) of the fitted groups' receiver bias.
+            sig = self.rx.sigma[group[fit]]
+            sig = sig[np.isfinite(sig)]
+            s2 = float(np.mean(sig * sig)) if sig.size else 100.0**2
+            w_o = w_o / (s2 + _COMB_SIGMA0_TECU**2)
+            if arc_samples is not None:
+                # the residual carries the arc's levelling error, shrinking as the arc grows
+                n_o = arc_samples[other]
+                w_o = w_o * (n_o / (n_o + _COMB_ARC_SAMPLES))
             self.comb_sum[s_o, r_o] += w_o * res
             self.comb_weight[s_o, r_o] += w_o
             self.comb_count[s_o, r_o] += 1.0
@@ -149,6 +167,7 @@ class BiasModel:
     def _refresh(self) -> None:
         sig = self.rx.sigma
         self.applied = np.where(sig <= APPLY_SIGMA_TECU, self.rx.bias, 0.0)
+        self.version += 1
         self.ref_group = int(np.nanargmin(sig)) if np.isfinite(sig).any() else -1
 
     def state_dict(self) -> dict[str, Any]:

@@ -97,6 +97,7 @@ class StationEstimator:
         self.roti_window = SlotStd(S, cfg.roti_window_s, cfg.roti_sample_s)
         self.biases = BiasModel(self.pairs, cfg, S)
         self.cells = CellRouter(self.pairs)
+        self._bias_cache: tuple[EpochLayout, int, F64, F64] | None = None
         self._last_epoch_t = -math.inf
         self._intervals = np.full(_INTERVAL_HISTORY, np.nan)
         self._interval = 1.0  # s, median of the recent epoch intervals
@@ -281,16 +282,22 @@ class StationEstimator:
         else:
             lli_lost = lay.no_lli
         gap_s = max(self.settings.max_gap_s, self.settings.gap_samples * interval)
+        # Lock indicators, lock times and half-cycle flags of both bands, in state-column order.
+        flags = np.empty((6, d))
+        flags[0:2] = epoch.lock_indicator.take(i12).reshape(2, d)
+        flags[2:4] = epoch.lock_time_s.take(i12).reshape(2, d)
+        flags[4:6] = epoch.half_cycle.take(i12).reshape(2, d)
         new, reason = self.arcs.detect(
-            g, t=t, rank=lay.rank_f, mw_m=mw, gf_m=gf, el_rad=el,
-            lock=epoch.lock_indicator.take(i12).reshape(2, d).T,
-            locktime=epoch.lock_time_s.take(i12).reshape(2, d).T,
-            half=epoch.half_cycle.take(i12).reshape(2, d).T, lli_lost=lli_lost, gap_s=gap_s,
+            g, t=t, rank=lay.rank_f, mw_m=mw, gf_m=gf, el_rad=el, flags=flags.T,
+            lli_lost=lli_lost, gap_s=gap_s,
         )  # fmt: skip
-        any_new = reason.any()
-        if any_new:
+        any_new = reason is not None
+        if reason is not None:
             for bit, name in REASON_NAMES.items():
                 self.counters[f"arcs_{name}"] += int(np.count_nonzero(reason & bit))
+            pair_switch = (reason & REASON_PAIR) != 0
+        else:
+            pair_switch = np.zeros(d, np.bool_)
         n_arc = g[:, N]
         # Arc starts reset every per-arc accumulator (levelling, ROT origin, Hatch, MP means).
         keep = ~new
@@ -308,7 +315,13 @@ class StationEstimator:
         g[:, LEV_SW] = sw
         g[:, LEV_MEAN] = lev
         stec_raw = gf_tecu + lev
-        b_sat, total_bias = self.biases.correction(lay.bias_flat, lay.group, g[:, K])
+        # The bias tables change every receiver_bias_update_s at most: reuse the correction.
+        cached = self._bias_cache
+        if cached is not None and cached[0] is lay and cached[1] == self.biases.version:
+            b_sat, total_bias = cached[2], cached[3]
+        else:
+            b_sat, total_bias = self.biases.correction(lay.bias_flat, lay.group, g[:, K])
+            self._bias_cache = (lay, self.biases.version, b_sat, total_bias)
         stec = stec_raw - total_bias
 
         # ROT over the lag, from the arc-relative levelled phase; ROTI over the window.
@@ -351,7 +364,7 @@ class StationEstimator:
             "noise_factor": g[:, NOISE],
             "arc": arc,
             "new": new,
-            "pair_switch": (reason & REASON_PAIR) != 0,
+            "pair_switch": pair_switch,
         }
 
     def _update_receiver_bias(
@@ -374,7 +387,7 @@ class StationEstimator:
         self.biases.update(
             t, y=y[use], idx=lay.idx[use], rank=lay.rank[use], group=lay.group[use],
             mapping=mapping[has][use], x_km=x_km[has][use], y_km=y_km[has][use],
-            weight=quiet * sin_all[has][use] ** 2,
+            weight=quiet * sin_all[has][use] ** 2, arc_samples=figs["n_arc"][use],
         )  # fmt: skip
 
     def _restart_time(self) -> None:

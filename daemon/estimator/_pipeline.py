@@ -7,7 +7,8 @@ gives the figures the daemon would have published. Routing (table-driven by mess
 * Keplerian / GLONASS ephemerides → the estimator's ephemeris store and satellite group delays;
 * RTCM 1005/1006 station reference → receiver position (unless configured), then GGA as a last
   resort (precedence: config > 1005/1006 > GGA);
-* GSV sentences or assembled groups → fallback elevations (flagged ``geometry_source="gsv"``);
+* assembled GSV groups (the stream decoder emits whole :class:`SatellitesInView`) → fallback
+  elevations (flagged ``geometry_source="gsv"``);
 * GGA (+ GST of the same second) → :class:`FixStatus`.
 
 Everything else (RMC, GSA, proprietary RTCM, …) is ignored here. Pure: no clock, no I/O.
@@ -27,10 +28,7 @@ from ionwarden.parsers import (
     GlonassEphemeris,
     GpsTime,
     GstErrors,
-    GsvAssembler,
-    GsvPart,
     KeplerEphemeris,
-    Message,
     NmeaFrame,
     ObsEpoch,
     RtcmFrame,
@@ -75,7 +73,6 @@ class StationPipeline:
             settings, station=station, ephemerides_per_sat=ephemerides_per_sat
         )
         self.decoder = StreamDecoder(reference_time)
-        self._gsv = GsvAssembler()
         self._position_source = ""
         self._last_t: GpsTime | None = None
         self._gga: GgaFix | None = None
@@ -89,7 +86,6 @@ class StationPipeline:
             KeplerEphemeris: self._on_ephemeris,
             GlonassEphemeris: self._on_ephemeris,
             StationReference: self._on_station,
-            GsvPart: self._on_gsv_part,
             SatellitesInView: self._on_gsv,
             GgaFix: self._on_gga,
             GstErrors: self._on_gst,
@@ -102,15 +98,9 @@ class StationPipeline:
 
     def feed_frames(self, frames: Sequence[RtcmFrame | NmeaFrame]) -> list[PipelineOutput]:
         """Route frames already split and checked by the runtime's framer (the runtime's
-        ``FrameConsumer`` protocol). Uses the decoder's per-frame steps directly (no re-framing);
-        the parsers package has no public per-frame entry point yet."""
-        msgs: list[Message] = []
-        for frame in frames:
-            if isinstance(frame, RtcmFrame):
-                self.decoder._on_rtcm(frame, msgs)
-            else:
-                self.decoder._on_nmea(frame, msgs)
-        return self.handle(msgs)
+        ``FrameConsumer`` protocol), decoded without re-framing; ``feed(b"")`` still ends the
+        stream."""
+        return self.handle(self.decoder.feed_frames(frames))
 
     def state_dict(self) -> dict[str, Any]:
         """The estimator's persistent state (see :meth:`StationEstimator.state_dict`)."""
@@ -146,11 +136,6 @@ class StationPipeline:
 
     def _on_station(self, ref: StationReference) -> None:
         self.set_position((ref.x_m, ref.y_m, ref.z_m), "rtcm")
-
-    def _on_gsv_part(self, part: GsvPart) -> None:
-        group = self._gsv.push(part)
-        if group is not None:
-            self._on_gsv(group)
 
     def _on_gsv(self, group: SatellitesInView) -> None:
         if self._last_t is not None:  # GSV has no time of its own: date it by the last epoch

@@ -53,11 +53,13 @@ def station_figures(
     for a in (vtec, rot, roti, x_km, y_km):
         assert a.shape == (m,), (a.shape, m)
     known = np.isfinite(el_rad)
-    above = (el_rad >= mask_rad) if known.any() else np.ones(m, np.bool_)
+    n_known = np.count_nonzero(known)
+    above = (el_rad >= mask_rad) if n_known else np.ones(m, np.bool_)
     # sin(max(el, 0)) = max(sin el, 0) for el in [−90°, 90°]
-    s_el = np.maximum(np.sin(el_rad) if sin_el is None else sin_el, 0.0)
-    s_el *= s_el
-    w = np.where(known, s_el, 1.0)
+    w = np.maximum(np.sin(el_rad) if sin_el is None else sin_el, 0.0)
+    w *= w
+    if n_known < m:
+        w[~known] = 1.0
 
     use = above & np.isfinite(vtec)
     wu = w[use]
@@ -65,13 +67,16 @@ def station_figures(
     r = np.sort(roti[above & np.isfinite(roti)])
     roti_max = float(r[-1]) if r.size else math.nan
     roti_med = float(0.5 * (r[(r.size - 1) // 2] + r[r.size // 2])) if r.size else math.nan
-    rr = rot[above & np.isfinite(rot)]
-    rot_max = float(np.abs(rr).max()) if rr.size else math.nan
+    rr = np.abs(rot[above])
+    rot_max = float(np.fmax.reduce(rr)) if rr.size else math.nan  # NaN only if all are NaN
 
     g_t = g_mm = g_az = math.nan
-    fit = use & np.isfinite(x_km) & np.isfinite(y_km)
-    if np.count_nonzero(fit) >= 4:
-        ge, gn = _plane_slopes(w[fit], x_km[fit], y_km[fit], vtec[fit])
+    fit = use & np.isfinite(x_km)  # x and y come from the same pierce point
+    n_fit = np.count_nonzero(fit)
+    if n_fit >= 4:
+        pts = np.empty((3, m))
+        pts[0], pts[1], pts[2] = x_km, y_km, vtec
+        ge, gn = _plane_slopes(w, pts) if n_fit == m else _plane_slopes(w[fit], pts[:, fit])
         if math.isfinite(ge):
             g_t = math.hypot(ge, gn)
             g_mm = g_t * GPS_L1_M_PER_TECU * 1000.0
@@ -87,20 +92,15 @@ def station_figures(
     )
 
 
-def _plane_slopes(w: F64, x: F64, y: F64, v: F64) -> tuple[float, float]:
-    """Slopes (∂v/∂x, ∂v/∂y) of the weighted least-squares plane v = c + gx·x + gy·y.
+def _plane_slopes(w: F64, xyv: F64) -> tuple[float, float]:
+    """Slopes (∂v/∂x, ∂v/∂y) of the weighted least-squares plane v = c + gx·x + gy·y through
+    the points ``xyv`` (rows x, y, v) with weights ``w``.
 
     Centred on the weighted means, the normal equations reduce to 2 × 2, solved in closed form;
     NaN when the points lie (nearly) on one line.
     """
-    sw = float(w.sum())
-    xc = x - float(w @ x) / sw
-    yc = y - float(w @ y) / sw
-    vc = v - float(w @ v) / sw
-    wx = w * xc
-    wy = w * yc
-    sxx, syy, sxy = float(wx @ xc), float(wy @ yc), float(wx @ yc)
-    sxv, syv = float(wx @ vc), float(wy @ vc)
+    c = xyv - (xyv @ w / w.sum())[:, None]
+    (sxx, sxy, sxv), (_, syy, syv), _ = ((c * w) @ c.T).tolist()
     det = sxx * syy - sxy * sxy
     if not det > 1e-9 * sxx * syy:
         return math.nan, math.nan

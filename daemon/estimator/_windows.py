@@ -135,9 +135,12 @@ class SlotStd:
             self._drop(n % self.rows)
         self._since_exact += slot - first + 1
         self.last_slot = slot
-        fin = ~np.isnan(value)
-        s = sats[fin]
-        v = value[fin]
+        nan = np.isnan(value)
+        if np.count_nonzero(nan):
+            fin = ~nan
+            s, v = sats[fin], value[fin]
+        else:
+            s, v = sats, value.copy()  # the caller's array may be handed on (snapshots)
         self.entries[slot % self.rows] = (s, v)
         self.total[s] += v
         self.total_sq[s] += v * v

@@ -80,7 +80,15 @@ def _version() -> str:
 
 
 class MqttPublisher:
-    """Publishes the topic tree of docs/mqtt.md; one instance per daemon."""
+    """Publishes the topic tree of docs/mqtt.md; one instance per daemon, one :meth:`run` each.
+
+    The runtime starts ``run()`` as a named task of its TaskGroup, awaits :meth:`wait_ready`
+    before READY=1 (first connect done or failed — then it keeps buffering and retrying), feeds it
+    with the ``*_nowait`` methods, and calls :meth:`stop` (flush, "offline", disconnect) at
+    shutdown; cancelling the task also says "offline" (bounded by ``GOODBYE_TIMEOUT_S``).
+    ``clock`` (UTC now) and ``monotonic`` are injectable for tests; ``rng`` seeds the backoff
+    jitter; ``on_published(msg, queued_to_ack_s)`` is called after each acknowledgement.
+    """
 
     def __init__(
         self,
@@ -120,6 +128,7 @@ class MqttPublisher:
         self._last_epoch: dict[str, GpsTime] = {}
         self._last_sats_s: dict[str, float] = {}
         self._expiry: dict[int, Properties] = {}
+        self._last_health_s: float | None = None
 
     @property
     def topics(self) -> TopicTree:
@@ -136,6 +145,7 @@ class MqttPublisher:
         retain: bool,
         alarm_class: bool,
         expiry_s: int | None = None,
+        bulk: bool = False,
     ) -> None:
         msg = OutboundMessage(
             topic=topic,
@@ -144,6 +154,7 @@ class MqttPublisher:
             retain=retain,
             expiry_s=expiry_s,
             alarm_class=alarm_class,
+            bulk=bulk,
             queued_s=self._monotonic(),
         )
         if not self._buffer.put_nowait(msg) and alarm_class:
@@ -194,6 +205,7 @@ class MqttPublisher:
                 retain=False,
                 alarm_class=False,
                 expiry_s=s.epoch_expiry_s,
+                bulk=True,
             )
 
     def publish_alarm_states_nowait(self, statuses: Iterable[AlarmStatus]) -> None:
@@ -245,14 +257,24 @@ class MqttPublisher:
                 self._set_station_state(tr.station, "stale" if stale else "online")
 
     def publish_health_nowait(self, daemon: DaemonSnapshot) -> None:
-        """Queue the daemon health message (retained, expires after ``epoch_expiry_s``)."""
+        """Queue the daemon health message (retained, expires after ``epoch_expiry_s``).
+
+        Rate-limited to one per ``health_interval_s``: call it on every status tick."""
+        now = self._monotonic()
+        if (
+            self._last_health_s is not None
+            and now - self._last_health_s < self._s.health_interval_s
+        ):
+            return
+        self._last_health_s = now
         self._put(
             self._tree.daemon_health(),
-            fmt.health_payload(daemon, self._clock(), self._monotonic()),
+            fmt.health_payload(daemon, self._clock(), now),
             qos=self._s.qos_health,
             retain=True,
             alarm_class=False,
             expiry_s=self._s.epoch_expiry_s,
+            bulk=True,
         )
 
     def statistics(self) -> MqttStatistics:
