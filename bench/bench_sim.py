@@ -4,7 +4,9 @@ Prints three figures:
 1. engine: every observation and truth array of the day (blocks of epochs × satellites × signals);
 2. epochs: the same plus one ObsEpoch per epoch (what RINEX writers and the estimator consume);
 3. stream: RTCM 3 MSM + ephemerides + 1005 + NMEA bytes, timed over ``--stream-minutes`` of the
-   day and extrapolated to 24 h (``--stream-minutes 1440`` runs the whole day).
+   day and extrapolated to 24 h (``--stream-minutes 1440`` runs the whole day);
+4. encoder: ``encode_msm`` alone over the ObsEpochs of those minutes (messages/s, epochs/s), with
+   the layout cache warm (as in a stream) and, as a worst case, cleared before every epoch.
 
     .venv/bin/python bench/bench_sim.py [--hours 24] [--stream-minutes 30] [--msm 7]
 
@@ -18,6 +20,7 @@ import os
 import time
 
 from ionwarden.daemon.sim import Simulator, StreamComposer, block_epochs, build_scenario
+from ionwarden.parsers import _msm_layout, encode_msm
 
 
 def main() -> None:
@@ -69,6 +72,28 @@ def main() -> None:
         f"stream: {stream_s / 60:g} min of MSM{args.msm} + eph + NMEA, {total} bytes "
         f"({total / stream_s:.0f} B/s): {t_stream:.2f} s wall, {c_stream:.2f} s cpu -> "
         f"{t_stream * scale:.0f} s wall, {c_stream * scale:.0f} s cpu per 24 h"
+    )
+
+    epochs = [ep for blocks in Simulator(sc_s).run() for ep in block_epochs(blocks[0], 41)]
+    n_msgs = 0
+    t0, c0 = time.perf_counter(), time.process_time()
+    for ep in epochs:
+        n_msgs += len(encode_msm(ep, level=args.msm))
+    t_enc, c_enc = time.perf_counter() - t0, time.process_time() - c0
+    print(
+        f"encoder: encode_msm MSM{args.msm}, {len(epochs)} epochs, {n_msgs} messages: "
+        f"{t_enc:.3f} s wall, {c_enc:.3f} s cpu -> {n_msgs / c_enc:.0f} messages/s, "
+        f"{len(epochs) / c_enc:.0f} epochs/s cpu ({c_enc * 86_400.0 / len(epochs):.1f} s cpu per 24 h)"
+    )
+    # Worst case: a new set of cells every epoch, so every call lays its messages out afresh.
+    t0, c0 = time.perf_counter(), time.process_time()
+    for ep in epochs:
+        _msm_layout._LAYOUTS.clear()
+        encode_msm(ep, level=args.msm)
+    t_cold, c_cold = time.perf_counter() - t0, time.process_time() - c0
+    print(
+        f"encoder, layout cache cleared before every epoch: {t_cold:.3f} s wall, {c_cold:.3f} s cpu "
+        f"-> {n_msgs / c_cold:.0f} messages/s, {len(epochs) / c_cold:.0f} epochs/s cpu"
     )
 
 

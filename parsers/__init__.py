@@ -4,6 +4,7 @@ Nothing here opens a socket or file descriptor of its own, reads a clock, or log
 bytes (or lines) and receive typed, immutable messages.
 """
 
+from ._crc import frame_rtcm
 from ._ephemeris import GlonassEphemeris, KeplerEphemeris
 from ._epoch import EPOCH_DTYPES, ObsEpoch
 from ._errors import ConfigError, DaemonError, OutputError, ParseError, TransportError
@@ -139,6 +140,7 @@ __all__ = [
     "format_nav_record",
     "format_obs_epoch",
     "format_obs_header",
+    "frame_rtcm",
     "frequencies_hz",
     "gps_to_utc",
     "iter_rinex_nav",

@@ -90,7 +90,7 @@ class EncodeLayout:
     frames: FramePlan
 
 
-_LAYOUTS: dict[tuple[int, bytes, bytes], EncodeLayout | None] = {}
+_LAYOUTS: dict[tuple[int, str, bytes, bytes], EncodeLayout | None] = {}
 
 
 def _sizes(start: _IDX, total: int) -> _IDX:
@@ -115,7 +115,7 @@ def encode_layout(
 
     Raises ``ValueError`` for two cells with the same satellite and signal.
     """
-    key = (level, sat.tobytes(), sig.tobytes())
+    key = (level, sat.dtype.str + sig.dtype.str, sat.tobytes(), sig.tobytes())
     if key in _LAYOUTS:
         return _LAYOUTS[key]
     if len(_LAYOUTS) >= _MAX_LAYOUTS:
@@ -215,12 +215,15 @@ def _build(
     wide = tuple(
         (int(m), np.flatnonzero(sat_size == m)) for m in np.unique(sat_size[sat_size >= 8])
     )
+    cell_col = np.arange(n) - sat_start[cell_sat]
+    for shared in (cells, cell_sat, sat_start, sat_size, cell_col, glo, perm):
+        shared.setflags(write=False)  # shared by every epoch with these cells
     return EncodeLayout(
         cells=cells,
         cell_sat=cell_sat,
         sat_start=sat_start,
         sat_size=sat_size,
-        cell_col=np.arange(n) - sat_start[cell_sat],
+        cell_col=cell_col,
         width=int(sat_size.max()),
         wide=wide,
         sat_glo=glo,

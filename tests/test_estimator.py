@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import copy
+import dataclasses
 import json
 import pickle
 
@@ -307,3 +308,50 @@ def test_estimator_satellite_dcb_override_from_config():
     assert shift == pytest.approx(k_l1l2 * 299_792_458.0 * 2e-9, rel=1e-4)
     with pytest.raises(ValueError, match="not configured"):
         StationEstimator(EstimatorSettings(satellite_dcb_ns={"G05": {"1C-9Z": 1.0}}))
+
+
+def _snapshot_arrays(snap) -> dict[str, np.ndarray]:
+    s = snap.satellites
+    names = ("sat", "el_deg", "stec_tecu", "vtec_tecu", "rot_tecu_per_min", "roti_tecu_per_min",
+             "iono_l1_m", "if_code_m", "if_phase_m", "if_code_smoothed_m", "slip", "arc_id",
+             "mp1_m", "mp2_m", "if_noise_factor", "pair_switch")  # fmt: skip
+    out = {n: np.asarray(getattr(s, n)) for n in names}
+    out["pair"] = np.array(s.pair)
+    out["cell_el_deg"] = snap.cell_el_deg
+    out["station"] = np.array([snap.vtec_tecu, snap.roti_max_tecu_per_min, snap.gradient_mm_per_km])
+    return out
+
+
+def test_estimator_cached_layout_equals_rebuilt_layout():
+    """StationEstimator gives bit-identical figures whether the epoch layout is reused or rebuilt every epoch (outages and slips change it)."""
+    outages = [(0, "2W", 200, 260), (3, "5Q", 100, 400)]
+    slips = [(1, 150, 1, 0), (2, 300, 0, 1)]
+    tr = generate(Scenario(n_sats=6, duration_s=500.0, outages=outages, slips=slips))
+    cached = StationEstimator()
+    rebuilt = StationEstimator()
+    snaps_c = run(tr, cached)
+    rebuilt.set_receiver_position(cached.geometry.rx_ecef, "config")
+    for ti, ep in enumerate(tr.epochs):
+        rebuilt.set_gsv(ep.time, tr.sats, np.degrees(tr.el[ti]), np.degrees(tr.az[ti]))
+        rebuilt.cells._last = None  # forget the cached layout: rebuild from the cells
+        a, b = _snapshot_arrays(snaps_c[ti]), _snapshot_arrays(rebuilt.update(ep))
+        for name, va in a.items():
+            np.testing.assert_array_equal(va, b[name], err_msg=f"{name} at epoch {ti}")
+    # from the scenario: the first epoch, then each outage's first and last-plus-one epoch
+    assert cached.cells.rebuilds == 5
+    assert rebuilt.cells.rebuilds == len(tr.epochs)
+
+
+def test_cell_router_rebuilds_when_a_cell_becomes_unusable():
+    """CellRouter reuses the layout while cells repeat and rebuilds it (next pair) when a code turns NaN."""
+    tr = generate(Scenario(n_sats=3, duration_s=3.0))
+    est = StationEstimator()
+    ep0, ep1, ep2 = tr.epochs
+    lay0 = est.cells.layout(ep0)
+    assert est.cells.layout(ep1) is lay0  # same satellites, signals, frequencies, usability
+    pr = ep2.pseudorange_m.copy()
+    pr[(ep2.sat == 1) & (ep2.sig == signal_code("2W"))] = np.nan
+    lay2 = est.cells.layout(dataclasses.replace(ep2, pseudorange_m=pr))
+    assert lay2 is not lay0
+    assert lay2.labels == ("1C-5Q", "1C-2W", "1C-2W")  # config pair order (EstimatorSettings)
+    assert lay2.n_unusable == 1

@@ -10,7 +10,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from ionwarden.daemon.sim import Simulator, block_epochs, build_scenario
-from ionwarden.parsers import EPOCH_DTYPES, GpsTime, ObsEpoch, frequencies_hz
+from ionwarden.parsers import EPOCH_DTYPES, GpsTime, ObsEpoch, _msm_layout, frequencies_hz
 from ionwarden.parsers._msm_encode import _group_nanmeans, encode_msm
 from ionwarden.parsers._msm_layout import encode_layout
 from ionwarden.parsers._msm_tables import MSM_SYSTEMS
@@ -352,3 +352,19 @@ def test_msm_encode_matches_reference_encoder_at_field_limits(fine_ms, rate):
     epoch = _edge_epoch(rough, fine_ms, rate)
     for level in (4, 7):
         assert encode_msm(epoch, level=level) == encode_msm_reference(epoch, level=level)
+
+
+def test_msm_encode_layout_cache_is_reused_and_bounded(monkeypatch):
+    """encode_layout returns the cached layout for the same cells and clears its cache when full."""
+    monkeypatch.setattr(_msm_layout, "_LAYOUTS", {})
+    monkeypatch.setattr(_msm_layout, "_MAX_LAYOUTS", 3)
+    sig = np.array([34], np.uint16)
+    first = encode_layout(np.array([1], np.int16), sig, 7)
+    assert encode_layout(np.array([1], np.int16), sig, 7) is first
+    assert encode_layout(np.array([1], np.int16), sig, 4) is not first
+    assert encode_layout(np.array([900], np.int16), sig, 7) is None  # no MSM system
+    for prn in range(2, 6):
+        encode_layout(np.array([prn], np.int16), sig, 7)
+        assert len(_msm_layout._LAYOUTS) <= 3
+    with pytest.raises(ValueError, match="read-only"):
+        first.cells[0] = 1

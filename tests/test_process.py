@@ -92,3 +92,35 @@ def test_process_uses_config_estimator_section(real_data, tmp_path):
     with summary.open() as f:
         srows = list(csv.DictReader(f))
     assert all(r["vtec_tecu"] == "" for r in srows)  # nothing above 89°
+
+
+def test_process_streams_rinex_lines(real_data, monkeypatch):
+    """process yields the first epoch's snapshot after reading only the first lines of a RINEX file (P433; never the whole file)."""
+    from contextlib import contextmanager
+
+    from ionwarden.daemon.cli import _process
+    from ionwarden.daemon.estimator import StationPipeline
+
+    real_open = _process.open_rinex_text
+    read = [0]
+
+    @contextmanager
+    def counting_open(path):
+        with real_open(path) as lines:
+
+            def counted():
+                for line in lines:
+                    read[0] += 1
+                    yield line
+
+            yield counted()
+
+    monkeypatch.setattr(_process, "open_rinex_text", counting_open)
+    path = real_data / P433
+    total = path.read_bytes().count(b"\n")
+    snaps = _process._epochs_from(
+        path, StationPipeline("P433"), _process._Progress(0, enabled=False), [0]
+    )
+    next(snaps)
+    assert read[0] < total // 10  # one epoch of 70 (PROVENANCE.md) plus the header
+    snaps.close()

@@ -5,7 +5,12 @@ reads a clock; per-satellite state is one preallocated (S, NCOL) matrix indexed 
 (``S = MAX_SAT_ID`` slots, columns in ``_state``), gathered once and scattered once per epoch for
 the ``m`` satellites present; rolling windows are ring buffers (``_windows``); no per-satellite
 Python branch on the hot path. Pair choice per satellite: the first configured pair (``_pairs``)
-whose two signals both have code and phase this epoch; a change of pair starts a new arc.
+whose two signals both have code and phase this epoch; a change of pair starts a new arc. The pair
+choice, cell indices and pair constants depend only on the epoch's layout and are cached while it
+repeats (``_cells``); the linear combinations (GF, MW, levelling sample, IF, MP) come out of one
+contraction of the (4, d) measurements with the layout's coefficient matrix. Work on the common
+path (no arc starts, every satellite dual-frequency) skips the masking the rare cases need. The
+~450 lines keep the whole per-epoch path in one place (STYLE rule 1's soft cap exceeded on purpose).
 
 Symbols per satellite (SCIENCE.md §2–§9): P1, P2 code (m); L1, L2 phase (m = cycles·c/f); K
 (TECU/m); GF = L1 − L2; MW Melbourne–Wübbena; STEC_raw = K·GF + levelling offset (TECU), the
@@ -274,13 +279,12 @@ class StationEstimator:
         meas = np.empty((4, d))
         np.multiply(epoch.phase_cycles.take(i12).reshape(2, d), lay.wavelength_m, out=meas[:2])
         meas[2:] = epoch.pseudorange_m.take(i12).reshape(2, d)
-        comb = (lay.comb * meas).sum(axis=1)
+        comb = np.einsum("kjd,jd->kd", lay.comb, meas)  # (combinations, d)
         gf, mw, lev_x, gf_tecu, if_code, if_phase = comb[: IFP_ROW + 1]
         mp = comb[MP1_ROW:]
-        if epoch.lli.any():
-            lli_lost = (epoch.lli.take(i12).reshape(2, d) & 1).any(axis=0)
-        else:
-            lli_lost = lay.no_lli
+        lli_lost = lay.no_lli
+        if np.count_nonzero(epoch.lli):
+            lli_lost = np.logical_or.reduce(epoch.lli.take(i12).reshape(2, d) & 1, axis=0)
         gap_s = max(self.settings.max_gap_s, self.settings.gap_samples * interval)
         # Lock indicators, lock times and half-cycle flags of both bands, in state-column order.
         flags = np.empty((6, d))

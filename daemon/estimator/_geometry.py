@@ -102,7 +102,8 @@ class Geometry:
         """
         dt = t_s - self.t_orbit.take(sats)
         orbits = self.rx_ecef is not None and self.has_ephemeris
-        if orbits and not (np.abs(dt) <= self.refresh_s).all():
+        m = sats.shape[0]
+        if orbits and np.count_nonzero(np.abs(dt) <= self.refresh_s) < m:
             self._refresh(sats, t_s)
             dt = t_s - self.t_orbit.take(sats)
         # Linear extrapolation from the last refresh: second-order error < 0.001° over 30 s.
@@ -112,7 +113,7 @@ class Geometry:
         el, az, lat, lon = geo
         have = ~np.isnan(el)
         source = "ephemeris"
-        if not (sats.size and have.all()):
+        if not (m and np.count_nonzero(have) == m):
             gsv_ok = ~have & (np.abs(t_s - self.gsv_t[sats]) <= GSV_MAX_AGE_S)
             source = "ephemeris" if have.any() else "none"
             if gsv_ok.any():

@@ -62,8 +62,9 @@ def station_figures(
         w[~known] = 1.0
 
     use = above & np.isfinite(vtec)
-    wu = w[use]
-    vtec_st = float(wu @ vtec[use] / wu.sum()) if wu.size else math.nan
+    n_use = np.count_nonzero(use)
+    wu, vu = (w, vtec) if n_use == m else (w[use], vtec[use])
+    vtec_st = float(wu @ vu / wu.sum()) if n_use else math.nan
     r = np.sort(roti[above & np.isfinite(roti)])
     roti_max = float(r[-1]) if r.size else math.nan
     roti_med = float(0.5 * (r[(r.size - 1) // 2] + r[r.size // 2])) if r.size else math.nan

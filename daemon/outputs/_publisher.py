@@ -25,7 +25,7 @@ from paho.mqtt.packettypes import PacketTypes
 from paho.mqtt.properties import Properties
 
 from ionwarden.daemon.alarms import AlarmKind, AlarmState, AlarmStatus
-from ionwarden.daemon.runtime._backoff import backoff_delays
+from ionwarden.daemon.runtime import backoff_delays
 
 from . import _payloads as fmt
 from ._buffer import OutboundBuffer, OutboundMessage

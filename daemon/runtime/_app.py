@@ -119,7 +119,6 @@ def options_from_settings(
         checkpoint_max_age_s=rt.checkpoint_max_age_s,
         summary_interval_s=rt.summary_interval_s,
         stop_timeout_s=rt.stop_timeout_s,
-        health_interval_s=settings.mqtt.health_interval_s,
     )
 
 
@@ -137,14 +136,17 @@ def make_factory(
     def build(cfg: StationConfig) -> StationBundle:
         st = by_name.get(cfg.name)
         live = not isinstance(cfg.source, (FileSource, StdinSource))
-        pipeline = StationPipeline(
-            cfg.name,
-            settings.estimator,
-            position_ecef_m=st.position_ecef_m if st is not None else None,
-            reference_time=utc_to_gps(now()) if live else None,
-        )
+
+        def pipeline() -> StationPipeline:
+            return StationPipeline(
+                cfg.name,
+                settings.estimator,
+                position_ecef_m=st.position_ecef_m if st is not None else None,
+                reference_time=utc_to_gps(now()) if live else None,
+            )
+
         return StationBundle(
-            core=FramingCore(consumer=pipeline),
+            core=FramingCore(consumer=pipeline(), rebuild=pipeline),
             produces_epochs=True,
             alarms=StationAlarms(cfg.name, settings.alarms),
         )

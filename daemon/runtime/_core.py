@@ -15,7 +15,7 @@ from typing import TYPE_CHECKING, Any, Protocol
 from ionwarden.parsers._framer import Framer, FramerStatistics
 
 if TYPE_CHECKING:
-    from collections.abc import Mapping, Sequence
+    from collections.abc import Callable, Mapping, Sequence
 
     from ionwarden.parsers._framer import Frame
 
@@ -46,6 +46,11 @@ class StationCore(Protocol):
 
     def counts(self) -> DecoderCounts: ...
 
+    def reset(self) -> None:
+        """Start afresh after repeated pipeline failures: drop the partial frame and the
+        estimator's state (counters are kept)."""
+        ...
+
     def state_dict(self) -> dict[str, Any]: ...
 
     def load_state_dict(self, state: Mapping[str, Any], /) -> None: ...
@@ -74,12 +79,22 @@ def _add(a: DecoderCounts, s: FramerStatistics) -> DecoderCounts:
 
 
 class FramingCore:
-    """The framer, restarted on each new connection, plus an optional frame consumer."""
+    """The framer, restarted on each new connection, plus an optional frame consumer.
 
-    def __init__(self, consumer: FrameConsumer | None = None):
+    ``rebuild`` makes a fresh consumer for :meth:`reset`; without it a reset restarts the framer
+    only.
+    """
+
+    def __init__(
+        self,
+        consumer: FrameConsumer | None = None,
+        *,
+        rebuild: Callable[[], FrameConsumer] | None = None,
+    ):
         self._framer = Framer()
         self._done = DecoderCounts()  # counts of framers already ended
         self._consumer = consumer
+        self._rebuild = rebuild
 
     def feed(self, data: bytes, /) -> Sequence[object]:
         frames = self._framer.feed(data)
@@ -97,6 +112,12 @@ class FramingCore:
 
     def counts(self) -> DecoderCounts:
         return _add(self._done, self._framer.statistics())
+
+    def reset(self) -> None:
+        self._done = _add(self._done, self._framer.statistics())
+        self._framer = Framer()
+        if self._rebuild is not None:
+            self._consumer = self._rebuild()
 
     def state_dict(self) -> dict[str, Any]:
         return {} if self._consumer is None else self._consumer.state_dict()

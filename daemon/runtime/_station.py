@@ -4,8 +4,20 @@
 Failure policy (STYLE rule 10): :data:`RETRYABLE_ERRORS` — every ``TransportError`` (OS, serial and
 protocol failures are translated into it where they enter) and our own stall verdict — leads to
 "wait a backoff delay, reconnect". :data:`TOLERATED_DECODE_ERRORS` raised while decoding are counted
-and the chunk is skipped. Anything else is a bug and propagates: the root TaskGroup fails and
-systemd restarts the unit.
+and the chunk is skipped.
+
+Pipeline containment ("nothing a source does can crash the process"): one *step* of the estimate
+task — feeding one chunk of the station's own bytes through its framer and estimator pipeline and
+emitting what that produced (alarms, MQTT) — works on untrusted data, so any ``Exception`` it raises
+(e.g. a ``FloatingPointError`` from hostile values; :data:`UNCONTAINED_ERRORS` excepted) is blamed
+on that station's data for that step: the step's outputs are dropped, the error is counted
+(``statistics().pipeline_errors_total``, exported as ``ionwarden_station_pipeline_errors_total``)
+and logged with its traceback at most once per :data:`PIPELINE_LOG_INTERVAL_S` per exception type
+(later ones are summarised with a count). After :data:`PIPELINE_RESET_AFTER` failing steps in a
+row the station's core is reset (fresh framer and estimator state, counted in
+``pipeline_resets_total``), so a poisoned state cannot fail forever. Other stations never notice.
+Everything outside the step (queues, transports, the runtime's own bookkeeping) follows rule 10:
+unexpected errors propagate, the root TaskGroup fails and systemd restarts the unit.
 
 Queue policy: live sources use ``DROP_OLDEST`` (a slow estimator loses the oldest bytes, counted;
 the framer resynchronises); file and stdin sources use ``WAIT`` (nothing lost, reading slows).
@@ -58,6 +70,12 @@ log = logging.getLogger("ionwarden.daemon.runtime.station")
 RETRYABLE_ERRORS: tuple[type[Exception], ...] = (TransportError,)
 #: Errors a decoder may raise on hostile bytes: counted, the chunk skipped, the station goes on.
 TOLERATED_DECODE_ERRORS: tuple[type[Exception], ...] = (ParseError,)
+#: Errors that are never contained in a pipeline step: the process itself is in trouble.
+UNCONTAINED_ERRORS: tuple[type[Exception], ...] = (MemoryError,)
+#: Consecutive failing pipeline steps after which the station's core is reset.
+PIPELINE_RESET_AFTER = 3
+#: A given exception type is logged (with traceback) at most once per this many seconds per station.
+PIPELINE_LOG_INTERVAL_S = 60.0
 
 
 #: A paced replay reads this many bytes at a time (an MSM4 epoch of ~40 satellites is ~1.5 kB)...
@@ -133,6 +151,10 @@ class StationStatistics:
     latest_fix: FixStatus | None
     #: Monotonic time of the estimate task's last completed step (the watchdog reads it).
     progress_monotonic_s: float
+    #: Pipeline steps that raised and were contained (see the module docstring).
+    pipeline_errors_total: int = 0
+    #: Times the station's core was reset after repeated pipeline failures.
+    pipeline_resets_total: int = 0
 
 
 class _StalledError(TransportError):
@@ -208,6 +230,8 @@ class StationRunner:
         self._latest: StationSnapshot | None = None
         self._latest_fix: FixStatus | None = None
         self._progress = now
+        self._pipeline_errors = self._pipeline_resets = self._failing_steps = 0
+        self._log_limit: dict[str, tuple[float, int]] = {}  # key -> (last logged, suppressed)
 
     # -- state ------------------------------------------------------------------------------------
     @property
@@ -248,6 +272,8 @@ class StationRunner:
             latest=self._latest,
             latest_fix=self._latest_fix,
             progress_monotonic_s=self._progress,
+            pipeline_errors_total=self._pipeline_errors,
+            pipeline_resets_total=self._pipeline_resets,
         )
 
     def is_stuck(self, now: float, limit_s: float) -> bool:
@@ -363,24 +389,19 @@ class StationRunner:
         try:
             while True:
                 item = await self.queue.get()
-                if item is _END:
-                    self._handle(self.core.end_stream())
-                    return
-                if item is _BREAK:
-                    self._handle(self.core.end_stream())
+                if item is _END or item is _BREAK:
+                    self._step(None, None)
+                    if item is _END:
+                        return
                 else:
                     assert isinstance(item, tuple)
                     arrived, chunk = item
+                    if self._pacer is not None:  # a paced replay's bytes "arrive" when released
+                        arrived = max(arrived, loop.time())
                     frames_before = self.core.counts().frames_total
-                    try:
-                        outputs = self.core.feed(chunk)
-                    except TOLERATED_DECODE_ERRORS as exc:
-                        self._decode_errors += 1
-                        log.warning("%s: decode error, chunk skipped: %s", self.name, exc)
-                        outputs = ()
+                    delay = self._step(chunk, arrived)
                     if self.core.counts().frames_total > frames_before:
                         self._detector.saw_frame(loop.time())
-                    delay = self._handle(outputs, arrived)
                     if delay > 0:  # replay pacing is planned idleness, not a stuck pipeline
                         self._progress = loop.time() + delay
                         await asyncio.sleep(delay)
@@ -390,6 +411,55 @@ class StationRunner:
             self.finished.set()
             if self._on_finished is not None:
                 self._on_finished()
+
+    def _step(self, chunk: bytes | None, arrived: float | None) -> float:
+        """Feed one chunk (``None``: the stream broke or ended) and emit the outputs, containing
+        any failure (module docstring); return the replay pacing delay (s)."""
+        try:
+            try:
+                outputs = self.core.end_stream() if chunk is None else self.core.feed(chunk)
+            except TOLERATED_DECODE_ERRORS as exc:
+                self._decode_errors += 1
+                self._log_limited("decode", "%s: decode error, chunk skipped: %s", exc, level=logging.WARNING)
+                outputs = ()
+            delay = self._handle(outputs, arrived)
+        except UNCONTAINED_ERRORS:
+            raise
+        except Exception as exc:  # noqa: BLE001 - contained per the module docstring
+            self._pipeline_failed(exc)
+            return 0.0
+        self._failing_steps = 0
+        return delay
+
+    def _pipeline_failed(self, exc: Exception) -> None:
+        self._pipeline_errors += 1
+        self._failing_steps += 1
+        self._log_limited(
+            type(exc).__name__, "%s: pipeline step failed, its outputs dropped: %r", exc, level=logging.ERROR
+        )
+        if self._failing_steps >= PIPELINE_RESET_AFTER:
+            self._failing_steps = 0
+            self._pipeline_resets += 1
+            log.error(
+                "%s: pipeline failed %d steps in a row: resetting the station's framer and "
+                "estimator state (reset %d)",
+                self.name,
+                PIPELINE_RESET_AFTER,
+                self._pipeline_resets,
+            )
+            self.core.reset()
+
+    def _log_limited(self, key: str, msg: str, exc: Exception, *, level: int) -> None:
+        """Log ``msg % (station, exc)`` at most once per PIPELINE_LOG_INTERVAL_S per ``key``."""
+        now = self._loop.time()
+        seen = self._log_limit.get(key)
+        if seen is not None and now - seen[0] < PIPELINE_LOG_INTERVAL_S:
+            self._log_limit[key] = (seen[0], seen[1] + 1)
+            return
+        self._log_limit[key] = (now, 0)
+        if seen is not None and seen[1]:
+            msg += f" ({seen[1]} more like it in the last {now - seen[0]:.0f} s)"
+        log.log(level, msg, self.name, exc, exc_info=level >= logging.ERROR)
 
     def _handle(self, outputs: object, arrived: float | None = None) -> float:
         """Count and emit outputs; return the replay pacing delay (s) they call for."""
@@ -404,7 +474,7 @@ class StationRunner:
                 self._detector.saw_epoch(now)
                 if self._pacer is not None:
                     delay = max(delay, self._pacer.delay(out.time.total_s, now))
-                elif self._on_latency is not None and arrived is not None:
+                if self._on_latency is not None and arrived is not None:
                     # bytes that completed the epoch read → snapshot out (queue wait + decode)
                     self._on_latency(self.name, now - arrived)
             elif isinstance(out, FixStatus):

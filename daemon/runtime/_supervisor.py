@@ -56,8 +56,6 @@ class DaemonOptions:
     checkpoint_max_age_s: float = 6 * 3600.0
     summary_interval_s: float = 10.0
     status_interval_s: float = 1.0
-    #: Seconds between MQTT daemon-health messages (the publisher's ``health_interval_s``).
-    health_interval_s: float = 10.0
     stop_timeout_s: float = 4.0
     #: Stop when every station's source has ended (replays, stdin); live sources never end.
     exit_when_sources_end: bool = True
@@ -184,6 +182,9 @@ class Daemon:
             self._tg.create_task(runner.ingest_loop(), name=f"daemon.ingest[{cfg.name}]"),
             self._tg.create_task(runner.estimate_loop(), name=f"daemon.estimate[{cfg.name}]"),
         ]
+        if self._publisher is not None and bundle.alarms is not None:
+            # retained state of every alarm of the station ("normal" at start), also after a reload
+            self._publisher.publish_alarm_states_nowait(bundle.alarms.statuses())
         return running
 
     async def _stop_station(self, name: str) -> None:
@@ -257,7 +258,7 @@ class Daemon:
         loop = asyncio.get_running_loop()
         wd = watchdog_interval_s()
         opts = self.options
-        last_wd = last_summary = last_health = loop.time()
+        last_wd = last_summary = loop.time()
         last_status = ""
         while True:
             await asyncio.sleep(opts.status_interval_s)
@@ -268,13 +269,9 @@ class Daemon:
             if status != last_status:
                 self.notifier.notify(f"STATUS={status}")
                 last_status = status
-            if (
-                self._publisher is not None
-                and self._build_snapshot is not None
-                and now - last_health >= opts.health_interval_s
-            ):
+            if self._publisher is not None and self._build_snapshot is not None:
+                # every tick: the publisher rate-limits to one per its health_interval_s
                 self._publisher.publish_health_nowait(self._build_snapshot(self))
-                last_health = now
             if wd is not None and now - last_wd >= wd:
                 stuck = [
                     r.runner.name for r in self._stations.values() if r.runner.is_stuck(now, 2 * wd)
@@ -345,9 +342,6 @@ class Daemon:
                 if self._publisher is not None:
                     await self._publisher.wait_ready()
                 self._publish_status()
-                if self._publisher is not None:  # retained alarm states, all "normal" at start
-                    for alarms in self.station_alarms():
-                        self._publisher.publish_alarm_states_nowait(alarms.statuses())
                 self.notifier.notify("READY=1", f"STATUS={format_status(self.statistics())}")
                 self.ready.set()
                 log.info("ready: %d station(s)", len(self._stations))

@@ -40,9 +40,9 @@ from ionwarden.parsers import (
     KeplerEphemeris,
     gps_to_utc,
     leap_seconds_at,
+    quantise_for_rtcm,
     sat_id,
 )
-from ionwarden.parsers._rtcm_eph_encode import quantise_for_rtcm
 
 if TYPE_CHECKING:
     import numpy.typing as npt

@@ -23,14 +23,26 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from ionwarden.parsers import GlonassEphemeris, GpsTime, KeplerEphemeris, ObsEpoch, gps_to_utc
-from ionwarden.parsers._crc import frame_rtcm
-from ionwarden.parsers._msm_encode import encode_msm
-from ionwarden.parsers._nmea import GgaFix, GstErrors, RmcFix
-from ionwarden.parsers._nmea_encode import encode_gga, encode_gst, encode_gsv, encode_rmc
-from ionwarden.parsers._nmea_gsv import SatellitesInView
-from ionwarden.parsers._rtcm_eph_encode import encode_1005, encode_ephemeris
-from ionwarden.parsers._rtcm_station import StationReference
+from ionwarden.parsers import (
+    GgaFix,
+    GlonassEphemeris,
+    GpsTime,
+    GstErrors,
+    KeplerEphemeris,
+    ObsEpoch,
+    RmcFix,
+    SatellitesInView,
+    StationReference,
+    encode_1005,
+    encode_ephemeris,
+    encode_gga,
+    encode_gst,
+    encode_gsv,
+    encode_msm,
+    encode_rmc,
+    frame_rtcm,
+    gps_to_utc,
+)
 
 if TYPE_CHECKING:
     from collections.abc import Iterator, Sequence
