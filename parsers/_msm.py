@@ -267,7 +267,7 @@ def decode_msm(payload: bytes, glo_channels: npt.NDArray[np.int8] | None = None)
     # field to the top, arithmetic-shift it down (sign-extends), mask unsigned fields.
     buf = payload + _PAD
     words = np.ndarray((len(buf) - 7,), np.dtype(">u8"), buf, 0, (1,))
-    left = np.left_shift(words[lay.bytepos], lay.lsh, dtype=np.uint64)
+    left = np.left_shift(words.take(lay.bytepos), lay.lsh, dtype=np.uint64)
     raw = (left.view(np.int64) >> lay.rsh) & lay.mask
     val = raw * lay.scale
     val[raw == lay.invalid] = np.nan
@@ -282,7 +282,7 @@ def decode_msm(payload: bytes, glo_channels: npt.NDArray[np.int8] | None = None)
         ext = raw[seg["EXT"]].astype(np.int16)
         rough_rate = val[seg["DF399"]]
         fine_rate = val[seg["DF404"]]
-        range_rate = rough_rate[cell_sat] + fine_rate
+        range_rate = rough_rate.take(cell_sat) + fine_rate
     else:
         ext = np.full(nsat_f, -1, np.int16)
         rough_rate = np.full(nsat_f, np.nan)
@@ -292,14 +292,14 @@ def decode_msm(payload: bytes, glo_channels: npt.NDArray[np.int8] | None = None)
     if level in (4, 5):
         fine_pr, fine_ph = val[seg["DF400"]], val[seg["DF401"]]
         lock_raw = raw[seg["DF402"]]
-        lock_s = LOCK_TIME_DF402_S[lock_raw]
+        lock_s = LOCK_TIME_DF402_S.take(lock_raw)
         cn0 = val[seg["DF403"]].astype(np.float32)
     else:
         fine_pr, fine_ph = val[seg["DF405"]], val[seg["DF406"]]
         lock_raw = raw[seg["DF407"]]
-        lock_s = LOCK_TIME_DF407_S[lock_raw]
+        lock_s = LOCK_TIME_DF407_S.take(lock_raw)
         cn0 = val[seg["DF408"]].astype(np.float32)
-    rough_cell = rough_ms[cell_sat]
+    rough_cell = rough_ms.take(cell_sat)
     phase_ms = rough_cell + fine_ph
 
     freq = lay.freq_hz

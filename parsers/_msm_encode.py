@@ -22,7 +22,14 @@ import numpy.typing as npt
 
 from ._gnsstime import BDS_GPS_OFFSET_S, SECONDS_PER_WEEK, GpsTime, leap_seconds_at
 from ._msm_layout import SYSTEMS_IN_ORDER, EncodeLayout, encode_layout
-from ._msm_tables import LOCK_TIME_DF402_S, LOCK_TIME_DF407_S, SPEED_OF_LIGHT_MPS, MsmSystem
+from ._msm_tables import (
+    CELL_FIELDS,
+    LOCK_TIME_DF402_S,
+    LOCK_TIME_DF407_S,
+    SAT_FIELDS,
+    SPEED_OF_LIGHT_MPS,
+    MsmSystem,
+)
 
 if TYPE_CHECKING:
     from ._epoch import ObsEpoch
@@ -159,43 +166,33 @@ def encode_msm(
     fine_ph = ph_ms - rough[cell_sat]
     fine_pr[np.abs(fine_pr) >= _FINE_PR_RANGE_MS] = np.nan
     fine_ph[np.abs(fine_ph) >= _FINE_PH_RANGE_MS] = np.nan
-    q = np.where(rough_ok, rough_q, 0.0).astype(np.int64)
-    df397 = np.where(rough_ok, q >> 10, 255)
+    q = np.where(rough_ok, rough_q, 0.0).astype(np.int64)  # rough range in 2⁻¹⁰ ms
 
+    # Field values by name; SAT_FIELDS / CELL_FIELDS (Tables 3.5-81/82, 3.5-87/88) give the order.
     cn0 = epoch.cn0_dbhz[cells].astype(np.float64)
-    half = epoch.half_cycle[cells].astype(np.int64)
+    values: dict[str, _I64] = {
+        "DF397": np.where(rough_ok, q >> 10, 255),  # 255 = invalid
+        "DF398": q & 1023,
+        "DF420": epoch.half_cycle[cells].astype(np.int64),
+    }
     if level == 4:
-        # Table 3.5-81: DF397, DF398; Table 3.5-82: DF400, DF401, DF402, DF420, DF403.
         cn0_code = np.round(cn0).clip(0, 63)  # ±inf clip to the ends; NaN → 0 below
-        cn0_code[np.isnan(cn0_code)] = 0.0
-        parts = [
-            df397,
-            q & 1023,
-            _fit_signed(fine_pr * 2**24, 15),
-            _fit_signed(fine_ph * 2**29, 22),
-            _lock_code(epoch.lock_time_s[cells], _LOCK_DF402_S),
-            half,
-            cn0_code.astype(np.int64),
-        ]
+        values["DF400"] = _fit_signed(fine_pr * 2**24, 15)
+        values["DF401"] = _fit_signed(fine_ph * 2**29, 22)
+        values["DF402"] = _lock_code(epoch.lock_time_s[cells], _LOCK_DF402_S)
     else:
-        # Table 3.5-87: DF397, extended info, DF398, DF399; Table 3.5-88: DF405, DF406, DF407,
-        # DF420, DF408, DF404.
         rate = np.rint(mean[2])
-        ext = _glonass_ext(freq, epoch.sig[cells], lay) if lay.any_glo else np.zeros_like(q)
+        values["EXT"] = (
+            _glonass_ext(freq, epoch.sig[cells], lay) if lay.any_glo else np.zeros_like(q)
+        )
+        values["DF399"] = _fit_signed(rate, 14)
         cn0_code = np.round(cn0 * 16).clip(0, 1023)
-        cn0_code[np.isnan(cn0_code)] = 0.0
-        parts = [
-            df397,
-            ext,
-            q & 1023,
-            _fit_signed(rate, 14),
-            _fit_signed(fine_pr * 2**29, 20),
-            _fit_signed(fine_ph * 2**31, 24),
-            _lock_code(epoch.lock_time_s[cells], _LOCK_DF407_S),
-            half,
-            cn0_code.astype(np.int64),
-            _fit_signed((rr - rate[cell_sat]) * 1e4, 15),
-        ]
+        values["DF405"] = _fit_signed(fine_pr * 2**29, 20)
+        values["DF406"] = _fit_signed(fine_ph * 2**31, 24)
+        values["DF407"] = _lock_code(epoch.lock_time_s[cells], _LOCK_DF407_S)
+        values["DF404"] = _fit_signed((rr - rate[cell_sat]) * 1e4, 15)
+    cn0_code[np.isnan(cn0_code)] = 0.0
+    values["DF403"] = values["DF408"] = cn0_code.astype(np.int64)
 
     # Header (Table 3.5-78): the layout has the message numbers, DF393 and the masks.
     head = lay.head.copy()
@@ -204,5 +201,6 @@ def encode_msm(
     head[:, 1] = sid  # DF003
     head[:, 2] = [epoch_field[k] for k in lay.msg_sys]
     head[:, 4] = iods  # DF409
-    values = np.concatenate([head.view(np.int64).ravel(), *parts])[lay.perm]
-    return lay.frames.frame(lay.pack.pack(values))
+    fields = (*SAT_FIELDS[level], *CELL_FIELDS[level])
+    flat = np.concatenate([head.view(np.int64).ravel(), *(values[f[0]] for f in fields)])
+    return lay.frames.frame(lay.pack.pack(flat[lay.perm]))

@@ -28,7 +28,7 @@ __all__ = ["SYSTEMS_IN_ORDER", "EncodeLayout", "encode_layout"]
 _IDX = npt.NDArray[np.intp]
 _U64 = npt.NDArray[np.uint64]
 _MAX_CELLS: Final = 64  # RTCM 10403.3 §3.5.12.3: NSat × NSig ≤ 64
-_MAX_LAYOUTS: Final = 256  # cached layouts; cleared when full (a stream uses a handful)
+_MAX_LAYOUTS: Final = 64  # cached layouts (≈ 60 kB each); cleared when full (a stream uses a few)
 #: Message order; the index is also the satellite-id hundreds digit (``_signals.SYSTEMS``).
 _SYSTEM_ORDER: Final = "GRECJSI"
 #: MSM systems in message order.

@@ -152,6 +152,10 @@ class StandInCore:
     def counts(self) -> DecoderCounts:
         return self._inner.counts()
 
+    def reset(self) -> None:
+        self._inner.reset()
+        self.state = {"arcs": 0}
+
     def state_dict(self) -> dict[str, Any]:
         return dict(self.state)
 

@@ -457,3 +457,51 @@ def test_daemon_checkpoints_periodically_while_running(tmp_path: Path) -> None:
                 daemon.request_stop()
 
     run_virtual(main(), real_poll_s=0.02)
+
+
+def test_daemon_publishes_retained_alarm_states_for_stations_started_by_a_reload(
+    tmp_path: Path,
+) -> None:
+    """Daemon queues every alarm's retained state when a station starts, at start and on reload."""
+    from ionwarden.daemon.alarms import StationAlarms
+    from ionwarden.daemon.config import AlarmSettings, MqttSettings
+    from ionwarden.daemon.outputs import MqttPublisher
+
+    from ._mqtt_support import free_port
+
+    path = tmp_path / "a.bin"
+    path.write_bytes(rtcm_frame(1077, bytes(4)))
+
+    def cfg(name: str) -> StationConfig:
+        return StationConfig(name=name, source=FileSource(path=str(path)), fingerprint=name)
+
+    def factory(c: StationConfig) -> StationBundle:
+        alarms = StationAlarms(c.name, AlarmSettings())
+        return StationBundle(core=StandInCore(), produces_epochs=False, alarms=alarms)
+
+    per_station = len(StationAlarms("x", AlarmSettings()).statuses())
+
+    async def main() -> tuple[int, int]:
+        loop = asyncio.get_running_loop()
+        # nobody listens on this port: the publisher buffers (and retries) what it is given
+        settings = MqttSettings(host="127.0.0.1", port=free_port(), reconnect_initial_s=30.0)
+        publisher = MqttPublisher(settings, monotonic=loop.time)
+        opts = DaemonOptions(
+            stations=(cfg("a"),), summary_interval_s=0, exit_when_sources_end=False
+        )
+        second = DaemonOptions(
+            stations=(cfg("a"), cfg("b")), summary_interval_s=0, exit_when_sources_end=False
+        )
+        daemon = Daemon(opts, factory=factory, publisher=publisher, reload=lambda: second)
+        async with asyncio.TaskGroup() as tg:
+            tg.create_task(daemon.run(), name="test.daemon")
+            await daemon.ready.wait()
+            at_start = publisher.statistics().buffered_alarm
+            daemon.request_reload()
+            await asyncio.sleep(1)
+            after_reload = publisher.statistics().buffered_alarm
+            daemon.request_stop()
+        return at_start, after_reload
+
+    at_start, after_reload = run_virtual(main())
+    assert (at_start, after_reload) == (per_station, 2 * per_station)

@@ -409,3 +409,36 @@ def test_station_is_stuck_only_when_input_waits_without_progress() -> None:
         assert runner.is_stuck(now + 11, 10)
 
     run_virtual(main())
+
+
+def test_station_reports_epoch_latency_without_replay_pacing(tmp_path: Path) -> None:
+    """StationRunner reports one latency per epoch of a paced replay, excluding the pacing waits."""
+    path = tmp_path / "r.bin"
+    path.write_bytes(frames(0, 6))
+
+    class TimedCore(StandInCore):
+        def feed_frames(self, fr: object) -> list[object]:
+            return [
+                _snapshot(1000.0 + 10.0 * int.from_bytes(item[1][2:6], "big"))  # type: ignore[index]
+                for item in super().feed_frames(fr)
+            ]
+
+    latencies: list[float] = []
+
+    async def main() -> None:
+        cfg = StationConfig(
+            name="st1", source=FileSource(path=str(path), speed=10.0), read_size=12
+        )  # one 12-byte frame per read: each chunk completes one epoch
+        runner = StationRunner(
+            cfg,
+            TimedCore(),
+            emit=lambda _i: None,
+            on_latency=lambda _station, s: latencies.append(s),
+        )
+        async with asyncio.TaskGroup() as tg:
+            tg.create_task(runner.ingest_loop(), name="daemon.ingest[st1]")
+            tg.create_task(runner.estimate_loop(), name="daemon.estimate[st1]")
+
+    run_virtual(main())
+    assert len(latencies) == 6
+    assert all(0.0 <= s < 0.5 for s in latencies)  # pacing waits 1 s per epoch at 10x

@@ -21,6 +21,9 @@ log = logging.getLogger("ionwarden.daemon.ingest.net")
 #: Datagrams buffered by a UDP source before the oldest is dropped (counted): 1 s of a 20 Hz MSM7
 #: stream split into one datagram per message is ~200 datagrams; 1024 leaves a wide margin.
 UDP_MAX_QUEUED_DATAGRAMS = 1024
+#: Longest wait (s) for a closing TCP connection to flush what we wrote (an NTRIP request or GGA
+#: line to a peer that stopped reading); then it is aborted, so shutdown stays bounded.
+CLOSE_TIMEOUT_S = 1.0
 
 
 class TcpTransport:
@@ -58,7 +61,11 @@ class TcpTransport:
         self._closed = True
         self._writer.close()
         try:
-            await self._writer.wait_closed()
+            async with asyncio.timeout(CLOSE_TIMEOUT_S):
+                await self._writer.wait_closed()
+        except TimeoutError:
+            log.debug("%s: close: unsent data after %.1f s, aborting", self._what, CLOSE_TIMEOUT_S)
+            self._writer.transport.abort()
         except OSError as exc:  # a socket that already broke cannot fail to close in a useful way
             log.debug("%s: close: %s", self._what, exc)
 

@@ -19,11 +19,12 @@ from ._payloads import (
     station_status_payload,
     summary_payload,
 )
-from ._publisher import TRANSIENT_MQTT_ERRORS, MqttPublisher
+from ._publisher import GOODBYE_TIMEOUT_S, TRANSIENT_MQTT_ERRORS, MqttPublisher
 from ._topics import DAEMON_SEGMENT, Topic, TopicTree
 
 __all__ = [
     "DAEMON_SEGMENT",
+    "GOODBYE_TIMEOUT_S",
     "SCHEMA_NAMES",
     "TRANSIENT_MQTT_ERRORS",
     "DaemonSnapshot",

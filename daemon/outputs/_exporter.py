@@ -102,12 +102,16 @@ class SnapshotCollector(Collector):
         sats = _g("station_satellites", "Satellites with figures this epoch.")
         age = _g("station_last_epoch_age_seconds", "Time since the last valid epoch (s).")
         epochs = _c("station_epochs", "Valid epochs processed.")
+        perr = _c("station_pipeline_errors", "Pipeline steps that failed and were contained.")
+        preset = _c("station_pipeline_resets", "Pipeline resets after repeated failures.")
         fq = _g("station_fix_quality", "NMEA GGA fix quality indicator of the receiver.")
         hdop = _g("station_fix_hdop", "NMEA GGA horizontal dilution of precision.")
         sig = _g("station_fix_sigma_horizontal_meters", "NMEA GST horizontal 1-sigma (m).")
         for st in snap.stations:
             lv = [st.station]
             epochs.add_metric(lv, st.epochs_total)
+            perr.add_metric(lv, st.pipeline_errors_total)
+            preset.add_metric(lv, st.pipeline_resets_total)
             if st.last_epoch_monotonic_s is not None:
                 age.add_metric(lv, max(now_s - st.last_epoch_monotonic_s, 0.0))
             s = st.snapshot
@@ -120,7 +124,7 @@ class SnapshotCollector(Collector):
                 hdop.add_metric(lv, st.fix.hdop)
                 sig.add_metric(lv, math.hypot(st.fix.sigma_lat_m, st.fix.sigma_lon_m))
         yield from fams.values()
-        yield from (sats, age, epochs, fq, hdop, sig)
+        yield from (sats, age, epochs, perr, preset, fq, hdop, sig)
 
     def _satellites(self, snap: DaemonSnapshot) -> Iterator[Metric]:
         labels = ("station", "sat")

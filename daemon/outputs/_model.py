@@ -75,6 +75,9 @@ class StationFigures:
     ingest: IngestFigures = field(default_factory=IngestFigures)
     last_epoch_monotonic_s: float | None = None
     epochs_total: int = 0
+    #: Pipeline steps that raised and were contained, and resets after repeated failures.
+    pipeline_errors_total: int = 0
+    pipeline_resets_total: int = 0
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)

@@ -12,8 +12,11 @@ from ._pacer import ReplayPacer
 from ._queues import BoundedQueue, Overflow, QueueStatistics
 from ._stall import StallDetector, StallKind, StallLimits
 from ._station import (
+    PIPELINE_LOG_INTERVAL_S,
+    PIPELINE_RESET_AFTER,
     RETRYABLE_ERRORS,
     TOLERATED_DECODE_ERRORS,
+    UNCONTAINED_ERRORS,
     SourceEvent,
     StationConfig,
     StationRunner,
@@ -26,8 +29,11 @@ __all__ = [
     "BACKOFF_CAP_S",
     "BACKOFF_INITIAL_S",
     "CHECKPOINT_FORMAT",
+    "PIPELINE_LOG_INTERVAL_S",
+    "PIPELINE_RESET_AFTER",
     "RETRYABLE_ERRORS",
     "TOLERATED_DECODE_ERRORS",
+    "UNCONTAINED_ERRORS",
     "BoundedQueue",
     "DecoderCounts",
     "FrameConsumer",

@@ -178,6 +178,8 @@ def build_daemon_snapshot(
                 ),
                 last_epoch_monotonic_s=st.last_epoch_monotonic_s,
                 epochs_total=st.epochs_total,
+                pipeline_errors_total=st.pipeline_errors_total,
+                pipeline_resets_total=st.pipeline_resets_total,
             )
         )
         q = st.queue

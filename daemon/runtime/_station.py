@@ -55,8 +55,11 @@ if TYPE_CHECKING:
     from ._core import DecoderCounts, StationCore
 
 __all__ = [
+    "PIPELINE_LOG_INTERVAL_S",
+    "PIPELINE_RESET_AFTER",
     "RETRYABLE_ERRORS",
     "TOLERATED_DECODE_ERRORS",
+    "UNCONTAINED_ERRORS",
     "SourceEvent",
     "StationConfig",
     "StationRunner",
@@ -420,12 +423,14 @@ class StationRunner:
                 outputs = self.core.end_stream() if chunk is None else self.core.feed(chunk)
             except TOLERATED_DECODE_ERRORS as exc:
                 self._decode_errors += 1
-                self._log_limited("decode", "%s: decode error, chunk skipped: %s", exc, level=logging.WARNING)
+                self._log_limited(
+                    "decode", logging.WARNING, "%s: decode error, chunk skipped: %s", exc
+                )
                 outputs = ()
             delay = self._handle(outputs, arrived)
         except UNCONTAINED_ERRORS:
             raise
-        except Exception as exc:  # noqa: BLE001 - contained per the module docstring
+        except Exception as exc:
             self._pipeline_failed(exc)
             return 0.0
         self._failing_steps = 0
@@ -435,22 +440,29 @@ class StationRunner:
         self._pipeline_errors += 1
         self._failing_steps += 1
         self._log_limited(
-            type(exc).__name__, "%s: pipeline step failed, its outputs dropped: %r", exc, level=logging.ERROR
+            type(exc).__name__,
+            logging.ERROR,
+            "%s: pipeline step failed, its outputs dropped: %r",
+            exc,
+            exc_info=exc,
         )
         if self._failing_steps >= PIPELINE_RESET_AFTER:
             self._failing_steps = 0
             self._pipeline_resets += 1
-            log.error(
+            self._log_limited(
+                "reset",
+                logging.ERROR,
                 "%s: pipeline failed %d steps in a row: resetting the station's framer and "
                 "estimator state (reset %d)",
-                self.name,
                 PIPELINE_RESET_AFTER,
                 self._pipeline_resets,
             )
             self.core.reset()
 
-    def _log_limited(self, key: str, msg: str, exc: Exception, *, level: int) -> None:
-        """Log ``msg % (station, exc)`` at most once per PIPELINE_LOG_INTERVAL_S per ``key``."""
+    def _log_limited(
+        self, key: str, level: int, msg: str, *args: object, exc_info: Exception | None = None
+    ) -> None:
+        """Log ``msg % (station, *args)`` at most once per PIPELINE_LOG_INTERVAL_S per ``key``."""
         now = self._loop.time()
         seen = self._log_limit.get(key)
         if seen is not None and now - seen[0] < PIPELINE_LOG_INTERVAL_S:
@@ -459,7 +471,7 @@ class StationRunner:
         self._log_limit[key] = (now, 0)
         if seen is not None and seen[1]:
             msg += f" ({seen[1]} more like it in the last {now - seen[0]:.0f} s)"
-        log.log(level, msg, self.name, exc, exc_info=level >= logging.ERROR)
+        log.log(level, msg, self.name, *args, exc_info=exc_info)
 
     def _handle(self, outputs: object, arrived: float | None = None) -> float:
         """Count and emit outputs; return the replay pacing delay (s) they call for."""

@@ -11,8 +11,15 @@ Lifecycle under systemd (``Type=notify``):
 * ``WATCHDOG=1`` every half ``WatchdogSec`` — only while no station's estimate task is stuck
   (input waiting, nothing completed for a whole watchdog period). A wedged pipeline therefore gets
   the unit restarted; a receiver that is merely offline does not.
-* ``STATUS=`` carries station health; SIGTERM/SIGINT stop gracefully (checkpoint, flush MQTT within
-  ``stop_timeout_s``); SIGHUP reloads the config and restarts only stations whose config changed.
+* ``STATUS=`` carries station health; SIGTERM/SIGINT stop gracefully (checkpoint, flush MQTT);
+  SIGHUP reloads the config and restarts only stations whose config changed.
+
+Shutdown budget: everything after SIGTERM fits in ``stop_timeout_s`` (default 4 s, under the 5 s
+promise and systemd's ``TimeoutStopSec``): stations are cancelled together and given
+:data:`STATION_STOP_GRACE_S`; MQTT gets what is left minus the publisher's
+``GOODBYE_TIMEOUT_S`` to flush, then is cancelled and says "offline" within that goodbye time.
+No ``asyncio.wait_for`` is used (on Python 3.11 it can lose a cancellation, CPython gh-86296);
+a task still running after its grace is cancelled again, with an error logged.
 """
 
 from __future__ import annotations
@@ -25,6 +32,7 @@ from dataclasses import dataclass, field, replace
 from typing import TYPE_CHECKING, Any
 
 from ionwarden.daemon.estimator import FixStatus, StationSnapshot
+from ionwarden.daemon.outputs import GOODBYE_TIMEOUT_S
 from ionwarden.parsers import utc_to_gps
 
 from ._checkpoint import load_checkpoint, save_checkpoint
@@ -46,6 +54,31 @@ if TYPE_CHECKING:
 __all__ = ["Daemon", "DaemonOptions", "StationBundle"]
 
 log = logging.getLogger("ionwarden.daemon.runtime")
+
+#: Time a cancelled station's tasks get to finish (closing a transport is itself bounded to 1 s).
+STATION_STOP_GRACE_S = 1.5
+
+
+async def _cancel_and_wait(tasks: list[asyncio.Task[None]], grace_s: float) -> None:
+    """Cancel ``tasks`` and wait up to ``grace_s`` for them; cancel any straggler once more.
+
+    A task still running after its grace most likely had its cancellation swallowed (an
+    ``asyncio.wait_for`` in a library, CPython gh-86296): a second cancel reaches it.
+    """
+    if not tasks:
+        return
+    for task in tasks:
+        task.cancel()
+    _done, pending = await asyncio.wait(tasks, timeout=grace_s)
+    for task in pending:
+        log.error(
+            "task %s still running %.1f s after cancellation; cancelling it again",
+            task.get_name(),
+            grace_s,
+        )
+        task.cancel()
+    if pending:
+        await asyncio.wait(pending, timeout=grace_s)
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -187,13 +220,13 @@ class Daemon:
             self._publisher.publish_alarm_states_nowait(bundle.alarms.statuses())
         return running
 
-    async def _stop_station(self, name: str) -> None:
-        running = self._stations.pop(name)
-        for task in running.tasks:
-            task.cancel()
-        await asyncio.wait(running.tasks)
-        self.stopped_statistics[name] = running.runner.statistics()
-        self._checkpoint_one(running)
+    async def _stop_stations(self, names: list[str]) -> None:
+        """Cancel the stations' tasks together, then record statistics and write checkpoints."""
+        stopping = [self._stations.pop(name) for name in names]
+        await _cancel_and_wait([t for r in stopping for t in r.tasks], STATION_STOP_GRACE_S)
+        for running in stopping:
+            self.stopped_statistics[running.runner.name] = running.runner.statistics()
+            self._checkpoint_one(running)
 
     def _checkpoint_one(self, running: _Running) -> None:
         if self.options.state_dir is None:
@@ -223,10 +256,14 @@ class Daemon:
             self.notifier.notify("READY=1")
             return
         wanted = {c.name: c for c in new.stations}
-        for name in list(self._stations):
-            if name not in wanted or wanted[name] != self._stations[name].runner.config:
-                log.info("reload: stopping station %s", name)
-                await self._stop_station(name)
+        changed = [
+            name
+            for name, running in self._stations.items()
+            if name not in wanted or wanted[name] != running.runner.config
+        ]
+        for name in changed:
+            log.info("reload: stopping station %s", name)
+        await self._stop_stations(changed)
         self.options = replace(new, stations=new.stations)
         for cfg in new.stations:
             if cfg.name not in self._stations:
@@ -383,22 +420,18 @@ class Daemon:
     async def _shutdown(
         self, housekeeping: list[asyncio.Task[None]], mqtt_task: asyncio.Task[None] | None
     ) -> None:
+        loop = asyncio.get_running_loop()
+        deadline = loop.time() + self.options.stop_timeout_s
         self.notifier.notify("STOPPING=1", "STATUS=stopping")
         log.info("stopping")
-        for name in list(self._stations):
-            await self._stop_station(name)  # also writes each checkpoint
-        for task in housekeeping:
-            task.cancel()
+        await self._stop_stations(list(self._stations))  # also writes each checkpoint
+        await _cancel_and_wait(housekeeping, STATION_STOP_GRACE_S)
         self._publish_status()
         if self._publisher is not None and mqtt_task is not None:
-            self._publisher.stop()
-            try:
-                async with asyncio.timeout(self.options.stop_timeout_s):
-                    await asyncio.shield(mqtt_task)
-            except TimeoutError:
-                log.warning(
-                    "MQTT flush did not finish within %.1f s; dropping the rest",
-                    self.options.stop_timeout_s,
-                )
-                mqtt_task.cancel()
-        await asyncio.wait(housekeeping)
+            self._publisher.stop()  # flush, then "offline"
+            flush_s = max(0.0, deadline - GOODBYE_TIMEOUT_S - loop.time())
+            done, _pending = await asyncio.wait([mqtt_task], timeout=flush_s)
+            if not done:
+                log.warning("MQTT flush did not finish within %.1f s; dropping the rest", flush_s)
+                # cancelled, the publisher still says "offline", bounded by GOODBYE_TIMEOUT_S
+                await _cancel_and_wait([mqtt_task], GOODBYE_TIMEOUT_S + 0.5)
