@@ -124,3 +124,46 @@ def test_lag_ring_grows_and_keeps_history():
     v, _ = ring.lagged(40.0, sats, np.array([0, 1], np.int32), 1.0)  # other arc → NaN
     assert v[0] == 10.0
     assert np.isnan(v[1])
+
+
+def test_bias_model_separates_glonass_biases_from_plane():
+    """BiasModel recovers per-satellite GLONASS combined biases and the GPS receiver bias when VTEC is an exact plane (batch least squares is exact on noise-free data)."""
+    from ionwarden.daemon.config import EstimatorSettings
+    from ionwarden.daemon.estimator import PairTable
+    from ionwarden.daemon.estimator._biases import BiasModel
+    from ionwarden.parsers import MAX_SAT_ID
+
+    cfg = EstimatorSettings()
+    pairs = PairTable.from_config(cfg.pairs)
+    model = BiasModel(pairs, cfg, MAX_SAT_ID)
+    gps = np.arange(1, 9)
+    glo = np.arange(101, 107)
+    for s in gps:
+        model.set_delays(int(s), np.zeros(10))  # satellite part known: 0
+    rng = np.random.default_rng(3)
+    b_glo = rng.uniform(-8.0, 8.0, glo.shape[0])  # invented combined biases (TECU)
+    b_gps = 2.5  # invented receiver bias, GPS group of pair rank 0
+    sats = np.concatenate((gps, glo))
+    m = sats.shape[0]
+    az0 = rng.uniform(0.0, 2 * np.pi, m)
+    el0 = rng.uniform(0.3, 1.3, m)
+    for e in range(60):
+        t = 30.0 * e
+        el = np.clip(el0 + 0.004 * e * np.sin(az0), 0.2, 1.5)
+        mapping = mapping_factor(el, 350e3)
+        r_km = 350.0 / np.tan(el) * 0.9
+        x_km, y_km = r_km * np.sin(az0 + 0.003 * e), r_km * np.cos(az0 + 0.003 * e)
+        vtec = 12.0 + 0.5 * np.sin(e / 9.0) + 3e-3 * x_km - 5e-3 * y_km  # plane, varying
+        y = mapping * vtec + np.concatenate((np.full(gps.shape, b_gps), b_glo))
+        model.update(
+            t, y=y, idx=sats, rank=np.zeros(m, np.intp),
+            group=(sats // 100) * pairs.width, mapping=mapping, x_km=x_km, y_km=y_km,
+            weight=np.sin(el) ** 2,
+        )  # fmt: skip
+    # Exact data: the only error is the weak 100-TECU prior (common practice tolerance).
+    np.testing.assert_allclose(model.comb_applied[glo, 0], b_glo, atol=0.02)
+    np.testing.assert_allclose(model.applied[0], b_gps, atol=0.02)
+    assert np.all(np.isfinite(model.rx.sigma[model.sat_group[glo, 0]]))
+    fresh = BiasModel(pairs, cfg, MAX_SAT_ID)
+    fresh.load_state(model.state_dict())
+    np.testing.assert_allclose(fresh.comb_applied, model.comb_applied, equal_nan=True)

@@ -340,3 +340,18 @@ def test_serial_settings_the_device_refuses_become_a_transport_error() -> None:
             os.close(master)
 
     run_virtual(main())
+
+
+def test_file_transport_refuses_a_fifo_without_blocking(tmp_path: Path) -> None:
+    """FileTransport.open refuses a named pipe at once (no writer needed) with a one-line reason."""
+    from ionwarden.daemon.ingest import SourceRejectedError
+
+    fifo = tmp_path / "gnss.pipe"
+    os.mkfifo(fifo)
+
+    async def main() -> None:
+        async with asyncio.timeout(5):
+            await FileTransport.open(str(fifo))
+
+    with pytest.raises(SourceRejectedError, match="not a regular file"):
+        asyncio.run(main())

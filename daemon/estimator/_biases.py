@@ -6,11 +6,15 @@ Axes: ``S`` satellite slots × ``W`` pair ranks of the pair table; ``m`` satelli
   (:func:`band_delays_s`) or −c·DCB from ``[estimator] satellite_dcb_ns``; × K gives TECU.
 * Receiver part, per group (system, pair): :class:`ReceiverBias` (reduced least squares with a
   plane of VTEC), applied once its 1-σ is at most ``APPLY_SIGMA_TECU``.
-* Satellites whose satellite part is unknown (GLONASS FDMA, GPS L5 without CNAV ISC, …) stay out
-  of that fit: their combined satellite + receiver bias is the forgetting-weighted mean of their
-  residual from each fitted VTEC plane, applied after ``COMB_MIN_SAMPLES`` samples (until then
-  their STEC is NaN). Without any known satellite part at all (no ephemerides), every satellite
-  enters the fit with 0 and STEC carries the (unknown) satellite biases.
+* Satellites whose satellite part is unknown (GLONASS FDMA, GPS L5 without CNAV ISC, …) enter
+  the same least-squares fit with one combined satellite + receiver bias per (satellite, pair)
+  (:class:`ReceiverBias` per-satellite groups): the system groups of the satellites with a known
+  satellite part anchor the VTEC plane, so plane and biases separate, and the accumulated normal
+  equations give each combined bias with its σ. Their observations are down-weighted while the
+  arc is young (levelling error). A combined bias is applied after ``COMB_MIN_SAMPLES`` updates
+  once its 1-σ is at most ``APPLY_SIGMA_TECU`` (until then their STEC is NaN). Without any known
+  satellite part at all (no ephemerides), every satellite enters the fit with 0 in its system
+  group and STEC carries the (unknown) satellite biases.
 """
 
 from __future__ import annotations
@@ -21,7 +25,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import numpy.typing as npt
 
-from ionwarden.parsers import SYSTEMS, sat_id
+from ionwarden.parsers import SYSTEMS, sat_id, sat_name
 
 from ._pairs import C_MPS
 from ._rxbias import ReceiverBias
@@ -40,9 +44,7 @@ APPLY_SIGMA_TECU = 3.0
 #: Samples (one per receiver-bias update) before a satellite's combined bias is applied.
 COMB_MIN_SAMPLES = 8.0
 _MIN_FIT = 5
-#: Floor of the per-epoch σ in the combined-bias weights (TECU): residual scatter per epoch.
-_COMB_SIGMA0_TECU = 0.3
-#: Arc length (samples) at which a residual's levelling error counts half in the combined bias.
+#: Arc length (samples) at which an observation's levelling error halves its combined-bias weight.
 _COMB_ARC_SAMPLES = 300.0
 
 
@@ -60,10 +62,12 @@ class BiasModel:
         self.override_ns = np.full((n_slots, w), np.nan)
         self.sat_m = np.zeros((n_slots, w))
         self.sat_known = np.zeros((n_slots, w), np.bool_)
-        self.comb_sum = np.zeros((n_slots, w))
-        self.comb_weight = np.zeros((n_slots, w))
-        self.comb_count = np.zeros((n_slots, w))
-        self.comb_applied = np.full((n_slots, w), np.nan)
+        #: Per-satellite group of each (satellite, rank) with unknown satellite part (−1 none).
+        self.sat_group = np.full((n_slots, w), -1, np.intp)
+        self._sg_sat: list[int] = []
+        self._sg_rank: list[int] = []
+        self.comb_count = np.zeros((n_slots, w))  # forgetting-weighted updates seen
+        self.comb_applied = np.full((n_slots, w), np.nan)  # combined bias applied (TECU)
         self.fit_all = True
         self.fitted = False
         self.applied = np.zeros(len(labels))
@@ -131,81 +135,82 @@ class BiasModel:
         self.fitted = True
         fit = self.sat_known[idx, rank]
         self.fit_all = bool(np.count_nonzero(fit) < _MIN_FIT)
-        if self.fit_all:
-            fit = np.ones(m, np.bool_)
-        ok = self.rx.add_epoch(
-            t, y=y[fit], mapping=mapping[fit], x_km=x_km[fit], y_km=y_km[fit],
-            group=group[fit], weight=weight[fit],
-        )  # fmt: skip
-        other = ~fit
-        if ok and other.any():
-            lam = math.exp(-self.update_s / self.memory_s)
-            self.comb_sum *= lam
-            self.comb_weight *= lam
-            self.comb_count *= lam
-            res = y[other] - self.rx.vtec_model(mapping[other], x_km[other], y_km[other])
-            s_o, r_o, w_o = idx[other], rank[other], weight[other]
-            # Early fits (receiver bias still converging, large σ) carry plane errors into every
-            # residual: weight each epoch by 1/(σ² + σ₀²) of the fitted groups' receiver bias.
-            sig = self.rx.sigma[group[fit]]
-            sig = sig[np.isfinite(sig)]
-            s2 = float(np.mean(sig * sig)) if sig.size else 100.0**2
-            w_o = w_o / (s2 + _COMB_SIGMA0_TECU**2)
+        other = np.zeros(m, np.bool_) if self.fit_all else ~fit
+        n_sys = int(np.unique(group[~other]).shape[0])
+        if other.any():
+            group = group.copy()
+            s_o, r_o = idx[other], rank[other]
+            group[other] = self._sat_groups(s_o, r_o)
+            weight = weight.copy()
             if arc_samples is not None:
-                # the residual carries the arc's levelling error, shrinking as the arc grows
+                # the observation carries the arc's levelling error, shrinking as the arc grows
                 n_o = arc_samples[other]
-                w_o = w_o * (n_o / (n_o + _COMB_ARC_SAMPLES))
-            self.comb_sum[s_o, r_o] += w_o * res
-            self.comb_weight[s_o, r_o] += w_o
+                weight[other] *= n_o / (n_o + _COMB_ARC_SAMPLES)
+        ok = self.rx.add_epoch(
+            t, y=y, mapping=mapping, x_km=x_km, y_km=y_km, group=group, weight=weight,
+            n_epoch_groups=n_sys,
+        )  # fmt: skip
+        if ok and other.any():
+            self.comb_count *= math.exp(-self.update_s / self.memory_s)
             self.comb_count[s_o, r_o] += 1.0
-            ready = self.comb_count >= COMB_MIN_SAMPLES
-            self.comb_applied = np.where(
-                ready, self.comb_sum / np.maximum(self.comb_weight, 1e-12), np.nan
-            )
         self._refresh()
+
+    def _sat_groups(self, sat: Idx, rank: Idx) -> Idx:
+        """Per-satellite receiver-bias groups of these (satellite, rank)s, allocated if new."""
+        grp = self.sat_group[sat, rank]
+        for k in np.flatnonzero(grp < 0).tolist():
+            s_k, r_k = int(sat[k]), int(rank[k])
+            label = f"{sat_name(s_k)}:{self.pairs.labels[s_k // 100][r_k]}"
+            grp[k] = self.sat_group[s_k, r_k] = self.rx.group_index(label)
+            self._sg_sat.append(s_k)
+            self._sg_rank.append(r_k)
+        return grp
 
     def _refresh(self) -> None:
         sig = self.rx.sigma
-        self.applied = np.where(sig <= APPLY_SIGMA_TECU, self.rx.bias, 0.0)
+        n_sys = len(self.applied)
+        self.applied = np.where(sig[:n_sys] <= APPLY_SIGMA_TECU, self.rx.bias[:n_sys], 0.0)
+        if self._sg_sat:
+            s_g, r_g = self._sg_sat, self._sg_rank
+            grp = self.sat_group[s_g, r_g]
+            ready = (self.comb_count[s_g, r_g] >= COMB_MIN_SAMPLES) & (sig[grp] <= APPLY_SIGMA_TECU)
+            self.comb_applied[s_g, r_g] = np.where(ready, self.rx.bias[grp], np.nan)
         self.version += 1
-        self.ref_group = int(np.nanargmin(sig)) if np.isfinite(sig).any() else -1
+        sys_sig = sig[:n_sys]
+        self.ref_group = int(np.nanargmin(sys_sig)) if np.isfinite(sys_sig).any() else -1
 
     def state_dict(self) -> dict[str, Any]:
-        """The receiver-bias normal equations plus the learnt combined biases (sparse lists)."""
+        """The receiver-bias normal equations (per-satellite groups by label, e.g. "R05:1C-2C")
+        plus the update counts of the combined biases."""
         out = self.rx.state_dict()
-        sat, rank = np.nonzero(self.comb_count > 0)
-        out["combined"] = {
-            "labels": [
-                self.pairs.labels[s // 100][r]
-                for s, r in zip(sat.tolist(), rank.tolist(), strict=True)
-            ],
-            "sat": sat.tolist(),
-            "sum": self.comb_sum[sat, rank].tolist(),
-            "weight": self.comb_weight[sat, rank].tolist(),
-            "count": self.comb_count[sat, rank].tolist(),
+        s_g, r_g = self._sg_sat, self._sg_rank
+        out["sat_groups"] = {
+            "labels": [self.rx.labels[g] for g in self.sat_group[s_g, r_g].tolist()],
+            "count": self.comb_count[s_g, r_g].tolist(),
         }
         return out
 
     def load_state(self, state: dict[str, Any]) -> None:
-        self.rx.load_state(state)
-        comb = state.get("combined")
-        if comb is not None and len(comb["sat"]):
-            for sat, label, cs, cw, cc in zip(
-                np.asarray(comb["sat"]).tolist(), [str(x) for x in comb["labels"]],
-                np.asarray(comb["sum"], dtype=np.float64).tolist(),
-                np.asarray(comb["weight"], dtype=np.float64).tolist(),
-                np.asarray(comb["count"], dtype=np.float64).tolist(), strict=True,
-            ):  # fmt: skip
-                have = self.pairs.labels[int(sat) // 100]
-                if label in have:  # pairs no longer configured are dropped
-                    r = have.index(label)
-                    self.comb_sum[sat, r], self.comb_weight[sat, r], self.comb_count[sat, r] = (
-                        cs,
-                        cw,
-                        cc,
-                    )
-            ready = self.comb_count >= COMB_MIN_SAMPLES
-            self.comb_applied = np.where(
-                ready, self.comb_sum / np.maximum(self.comb_weight, 1e-12), np.nan
+        """Restore from :meth:`state_dict` (an older "combined" section is ignored: the combined
+        biases are learnt again); groups of pairs no longer configured are dropped."""
+        counts = dict(
+            zip(
+                [str(x) for x in state.get("sat_groups", {}).get("labels", [])],
+                np.asarray(state.get("sat_groups", {}).get("count", []), np.float64).tolist(),
+                strict=True,
             )
+        )
+        for label in [str(x) for x in state.get("labels", [])]:
+            name, _, pair = label.partition(":")
+            if len(name) != 3 or name[0] not in SYSTEMS or not name[1:].isdigit():
+                continue  # a system group
+            if not 0 < int(name[1:]) < 100:
+                continue
+            sat = sat_id(name[0], int(name[1:]))
+            have = self.pairs.labels[sat // 100]
+            if 0 <= sat < self.sat_group.shape[0] and pair in have:
+                r = have.index(pair)
+                self._sat_groups(np.array([sat]), np.array([r]))
+                self.comb_count[sat, r] = counts.get(label, 0.0)
+        self.rx.load_state(state)
         self._refresh()

@@ -5,8 +5,12 @@ Model per epoch (common practice for single-station bias estimation; SCIENCE.md 
     y_i = STEC_raw,i − B_sat,i = M_i·(a0 + a1·x_i + a2·y_i) + B_g(i) + noise
 
 with M the thin-shell mapping factor, (x, y) the pierce-point offsets east/north (1000 km units),
-and B_g one receiver bias per *group* g = (system, pair) (each signal pair has its own receiver
-delay). The VTEC parameters a change every epoch, the biases do not: each epoch's normal equations
+and B_g one bias per *group*: g = (system, pair) for satellites whose satellite part is known
+(each signal pair has its own receiver delay), or g = (satellite, pair) for the others (GLONASS
+FDMA: the satellite's and the receiver's inter-frequency biases differ per channel and are only
+known together). The per-satellite groups are added on first use (:meth:`group_index`); they are
+anchored by the system groups through the shared VTEC plane (no extra constraint needed as long
+as satellites with a known satellite part are in view). The VTEC parameters a change every epoch, the biases do not: each epoch's normal equations
 are reduced onto the biases (a eliminated) and accumulated with exponential forgetting (time
 constant ``memory_s``), each epoch's weight scaled down when the ionosphere is disturbed
 (``quiet_weight``), so the estimate is dominated by quiet periods. A weak prior (σ = 100 TECU)
@@ -34,6 +38,7 @@ class ReceiverBias:
 
     def __init__(self, group_labels: list[str], memory_s: float) -> None:
         self.labels = list(group_labels)
+        self._pos = {label: i for i, label in enumerate(self.labels) if label}
         g = len(self.labels)
         self.memory_s = float(memory_s)
         self.normal = np.zeros((g, g))
@@ -44,6 +49,22 @@ class ReceiverBias:
         self.bias = np.zeros(g)
         self.sigma = np.full(g, np.nan)
         self.vtec_coef = np.full(3, np.nan)
+
+    def group_index(self, label: str) -> int:
+        """The group of ``label``, appended (normal equations grown, rarely) if new."""
+        i = self._pos.get(label)
+        if i is not None:
+            return i
+        g = len(self.labels)
+        self.labels.append(label)
+        self._pos[label] = g
+        normal = np.zeros((g + 1, g + 1))
+        normal[:g, :g] = self.normal
+        self.normal = normal
+        self.rhs = np.append(self.rhs, 0.0)
+        self.bias = np.append(self.bias, 0.0)
+        self.sigma = np.append(self.sigma, np.nan)
+        return g
 
     @staticmethod
     def _design(mapping: F64, x_km: F64, y_km: F64) -> F64:
@@ -68,11 +89,13 @@ class ReceiverBias:
         y_km: F64,
         group: npt.NDArray[np.intp],
         weight: F64,
+        n_epoch_groups: int | None = None,
     ) -> bool:
         """Accumulate one epoch; returns False (nothing learnt) with fewer than 5 satellites.
 
         Afterwards ``vtec_coef`` holds this epoch's fitted surface (a0 … a5) with the current biases
-        (``vtec_model`` evaluates it for other satellites)."""
+        (``vtec_model`` evaluates it for other satellites). ``n_epoch_groups``: the groups that cost
+        this epoch a degree of freedom (default all; per-satellite groups live across epochs)."""
         m = y.shape[0]
         assert mapping.shape == x_km.shape == y_km.shape == group.shape == weight.shape == (m,)
         if m < 5:
@@ -111,7 +134,8 @@ class ReceiverBias:
         coef = inv @ (aw.T @ yc)
         res = yc - a @ coef
         self.sq_res += float(np.sum(weight * res * res))
-        self.dof += max(m - npar - groups.shape[0], 0)
+        n_g = groups.shape[0] if n_epoch_groups is None else n_epoch_groups
+        self.dof += max(m - npar - n_g, 0)
         self.vtec_coef = coef
         return True
 
@@ -153,8 +177,8 @@ class ReceiverBias:
         rhs = np.asarray(state["rhs"], dtype=np.float64)
         if normal.shape != (len(labels), len(labels)) or rhs.shape != (len(labels),):
             raise ValueError("receiver-bias state: normal/rhs shapes do not match labels")
-        pos = {label: i for i, label in enumerate(self.labels)}
-        src = [i for i, label in enumerate(labels) if label in pos and label]
+        pos = self._pos
+        src = [i for i, label in enumerate(labels) if label in pos]
         dst = [pos[labels[i]] for i in src]
         self.normal[:] = 0.0
         self.rhs[:] = 0.0

@@ -14,7 +14,7 @@ from typing import Self
 
 from ionwarden.daemon.errors import TransportError
 
-from ._transport import map_transport_errors
+from ._transport import SourceRejectedError, map_transport_errors
 
 __all__ = ["FileTransport", "StdinTransport"]
 
@@ -34,9 +34,28 @@ class FileTransport:
 
     @classmethod
     async def open(cls, path: str, *, loop: bool = False) -> Self:
+        """Open a regular file; a FIFO or device is refused (:class:`SourceRejectedError`).
+
+        Opened non-blocking, so a FIFO without a writer cannot block the open: a worker thread
+        stuck in ``open``/``read`` would hold up interpreter exit, and shutdown must stay bounded.
+        """
         what = f"file://{path}"
+        flags = os.O_RDONLY | os.O_CLOEXEC | os.O_NONBLOCK
         with map_transport_errors(f"{what}: open"):
-            fd = await asyncio.to_thread(os.open, path, os.O_RDONLY | os.O_CLOEXEC)
+            fd = await asyncio.to_thread(os.open, path, flags)
+            try:
+                regular = stat.S_ISREG(os.fstat(fd).st_mode)
+                if regular:
+                    os.set_blocking(fd, True)
+            except BaseException:
+                os.close(fd)
+                raise
+        if not regular:
+            os.close(fd)
+            raise SourceRejectedError(
+                f"{what}: not a regular file (use stdin:// for a pipe, serial:// for a device)",
+                status="not a regular file",
+            )
         return cls(fd, what=what, loop=loop)
 
     async def read(self, max_bytes: int) -> bytes:
