@@ -97,12 +97,14 @@ def test_truth_stec_within_one_tecu(quiet):
 
 
 def test_truth_glonass_stec_settles(quiet):
-    """GLONASS STEC (no broadcast group delay: combined bias learnt from the VTEC fit) settles within 4 TECU RMS after 15 min of arc."""
+    """GLONASS STEC (no broadcast group delay: per-satellite combined bias fitted with the VTEC plane) settles within 2 TECU RMS after 15 min of arc."""
     q = quiet
     ok = (q["t_el"] > 15.0) & (q["age"] >= 900.0) & np.isfinite(q["stec"]) & (q["sys"] == 1)
     d = q["stec"][ok] - q["t_stec"][ok]
     assert ok.sum() > 2_000
-    assert np.sqrt(np.mean(d**2)) < 4.0
+    # Issue 6 asks 1.0 TECU; measured 0.90 here (seed 1) but 0.41–1.92 over scenario seeds 1–8
+    # (30 min of data: the receiver-bias/plane separation is still ~1 TECU), so 2.0 is asserted.
+    assert np.sqrt(np.mean(d**2)) < 2.0
 
 
 def test_truth_rot_unbiased_at_noise_floor(quiet):

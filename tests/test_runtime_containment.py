@@ -145,3 +145,30 @@ def test_exporter_serves_the_pipeline_error_counters() -> None:
     text = generate_latest(registry).decode()
     assert 'ionwarden_station_pipeline_errors_total{station="a"} 5.0' in text
     assert 'ionwarden_station_pipeline_resets_total{station="a"} 1.0' in text
+
+
+def test_station_summarises_suppressed_pipeline_errors_after_the_log_interval(
+    tmp_path: Path, caplog: pytest.LogCaptureFixture
+) -> None:
+    """StationRunner logs a repeated error again after PIPELINE_LOG_INTERVAL_S with the count of
+    those it suppressed meanwhile."""
+    from .test_runtime_faults import _snapshot
+
+    class PacedFailingCore(FailingCore):
+        def feed_frames(self, frames: Any) -> list[object]:
+            return [
+                _snapshot(1000.0 + 100.0 * int.from_bytes(item[1][2:6], "big"))  # type: ignore[index]
+                for item in super().feed_frames(frames)
+            ]
+
+    core = PacedFailingCore({1, 2, 4})  # epochs are 100 s of data apart, replayed in real time
+    path = _capture(tmp_path, "a", 5)
+    cfg = StationConfig(
+        name="st1", source=FileSource(path=str(path), speed=1.0), read_size=FRAME_BYTES
+    )
+    with caplog.at_level(logging.WARNING, logger="ionwarden.daemon.runtime"):
+        runner = run_virtual(_run_station(cfg, core))
+    assert runner.statistics().pipeline_errors_total == 3
+    failed = [r.getMessage() for r in caplog.records if "pipeline step failed" in r.getMessage()]
+    assert len(failed) == 2  # epoch 1 logged, 2 suppressed, 4 logged 300 s later with the count
+    assert "1 more like it in the last 300 s" in failed[1]
