@@ -355,3 +355,19 @@ def test_cell_router_rebuilds_when_a_cell_becomes_unusable():
     assert lay2 is not lay0
     assert lay2.labels == ("1C-5Q", "1C-2W", "1C-2W")  # config pair order (EstimatorSettings)
     assert lay2.n_unusable == 1
+
+
+def test_cell_router_layout_unchanged_across_stamp_restart():
+    """CellRouter builds the same layout when its int32 stamp counter restarts (after 2³¹ rebuilds)."""
+    from ionwarden.daemon.estimator._cells import _MAX_STAMP
+
+    tr = generate(Scenario(n_sats=5, duration_s=2.0))
+    est = StationEstimator()
+    before = est.cells.layout(tr.epochs[0])
+    est.cells._stamp = _MAX_STAMP  # the next rebuild restarts the stamps
+    est.cells._last = None
+    after = est.cells.layout(tr.epochs[0])
+    assert est.cells._stamp == 1
+    for name in ("present", "idx", "rank", "i12", "cell_pos", "group", "coefs", "comb"):
+        np.testing.assert_array_equal(getattr(before, name), getattr(after, name), err_msg=name)
+    assert before.labels == after.labels

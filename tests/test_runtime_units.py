@@ -159,6 +159,15 @@ def test_summary_line_shows_counts_and_no_invented_figures() -> None:
     assert "skipped 2.0 kB" in line
     assert "epochs 10 (1.0/s)" in line
     assert "reconnects 1" in line
+    assert "pipeline-errors" not in line  # shown only once there is one
+
+
+def test_summary_line_shows_contained_pipeline_errors() -> None:
+    """format_summary shows the count of contained pipeline errors when there are any."""
+    from dataclasses import replace
+
+    st = replace(_stats("base", StationState.STREAMING), pipeline_errors_total=4)
+    assert "pipeline-errors 4" in format_summary(st)
 
 
 def test_status_line_names_stations_that_do_not_stream() -> None:

@@ -59,11 +59,12 @@ class BiasModel:
         labels = [f"{SYSTEMS[s]}:{lab}" if lab else "" for s in range(len(SYSTEMS)) for lab in
                   (*pairs.labels[s], *([""] * (w - len(pairs.labels[s]))))]  # fmt: skip
         self.rx = ReceiverBias(labels, cfg.receiver_bias_memory_s)
-        self.override_ns = np.full((n_slots, w), np.nan)
+        #: Configured satellite DCBs (ns) per satellite: its (rank) row, NaN where not given.
+        self.override_ns: dict[int, F64] = {}
         self.sat_m = np.zeros((n_slots, w))
         self.sat_known = np.zeros((n_slots, w), np.bool_)
         #: Per-satellite group of each (satellite, rank) with unknown satellite part (−1 none).
-        self.sat_group = np.full((n_slots, w), -1, np.intp)
+        self.sat_group = np.full((n_slots, w), -1, np.int16)
         self._sg_sat: list[int] = []
         self._sg_rank: list[int] = []
         self.comb_count = np.zeros((n_slots, w))  # forgetting-weighted updates seen
@@ -81,7 +82,8 @@ class BiasModel:
             for label, ns in per_pair.items():
                 if label not in have:
                     raise ValueError(f"satellite_dcb_ns.{name}: pair {label!r} not configured")
-                self.override_ns[sat, have.index(label)] = ns
+                row = self.override_ns.setdefault(sat, np.full(w, np.nan))
+                row[have.index(label)] = ns
             self.set_delays(sat, np.full(10, np.nan))
 
     def set_delays(self, sat: int, delays_s: F64) -> None:
@@ -90,8 +92,9 @@ class BiasModel:
         row = C_MPS * (
             delays_s[self.pairs.sig2[sysi] // 32] - delays_s[self.pairs.sig1[sysi] // 32]
         )
-        over = self.override_ns[sat]
-        row = np.where(np.isnan(over), row, -C_MPS * over * 1e-9)
+        over = self.override_ns.get(sat)
+        if over is not None:
+            row = np.where(np.isnan(over), row, -C_MPS * over * 1e-9)
         self.sat_known[sat] = ~np.isnan(row)
         if not self.fitted:  # before the first fit: "no satellite part known at all" mode?
             self.fit_all = not bool(self.sat_known.any())
@@ -157,7 +160,7 @@ class BiasModel:
 
     def _sat_groups(self, sat: Idx, rank: Idx) -> Idx:
         """Per-satellite receiver-bias groups of these (satellite, rank)s, allocated if new."""
-        grp = self.sat_group[sat, rank]
+        grp = self.sat_group[sat, rank].astype(np.intp)
         for k in np.flatnonzero(grp < 0).tolist():
             s_k, r_k = int(sat[k]), int(rank[k])
             label = f"{sat_name(s_k)}:{self.pairs.labels[s_k // 100][r_k]}"

@@ -42,6 +42,7 @@ N_SIG = 10 * 32  # packed signal codes are band*32 + attribute, bands 0–9
 #: Rows of the combination matrix (see module doc).
 COMB_NAMES = ("gf", "mw", "lev_x", "gf_tecu", "if_code", "if_phase", "mp1", "mp2")
 (GF_ROW, MW_ROW, LEVX_ROW, GFT_ROW, IFC_ROW, IFP_ROW, MP1_ROW, MP2_ROW) = range(len(COMB_NAMES))
+_MAX_STAMP = np.iinfo(np.int32).max
 
 
 @dataclass(slots=True, eq=False, kw_only=True)
@@ -85,10 +86,11 @@ class CellRouter:
         self._n_sig_slots = int(codes.shape[0])
         self._c1 = self._sig_slot[pairs.sig1]
         self._c2 = self._sig_slot[pairs.sig2]
-        # Per-cell lookup by (satellite, signal), stamped per layout instead of cleared.
-        self._cell_stamp = np.zeros((S, codes.shape[0] + 1), np.int64)
-        self._cell_index = np.zeros((S, codes.shape[0] + 1), np.intp)
-        self._seen = np.zeros(S, np.int64)
+        # Per-cell lookup by (satellite, signal), stamped per layout instead of cleared (int32:
+        # stamps restart before they overflow, cell indices are far below 2³¹).
+        self._cell_stamp = np.zeros((S, codes.shape[0] + 1), np.int32)
+        self._cell_index = np.zeros((S, codes.shape[0] + 1), np.int32)
+        self._seen = np.zeros(S, np.int32)
         self._stamp = 0
         self._last: EpochLayout | None = None
         self.rebuilds = 0
@@ -113,6 +115,10 @@ class CellRouter:
         sig = epoch.sig.astype(np.intp)
         in_range = (sat >= 0) & (sat < MAX_SAT_ID) & (sig < N_SIG)
         usable = in_range & (sig >= 32) & ok
+        if self._stamp >= _MAX_STAMP:  # after ~2³¹ rebuilds: forget every stamp, start again
+            self._cell_stamp.fill(0)
+            self._seen.fill(0)
+            self._stamp = 0
         self._stamp += 1
         stamp = self._stamp
         slot = self._sig_slot[np.where(in_range, sig, 0)]
@@ -135,7 +141,7 @@ class CellRouter:
         rows = np.flatnonzero(has)
         i1 = self._cell_index[idx, c1[rows, rank]]
         i2 = self._cell_index[idx, c2[rows, rank]]
-        i12 = np.concatenate((i1, i2))
+        i12 = np.concatenate((i1, i2)).astype(np.intp)
         d = idx.shape[0]
         m = present.shape[0]
 

@@ -1,9 +1,9 @@
 """The rolling ionosphere estimator of one station: ObsEpoch in, StationSnapshot out.
 
 Pure and vectorised (STYLE rules 21–22): ``update(epoch)`` takes time from the epoch and never
-reads a clock; per-satellite state is one preallocated (S, NCOL) matrix indexed by satellite id
-(``S = MAX_SAT_ID`` slots, columns in ``_state``), gathered once and scattered once per epoch for
-the ``m`` satellites present; rolling windows are ring buffers (``_windows``); no per-satellite
+reads a clock; per-satellite state is one preallocated (S, NSTATE) matrix indexed by satellite id
+(``S = MAX_SAT_ID`` slots, columns in ``_state``), gathered once (with the layout's pair
+coefficients appended) and scattered once per epoch for the ``m`` satellites present; rolling windows are ring buffers (``_windows``); no per-satellite
 Python branch on the hot path. Pair choice per satellite: the first configured pair (``_pairs``)
 whose two signals both have code and phase this epoch; a change of pair starts a new arc. The pair
 choice, cell indices and pair constants depend only on the epoch's layout and are cached while it
@@ -41,7 +41,6 @@ from ._pairs import PairTable, band_delays_s
 from ._snapshot import SatelliteFigures, StationSnapshot
 from ._state import (
     ARC,
-    F1,
     GF0,
     HATCH,
     IFL_PREV,
@@ -52,6 +51,7 @@ from ._state import (
     MP1,
     MP2,
     NOISE,
+    NSTATE,
     K,
     N,
     new_state,
@@ -274,8 +274,7 @@ class StationEstimator:
         idx = lay.idx
         i12 = lay.i12
         d = idx.shape[0]
-        g = self.state.take(idx, axis=0)
-        g[:, F1:] = lay.coefs
+        g = np.concatenate((self.state.take(idx, axis=0), lay.coefs), axis=1)
         meas = np.empty((4, d))
         np.multiply(epoch.phase_cycles.take(i12).reshape(2, d), lay.wavelength_m, out=meas[:2])
         meas[2:] = epoch.pseudorange_m.take(i12).reshape(2, d)
@@ -350,7 +349,7 @@ class StationEstimator:
             mp_mean = np.where(keep, mp_mean, 0.0)
         mp_mean += (mp - mp_mean) / n_arc
         g[:, MP1 : MP2 + 1] = mp_mean.T
-        self.state[idx] = g
+        self.state[idx] = g[:, :NSTATE]
         mp -= mp_mean
         return {
             "stec": stec,

@@ -4,7 +4,9 @@ Axes: ``S`` satellite slots (``MAX_SAT_ID``) × ``NCOL`` named columns. Each epo
 of its ``m`` satellites once (``block = state[idx]``), works on column views of that block, and
 scatters it back once (``state[idx] = block``): two fancy-index operations per epoch instead of two
 per quantity. Integer-valued columns (arc id, counts, ranks, lock indicators, flags) are exact in
-float64. "Unknown" is NaN (or −1 for ids/indicators), as in the initial row :data:`INITIAL`.
+float64. "Unknown" is NaN (or −1 for ids/indicators), as in a fresh state. Only the first
+``NSTATE`` columns are kept between epochs; the pair coefficients ``F1 … NOISE`` depend only on
+the epoch layout and are appended to the gathered block from it (``EpochLayout.coefs``).
 """
 
 from __future__ import annotations
@@ -12,7 +14,7 @@ from __future__ import annotations
 import numpy as np
 import numpy.typing as npt
 
-__all__ = ["COLUMNS", "NCOL", "new_state"]
+__all__ = ["COLUMNS", "NCOL", "NSTATE", "new_state"]
 
 #: Column names, in order; the module constants below are their indices.
 COLUMNS = (
@@ -37,13 +39,15 @@ NCOL = len(COLUMNS)
 (ARC, N, LAST_T, RANK, LOCK1, LOCK2, LT1, LT2, HALF1, HALF2, MW_MEAN, MW_VAR, GF_LEVEL, GF_RATE,
  GF_VAR, LEV_MEAN, LEV_SW, GF0, HATCH, IFL_PREV, MP1, MP2, F1, F2, K, ALPHA, BETA, GAMMA, LWL, L1M,
  NOISE) = range(NCOL)  # fmt: skip
+#: Columns stored per satellite slot (the rest of a gathered block comes from the layout).
+NSTATE = F1
 
 
 def new_state(n_slots: int, mw_var0: float, gf_var0: float) -> npt.NDArray[np.float64]:
-    """A fresh (n_slots, NCOL) state: nothing seen yet."""
-    st = np.zeros((n_slots, NCOL))
+    """A fresh (n_slots, NSTATE) state: nothing seen yet."""
+    st = np.zeros((n_slots, NSTATE))
     st[:, [ARC, RANK, LOCK1, LOCK2]] = -1.0
-    st[:, [LAST_T, LT1, LT2, F1, F2]] = np.nan
+    st[:, [LAST_T, LT1, LT2]] = np.nan
     st[:, MW_VAR] = mw_var0
     st[:, GF_VAR] = gf_var0
     return st

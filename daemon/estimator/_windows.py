@@ -20,21 +20,29 @@ class LagRing:
     """The last ``R`` epochs of one per-satellite value, to difference it over a fixed lag.
 
     Invariant: row ``k`` holds the epoch written ``(head − k) mod R`` writes ago; ``t[k]`` is its
-    time (NaN if never written), ``value[k, s]`` the satellite's value then (NaN if it had none) and
-    ``arc[k, s]`` its arc id. Values are stored relative to the arc's first value (float32 is then
-    exact to ~1e-4 TECU) — the caller passes them so. The capacity grows (rarely, by
-    reallocation) when the data rate needs more rows to reach back ``lag_s``.
+    time (NaN if never written) and ``value[k, s]`` the satellite's value then (NaN if it had
+    none); ``last_arc[s]`` is the arc id last pushed for satellite ``s`` and ``arc_t0[s]`` the time
+    of that arc's first push. Arc ids are never reused and a satellite's arcs follow each other in
+    time, so row ``k`` belongs to the satellite's current arc exactly when ``t[k] ≥ arc_t0[s]``
+    (no arc id per row needed). Values are stored relative to the arc's first value (float32 is
+    then exact to ~1e-4 TECU) — the caller passes them so. The capacity is what ``lag_s`` needs at
+    1 Hz and grows (rarely, by reallocation) when the data rate needs more rows.
     """
 
-    def __init__(self, n_slots: int, lag_s: float, rows: int = 64) -> None:
+    def __init__(self, n_slots: int, lag_s: float, rows: int | None = None) -> None:
         self.lag_s = float(lag_s)
         self.n_slots = n_slots
-        self._alloc(rows)
+        self.last_arc = np.full(n_slots, -1, np.int32)
+        self.arc_t0 = np.full(n_slots, np.nan)
+        self._alloc(rows if rows is not None else self._rows_needed(1.0))
+
+    def _rows_needed(self, interval_s: float) -> int:
+        """Rows that hold ``lag_s`` plus two samples at sampling ``interval_s``."""
+        return math.ceil(self.lag_s / max(interval_s, 1e-3)) + 3
 
     def _alloc(self, rows: int) -> None:
         self.t = np.full(rows, np.nan)
         self.value = np.full((rows, self.n_slots), np.nan, np.float32)
-        self.arc = np.full((rows, self.n_slots), -1, np.int32)
         self.head = -1
 
     @property
@@ -43,14 +51,14 @@ class LagRing:
 
     def ensure_interval(self, interval_s: float) -> None:
         """Grow so that ``lag_s`` plus two samples fits at sampling ``interval_s`` (keeps data)."""
-        need = math.ceil(self.lag_s / max(interval_s, 1e-3)) + 3
+        need = self._rows_needed(interval_s)
         if need <= self.rows:
             return
         order = (np.arange(self.rows) + self.head + 1) % self.rows  # oldest first
-        t, value, arc = self.t[order], self.value[order], self.arc[order]
+        t, value = self.t[order], self.value[order]
         old = self.rows
         self._alloc(need)
-        self.t[:old], self.value[:old], self.arc[:old] = t, value, arc
+        self.t[:old], self.value[:old] = t, value
         self.head = old - 1
 
     def push(
@@ -62,14 +70,18 @@ class LagRing:
         self.t[row] = t
         self.value[row].fill(np.nan)
         self.value[row, sats] = value
-        self.arc[row, sats] = arc
+        started = self.last_arc.take(sats) != arc
+        if np.count_nonzero(started):
+            self.arc_t0[sats[started]] = t
+            self.last_arc[sats] = arc
 
     def lagged(
         self, t: float, sats: npt.NDArray[np.intp], arc: npt.NDArray[np.int32], interval_s: float
     ) -> tuple[F64, float]:
         """Values at the stored epoch nearest ``t − lag_s`` (within half a sampling interval),
-        NaN where the satellite had no value then or was in another arc; also that epoch's time
-        (NaN if none). The row where regular sampling puts it is tried first."""
+        NaN where the satellite had no value then or was in another arc (``arc``: the current
+        arc ids, before this epoch's push); also that epoch's time (NaN if none). The row where
+        regular sampling puts it is tried first."""
         target = t - self.lag_s
         tol = 0.5 * interval_s + 1e-3
         k = (self.head + 1 - round(self.lag_s / interval_s)) % self.rows
@@ -80,9 +92,11 @@ class LagRing:
             k = int(np.nanargmin(err))
             if err[k] > tol:
                 return np.full(sats.shape, np.nan), math.nan
-        v = self.value[k, sats].astype(np.float64)
-        v[self.arc[k, sats] != arc] = np.nan
-        return v, float(self.t[k])
+        t_k = float(self.t[k])
+        v = self.value[k].take(sats).astype(np.float64)
+        other = (self.last_arc.take(sats) != arc) | ~(self.arc_t0.take(sats) <= t_k)
+        v[other] = np.nan
+        return v, t_k
 
 
 class SlotStd:

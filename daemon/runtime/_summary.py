@@ -66,6 +66,8 @@ def format_summary(s: StationStatistics, *, epoch_rate_hz: float | None = None) 
         parts.append(f"queue-drops {s.queue.dropped_total}")
     if s.reconnects_total:
         parts.append(f"reconnects {s.reconnects_total}")
+    if s.pipeline_errors_total:
+        parts.append(f"pipeline-errors {s.pipeline_errors_total}")
     return "  ".join(parts)
 
 
