@@ -7,8 +7,17 @@ from pathlib import Path
 import pytest
 
 from ionwarden.daemon.cli import main
-from ionwarden.daemon.config import load_settings, parse_source, redacted_dump
+from ionwarden.daemon.config import load_settings, redacted_dump
 from ionwarden.daemon.errors import ConfigError
+from ionwarden.daemon.ingest import (
+    FileSource,
+    NtripSource,
+    SerialSource,
+    StdinSource,
+    TcpListenSource,
+    TcpSource,
+    parse_source,
+)
 
 from .conftest import REPO
 
@@ -99,20 +108,34 @@ def test_redacted_dump_hides_secrets(tmp_path: Path) -> None:
 
 
 @pytest.mark.parametrize(
-    ("url", "scheme", "host", "port", "path"),
+    ("url", "expected"),
     [
-        ("serial:///dev/ttyUSB0?baud=115200", "serial", "", 0, "/dev/ttyUSB0"),
-        ("tcp://192.0.2.10:5018", "tcp", "192.0.2.10", 5018, ""),
-        ("tcp-listen://0.0.0.0:5018", "tcp-listen", "0.0.0.0", 5018, ""),
-        ("ntrip://user@caster.example/MOUNT", "ntrip", "caster.example", 2101, "MOUNT"),
-        ("file://captures/a.rtcm3?speed=10", "file", "", 0, "captures/a.rtcm3"),
-        ("stdin:", "stdin", "", 0, ""),
+        ("serial:///dev/ttyUSB0?baud=115200", SerialSource(device="/dev/ttyUSB0", baud=115200)),
+        ("tcp://192.0.2.10:5018", TcpSource(host="192.0.2.10", port=5018)),
+        ("tcp-listen://0.0.0.0:5018", TcpListenSource(host="0.0.0.0", port=5018)),
+        ("file://captures/a.rtcm3?speed=10", FileSource(path="captures/a.rtcm3", speed=10.0)),
+        ("stdin:", StdinSource()),
     ],
 )
-def test_parse_source_accepts_documented_forms(url, scheme, host, port, path) -> None:
-    """parse_source splits every documented URL form (NTRIP default port 2101: IANA rtcm-sc104)."""
-    spec = parse_source(url)
-    assert (spec.scheme, spec.host, spec.port, spec.path) == (scheme, host, port, path)
+def test_station_source_accepts_documented_forms(url, expected) -> None:
+    """StationSettings.source_spec parses every URL form the example config documents."""
+    assert parse_source(url) == expected
+    assert (
+        load_settings(None, stations=[{"name": "a", "source": url}]).stations[0].source_spec
+        == expected
+    )
+
+
+def test_station_source_ntrip_defaults_to_port_2101() -> None:
+    """An ntrip:// URL without a port uses 2101, the NTRIP registered port (IANA "rtcm-sc104")."""
+    spec = parse_source("ntrip://user@caster.example/MOUNT")
+    assert isinstance(spec, NtripSource)
+    assert (spec.host, spec.port, spec.mount, spec.user) == (
+        "caster.example",
+        2101,
+        "MOUNT",
+        "user",
+    )
 
 
 BROKEN = {

@@ -7,11 +7,10 @@ from ._mqtt import MqttSettings
 from ._prometheus import PrometheusSettings
 from ._runtime import RuntimeSettings
 from ._settings import ENV_PREFIX, Settings, format_validation_error, load_settings, redacted_dump
-from ._stations import SOURCE_SCHEMES, SourceSpec, StationSettings, parse_source
+from ._stations import StationSettings
 
 __all__ = [
     "ENV_PREFIX",
-    "SOURCE_SCHEMES",
     "AlarmSettings",
     "Cn0BaselineSettings",
     "EstimatorSettings",
@@ -20,11 +19,9 @@ __all__ = [
     "PrometheusSettings",
     "RuntimeSettings",
     "Settings",
-    "SourceSpec",
     "StationSettings",
     "ThresholdAlarm",
     "format_validation_error",
     "load_settings",
-    "parse_source",
     "redacted_dump",
 ]

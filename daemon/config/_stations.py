@@ -15,89 +15,14 @@ Accepted source URLs (scheme → transport):
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
-from urllib.parse import parse_qsl, urlsplit
-
 from pydantic import Field, SecretStr, field_validator
 
 from ionwarden.daemon.errors import ConfigError
-from ionwarden.daemon.ingest._source import parse_source as parse_transport_source
+from ionwarden.daemon.ingest._source import SourceSpec, parse_source
 
 from ._base import Section
 
-__all__ = ["SOURCE_SCHEMES", "SourceSpec", "StationSettings", "parse_source"]
-
-#: Schemes we accept, each with whether it needs a host:port.
-SOURCE_SCHEMES: dict[str, bool] = {
-    "serial": False,
-    "tcp": True,
-    "tcp-listen": True,
-    "udp": True,
-    "ntrip": True,
-    "file": False,
-    "stdin": False,
-}
-
-
-@dataclass(frozen=True, slots=True)
-class SourceSpec:
-    """A parsed source URL."""
-
-    scheme: str
-    host: str = ""
-    port: int = 0
-    path: str = ""
-    user: str = ""
-    params: dict[str, str] = field(default_factory=dict)
-
-
-def parse_source(url: str) -> SourceSpec:
-    """Parse and check a source URL; raises ValueError with a one-line reason."""
-    scheme, sep, _ = url.partition(":")
-    if not sep:
-        raise ValueError(f"not a URL: {url!r} (want e.g. tcp://host:port)")
-    scheme = scheme.lower()
-    if scheme not in SOURCE_SCHEMES:
-        known = ", ".join(sorted(SOURCE_SCHEMES))
-        raise ValueError(f"unknown scheme {scheme!r} (known: {known})")
-    if scheme == "stdin":
-        return SourceSpec(scheme="stdin")
-    parts = urlsplit(url)
-    params = dict(parse_qsl(parts.query, keep_blank_values=True))
-    if SOURCE_SCHEMES[scheme]:
-        if not parts.hostname:
-            raise ValueError(f"{scheme} source needs a host: {url!r}")
-        try:
-            port = parts.port
-        except ValueError as exc:
-            raise ValueError(f"bad port in {url!r}") from exc
-        if port is None:
-            if scheme != "ntrip":
-                raise ValueError(f"{scheme} source needs a port: {url!r}")
-            port = 2101  # the NTRIP registered port (IANA, "rtcm-sc104")
-        if scheme == "ntrip" and not parts.path.strip("/"):
-            raise ValueError(f"ntrip source needs a mountpoint: {url!r}")
-        return SourceSpec(
-            scheme=scheme,
-            host=parts.hostname,
-            port=port,
-            path=parts.path.lstrip("/"),
-            user=parts.username or "",
-            params=params,
-        )
-    # serial:///dev/ttyUSB0 and file://path (netloc + path, so relative paths work)
-    path = (parts.netloc + parts.path) if scheme == "file" else parts.path
-    if not path:
-        raise ValueError(f"{scheme} source needs a path: {url!r}")
-    if scheme == "serial" and "baud" in params and not params["baud"].isdigit():
-        raise ValueError(f"baud must be a whole number, got {params['baud']!r}")
-    if scheme == "file" and "speed" in params:
-        try:
-            if float(params["speed"]) < 0:
-                raise ValueError
-        except ValueError as exc:
-            raise ValueError(f"speed must be a number >= 0, got {params['speed']!r}") from exc
-    return SourceSpec(scheme=scheme, path=path, params=params)
+__all__ = ["StationSettings"]
 
 
 class StationSettings(Section):
@@ -120,13 +45,13 @@ class StationSettings(Section):
     @field_validator("source")
     @classmethod
     def _check_source(cls, value: str) -> str:
-        parse_source(value)
-        try:  # the transport layer's own, stricter check (options, ranges, secrets not in URLs)
-            parse_transport_source(value)
+        try:  # the transport layer owns the URL forms (options, ranges, secrets not in URLs)
+            parse_source(value)
         except ConfigError as exc:
             raise ValueError(exc.reason) from exc
         return value
 
     @property
     def source_spec(self) -> SourceSpec:
+        """The parsed source (one of the ``ionwarden.daemon.ingest`` source specs)."""
         return parse_source(self.source)
