@@ -17,13 +17,16 @@ from __future__ import annotations
 import datetime as dt
 import math
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from pynmeagps import NMEAReader
 from pynmeagps import exceptions as nmea_exc
 from pynmeagps.nmeatypes_core import VALNONE
 
 from ._errors import ParseError
+
+if TYPE_CHECKING:
+    from collections.abc import Container
 from ._nmea_gsv import (
     SYSTEM_ID,
     TALKER_SYSTEM,
@@ -372,8 +375,13 @@ def nmea_checksum(body: bytes) -> int:
     return c
 
 
-def decode_sentence(raw: bytes) -> NmeaMessage:
-    """Decode one ``$...*hh`` sentence (CRLF optional); ParseError on bad checksum or content."""
+def decode_sentence(raw: bytes, wanted: Container[str] | None = None) -> NmeaMessage:
+    """Decode one ``$...*hh`` sentence (CRLF optional); ParseError on bad checksum or content.
+
+    ``wanted``: sentence formatters ("GGA", "GSV", …) to decode in full; any other valid sentence
+    comes back as :class:`NmeaOther` after its checksum is checked, without the (slow) field parse.
+    ``None`` decodes every type we know.
+    """
     s = raw.rstrip(b"\r\n")
     if len(s) > MAX_SENTENCE_BYTES:
         raise ParseError(f"sentence longer than {MAX_SENTENCE_BYTES} bytes", message_id="NMEA")
@@ -396,7 +404,7 @@ def decode_sentence(raw: bytes) -> NmeaMessage:
         return NmeaOther(talker="P", sentence_id=name[1:], raw=bytes(s))
     talker, formatter = name[:2], name[2:]
     builder = BUILDERS.get(formatter)
-    if builder is None:
+    if builder is None or (wanted is not None and formatter not in wanted):
         return NmeaOther(talker=talker, sentence_id=formatter, raw=bytes(s))
     try:
         msg = NMEAReader.parse(bytes(s), validate=VALNONE)

@@ -141,6 +141,10 @@ class _Epoch:
         self.station = msg.station_id
 
 
+#: Sentences that carry the UTC date (reference time for MSM times of week).
+_DATE_SENTENCES = frozenset({"RMC", "ZDA"})
+
+
 class StreamDecoder:
     """Decodes one receiver byte stream into epochs, ephemerides, station and NMEA messages."""
 
@@ -166,6 +170,11 @@ class StreamDecoder:
         self._epochs = 0
         self._unresolved = 0
         self._duplicates = 0
+        #: NMEA sentence formatters decoded in full (e.g. {"GGA", "GST"}); other valid sentences
+        #: pass through as NmeaOther after their checksum check, skipping the slow field parse.
+        #: None = every type we know. RMC and ZDA are always decoded while no reference time is
+        #: known, because the epoch times need the date.
+        self.nmea_wanted: frozenset[str] | None = None
         # Message number → decoder (RTCM 10403.3 Table 3.5-1): MSM4–7 here, the rest from
         # _rtcm_misc.DECODERS (they take a DecodeContext carrying our current reference time).
         self._dispatch: dict[int, Callable[[bytes], Message]] = {
@@ -366,7 +375,10 @@ class StreamDecoder:
     # --- NMEA ---------------------------------------------------------------------------------
     def _on_nmea(self, frame: NmeaFrame, out: list[Message]) -> None:
         try:
-            msg = decode_sentence(frame.raw)
+            wanted = self.nmea_wanted
+            if wanted is not None and self._ref is None:
+                wanted = wanted | _DATE_SENTENCES
+            msg = decode_sentence(frame.raw, wanted)
         except ParseError as exc:
             self._nmea_err += 1
             self._last_error = f"{exc} at stream offset {frame.offset}"

@@ -51,6 +51,8 @@ if TYPE_CHECKING:
 __all__ = ["PipelineOutput", "StationPipeline"]
 
 PipelineOutput = StationSnapshot | FixStatus
+#: NMEA sentences still needed when ephemerides give every satellite's geometry.
+_FIX_SENTENCES = frozenset({"GGA", "GST"})
 _SOURCE_RANK = {"config": 3, "rtcm": 2, "rinex": 2, "gga": 1, "": 0}
 
 
@@ -129,7 +131,11 @@ class StationPipeline:
     # -- routes ---------------------------------------------------------------------------------
     def _on_epoch(self, epoch: ObsEpoch) -> StationSnapshot:
         self._last_t = epoch.time
-        return self.estimator.update(epoch)
+        snap = self.estimator.update(epoch)
+        # GSV elevations are only a fallback: while every satellite has ephemeris geometry, parse
+        # just the sentences we route (GGA/GST), which saves most of the NMEA cost per second.
+        self.decoder.nmea_wanted = _FIX_SENTENCES if snap.geometry_source == "ephemeris" else None
+        return snap
 
     def _on_ephemeris(self, eph: KeplerEphemeris | GlonassEphemeris) -> None:
         self.estimator.add_ephemeris(eph)
