@@ -141,6 +141,9 @@ class _Epoch:
         self.station = msg.station_id
 
 
+#: Decoded non-MSM messages kept for reuse (about one ephemeris set per satellite of four
+#: constellations, plus station messages); cleared whole when full.
+_MISC_CACHE_SIZE = 256
 #: Sentences that carry the UTC date (reference time for MSM times of week).
 _DATE_SENTENCES = frozenset({"RMC", "ZDA"})
 
@@ -175,6 +178,7 @@ class StreamDecoder:
         #: None = every type we know. RMC and ZDA are always decoded while no reference time is
         #: known, because the epoch times need the date.
         self.nmea_wanted: frozenset[str] | None = None
+        self._misc_cache: dict[tuple[bytes, int], Message] = {}
         # Message number → decoder (RTCM 10403.3 Table 3.5-1): MSM4–7 here, the rest from
         # _rtcm_misc.DECODERS (they take a DecodeContext carrying our current reference time).
         self._dispatch: dict[int, Callable[[bytes], Message]] = {
@@ -258,8 +262,18 @@ class StreamDecoder:
     def _decode_misc(
         self, decoder: Callable[[bytes, DecodeContext], object], payload: bytes
     ) -> Message:
+        # Receivers repeat the same ephemeris and station messages every few seconds: an identical
+        # payload under the same reference week decodes to the same (immutable) value, so reuse it.
+        key = (payload, self._ref.week if self._ref is not None else -1)
+        cached = self._misc_cache.get(key)
+        if cached is not None:
+            return cached
         # _rtcm_misc decoders return the typed messages listed in ``Message``.
-        return cast("Message", decoder(payload, DecodeContext(reference_time=self._ref)))
+        msg = cast("Message", decoder(payload, DecodeContext(reference_time=self._ref)))
+        if len(self._misc_cache) >= _MISC_CACHE_SIZE:
+            self._misc_cache.clear()
+        self._misc_cache[key] = msg
+        return msg
 
     def _learn(self, msg: Message, out: list[Message]) -> None:
         """Channel table and reference time from ephemerides."""
