@@ -10,7 +10,7 @@ choice, cell indices and pair constants depend only on the epoch's layout and ar
 repeats (``_cells``); the linear combinations (GF, MW, levelling sample, IF, MP) come out of one
 contraction of the (4, d) measurements with the layout's coefficient matrix. Work on the common
 path (no arc starts, every satellite dual-frequency) skips the masking the rare cases need. The
-~450 lines keep the whole per-epoch path in one place (STYLE rule 1's soft cap exceeded on purpose).
+~500 lines keep the whole per-epoch path in one place (STYLE rule 1's soft cap exceeded on purpose).
 
 Symbols per satellite (SCIENCE.md §2–§9): P1, P2 code (m); L1, L2 phase (m = cycles·c/f); K
 (TECU/m); GF = L1 − L2; MW Melbourne–Wübbena; STEC_raw = K·GF + levelling offset (TECU), the
@@ -38,6 +38,7 @@ from ._biases import BiasModel
 from ._cells import IFP_ROW, MP1_ROW, CellRouter, EpochLayout
 from ._geometry import Geometry
 from ._pairs import PairTable, band_delays_s
+from ._persist import apply_rolling, checked_rolling, resume_allowed, rolling_state
 from ._snapshot import SatelliteFigures, StationSnapshot
 from ._state import (
     ARC,
@@ -69,6 +70,8 @@ Idx = npt.NDArray[np.intp]
 N_SIG = 10 * 32  # packed signal codes are band*32 + attribute, bands 0–9
 #: An epoch this much older than the last one restarts the time-dependent state (s).
 _TIME_RESET_S = 3600.0
+#: Version of :meth:`StationEstimator.state_dict` (1: receiver biases only; 2: + rolling state).
+STATE_VERSION = 2
 #: Epoch intervals remembered to estimate the sampling interval (median).
 _INTERVAL_HISTORY = 9
 
@@ -110,6 +113,8 @@ class StationEstimator:
         self._n_epochs = 0
         self._last_roti_median = math.nan
         self._last: StationSnapshot | None = None
+        #: Rolling state loaded by :meth:`load_state`, applied or dropped at the next epoch.
+        self._resume: dict[str, Any] | None = None
         self.counters: dict[str, int] = {"epochs": 0, "epochs_out_of_order": 0, "cells_unusable": 0}
         for name in REASON_NAMES.values():
             self.counters[f"arcs_{name}"] = 0
@@ -142,6 +147,8 @@ class StationEstimator:
         n = epoch.sat.shape[0]
         assert epoch.sig.shape == epoch.pseudorange_m.shape == epoch.phase_cycles.shape == (n,)
         t = epoch.time.total_s
+        if self._resume is not None:
+            self._apply_resume(t)
         if t <= self._last_epoch_t - _TIME_RESET_S:
             self._restart_time()  # a replay restarted, or the receiver's clock was reset
         elif t <= self._last_epoch_t:
@@ -441,13 +448,46 @@ class StationEstimator:
 
     # -- persistence --------------------------------------------------------------------------------
     def state_dict(self) -> dict[str, Any]:
-        """What survives a restart: the receiver-bias normal equations (plain JSON types)."""
-        return {"version": 1, "station": self.station, "receiver_bias": self.biases.state_dict()}
+        """What survives a restart (version 2): the receiver-bias normal equations and, once an
+        epoch was seen, the rolling state (arcs, ROT ring, ROTI window; see ``_persist``)."""
+        out: dict[str, Any] = {
+            "version": STATE_VERSION,
+            "station": self.station,
+            "receiver_bias": self.biases.state_dict(),
+        }
+        if math.isfinite(self._last_epoch_t):
+            out["rolling"] = rolling_state(self)
+        return out
 
     def load_state(self, state: dict[str, Any]) -> None:
-        if int(state.get("version", -1)) != 1:
+        """Restore :meth:`state_dict` (version 1: biases only). The rolling part is applied at the
+        next :meth:`update` if that epoch continues the saved arcs (``_persist``), else dropped;
+        a rolling part that does not fit this configuration is dropped (counted), never fatal."""
+        version = int(state.get("version", -1))
+        if version not in (1, STATE_VERSION):
             raise ValueError(f"unknown estimator state version {state.get('version')!r}")
         self.biases.load_state(state["receiver_bias"])
+        self._bias_cache = None
+        self._resume = None
+        rolling = state.get("rolling") if version >= 2 else None
+        if rolling is not None:
+            try:
+                self._resume = checked_rolling(self, rolling)
+            except (KeyError, TypeError, ValueError):
+                self.counters["state_rolling_rejected"] = 1
+
+    def _apply_resume(self, t: float) -> None:
+        """First epoch after :meth:`load_state`: continue the saved arcs when still valid."""
+        st, self._resume = self._resume, None
+        if st is None or math.isfinite(self._last_epoch_t):
+            return  # epochs were already processed since loading: they win
+        if resume_allowed(self, st, t):
+            apply_rolling(self, st)
+            self._bias_cache = None
+            self.counters["state_resumed"] = 1
+        else:  # new arcs, but arc ids stay unique across the restart
+            self.arcs.next_arc = max(self.arcs.next_arc, int(st["next_arc"]))
+            self.counters["state_expired"] = 1
 
     def copy(self) -> StationEstimator:
         """An independent deep copy (the whole rolling state)."""

@@ -27,6 +27,8 @@ Idx = npt.NDArray[np.intp]
 #: A GSV elevation older than this is not used (s of data time): receivers send GSV every epoch.
 GSV_MAX_AGE_S = 30.0
 _TWO_PI = 2.0 * np.pi
+#: Step of the second orbit evaluation that gives a cold satellite its extrapolation rate (s).
+_RATE_STEP_S = 10.0
 
 
 class Geometry:
@@ -131,9 +133,8 @@ class Geometry:
         lon -= np.pi
         return geo, source
 
-    def _refresh(self, sats: Idx, t_s: float) -> None:
-        """Recompute orbit geometry for ``sats`` (slots without a usable ephemeris become NaN)
-        and the rates used to extrapolate it until the next refresh."""
+    def _rows(self, sats: Idx, t_s: float) -> F64:
+        """(m, 4) rows (el, az, pierce lat, lon) from the orbits at ``t_s`` (NaN where none)."""
         assert self.rx_ecef is not None
         sg = satellite_geometry(t_s, self.rx_ecef, sats, self.store)
         ok = sg.valid
@@ -143,13 +144,33 @@ class Geometry:
         new[ok, 2], new[ok, 3] = pierce_point(
             self.lat_rad, self.lon_rad, sg.az_rad[ok], sg.el_rad[ok], self.shell_m
         )
-        span = (t_s - self.t_orbit[sats])[:, None]
+        return new
+
+    @staticmethod
+    def _rate(new: F64, old: F64, span: F64) -> F64:
+        """(m, 4) rates (rad/s) between two row sets ``span`` (m, 1) seconds apart."""
         with np.errstate(invalid="ignore", divide="ignore"):
-            diff = new - self.geo[:, sats].T
+            diff = new - old
             diff[:, 1] = (diff[:, 1] + np.pi) % _TWO_PI - np.pi  # azimuth and longitude wrap
             diff[:, 3] = (diff[:, 3] + np.pi) % _TWO_PI - np.pi
-            rate = diff / span
+            rate: F64 = diff / span
+        return rate
+
+    def _refresh(self, sats: Idx, t_s: float) -> None:
+        """Recompute orbit geometry for ``sats`` (slots without a usable ephemeris become NaN)
+        and the rates used to extrapolate it until the next refresh. A satellite without a
+        recent previous refresh (start, restart, rising) gets its rate from a second orbit
+        evaluation ``_RATE_STEP_S`` later (rare: otherwise the first ``refresh_s`` after a
+        start would extrapolate with rate 0, up to ~0.25° of elevation off at 30 s)."""
+        new = self._rows(sats, t_s)
+        span = (t_s - self.t_orbit[sats])[:, None]
+        rate = self._rate(new, self.geo[:, sats].T, span)
         usable = (span > 0.0) & (span < 4.0 * self.refresh_s)
+        cold = ~usable[:, 0] & ~np.isnan(new[:, 0])
+        if np.count_nonzero(cold):
+            ahead = self._rows(sats[cold], t_s + _RATE_STEP_S)
+            rate[cold] = self._rate(ahead, new[cold], np.full((ahead.shape[0], 1), _RATE_STEP_S))
+            usable[cold] = True
         self.rate[:, sats] = np.where(usable & ~np.isnan(rate), rate, 0.0).T
         self.geo[:, sats] = new.T
         self.t_orbit[sats] = t_s
