@@ -9,6 +9,7 @@ import random
 import signal
 import socket
 from pathlib import Path
+from typing import Any
 
 import pytest
 
@@ -505,3 +506,37 @@ def test_daemon_publishes_retained_alarm_states_for_stations_started_by_a_reload
 
     at_start, after_reload = run_virtual(main())
     assert (at_start, after_reload) == (per_station, 2 * per_station)
+
+
+class _PickyCore(StandInCore):
+    def load_state_dict(self, state: Any) -> None:
+        raise ValueError("unknown estimator state version 99")
+
+
+def test_daemon_ignores_unusable_checkpoint(
+    tmp_path: Path, caplog: pytest.LogCaptureFixture
+) -> None:
+    """Daemon starts the station fresh, with one warning, when its checkpoint cannot be loaded."""
+    cap = tmp_path / "cap.bin"
+    cap.write_bytes(b"".join(rtcm_frame(1077, i.to_bytes(4, "big")) for i in range(3)))
+    cfg = StationConfig(name="base", source=FileSource(path=str(cap), speed=0), fingerprint="fp1")
+    state_dir = tmp_path / "state"
+
+    async def once(core_cls: type[StandInCore]) -> StandInCore:
+        cores: dict[str, StandInCore] = {}
+
+        def build(c: StationConfig) -> StationBundle:
+            cores[c.name] = core_cls()
+            return StationBundle(core=cores[c.name], produces_epochs=False)
+
+        opts = DaemonOptions(
+            stations=(cfg,), state_dir=state_dir, summary_interval_s=0, checkpoint_max_age_s=3600
+        )
+        daemon = Daemon(opts, factory=build, wall_clock=lambda: 1000.0)
+        assert await daemon.run() == 0
+        return cores["base"]
+
+    run_virtual(once(StandInCore))  # writes a checkpoint
+    picky = run_virtual(once(_PickyCore))
+    assert picky.state == {"arcs": 3}  # started fresh and replayed the capture
+    assert any("ignoring unusable checkpoint" in r.getMessage() for r in caplog.records)

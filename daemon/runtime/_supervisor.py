@@ -199,8 +199,16 @@ class Daemon:
                 max_age_s=opts.checkpoint_max_age_s,
             )
             if state is not None:
-                bundle.core.load_state_dict(state)
-                log.info("%s: restored checkpointed state", cfg.name)
+                try:
+                    bundle.core.load_state_dict(state)
+                except (
+                    ValueError,
+                    KeyError,
+                    TypeError,
+                ) as exc:  # from another version: start fresh
+                    log.warning("%s: ignoring unusable checkpoint: %s", cfg.name, exc)
+                else:
+                    log.info("%s: restored checkpointed state", cfg.name)
         runner = StationRunner(
             cfg,
             bundle.core,
