@@ -11,27 +11,24 @@ to a whole byte, as ``BitWriter.to_bytes`` does.
 A :class:`FramePlan` wraps those messages in the RTCM 10403.3 §4 transport frame (preamble 0xD3,
 6 reserved zero bits, 10-bit length, message, CRC-24Q). CRC-24Q (initial value 0, no final XOR) is
 linear over GF(2), so a frame's CRC is the XOR, over its bytes, of the CRC of that byte followed by
-as many zero bytes as stand after it in the frame; those are tabulated once (1026 rows × 256,
-1 MiB) and all CRCs of a plan are one gather plus one ``bitwise_xor.reduceat``.
+as many zero bytes as stand after it in the frame; those are tabulated once (``_crc.crc24q_table``,
+shared with the framer's check) and all CRCs of a plan are one gather plus one
+``bitwise_xor.reduceat``.
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass
-from functools import cache
-from typing import Final
 
 import numpy as np
 import numpy.typing as npt
 
-from ._crc import RTCM_MAX_PAYLOAD, RTCM_PREAMBLE, crc24q
+from ._crc import RTCM_MAX_PAYLOAD, RTCM_PREAMBLE, crc24q_table
 
 __all__ = ["FramePlan", "PackPlan", "plan_frames", "plan_packing"]
 
 _IDX = npt.NDArray[np.intp]
 _U64 = npt.NDArray[np.uint64]
-#: Longest CRC-covered run: 3 header bytes + the largest message (RTCM 10403.3 Table 4-1).
-_MAX_COVERED: Final = 3 + RTCM_MAX_PAYLOAD
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -93,19 +90,6 @@ def plan_packing(widths: npt.NDArray[np.int64], msg_fields: _IDX) -> PackPlan:
         msg_bytes=msg_bytes.astype(np.intp),
         nbytes=int(msg_bytes.sum()),
     )
-
-
-@cache
-def crc24q_table() -> npt.NDArray[np.uint32]:
-    """``table[k, b]`` = CRC-24Q of byte ``b`` followed by ``k`` zero bytes (RTCM 10403.3 §4.2)."""
-    step = np.array([crc24q(bytes((b,))) for b in range(256)], np.uint32)
-    table = np.empty((_MAX_COVERED, 256), np.uint32)
-    table[0] = step
-    for k in range(1, _MAX_COVERED):
-        prev = table[k - 1]
-        table[k] = ((prev << 8) & 0xFFFFFF) ^ step[prev >> 16]
-    table.setflags(write=False)
-    return table
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)

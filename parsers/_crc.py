@@ -7,11 +7,25 @@ message.
 
 from __future__ import annotations
 
-__all__ = ["RTCM_MAX_PAYLOAD", "RTCM_PREAMBLE", "crc24q", "frame_rtcm"]
+from functools import cache
+
+import numpy as np
+import numpy.typing as npt
+
+__all__ = [
+    "RTCM_MAX_FRAME",
+    "RTCM_MAX_PAYLOAD",
+    "RTCM_PREAMBLE",
+    "crc24q",
+    "crc24q_table",
+    "frame_rtcm",
+]
 
 RTCM_PREAMBLE = 0xD3
 #: 10-bit length field (RTCM 10403.3 Table 4-1).
 RTCM_MAX_PAYLOAD = 1023
+#: Preamble + length (3 bytes), the largest message and the CRC (RTCM 10403.3 Table 4-1).
+RTCM_MAX_FRAME = 3 + RTCM_MAX_PAYLOAD + 3
 _POLY = 0x1864CFB
 
 
@@ -28,6 +42,24 @@ def _make_table() -> tuple[int, ...]:
 
 
 _TABLE = _make_table()
+
+
+@cache
+def crc24q_table() -> npt.NDArray[np.uint32]:
+    """``table[k, b]`` = CRC-24Q of byte ``b`` followed by ``k`` zero bytes, for k < RTCM_MAX_FRAME.
+
+    CRC-24Q (initial value 0, no final XOR) is linear over GF(2), so the CRC of a run of bytes is the
+    XOR of each byte's row ``k`` = number of bytes after it: one gather and one XOR-reduce per frame
+    (the framer's check and the batched encoders share this one 1 MiB table).
+    """
+    step = np.array(_TABLE, np.uint32)
+    table = np.empty((RTCM_MAX_FRAME, 256), np.uint32)
+    table[0] = step
+    for k in range(1, RTCM_MAX_FRAME):
+        prev = table[k - 1]
+        table[k] = ((prev << 8) & 0xFFFFFF) ^ step[prev >> 16]
+    table.setflags(write=False)
+    return table
 
 
 def crc24q(data: bytes | bytearray | memoryview) -> int:

@@ -23,8 +23,8 @@ from types import MappingProxyType
 from typing import Final
 
 import numpy as np
-import numpy.typing as npt
 
+from ._crc import crc24q_table
 from ._errors import ParseError
 
 __all__ = [
@@ -102,31 +102,9 @@ class FramerStatistics:
 
 
 # --- CRC-24Q, vectorised -------------------------------------------------------------------------
-# CRC-24Q (RTCM 10403.3 §4.2, polynomial 0x1864CFB, initial value 0, no final XOR) is linear over
-# GF(2), so the CRC of a message is the XOR of each byte's contribution, and a byte's contribution
-# depends only on its value and on how many bytes follow it. _CRC_TAB[k, v] is the CRC of byte v
-# followed by k zero bytes; one gather plus one XOR-reduce then checks a whole frame.
-_POLY: Final = 0x1864CFB
-
-
-def _crc_tables() -> npt.NDArray[np.uint32]:
-    base = np.zeros(256, np.uint32)
-    for i in range(256):
-        crc = i << 16
-        for _ in range(8):
-            crc <<= 1
-            if crc & 0x1000000:
-                crc ^= _POLY
-        base[i] = crc & 0xFFFFFF
-    tab = np.empty((_RTCM_MAX_FRAME, 256), np.uint32)
-    tab[0] = base
-    for k in range(1, _RTCM_MAX_FRAME):
-        prev = tab[k - 1]
-        tab[k] = ((prev << 8) & 0xFFFFFF) ^ base[prev >> 16]
-    return tab
-
-
-_CRC_TAB = _crc_tables()
+# _CRC_TAB[k, v] is the CRC-24Q of byte v followed by k zero bytes (see _crc.crc24q_table): one
+# gather plus one XOR-reduce then checks a whole frame.
+_CRC_TAB = crc24q_table()
 _CRC_FLAT = _CRC_TAB.ravel()
 # _CRC_ROW[_RTCM_MAX_FRAME - n:] gives (n-1-i)*256 for i = 0…n-1: the row of byte i in an n-byte run.
 _CRC_ROW = (np.arange(_RTCM_MAX_FRAME - 1, -1, -1, dtype=np.intp) * 256).astype(np.intp)

@@ -8,8 +8,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from ionwarden.parsers._bitio import BitWriter
-from ionwarden.parsers._bitpack import crc24q_table, plan_frames, plan_packing
-from ionwarden.parsers._crc import crc24q, frame_rtcm
+from ionwarden.parsers._bitpack import plan_frames, plan_packing
+from ionwarden.parsers._crc import crc24q, crc24q_table, frame_rtcm
 
 _FIELD = st.integers(1, 64).flatmap(
     lambda w: st.tuples(st.just(w), st.integers(-(1 << (w - 1)), (1 << w) - 1))
@@ -48,8 +48,8 @@ def test_pack_plan_rejects_bad_widths():
 def test_crc24q_table_rows_are_crcs_of_byte_and_zeros():
     """crc24q_table()[k, b] is CRC-24Q of b followed by k zero bytes (RTCM 10403.3 §4.2, linearity)."""
     table = crc24q_table()
-    assert table.shape == (1026, 256)
-    for k in (0, 1, 2, 57, 1025):
+    assert table.shape == (1029, 256)  # a whole frame: 3 + 1023 + 3 bytes (RTCM 10403.3 Table 4-1)
+    for k in (0, 1, 2, 57, 1025, 1028):
         for b in (0, 1, 0x80, 0xD3, 0xFF):
             assert int(table[k, b]) == crc24q(bytes((b,)) + bytes(k))
 
