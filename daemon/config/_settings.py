@@ -145,7 +145,7 @@ def load_settings(
         raise ConfigError("", format_validation_error(exc)) from exc
     except ValueError as exc:  # pydantic-settings raises plain ValueError for unparsable env JSON
         raise ConfigError("", str(exc).splitlines()[0]) from exc
-    return Settings.model_validate(bound.model_dump())
+    return bound  # a Settings (subclassed only to bind this file and secrets directory)
 
 
 def redacted_dump(settings: Settings) -> dict[str, Any]:
