@@ -54,13 +54,13 @@ def _decode_once(data: bytes) -> tuple[int, int]:
 
 
 def _pipeline_once(data: bytes) -> tuple[int, int]:
-    from ionwarden.daemon.estimator import StationPipeline  # noqa: PLC0415
+    from ionwarden.daemon.estimator import StationPipeline, StationSnapshot  # noqa: PLC0415
 
     pipeline = StationPipeline("bench")
     snapshots = 0
     for i in range(0, len(data), _CHUNK):
         snapshots += sum(
-            1 for out in pipeline.feed(data[i : i + _CHUNK]) if hasattr(out, "satellites")
+            1 for out in pipeline.feed(data[i : i + _CHUNK]) if isinstance(out, StationSnapshot)
         )
     pipeline.feed(b"")
     return snapshots, 0
