@@ -1,13 +1,21 @@
 """Outputs bench: MQTT publish-acknowledged latency and exporter scrape time.
 
 1. 20 stations × 1 Hz (all stations' epochs arrive together at each second, as receivers align
-   epochs to the GPS second) with 40 satellites each, through the local Mosquitto
-   (IONWARDEN_TEST_MQTT_HOST/PORT, default 127.0.0.1:1883): per epoch, the alarm engine and the
-   formatting run, then the publisher queues and sends. Latency = from the snapshot handed to the
-   outputs (alarm evaluation + formatting included) to the broker's PUBACK for its summary.
+   epochs to the GPS second) with 40 satellites each, through Mosquitto: per epoch, the alarm
+   engine and the formatting run, then the publisher queues and sends. Latency = from the snapshot
+   handed to the outputs (alarm evaluation + formatting included) to the broker's PUBACK for its
+   summary. Brokers: the shared one (IONWARDEN_TEST_MQTT_HOST/PORT, default 127.0.0.1:1883, run
+   with mosquitto's default ``set_tcp_nodelay false``) one message at a time (``publish_window``
+   1, as before pipelining), pipelined without and with the re-armed TCP_QUICKACK; then private
+   brokers (tests/_mqtt_support.PrivateBroker) with the default and with ``set_tcp_nodelay true``.
 2. Frame received → summary PUBACK with the real estimator pipeline: the simulator's invented
    quiet-day stream replayed as 20 stations, fed epoch by epoch through StationPipeline, alarms
-   and the publisher (shared broker); epochs all at the top of the second, then spread over it.
+   and the publisher (shared broker). First with every station's frames arriving at the top of
+   the second and one task per station (as the daemon runs them), without and with the daemon's
+   StepLane (one estimate step per loop iteration), split into the wait behind other stations'
+   steps, the station's own estimation and snapshot → PUBACK; then a single loop feeding the
+   stations in turn, all at the top of the second and spread over it (latency from each frame's
+   scheduled arrival, so waiting behind the other stations counts).
 3. Exporter: the text exposition for 20 stations × 40 satellites, in-process and over real HTTP.
 
 Usage: .venv/bin/python bench/bench_outputs.py [--seconds 20] [--stations 20] [--sats 40]
@@ -42,8 +50,10 @@ from ionwarden.daemon.outputs import (
     MqttPublisher,
     OutboundMessage,
     StationFigures,
+    _client,
     summary_payload,
 )
+from ionwarden.daemon.runtime import StepLane
 from ionwarden.daemon.sim import Simulator, build_scenario, iter_stream
 from tests._mqtt_support import PrivateBroker
 from tests._outputs_support import T0, make_snapshot
@@ -55,9 +65,21 @@ def pct(values: list[float], q: float) -> float:
 
 
 async def bench_mqtt(
-    seconds: int, n_stations: int, n_sats: int, *, host: str, port: int, label: str
+    seconds: int,
+    n_stations: int,
+    n_sats: int,
+    *,
+    host: str,
+    port: int,
+    label: str,
+    window: int | None = None,
+    quickack: bool = True,
 ) -> None:
-    settings = MqttSettings(host=host, port=port, topic_prefix=f"iwbench/{os.getpid()}")
+    extra = {} if window is None else {"publish_window": window}
+    settings = MqttSettings(host=host, port=port, topic_prefix=f"iwbench/{os.getpid()}", **extra)
+    saved_quickack = _client._TCP_QUICKACK
+    if not quickack:  # comparison only: the pipelined window without re-armed TCP_QUICKACK
+        _client._TCP_QUICKACK = None
     submitted: dict[bytes, float] = {}
     acked: list[float] = []
     all_acks: list[float] = []
@@ -93,10 +115,12 @@ async def bench_mqtt(
                 await asyncio.sleep(0)  # each station's estimator is its own task in the daemon
         await asyncio.wait_for(pub.wait_drained(), 30)
         pub.stop()
+    _client._TCP_QUICKACK = saved_quickack
     st = pub.statistics()
     ms = [x * 1e3 for x in acked]
+    how = f"window {settings.publish_window}" + ("" if quickack else ", TCP_QUICKACK off")
     print(
-        f"MQTT [{label}] {n_stations} stations x 1 Hz x {seconds} s, "
+        f"MQTT [{label}; {how}] {n_stations} stations x 1 Hz x {seconds} s, "
         f"{n_sats} sats: "
         f"{st.published_total} messages acknowledged, {st.dropped_epoch_total} dropped"
     )
@@ -110,8 +134,29 @@ async def bench_mqtt(
     )
     w = [x * 1e6 for x in work]
     print(
-        f"  outputs work per snapshot on the event loop (alarms + formatting + queue): "
+        f"  outputs work per snapshot on the event loop (alarms + formatting + queue + send): "
         f"median={statistics.median(w):.0f} us p99={pct(w, 0.99):.0f} us"
+    )
+
+
+async def bench_outputs_work(seconds: int, n_stations: int, n_sats: int) -> None:
+    """Outputs work per snapshot without the socket: alarms + formatting + queueing only (the
+    publisher is not connected, so nothing is sent; with a connection the send is added)."""
+    pub = MqttPublisher(MqttSettings(topic_prefix="iwbench/work", epoch_buffer=10))
+    engines = [StationAlarms(f"ST{i:02d}", AlarmSettings()) for i in range(n_stations)]
+    work: list[float] = []
+    for s in range(seconds):
+        for i in range(n_stations):
+            snap = make_snapshot(f"ST{i:02d}", T0 + float(s), n=n_sats)
+            t0 = time.perf_counter()
+            pub.publish_transitions_nowait(engines[i].observe_snapshot(snap))
+            pub.publish_snapshot_nowait(snap)
+            work.append(time.perf_counter() - t0)
+    w = [x * 1e6 for x in work]
+    print(
+        f"Outputs work per snapshot, no socket (alarms + formatting + queueing), {n_stations} "
+        f"stations x {seconds} s, {n_sats} sats: median={statistics.median(w):.0f} us "
+        f"p99={pct(w, 0.99):.0f} us (satellites every 10 s per station, staggered)"
     )
 
 
@@ -143,17 +188,21 @@ async def bench_frames(
         await asyncio.wait_for(pub.wait_connected(), 10)
         loop = asyncio.get_running_loop()
         start = loop.time()
+        pc_at_start = time.perf_counter()
         for s, chunk in enumerate(chunks[1:]):
             for i in range(n_stations):
                 offset = i / n_stations if stagger else 0.0
                 await asyncio.sleep(max(0.0, start + s + offset - loop.time()))
+                # Latency counts from the frame's arrival (its scheduled time), so a station that
+                # waits behind the others' estimation at the top of the second is charged for it.
+                arrived = pc_at_start + s + offset
                 t0 = time.perf_counter()
                 for out in pipes[i].feed(chunk):
                     if isinstance(out, StationSnapshot):
                         est.append(time.perf_counter() - t0)
                         pub.publish_transitions_nowait(engines[i].observe_snapshot(out))
                         pub.publish_snapshot_nowait(out)
-                        submitted[summary_payload(out)] = t0
+                        submitted[summary_payload(out)] = arrived
                     elif isinstance(out, FixStatus):
                         pub.publish_transitions_nowait(engines[i].observe_fix(out))
         await asyncio.wait_for(pub.wait_drained(), 30)
@@ -165,6 +214,92 @@ async def bench_frames(
         f"Frames -> summary PUBACK [{n_stations} stations x 1 Hz x {len(chunks) - 1} s, epochs {how}, "
         f"real estimator on simulated quiet-day stream]: n={len(ms)} p50={pct(ms, 0.5):.2f} ms "
         f"p99={pct(ms, 0.99):.2f} ms; estimator per epoch median={statistics.median(e):.2f} ms"
+    )
+
+
+async def bench_frames_synchronized(
+    seconds: int, n_stations: int, *, host: str, port: int, use_lane: bool = True
+) -> None:
+    """Frames of every station arrive together at the top of each second (receivers align epochs
+    to the GPS second); as in the daemon, each station's estimate step is its own task. Splits the
+    frame → summary PUBACK latency into the wait behind other stations' steps (queueing), the
+    station's own estimation, and snapshot → PUBACK (alarms, formatting, queueing, the MQTT path)."""
+    sc = build_scenario("quiet-day", duration_s=seconds + 1.0)
+    chunks = [data for _, data in iter_stream(Simulator(sc), 0)]
+    settings = MqttSettings(host=host, port=port, topic_prefix=f"iwbench/{os.getpid()}")
+    # payload -> (frame arrival, station step start, snapshot out)
+    submitted: dict[bytes, tuple[float, float, float]] = {}
+    rows: list[tuple[float, float, float, float]] = []  # arrival, start, snapshot, ack
+
+    def on_published(msg: OutboundMessage, _queued_to_ack_s: float) -> None:
+        t = submitted.pop(msg.payload, None)
+        if t is not None:
+            rows.append((*t, time.perf_counter()))
+
+    names = [f"ST{i:02d}" for i in range(n_stations)]
+    pipes = [StationPipeline(n, reference_time=sc.start) for n in names]
+    engines = [StationAlarms(n, AlarmSettings()) for n in names]
+    for p in pipes:  # first epoch: ephemerides and arc set-up, not timed
+        p.feed(chunks[0])
+    est: list[float] = []
+    pub = MqttPublisher(settings, on_published=on_published)
+    inboxes: list[asyncio.Queue[tuple[float, bytes] | None]] = [
+        asyncio.Queue() for _ in range(n_stations)
+    ]
+
+    lane = StepLane() if use_lane else None
+
+    async def station(i: int) -> None:
+        while (item := await inboxes[i].get()) is not None:
+            arrived, chunk = item
+            if lane is not None:  # as StationRunner.estimate_loop does with the daemon's lane
+                await lane.turn()
+            t0 = time.perf_counter()
+            for out in pipes[i].feed(chunk):
+                if isinstance(out, StationSnapshot):
+                    t1 = time.perf_counter()
+                    est.append(t1 - t0)
+                    pub.publish_transitions_nowait(engines[i].observe_snapshot(out))
+                    pub.publish_snapshot_nowait(out)
+                    submitted[summary_payload(out)] = (arrived, t0, t1)
+                elif isinstance(out, FixStatus):
+                    pub.publish_transitions_nowait(engines[i].observe_fix(out))
+            if lane is not None:
+                lane.done()
+            await asyncio.sleep(0)  # one chunk per turn, as the daemon's estimate loop
+
+    async with asyncio.TaskGroup() as tg:
+        tg.create_task(pub.run(), name="daemon.output[mqtt]")
+        await asyncio.wait_for(pub.wait_connected(), 10)
+        tasks = [
+            tg.create_task(station(i), name=f"daemon.estimate[{n}]") for i, n in enumerate(names)
+        ]
+        loop = asyncio.get_running_loop()
+        start = loop.time()
+        for s, chunk in enumerate(chunks[1:]):
+            await asyncio.sleep(max(0.0, start + s - loop.time()))
+            arrived = time.perf_counter()
+            for q in inboxes:
+                q.put_nowait((arrived, chunk))
+        for q in inboxes:
+            q.put_nowait(None)
+        await asyncio.gather(*tasks)
+        await asyncio.wait_for(pub.wait_drained(), 30)
+        pub.stop()
+    ms = [(ack - arr) * 1e3 for arr, _, _, ack in rows]
+    wait = [(st - arr) * 1e3 for arr, st, _, _ in rows]
+    out = [(ack - snap) * 1e3 for _, _, snap, ack in rows]
+    e = [x * 1e3 for x in est]
+    print(
+        f"Frames -> summary PUBACK [{n_stations} stations x 1 Hz x {len(chunks) - 1} s, epochs all "
+        f"at the top of the second, one task per station, "
+        f"{'StepLane' if use_lane else 'no lane'}, real estimator]: n={len(ms)} "
+        f"p50={pct(ms, 0.5):.2f} ms p99={pct(ms, 0.99):.2f} ms"
+    )
+    print(
+        f"  of which: waiting behind other stations' steps p50={pct(wait, 0.5):.2f} ms "
+        f"p99={pct(wait, 0.99):.2f} ms; own estimation median={statistics.median(e):.2f} ms; "
+        f"snapshot -> summary PUBACK p50={pct(out, 0.5):.2f} ms p99={pct(out, 0.99):.2f} ms"
     )
 
 
@@ -193,10 +328,11 @@ def bench_exporter(n_stations: int, n_sats: int, repeats: int = 50) -> None:
         for _ in range(10):
             exp.observe_epoch_latency(f"ST{i:02d}", 0.004)
     body = generate_latest(registry)
+    assert exp.exposition()[0] == body, "the served page equals prometheus_client's rendering"
     t_in = []
     for _ in range(repeats):
         t0 = time.perf_counter()
-        generate_latest(registry)
+        exp.exposition()  # what /metrics serves (our writer; generate_latest is bench_exporter's)
         t_in.append((time.perf_counter() - t0) * 1e3)
     t_http = []
     with exp:
@@ -224,20 +360,33 @@ def main() -> None:
     print(f"load average {os.getloadavg()[0]:.2f} on {os.cpu_count()} CPUs (shared machine)")
     host = os.environ.get("IONWARDEN_TEST_MQTT_HOST", "127.0.0.1")
     port = int(os.environ.get("IONWARDEN_TEST_MQTT_PORT", "1883"))
+    asyncio.run(bench_outputs_work(max(args.seconds, 30), args.stations, args.sats))
     run = functools.partial(bench_mqtt, args.seconds, args.stations, args.sats)
-    asyncio.run(run(host=host, port=port, label=f"shared broker {host}:{port}"))
-    with tempfile.TemporaryDirectory() as tmp:
-        broker = PrivateBroker(Path(tmp), extra_config="set_tcp_nodelay true\n")
-        broker.start()
-        try:
-            label = "private mosquitto, set_tcp_nodelay true"
-            asyncio.run(run(host="127.0.0.1", port=broker.port, label=label))
-            for stagger in (False, True):
-                asyncio.run(
-                    bench_frames(args.seconds, args.stations, host=host, port=port, stagger=stagger)
-                )
-        finally:
-            broker.stop()
+    shared = f"shared broker {host}:{port}"
+    asyncio.run(run(host=host, port=port, label=shared, window=1))
+    asyncio.run(run(host=host, port=port, label=shared, quickack=False))
+    asyncio.run(run(host=host, port=port, label=shared))
+    for extra, label in (
+        ("", "private mosquitto, default set_tcp_nodelay false"),
+        ("set_tcp_nodelay true\n", "private mosquitto, set_tcp_nodelay true"),
+    ):
+        with tempfile.TemporaryDirectory() as tmp:
+            broker = PrivateBroker(Path(tmp), extra_config=extra)
+            broker.start()
+            try:
+                asyncio.run(run(host="127.0.0.1", port=broker.port, label=label))
+            finally:
+                broker.stop()
+    for use_lane in (False, True):
+        asyncio.run(
+            bench_frames_synchronized(
+                args.seconds, args.stations, host=host, port=port, use_lane=use_lane
+            )
+        )
+    for stagger in (False, True):
+        asyncio.run(
+            bench_frames(args.seconds, args.stations, host=host, port=port, stagger=stagger)
+        )
     bench_exporter(args.stations, args.sats)
 
 

@@ -66,6 +66,10 @@ class GlonassEphemeris:
     decoders that only know a reference time leave them at -1 and the orbit code resolves t_b
     against the observation time. ``tau_n_s`` is the satellite clock offset (t_GLO − t_SV,
     so the SV clock correction is −τ_n + γ_n·(t − t_b)), ``gamma_n`` the relative frequency offset.
+    ``dtau_s`` is Δτ_n (GLONASS ICD Ed. 5.1 Table 4.5, RTCM 10403.3 DF125), the time difference
+    between the satellite's L2 and L1 sub-band signals, Δτ_n = t_f2 − t_f1 (equipment delays),
+    as broadcast; 0 means "not known" (what many receivers send, and the value when the source
+    has no such field, e.g. RINEX 3 navigation files).
     """
 
     sat: int
@@ -87,3 +91,4 @@ class GlonassEphemeris:
     health: int
     age_days: int = 0
     source: int | str = ""
+    dtau_s: float = 0.0

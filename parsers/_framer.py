@@ -108,6 +108,9 @@ _CRC_TAB = crc24q_table()
 _CRC_FLAT = _CRC_TAB.ravel()
 # _CRC_ROW[_RTCM_MAX_FRAME - n:] gives (n-1-i)*256 for i = 0…n-1: the row of byte i in an n-byte run.
 _CRC_ROW = (np.arange(_RTCM_MAX_FRAME - 1, -1, -1, dtype=np.intp) * 256).astype(np.intp)
+#: Most bytes of back-to-back RTCM frames checked in one CRC batch beyond the first frame: a false
+#: preamble costs at most this much more CRC work than checking its own claimed frame would.
+_CRC_RUN_BYTES: Final = 4096
 
 
 def crc24q_fast(data: bytes | bytearray | memoryview) -> int:
@@ -119,6 +122,25 @@ def crc24q_fast(data: bytes | bytearray | memoryview) -> int:
         raise ValueError(f"crc24q_fast handles at most {_RTCM_MAX_FRAME} bytes, got {n}")
     idx = _CRC_ROW[_RTCM_MAX_FRAME - n :] + np.frombuffer(data, np.uint8)
     return int(np.bitwise_xor.reduce(_CRC_FLAT[idx]))
+
+
+def _crc_run(buf: bytearray, starts: list[int], end: int) -> list[int]:
+    """CRC-24Q of frames laid end to end in ``buf``: ``starts[k]`` to the next start (or ``end``).
+
+    One gather and one XOR-reduce for the whole run (same table and sums as :func:`crc24q_fast`).
+    """
+    s0 = starts[0]
+    if len(starts) == 1:  # one frame: fewer numpy calls
+        idx = _CRC_ROW[_RTCM_MAX_FRAME - (end - s0) :] + np.frombuffer(buf, np.uint8, end - s0, s0)
+        return [int(np.bitwise_xor.reduce(_CRC_FLAT.take(idx)))]
+    ends = [*starts[1:], end]
+    rows = np.concatenate(
+        [_CRC_ROW[_RTCM_MAX_FRAME - (b - a) :] for a, b in zip(starts, ends, strict=True)]
+    )
+    idx = rows + np.frombuffer(buf, np.uint8, end - s0, s0)
+    first = np.array(starts, np.intp) - s0
+    crcs: list[int] = np.bitwise_xor.reduceat(_CRC_FLAT.take(idx), first).tolist()
+    return crcs
 
 
 # NMEA 0183 §5.3: a sentence is printable ASCII (0x20–0x7E) between the start character and CR LF.
@@ -170,11 +192,7 @@ class Framer:
             self._buf += data
             self._counts[7] += len(data)
         frames: list[Frame] = []
-        while True:
-            frame = self._next_frame()
-            if frame is NEED_DATA:
-                break
-            frames.append(frame)
+        self._scan(frames)
         # Drop consumed bytes; what remains is one incomplete candidate (≤ MAX_INCOMPLETE_FRAME).
         if self._pos:
             del self._buf[: self._pos]
@@ -208,50 +226,90 @@ class Framer:
         self._skip(1)
         return None
 
-    def _next_frame(self) -> Frame | NeedData:
+    def _scan(self, frames: list[Frame]) -> None:
+        """Append every complete frame from the scan position on, until more data is needed."""
         buf = self._buf
         while True:
-            m = _SYNC.search(buf, self._pos)
-            if m is None:
-                self._skip(len(buf) - self._pos)
-                return NEED_DATA
-            i = m.start()
-            if i > self._pos:
-                self._skip(i - self._pos)
-            frame = self._rtcm_at(i) if buf[i] == _PREAMBLE else self._nmea_at(i)
+            pos = self._pos
+            if pos < len(buf) and buf[pos] == _PREAMBLE:  # frames back to back: no search
+                i = pos
+            else:
+                m = _SYNC.search(buf, pos)
+                if m is None:
+                    self._skip(len(buf) - pos)
+                    return
+                i = m.start()
+                if i > pos:
+                    self._skip(i - pos)
+            if buf[i] == _PREAMBLE:
+                if self._rtcm_at(i, frames) is NEED_DATA:
+                    return
+                continue
+            frame = self._nmea_at(i)
+            if frame is NEED_DATA:
+                return
             if frame is not None:
-                return frame
+                frames.append(frame)
 
-    def _rtcm_at(self, i: int) -> RtcmFrame | NeedData | None:
+    def _rtcm_at(self, i: int, frames: list[Frame]) -> NeedData | None:
+        """Take the RTCM candidate at ``i`` and the complete frames right behind it.
+
+        A receiver sends RTCM frames back to back: following the length fields from ``i`` finds
+        them, and one batched CRC covers the run. Frames are then taken in order up to the first
+        bad CRC, exactly as one-by-one checking would (the scan resumes there).
+        """
         buf = self._buf
-        avail = len(buf) - i
-        if avail < 3:
+        size = len(buf)
+        if size - i < 3:
             return self._incomplete()
         # RTCM 10403.3 Table 4-1: 6 reserved bits (zero) then the 10-bit message length.
         if buf[i + 1] & 0xFC:
             self._skip(1)
             return None
-        length = ((buf[i + 1] & 0x03) << 8) | buf[i + 2]
-        end = i + 6 + length
-        if len(buf) < end:
+        end = i + 6 + (((buf[i + 1] & 0x03) << 8) | buf[i + 2])
+        if size < end:
             return self._incomplete()
-        if crc24q_fast(memoryview(buf)[i:end]) != 0:
+        starts = [i]
+        p = end
+        limit = min(size, end + _CRC_RUN_BYTES)
+        while p + 3 <= limit and buf[p] == _PREAMBLE:
+            if buf[p + 1] & 0xFC:  # reserved bits set: not a frame
+                break
+            q = p + 6 + (((buf[p + 1] & 0x03) << 8) | buf[p + 2])
+            if q > limit:
+                break
+            starts.append(p)
+            p = q
+        crcs = _crc_run(buf, starts, p)
+        if crcs[0] != 0:
             self._counts[3] += 1
             self._skip(1)  # resync by one byte, never by the claimed length
             return None
+        starts.append(p)
+        for k, crc in enumerate(crcs):
+            if crc != 0:
+                break  # the scan resumes at this frame and rejects it there
+            self._accept(starts[k], starts[k + 1], frames)
+        return None
+
+    def _accept(self, i: int, end: int, frames: list[Frame]) -> None:
+        """The CRC-good frame ``buf[i:end]``: a message, a keep-alive or too short to hold one."""
+        length = end - i - 6
         if length == 0:  # keep-alive: counted, not a message
             self._pos = end
             self._counts[2] += 1
-            return None
+            return
         if length == 1:  # no room for the 12-bit message number (DF002): discard
             self._skip(end - i)
-            return None
+            return
+        buf = self._buf
         self._pos = end
         payload = bytes(buf[i + 3 : end - 3])
         msg_type = (payload[0] << 4) | (payload[1] >> 4)
         self._counts[0] += 1
-        self._by_type[msg_type] = self._by_type.get(msg_type, 0) + 1
-        return RtcmFrame(msg_type=msg_type, payload=payload, offset=self._base + i)
+        by_type = self._by_type
+        by_type[msg_type] = by_type.get(msg_type, 0) + 1
+        frames.append(RtcmFrame(msg_type=msg_type, payload=payload, offset=self._base + i))
 
     def _nmea_at(self, i: int) -> NmeaFrame | NeedData | None:
         buf = self._buf

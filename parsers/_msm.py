@@ -38,10 +38,13 @@ from ._signals import GLO_NO_CHANNEL, frequencies_hz
 __all__ = [
     "GLO_CHANNEL_TABLE_SIZE",
     "MSM_TYPES",
+    "MsmHead",
     "MsmMessage",
     "decode_msm",
     "is_msm",
+    "learn_glo_channels",
     "new_glo_channel_table",
+    "parse_msm_head",
 ]
 
 _LIGHT_MS_M: Final = SPEED_OF_LIGHT_MPS / 1000.0  # metres per light-millisecond
@@ -111,7 +114,7 @@ class MsmMessage:
         return int(self.sat.shape[0])
 
 
-@dataclass(frozen=True, slots=True)
+@dataclass(frozen=True, slots=True, eq=False)
 class _Layout:
     """Where every field of one mask combination sits, plus per-element conversion constants."""
 
@@ -166,6 +169,8 @@ def is_msm(msg_type: int) -> bool:
 
 #: Every message number decoded here: MSM4–7 of GPS, GLONASS, Galileo, SBAS, QZSS, BeiDou, NavIC.
 MSM_TYPES: Final = frozenset(t for t in range(1070, 1140) if is_msm(t))
+#: (system, MSM level) of each of those message numbers.
+_MSM_SYSTEM: Final = {t: found for t in MSM_TYPES if (found := msm_system(t)) is not None}
 
 
 def _bits_set(mask: int, width: int) -> list[int]:
@@ -226,21 +231,63 @@ def _layout(
     )
 
 
-def decode_msm(payload: bytes, glo_channels: npt.NDArray[np.int8] | None = None) -> MsmMessage:
-    """Decode one MSM4–7 message (``payload`` without preamble, length and CRC).
+class MsmHead:
+    """Header fields of one MSM4–7 message plus its cached layout (checked, no cell decoded yet).
 
-    ``glo_channels`` (slot → channel, see :func:`new_glo_channel_table`) supplies GLONASS
-    frequency channels where the message itself carries none (MSM4/6, or DF419 unknown).
+    What epoch assembly needs on arrival; the cells are decoded later, a whole epoch at a time
+    (``_msm_epoch``). ``glo_channels`` is the GLONASS channel per satellite as known when the
+    message arrived (set by :func:`learn_glo_channels`; None for other systems).
+    """
+
+    __slots__ = (
+        "epoch_ms",
+        "glo_channels",
+        "glonass_day",
+        "head",
+        "layout",
+        "msg_type",
+        "msm_level",
+        "msm_system",
+        "multiple_message",
+        "payload",
+        "station_id",
+        "system",
+    )
+
+    def __init__(
+        self, payload: bytes, head: int, msm_system: MsmSystem, level: int, layout: _Layout
+    ) -> None:
+        self.payload = payload
+        #: The first 240 bits of the payload as one integer (header and cell mask).
+        self.head = head
+        self.msg_type = head >> 228
+        self.msm_system = msm_system
+        self.system = msm_system.letter
+        self.msm_level = level
+        self.layout = layout
+        self.station_id = (head >> 216) & 0xFFF
+        epoch = (head >> 186) & 0x3FFF_FFFF  # bits 24–53
+        self.epoch_ms = epoch & 0x7FF_FFFF if layout.glo_fdma else epoch
+        self.glonass_day = epoch >> 27 if layout.glo_fdma else -1
+        self.multiple_message = bool((head >> 185) & 1)
+        self.glo_channels: npt.NDArray[np.int8] | None = None
+
+
+def parse_msm_head(payload: bytes) -> MsmHead:
+    """Check one MSM4–7 message (``payload`` without preamble, length and CRC) and read its header.
+
     Raises :class:`ParseError` for a message that is not MSM4–7 or is shorter than its masks say.
     """
     nbytes = len(payload)
     if nbytes < 22:
         raise ParseError(f"MSM header needs 22 bytes, got {nbytes}", offset=nbytes)
     # Header (RTCM 10403.3 Table 3.5-78) and up to 64 cell-mask bits: 233 bits in 30 bytes.
-    head = int.from_bytes(payload[:30].ljust(30, b"\0"), "big")
+    head = int.from_bytes(payload[:30], "big")
+    if nbytes < 30:
+        head <<= 8 * (30 - nbytes)
     msg_type = head >> 228
-    found = msm_system(msg_type)
-    if found is None or found[1] < 4:
+    found = _MSM_SYSTEM.get(msg_type)
+    if found is None:
         raise ParseError("not an MSM4-7 message", message_id=msg_type)
     system, level = found
     satmask = (head >> 103) & 0xFFFF_FFFF_FFFF_FFFF  # DF394, bits 73–136
@@ -262,6 +309,44 @@ def decode_msm(payload: bytes, glo_channels: npt.NDArray[np.int8] | None = None)
         raise ParseError(
             f"MSM payload has {nbytes} bytes, its masks need {lay.nbytes}", message_id=msg_type
         )
+    return MsmHead(payload, head, system, level, lay)
+
+
+def _fields(payload: bytes, lay: _Layout, part: slice) -> npt.NDArray[np.int64]:
+    """Raw values of the layout elements ``part`` (unsigned, or sign-extended when signed)."""
+    buf = payload + _PAD
+    words = np.ndarray((len(buf) - 7,), np.dtype(">u8"), buf, 0, (1,))
+    left = np.left_shift(words.take(lay.bytepos[part]), lay.lsh[part], dtype=np.uint64)
+    raw: npt.NDArray[np.int64] = (left.view(np.int64) >> lay.rsh[part]) & lay.mask[part]
+    return raw
+
+
+def learn_glo_channels(h: MsmHead, table: npt.NDArray[np.int8]) -> None:
+    """GLONASS: update ``table`` (slot → channel) from DF419 (MSM5/7), then note each satellite's.
+
+    Sets ``h.glo_channels`` to the channel of every satellite of the message as known now: its
+    own DF419 where known, else the table's (e.g. taught by a 1020 ephemeris).
+    """
+    lay = h.layout
+    slots = lay.sat_ids.astype(np.intp) - 100
+    if h.msm_level in (5, 7):
+        ext = _fields(h.payload, lay, lay.seg["EXT"])
+        known = ext <= _GLO_EXT_MAX  # DF419 0…13 ↔ channel −7…+6
+        table[slots[known]] = (ext[known] - 7).astype(np.int8)
+    h.glo_channels = table[slots]
+
+
+def decode_msm(payload: bytes, glo_channels: npt.NDArray[np.int8] | None = None) -> MsmMessage:
+    """Decode one MSM4–7 message (``payload`` without preamble, length and CRC).
+
+    ``glo_channels`` (slot → channel, see :func:`new_glo_channel_table`) supplies GLONASS
+    frequency channels where the message itself carries none (MSM4/6, or DF419 unknown).
+    Raises :class:`ParseError` for a message that is not MSM4–7 or is shorter than its masks say.
+    """
+    h = parse_msm_head(payload)
+    lay = h.layout
+    level = h.msm_level
+    head = h.head
 
     # One gather of the 64-bit big-endian word starting at every field's first byte; shift the
     # field to the top, arithmetic-shift it down (sign-extends), mask unsigned fields.
@@ -316,15 +401,14 @@ def decode_msm(payload: bytes, glo_channels: npt.NDArray[np.int8] | None = None)
     else:
         glo_channel = lay.no_channel
 
-    epoch = (head >> 186) & 0x3FFF_FFFF  # bits 24–53
     return MsmMessage(
-        msg_type=msg_type,
-        system=system.letter,
+        msg_type=h.msg_type,
+        system=h.system,
         msm_level=level,
-        station_id=(head >> 216) & 0xFFF,
-        epoch_ms=epoch & 0x7FF_FFFF if lay.glo_fdma else epoch,
-        glonass_day=epoch >> 27 if lay.glo_fdma else -1,
-        multiple_message=bool((head >> 185) & 1),
+        station_id=h.station_id,
+        epoch_ms=h.epoch_ms,
+        glonass_day=h.glonass_day,
+        multiple_message=h.multiple_message,
         iods=(head >> 182) & 0x7,
         clock_steering=(head >> 173) & 0x3,
         external_clock=(head >> 171) & 0x3,

@@ -15,7 +15,7 @@ from typing import TYPE_CHECKING, Final
 from ._gnsstime import BDS_GPS_OFFSET_S, GpsTime, leap_seconds_at
 
 if TYPE_CHECKING:
-    from ._msm import MsmMessage
+    from ._msm import MsmHead, MsmMessage
 
 __all__ = [
     "LEAP_NOW_S",
@@ -36,7 +36,7 @@ _GLO_DAY_UNKNOWN: Final = 7  # DF416: 7 = day of week unknown
 LEAP_NOW_S: Final = 18
 
 
-def msm_gps_tow_ms(msg: MsmMessage, leap_s: int) -> int | None:
+def msm_gps_tow_ms(msg: MsmMessage | MsmHead, leap_s: int) -> int | None:
     """GPS ms of week of an MSM epoch (``None`` for GLONASS with an unknown day of week).
 
     Integer milliseconds so that every constellation of one epoch lands on the same value.
@@ -51,7 +51,7 @@ def msm_gps_tow_ms(msg: MsmMessage, leap_s: int) -> int | None:
     return msg.epoch_ms % _WEEK_MS
 
 
-def gps_ms_of_day(msg: MsmMessage, leap_s: int) -> int:
+def gps_ms_of_day(msg: MsmMessage | MsmHead, leap_s: int) -> int:
     """GPS ms of day of an MSM epoch (defined even when the GLONASS day is unknown)."""
     if msg.system == "R":
         return (msg.epoch_ms - _GLO_UTC_OFFSET_MS + leap_s * 1000) % _DAY_MS
@@ -75,7 +75,7 @@ def leap_at(ref: GpsTime) -> int:
     return _leap_on_gps_day(int(ref.total_s // 86_400.0))
 
 
-def resolve_epoch(msg: MsmMessage, ref: GpsTime) -> GpsTime:
+def resolve_epoch(msg: MsmMessage | MsmHead, ref: GpsTime) -> GpsTime:
     """Full GPS time of an MSM epoch nearest to ``ref`` (week and day rollovers), exact to 1 ms."""
     leap = leap_at(ref)
     ref_ms = round(ref.tow_s * 1000.0)

@@ -522,4 +522,5 @@ def decode_1020(body: bytes, ctx: DecodeContext) -> GlonassEphemeris:
         health=int(v["bn_msb"]) | int(v["ln3"]),
         age_days=int(v["en"]),
         source=1020,
+        dtau_s=v["dtau"],
     )

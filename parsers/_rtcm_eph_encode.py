@@ -184,6 +184,7 @@ def encode_1020(eph: GlonassEphemeris) -> bytes:
         "az": eph.az_mps2,
         "gamma": eph.gamma_n,
         "tau": eph.tau_n_s,
+        "dtau": eph.dtau_s,  # DF125 (0 = not known)
         "en": eph.age_days,
         "nt": max(eph.day_number, 0),
         "m": 1,  # DF130 01 = GLONASS-M

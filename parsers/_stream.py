@@ -19,7 +19,9 @@ more than two weeks (a Pi booted with a stale clock) is replaced, and the correc
 Epoch assembly: an epoch closes on the message whose multiple-message bit (DF393) is 0, or when an
 MSM with another station id or an epoch time more than ``SAME_EPOCH_TOLERANCE_MS`` away arrives
 (so u-blox's whole-second + 1 ms stamps stay one epoch, at their actual time). A cell sent twice
-in one epoch (MSM6 and MSM7 of one system) is kept once, from the later message.
+in one epoch (MSM6 and MSM7 of one system) is kept once, from the later message. MSM messages are
+checked and their headers read on arrival; their cells are decoded when the feed returns, all the
+epochs it closed together (``_msm_epoch``), so the output order is unchanged.
 """
 
 from __future__ import annotations
@@ -31,14 +33,21 @@ from dataclasses import dataclass, field
 from types import MappingProxyType
 from typing import TYPE_CHECKING, Final, cast
 
-import numpy as np
-
 from ._ephemeris import GlonassEphemeris, KeplerEphemeris
 from ._epoch import ObsEpoch
 from ._errors import ParseError
 from ._framer import Frame, Framer, FramerStatistics, NmeaFrame, RtcmFrame
 from ._gnsstime import BDS_GPS_OFFSET_S, GpsTime, utc_to_gps
-from ._msm import MSM_TYPES, MsmMessage, decode_msm, new_glo_channel_table
+from ._msm import (
+    MSM_TYPES,
+    MsmHead,
+    MsmMessage,
+    decode_msm,
+    learn_glo_channels,
+    new_glo_channel_table,
+    parse_msm_head,
+)
+from ._msm_epoch import decode_epochs
 from ._msm_time import LEAP_NOW_S, circular_gap_ms, gps_ms_of_day, leap_at, resolve_epoch
 from ._nmea import (
     GsvAssembler,
@@ -135,12 +144,14 @@ class _Epoch:
 
     __slots__ = ("msgs", "sod", "station")
 
-    def __init__(self, msg: MsmMessage, sod: int) -> None:
+    def __init__(self, msg: MsmHead, sod: int) -> None:
         self.msgs = [msg]
         self.sod = sod
         self.station = msg.station_id
 
 
+#: Placeholder in the output list for an epoch decoded when the feed returns.
+_SLOT: Final = RawRtcm(msg_type=-1, payload=b"", offset=-1)
 #: Decoded non-MSM messages kept for reuse (about one ephemeris set per satellite of four
 #: constellations, plus station messages); cleared whole when full.
 _MISC_CACHE_SIZE = 256
@@ -173,18 +184,23 @@ class StreamDecoder:
         self._epochs = 0
         self._unresolved = 0
         self._duplicates = 0
+        #: Epochs closed during this feed, decoded together when it returns: (slot in the output
+        #: list, epoch, time).
+        self._pending: list[tuple[int, _Epoch, GpsTime]] = []
         #: NMEA sentence formatters decoded in full (e.g. {"GGA", "GST"}); other valid sentences
         #: pass through as NmeaOther after their checksum check, skipping the slow field parse.
         #: None = every type we know. RMC and ZDA are always decoded while no reference time is
         #: known, because the epoch times need the date.
         self.nmea_wanted: frozenset[str] | None = None
         self._misc_cache: dict[tuple[bytes, int], Message] = {}
-        # Message number → decoder (RTCM 10403.3 Table 3.5-1): MSM4–7 here, the rest from
-        # _rtcm_misc.DECODERS (they take a DecodeContext carrying our current reference time).
+        #: (reference, its GPS − UTC leap seconds): the reference changes once per epoch.
+        self._leap_of: tuple[GpsTime | None, int] = (None, LEAP_NOW_S)
+        # Message number → decoder (RTCM 10403.3 Table 3.5-1): MSM4–7 go to _on_msm (decoded a
+        # whole epoch at a time), the rest to _rtcm_misc.DECODERS (they take a DecodeContext
+        # carrying our current reference time).
         self._dispatch: dict[int, Callable[[bytes], Message]] = {
             t: functools.partial(self._decode_misc, dec) for t, dec in DECODERS.items()
         }
-        self._dispatch.update(dict.fromkeys(MSM_TYPES, self._decode_msm))
 
     # --- public -------------------------------------------------------------------------------
     def feed(self, data: bytes | bytearray | memoryview) -> list[Message]:
@@ -209,6 +225,8 @@ class StreamDecoder:
             while self._held:  # still no reference at the end: count, never guess
                 self._held.popleft()
                 self._unresolved += 1
+        if self._pending:
+            self._decode_pending(out)
         return out
 
     def statistics(self) -> StreamStatistics:
@@ -236,6 +254,18 @@ class StreamDecoder:
     # --- RTCM ---------------------------------------------------------------------------------
     def _on_rtcm(self, frame: RtcmFrame, out: list[Message]) -> None:
         t = frame.msg_type
+        if t in MSM_TYPES:
+            try:
+                head = parse_msm_head(frame.payload)
+            except ParseError as exc:
+                self._errors[t] = self._errors.get(t, 0) + 1
+                self._last_error = f"{exc} at stream offset {frame.offset}"
+                return
+            self._decoded[t] = self._decoded.get(t, 0) + 1
+            self._on_msm(head, out)
+            if self._emit_msm:  # the channel table already holds this message's DF419
+                out.append(decode_msm(frame.payload, self._glo_channels))
+            return
         decoder = self._dispatch.get(t)
         if decoder is None:
             self._raw[t] = self._raw.get(t, 0) + 1
@@ -248,16 +278,8 @@ class StreamDecoder:
             self._last_error = f"{exc} at stream offset {frame.offset}"
             return
         self._decoded[t] = self._decoded.get(t, 0) + 1
-        if isinstance(msg, MsmMessage):
-            self._on_msm(msg, out)
-            if self._emit_msm:
-                out.append(msg)
-            return
         self._learn(msg, out)
         out.append(msg)
-
-    def _decode_msm(self, payload: bytes) -> MsmMessage:
-        return decode_msm(payload, self._glo_channels)
 
     def _decode_misc(
         self, decoder: Callable[[bytes, DecodeContext], object], payload: bytes
@@ -316,14 +338,21 @@ class StreamDecoder:
     def _leap(self) -> int:
         # Without a reference, grouping assumes today's 18 s (IERS Bulletin C, since 2017-01-01);
         # the epoch's time is resolved later with the leap second of its own date.
-        return leap_at(self._ref) if self._ref is not None else LEAP_NOW_S
+        ref = self._ref
+        if ref is None:
+            return LEAP_NOW_S
+        last, leap = self._leap_of
+        if last is not ref:
+            leap = leap_at(ref)
+            self._leap_of = (ref, leap)
+        return leap
 
-    def _on_msm(self, msg: MsmMessage, out: list[Message]) -> None:
-        if msg.system == "R" and msg.msm_level in (5, 7):
-            ext = msg.sat_ext_info
-            known = ext <= 13  # DF419 0…13 ↔ channel −7…+6
-            self._glo_channels[msg.sat_ids[known] - 100] = (ext[known] - 7).astype(np.int8)
-        sod = gps_ms_of_day(msg, self._leap())
+    def _on_msm(self, msg: MsmHead, out: list[Message]) -> None:
+        if msg.system == "R":  # only GLONASS times need the leap seconds
+            learn_glo_channels(msg, self._glo_channels)
+            sod = gps_ms_of_day(msg, self._leap())
+        else:
+            sod = gps_ms_of_day(msg, LEAP_NOW_S)
         ep = self._open
         if ep is not None and (
             ep.station != msg.station_id or circular_gap_ms(ep.sod, sod) > SAME_EPOCH_TOLERANCE_MS
@@ -355,36 +384,17 @@ class StreamDecoder:
         assert self._ref is not None
         time = resolve_epoch(ep.msgs[0], self._ref)
         self._ref = time
-        out.append(self._assemble(ep, time))
+        # The cells are decoded when this feed returns, with the other epochs it closed.
+        self._pending.append((len(out), ep, time))
+        out.append(_SLOT)
         self._epochs += 1
 
-    def _assemble(self, ep: _Epoch, time: GpsTime) -> ObsEpoch:
-        msgs = ep.msgs
-        names = (
-            "sat", "sig", "pseudorange_m", "phase_cycles", "range_rate_mps", "cn0_dbhz",
-            "lock_time_s", "lock_indicator", "half_cycle", "freq_hz",
-        )  # fmt: skip
-        if len(msgs) == 1:
-            arrays = {n: getattr(msgs[0], n) for n in names}
-        else:
-            arrays = {n: np.concatenate([getattr(m, n) for m in msgs]) for n in names}
-        n = arrays["sat"].shape[0]
-        # Only two messages of one system (e.g. MSM6 and MSM7) can repeat a cell.
-        if len({m.system for m in msgs}) < len(msgs):
-            key = arrays["sat"].astype(np.int32) * 1024 + arrays["sig"]
-            _, first_rev = np.unique(key[::-1], return_index=True)
-            keep = np.sort(n - 1 - first_rev)
-            self._duplicates += n - keep.shape[0]
-            arrays = {k: v[keep] for k, v in arrays.items()}
-            n = keep.shape[0]
-        return ObsEpoch(
-            time=time,
-            station_id=ep.station,
-            lli=np.zeros(n, np.uint8),
-            sources=tuple(m.msg_type for m in msgs),
-            _validate=False,
-            **arrays,
-        )
+    def _decode_pending(self, out: list[Message]) -> None:
+        pending, self._pending = self._pending, []
+        epochs, duplicates = decode_epochs([(ep.msgs, time, ep.station) for _, ep, time in pending])
+        for (slot, _, _), epoch in zip(pending, epochs, strict=True):
+            out[slot] = epoch
+        self._duplicates += duplicates
 
     # --- NMEA ---------------------------------------------------------------------------------
     def _on_nmea(self, frame: NmeaFrame, out: list[Message]) -> None:

@@ -152,6 +152,9 @@ class StandInCore:
     def counts(self) -> DecoderCounts:
         return self._inner.counts()
 
+    def frames_total(self) -> int:
+        return self._inner.frames_total()
+
     def reset(self) -> None:
         self._inner.reset()
         self.state = {"arcs": 0}

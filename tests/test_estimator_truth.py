@@ -19,14 +19,23 @@ FIELDS = ("stec_tecu", "rot_tecu_per_min", "roti_tecu_per_min", "el_deg", "arc_i
           "if_code_m", "pair")  # fmt: skip
 
 
-def _run(name: str, duration_s: float, systems: str = "GRE") -> dict[str, np.ndarray]:
-    """Run a scenario through the pipeline; (epoch, satellite) arrays of ours and the truth."""
+def _without_dtau(ephs: list) -> list:
+    """The ephemerides as a receiver that sends Δτ_n = 0 ("not known") for GLONASS gives them."""
+    return [dataclasses.replace(e, dtau_s=0.0) if hasattr(e, "dtau_s") else e for e in ephs]
+
+
+def _run(
+    name: str, duration_s: float, systems: str = "GRE", *, dtau: bool = True
+) -> dict[str, np.ndarray]:
+    """Run a scenario through the pipeline; (epoch, satellite) arrays of ours and the truth.
+    ``dtau=False``: the GLONASS Δτ_n are withheld (see :func:`_without_dtau`)."""
     sc = dataclasses.replace(
         build_scenario(name, duration_s=duration_s, rate_hz=1.0), systems=systems
     )
     sim = Simulator(sc)
     pipe = StationPipeline("HARC", position_ecef_m=sim.station_ecef(0), ephemerides_per_sat=400)
-    pipe.handle(nav_ephemerides(sim))
+    ephs = nav_ephemerides(sim)
+    pipe.handle(ephs if dtau else _without_dtau(ephs))
     sats = sim.sats
     n_e, n_s = sc.n_epochs, sats.shape[0]
     out = {k: np.full((n_e, n_s), np.nan) for k in
@@ -97,14 +106,26 @@ def test_truth_stec_within_one_tecu(quiet):
 
 
 def test_truth_glonass_stec_settles(quiet):
-    """GLONASS STEC (no broadcast group delay: per-satellite combined bias fitted with the VTEC plane) settles within 2 TECU RMS after 15 min of arc."""
+    """GLONASS STEC (satellite part from the broadcast Δτ_n, or a per-satellite combined bias where Δτ_n = 0) is within 1.5 TECU RMS after 5 min of arc."""
     q = quiet
-    ok = (q["t_el"] > 15.0) & (q["age"] >= 900.0) & np.isfinite(q["stec"]) & (q["sys"] == 1)
+    ok = (q["t_el"] > 15.0) & (q["age"] >= 300.0) & np.isfinite(q["stec"]) & (q["sys"] == 1)
     d = q["stec"][ok] - q["t_stec"][ok]
-    assert ok.sum() > 2_000
-    # Issue 6 asks 1.0 TECU; measured 0.90 here (seed 1) but 0.41–1.92 over scenario seeds 1–8
-    # (30 min of data: the receiver-bias/plane separation is still ~1 TECU), so 2.0 is asserted.
-    assert np.sqrt(np.mean(d**2)) < 2.0
+    assert ok.sum() > 5_000
+    # Issue 6 asks 1.0 TECU; measured (simulator truth, seeds 1–8, arc ≥ 300 s) 0.75 here (seed 1),
+    # 0.48–0.95 on seven seeds and 1.32 on seed 6 (one satellite's levelling error, −2 TECU, over
+    # a 30-min run), so 1.5 is asserted.
+    assert np.sqrt(np.mean(d**2)) < 1.5
+
+
+def test_truth_glonass_combined_biases_without_dtau():
+    """With Δτ_n withheld (a receiver sending 0), every GLONASS satellite gets a combined bias fitted with the VTEC surface: STEC within 1.5 TECU RMS after 5 min of arc."""
+    q = _run("quiet-day", 1800.0, dtau=False)
+    ok = (q["t_el"] > 15.0) & (q["age"] >= 300.0) & np.isfinite(q["stec"]) & (q["sys"] == 1)
+    d = q["stec"][ok] - q["t_stec"][ok]
+    assert ok.sum() > 5_000
+    # Measured (simulator truth, seeds 1–8): 0.52 here (seed 1), 0.43–0.69 on seven seeds, 1.27
+    # on seed 7 (the common receiver-bias error of that seed), so 1.5 is asserted.
+    assert np.sqrt(np.mean(d**2)) < 1.5
 
 
 def test_truth_rot_unbiased_at_noise_floor(quiet):
@@ -189,7 +210,7 @@ def test_truth_combined_biases_survive_checkpoint(tmp_path):
     )
     sim = Simulator(sc)
     pipe = StationPipeline("HARC", position_ecef_m=sim.station_ecef(0), ephemerides_per_sat=400)
-    pipe.handle(nav_ephemerides(sim))
+    pipe.handle(_without_dtau(nav_ephemerides(sim)))  # every GLONASS satellite: combined bias
     for blocks in sim.run():
         pipe.handle(block_epochs(blocks[0], 41))
     b = pipe.estimator.biases

@@ -230,3 +230,243 @@ def test_exporter_bind_failure_is_an_output_error():
         exp = Exporter(PrometheusSettings(port=port), registry=CollectorRegistry())
         with pytest.raises(OutputError, match=f"127.0.0.1:{port}"):
             exp.start()
+
+
+# --- our exposition writer against prometheus_client's (issue 8: fast scrape, same content) ------
+
+OPENMETRICS_ACCEPT = (  # what a Prometheus 3 server sends (its scrape_protocols default)
+    "application/openmetrics-text;version=1.0.0;escaping=allow-utf-8;q=0.6,"
+    "application/openmetrics-text;version=0.0.1;q=0.5,"
+    "text/plain;version=1.0.0;escaping=allow-utf-8;q=0.4,text/plain;version=0.0.4;q=0.3,*/*;q=0.2"
+)
+
+
+def awkward_snapshot() -> DaemonSnapshot:
+    """Label values that need escaping, unknown and infinite figures, big and tiny numbers."""
+    base = daemon_snapshot(3, 6)
+    odd = 'we"ird\\st\nation'
+    snap = make_snapshot(odd, T0, n=5, nan_sat=True, vtec=float("nan"), gradient=float("inf"))
+    stations = (
+        *base.stations,
+        StationFigures(
+            station=odd,
+            snapshot=snap,
+            ingest=IngestFigures(bytes_total=12_345_678_901, frames_total=10**6, connected=True),
+            last_epoch_monotonic_s=1e-9,
+            epochs_total=10**17,
+        ),
+        StationFigures(station="EMPTY"),
+    )
+    queues = (
+        *base.queues,
+        QueueFigures(stage="mqtt", depth=0, capacity=1_000_000, peak=999_999, dropped_total=0),
+    )
+    return DaemonSnapshot(stations=stations, alarms=base.alarms, queues=queues, mqtt=base.mqtt)
+
+
+def sample_values(fams) -> dict[tuple[str, tuple[tuple[str, str], ...]], str]:
+    """Sample → value as text (so NaN compares equal to NaN)."""
+    return {
+        (s.name, tuple(sorted(s.labels.items()))): repr(s.value) for f in fams for s in f.samples
+    }
+
+
+def without_created(text: bytes) -> bytes:
+    return b"".join(line for line in text.splitlines(True) if b"_created" not in line)
+
+
+@pytest.mark.parametrize("per_satellite", [True, False])
+def test_exporter_exposition_is_prometheus_client_text_byte_for_byte(per_satellite):
+    """Exporter's own text 0.0.4 writer produces exactly the bytes prometheus_client writes for the
+    same registry (escaped label values, NaN, +Inf, exponent form, histogram and its _created)."""
+    exp, registry, _ = make_exporter(per_satellite=per_satellite)
+    exp.update(awkward_snapshot())
+    exp.observe_epoch_latency("ST00", 0.003)
+    exp.observe_epoch_latency('we"ird\\st\nation', 7.5)
+    body, content_type = exp.exposition()
+    # Source: prometheus_client generate_latest (reference library), format 0.0.4.
+    assert content_type == "text/plain; version=0.0.4; charset=utf-8"
+    assert body == generate_latest(registry)
+
+
+def test_exporter_exposition_parses_to_the_registry_samples():
+    """Exporter's exposition parses (prometheus_client's parser) to the same samples, sample by
+    sample, as the registry's own rendering, and covers every awkward case it was given."""
+    exp, registry, _ = make_exporter()
+    exp.update(awkward_snapshot())
+    exp.observe_epoch_latency("ST00", 0.003)
+    ours = sample_values(text_string_to_metric_families(exp.exposition()[0].decode()))
+    # Source: prometheus_client generate_latest + text_string_to_metric_families (reference).
+    assert ours == sample_values(text_string_to_metric_families(generate_latest(registry).decode()))
+    odd = (("station", 'we"ird\\st\nation'),)
+    assert ours[("ionwarden_station_vtec_tecu", odd)] == "nan"
+    assert ours[("ionwarden_station_gradient_mm_per_km", odd)] == "inf"
+    assert ours[("ionwarden_ingest_bytes_total", odd)] == "12345678901.0"
+    assert ours[("ionwarden_station_epochs_total", odd)] == "1e+17"
+    assert ("ionwarden_satellite_stec_tecu", (("sat", "G01"), *odd)) not in ours  # NaN: left out
+
+
+def test_exporter_openmetrics_exposition_matches_prometheus_client():
+    """Exporter answers an OpenMetrics Accept header with prometheus_client's OpenMetrics bytes."""
+    from prometheus_client.exposition import choose_encoder
+    from prometheus_client.openmetrics.parser import (
+        text_string_to_metric_families as om_families,
+    )
+
+    exp, registry, _ = make_exporter()
+    exp.update(awkward_snapshot())
+    exp.observe_epoch_latency("ST01", 0.02)
+    body, content_type = exp.exposition(OPENMETRICS_ACCEPT)
+    encoder, expected_type = choose_encoder(OPENMETRICS_ACCEPT)
+    # Source: prometheus_client openmetrics generate_latest (reference library).
+    assert content_type == expected_type
+    assert content_type.startswith("application/openmetrics-text; version=1.0.0")
+    assert body == encoder(registry)
+    assert body.endswith(b"# EOF\n")
+    assert sample_values(om_families(body.decode()))  # well-formed OpenMetrics
+
+
+@pytest.mark.parametrize(
+    "accept",
+    [
+        "",
+        "*/*",
+        "application/openmetrics-text",
+        "application/openmetrics-text;version=1.0.0;escaping=underscores",
+        "text/plain;version=0.0.4",
+        "text/plain;version=1.0.0;escaping=allow-utf-8",
+        "text/plain;version=1.0.0;escaping=dots",  # rewrites names: prometheus_client writes it
+        "application/openmetrics-text;version=1.0.0;escaping=values",
+    ],
+)
+def test_exporter_exposition_follows_content_negotiation(accept):
+    """Exporter negotiates the format as prometheus_client does and writes the same bytes."""
+    from prometheus_client.exposition import choose_encoder
+
+    exp, registry, _ = make_exporter()
+    exp.update(awkward_snapshot())
+    exp.observe_epoch_latency("ST02", 0.2)
+    encoder, content_type = choose_encoder(accept)
+    # Source: prometheus_client choose_encoder and its encoders (reference library).
+    assert exp.exposition(accept) == (encoder(registry), content_type)
+
+
+def test_exporter_exposition_follows_changing_satellite_sets():
+    """Exporter's cached label texts follow satellites coming, going and turning unknown."""
+    exp, registry, _ = make_exporter()
+    for n, nan_sat in ((4, False), (6, False), (3, True), (6, True), (4, False)):
+        st = StationFigures(
+            station="ST00", snapshot=make_snapshot("ST00", T0, n=n, nan_sat=nan_sat)
+        )
+        exp.update(DaemonSnapshot(stations=(st,)))
+        # Source: prometheus_client generate_latest (reference library).
+        assert exp.exposition()[0] == generate_latest(registry)
+
+
+def test_exporter_exposition_leaves_unusual_families_to_prometheus_client():
+    """Exporter hands the whole exposition to prometheus_client when another collector on the
+    registry has what our writer does not write (a sample timestamp), and stays identical."""
+    from prometheus_client.core import GaugeMetricFamily
+
+    class Stamped:
+        def collect(self):
+            g = GaugeMetricFamily("other_stamped", "A gauge with a timestamp.", labels=["k"])
+            g.add_metric(["v"], 1.0, timestamp=1700000000.5)
+            yield g
+
+    exp, registry, _ = make_exporter()
+    registry.register(Stamped())
+    exp.update(daemon_snapshot())
+    body, _ = exp.exposition()
+    # Source: prometheus_client generate_latest (reference library).
+    assert body == generate_latest(registry)
+    assert b'other_stamped{k="v"} 1.0 1700000000500\n' in body
+
+
+def test_go_float_matches_prometheus_client():
+    """Exporter formats numbers as prometheus_client's floatToGoString does (Go's 'g' rule)."""
+    from hypothesis import given
+    from hypothesis import strategies as st
+    from prometheus_client.utils import floatToGoString
+
+    from ionwarden.daemon.outputs._exposition import go_float
+
+    fixed = [0.0, -0.0, 1.0, 999_999.0, 1e6, 1_234_567.0, 1e15, 1e16, 123456789012.5, -1e7, 1e-7]
+    fixed += [float("nan"), float("inf"), float("-inf"), 12345, True]
+    for v in fixed:
+        assert go_float(v) == floatToGoString(v)  # Source: prometheus_client (reference library)
+
+    @given(st.floats(allow_nan=True, allow_infinity=True))
+    def check(v: float) -> None:
+        assert go_float(v) == floatToGoString(v)  # Source: prometheus_client (reference library)
+
+    check()
+
+
+@pytest.mark.integration
+def test_exporter_http_gzip_only_when_asked():
+    """Exporter compresses the scrape only for clients that ask for gzip; both decode to the same
+    exposition; an OpenMetrics Accept header gets OpenMetrics."""
+    import gzip
+
+    exp, registry, _ = make_exporter()
+    exp.update(daemon_snapshot())
+    with exp:
+        url = f"http://127.0.0.1:{exp.port}/metrics"
+        with urllib.request.urlopen(url, timeout=5) as resp:
+            assert resp.headers.get("Content-Encoding") is None
+            plain = resp.read()
+        req = urllib.request.Request(url, headers={"Accept-Encoding": "gzip"})
+        with urllib.request.urlopen(req, timeout=5) as resp:
+            assert resp.headers["Content-Encoding"] == "gzip"
+            zipped = resp.read()
+        req = urllib.request.Request(url, headers={"Accept": OPENMETRICS_ACCEPT})
+        with urllib.request.urlopen(req, timeout=5) as resp:
+            assert resp.headers["Content-Type"].startswith("application/openmetrics-text")
+            om = resp.read()
+    # Source: prometheus_client generate_latest (reference library); _created is the clock.
+    assert without_created(plain) == without_created(generate_latest(registry))
+    assert gzip.decompress(zipped) == plain
+    assert om.endswith(b"# EOF\n")
+
+
+@pytest.mark.integration
+def test_exporter_http_keeps_prometheus_client_behaviour_for_other_requests():
+    """Exporter still filters by name[] and refuses methods other than GET/OPTIONS (405)."""
+    import urllib.error
+
+    exp, _, _ = make_exporter()
+    exp.update(daemon_snapshot())
+    with exp:
+        url = f"http://127.0.0.1:{exp.port}/metrics"
+        with urllib.request.urlopen(f"{url}?name[]=ionwarden_station_vtec_tecu", timeout=5) as r:
+            text = r.read().decode()
+        with pytest.raises(urllib.error.HTTPError) as err:
+            urllib.request.urlopen(urllib.request.Request(url, method="POST", data=b""), timeout=5)
+        err.value.close()
+    assert {k[0] for k in samples(text)} == {"ionwarden_station_vtec_tecu"}
+    assert err.value.code == 405
+
+
+@pytest.mark.integration
+def test_exporter_concurrent_scrapes_get_whole_expositions():
+    """Exporter serves overlapping scrapes (one thread each), each a complete exposition."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    exp, _, _ = make_exporter()
+    snaps = [daemon_snapshot(2, n) for n in (3, 5, 7)]
+    exp.update(snaps[0])
+    with exp:
+        url = f"http://127.0.0.1:{exp.port}/metrics"
+
+        def scrape(i: int) -> bytes:
+            exp.update(snaps[i % 3])
+            with urllib.request.urlopen(url, timeout=10) as resp:
+                return resp.read()
+
+        with ThreadPoolExecutor(max_workers=6) as pool:
+            bodies = list(pool.map(scrape, range(24)))
+    for body in bodies:
+        s = samples(body.decode())
+        n = sum(1 for name, labels in s if name == "ionwarden_satellite_stec_tecu")
+        assert n in (6, 10, 14)  # 2 stations × 3, 5 or 7 satellites, never a mix

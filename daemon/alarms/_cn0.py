@@ -14,6 +14,7 @@ become the new normal. Everything is vectorised over cells (STYLE rule 21).
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -21,7 +22,7 @@ import numpy as np
 if TYPE_CHECKING:
     import numpy.typing as npt
 
-__all__ = ["BAND_NAMES", "N_BAND_KEYS", "Cn0Baseline", "band_key", "band_label"]
+__all__ = ["BAND_NAMES", "N_BAND_KEYS", "Cn0Baseline", "Cn0Cells", "band_key", "band_label"]
 
 N_BAND_KEYS = 70
 _SYSTEMS = "GRECJSI"
@@ -47,6 +48,15 @@ def band_label(key: int) -> str:
     return f"{_SYSTEMS[key // 10]}{key % 10}"
 
 
+@dataclass(frozen=True, slots=True)
+class Cn0Cells:
+    """The usable cells of one epoch: band key, flat (band, elevation bin) index, C/N0 (dB-Hz)."""
+
+    key: npt.NDArray[np.intp]
+    flat: npt.NDArray[np.intp]
+    cn0: npt.NDArray[np.float64]
+
+
 class Cn0Baseline:
     """Per-band, per-elevation-bin C/N0 baseline of one station (mutable state, pure methods)."""
 
@@ -59,33 +69,40 @@ class Cn0Baseline:
         self.time_constant_s = time_constant_s
         self.min_samples = min_samples
         n_bins = math.ceil(90.0 / bin_deg)
-        self._mean = np.full((N_BAND_KEYS, n_bins), np.nan)
+        # 0 until a bin's first epoch, whose weight is 1 (alpha = 1/(0+1)): the mean is then
+        # exactly that epoch's mean; only warmed-up bins are ever read.
+        self._mean = np.zeros((N_BAND_KEYS, n_bins))
         self._count = np.zeros((N_BAND_KEYS, n_bins), np.int64)
         self._last_t_s: float | None = None
 
-    def _index(
+    def cells(
         self,
         sat: npt.NDArray[np.int16],
         sig: npt.NDArray[np.uint16],
         el_deg: npt.NDArray[np.float64],
         cn0_dbhz: npt.NDArray[np.float32],
-    ) -> tuple[npt.NDArray[np.intp], npt.NDArray[np.intp], npt.NDArray[np.bool_]]:
+    ) -> Cn0Cells:
+        """The usable cells of one epoch (finite elevation ≥ 0, finite C/N0 > 0, a known band),
+        indexed once for both :meth:`drop_db_cells` and :meth:`learn_cells`."""
         assert sat.shape == sig.shape == el_deg.shape == cn0_dbhz.shape
         key = band_key(sat, sig)
+        # Comparisons with NaN are False (no warning): NaN and ±∞ fail one bound each.
+        ok = (
+            (el_deg >= 0.0)
+            & (el_deg < np.inf)
+            & (cn0_dbhz > 0.0)
+            & (cn0_dbhz < np.inf)
+            & (key >= 0)
+            & (key < N_BAND_KEYS)
+        )
+        key = key[ok]
         n_bins = self._mean.shape[1]
-        with np.errstate(invalid="ignore"):
-            b = np.floor(np.nan_to_num(el_deg, nan=-1.0) / self.bin_deg).astype(np.intp)
-            ok = (
-                np.isfinite(el_deg)
-                & (el_deg >= 0.0)
-                & np.isfinite(cn0_dbhz)
-                & (cn0_dbhz > 0.0)
-                & (key >= 0)
-                & (key < N_BAND_KEYS)
-            )
-        b = np.clip(b, 0, n_bins - 1)
-        key = np.clip(key, 0, N_BAND_KEYS - 1)
-        return key, b, ok
+        # el ≥ 0 here, so truncation is the floor.
+        b = (el_deg[ok] / self.bin_deg).astype(np.intp)
+        np.minimum(b, n_bins - 1, out=b)
+        flat = key * n_bins
+        flat += b
+        return Cn0Cells(key=key, flat=flat, cn0=cn0_dbhz[ok].astype(np.float64))
 
     def drop_db(
         self,
@@ -98,14 +115,19 @@ class Cn0Baseline:
     ) -> npt.NDArray[np.float64]:
         """Mean C/N0 drop (dB, positive = below baseline) per band key; NaN where < ``min_cells``
         cells fall in warmed-up bins."""
-        key, b, ok = self._index(sat, sig, el_deg, cn0_dbhz)
-        warm = ok & (self._count[key, b] >= self.min_samples)
-        dev = self._mean[key[warm], b[warm]] - cn0_dbhz[warm].astype(np.float64)
-        total = np.bincount(key[warm], weights=dev, minlength=N_BAND_KEYS)
-        n = np.bincount(key[warm], minlength=N_BAND_KEYS)
+        return self.drop_db_cells(self.cells(sat, sig, el_deg, cn0_dbhz), min_cells=min_cells)
+
+    def drop_db_cells(self, cells: Cn0Cells, *, min_cells: int = 3) -> npt.NDArray[np.float64]:
+        """:meth:`drop_db` on cells from :meth:`cells`."""
         out = np.full(N_BAND_KEYS, np.nan)
-        use = n >= min_cells
-        out[use] = total[use] / n[use]
+        warm = self._count.reshape(-1)[cells.flat] >= self.min_samples
+        if not warm.any():
+            return out
+        key = cells.key[warm]
+        dev = self._mean.reshape(-1)[cells.flat[warm]] - cells.cn0[warm]
+        total = np.bincount(key, weights=dev, minlength=N_BAND_KEYS)
+        n = np.bincount(key, minlength=N_BAND_KEYS)
+        np.divide(total, n, out=out, where=n >= min_cells)
         return out
 
     def learn(
@@ -119,21 +141,27 @@ class Cn0Baseline:
         frozen: npt.NDArray[np.bool_] | None = None,
     ) -> None:
         """Fold one epoch into the baseline; ``frozen[k]`` True skips band key ``k``."""
-        key, b, ok = self._index(sat, sig, el_deg, cn0_dbhz)
+        self.learn_cells(self.cells(sat, sig, el_deg, cn0_dbhz), t_s, frozen=frozen)
+
+    def learn_cells(
+        self, cells: Cn0Cells, t_s: float, *, frozen: npt.NDArray[np.bool_] | None = None
+    ) -> None:
+        """:meth:`learn` on cells from :meth:`cells`."""
+        flat, cn0 = cells.flat, cells.cn0
         if frozen is not None:
-            ok &= ~frozen[key]
+            keep = ~frozen[cells.key]
+            flat, cn0 = flat[keep], cn0[keep]
         dt = 1.0 if self._last_t_s is None else min(max(t_s - self._last_t_s, 0.0), 3600.0)
         self._last_t_s = t_s
-        n_bins = self._mean.shape[1]
-        flat = key[ok] * n_bins + b[ok]
-        size = N_BAND_KEYS * n_bins
+        size = self._mean.size
         n = np.bincount(flat, minlength=size)
-        s = np.bincount(flat, weights=cn0_dbhz[ok].astype(np.float64), minlength=size)
-        seen = n > 0
+        s = np.bincount(flat, weights=cn0, minlength=size)
+        seen = n.nonzero()[0]
         epoch_mean = s[seen] / n[seen]
         mean = self._mean.reshape(-1)
         count = self._count.reshape(-1)
-        alpha = np.maximum(1.0 / (count[seen] + 1.0), min(dt / self.time_constant_s, 1.0))
-        prev = np.where(np.isnan(mean[seen]), epoch_mean, mean[seen])
+        c = count[seen]
+        alpha = np.maximum(1.0 / (c + 1.0), min(dt / self.time_constant_s, 1.0))
+        prev = mean[seen]
         mean[seen] = prev + alpha * (epoch_mean - prev)
-        count[seen] += 1
+        count[seen] = c + 1

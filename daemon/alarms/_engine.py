@@ -19,6 +19,8 @@ from ._debounce import Debouncer
 from ._types import AlarmKind, AlarmState, AlarmStatus, AlarmTransition, Severity
 
 if TYPE_CHECKING:
+    import numpy.typing as npt
+
     from ionwarden.daemon.config import AlarmSettings, ThresholdAlarm
     from ionwarden.daemon.estimator import FixStatus, StationSnapshot
     from ionwarden.parsers import GpsTime
@@ -107,9 +109,17 @@ class StationAlarms:
         self._alarms[key] = alarm
         return alarm
 
-    def _step(self, alarm: _Alarm, value: float, time: GpsTime, out: list[AlarmTransition]) -> None:
+    def _step(
+        self,
+        alarm: _Alarm,
+        value: float,
+        time: GpsTime,
+        out: list[AlarmTransition],
+        t_s: float | None = None,
+    ) -> None:
+        """Feed ``value`` at ``time`` (``t_s``: its ``total_s``, when the caller has it)."""
         alarm.value = value
-        if not alarm.machine.step(value, time.total_s):
+        if not alarm.machine.step(value, time.total_s if t_s is None else t_s):
             return
         self._seq += 1
         m = alarm.machine
@@ -147,40 +157,42 @@ class StationAlarms:
         )
 
     def _maybe(
-        self, kind: AlarmKind, value: float, time: GpsTime, out: list[AlarmTransition]
+        self,
+        kind: AlarmKind,
+        value: float,
+        time: GpsTime,
+        out: list[AlarmTransition],
+        t_s: float | None = None,
     ) -> None:
-        alarm = self._alarms.get(kind.value)
+        alarm = self._alarms.get(kind)  # a StrEnum member is its value as a key
         if alarm is not None:
-            self._step(alarm, value, time, out)
+            self._step(alarm, value, time, out, t_s)
 
     def observe_snapshot(self, snap: StationSnapshot) -> list[AlarmTransition]:
         """Evaluate the ionosphere and CN0 alarms on one epoch's snapshot."""
         out: list[AlarmTransition] = []
         t = snap.time
+        t_s = t.total_s
         s = self._settings
         roti = (
             snap.roti_median_tecu_per_min
             if s.roti_statistic == "median"
             else snap.roti_max_tecu_per_min
         )
-        self._maybe(AlarmKind.ROTI, roti, t, out)
-        self._maybe(AlarmKind.ROT, snap.rot_max_abs_tecu_per_min, t, out)
-        self._maybe(AlarmKind.VTEC, snap.vtec_tecu, t, out)
-        self._maybe(AlarmKind.GRADIENT, abs(snap.gradient_mm_per_km), t, out)
-        self._maybe(AlarmKind.DUAL_FREQUENCY_LOSS, 1.0 - snap.dual_freq_fraction, t, out)
+        maybe = self._maybe
+        maybe(AlarmKind.ROTI, roti, t, out, t_s)
+        maybe(AlarmKind.ROT, snap.rot_max_abs_tecu_per_min, t, out, t_s)
+        maybe(AlarmKind.VTEC, snap.vtec_tecu, t, out, t_s)
+        maybe(AlarmKind.GRADIENT, abs(snap.gradient_mm_per_km), t, out, t_s)
+        maybe(AlarmKind.DUAL_FREQUENCY_LOSS, 1.0 - snap.dual_freq_fraction, t, out, t_s)
         if s.cn0_drop.enabled and snap.cell_sat.size:
-            self._observe_cn0(snap, out)
+            self._observe_cn0(snap, out, t_s)
         return out
 
-    def _observe_cn0(self, snap: StationSnapshot, out: list[AlarmTransition]) -> None:
+    def _observe_cn0(self, snap: StationSnapshot, out: list[AlarmTransition], t_s: float) -> None:
         base = self._cn0
-        drop = base.drop_db(
-            snap.cell_sat,
-            snap.cell_sig,
-            snap.cell_el_deg,
-            snap.cell_cn0_dbhz,
-            min_cells=self._settings.cn0_baseline.min_cells,
-        )
+        cells = base.cells(snap.cell_sat, snap.cell_sig, snap.cell_el_deg, snap.cell_cn0_dbhz)
+        drop = base.drop_db_cells(cells, min_cells=self._settings.cn0_baseline.min_cells)
         # Bands evaluated this epoch (bounded: at most N_BAND_KEYS); this loop is per band.
         for k in np.flatnonzero(np.isfinite(drop)).tolist():
             key = self._cn0_keys.get(k)
@@ -189,19 +201,15 @@ class StationAlarms:
                 key = f"{AlarmKind.CN0_DROP.value}-{label.lower()}"
                 self._cn0_keys[k] = key
                 self._add(key, AlarmKind.CN0_DROP, label, self._settings.cn0_drop)
-            self._step(self._alarms[key], float(drop[k]), snap.time, out)
-        frozen = np.zeros(N_BAND_KEYS, np.bool_)
-        for k, key in self._cn0_keys.items():
+            self._step(self._alarms[key], float(drop[k]), snap.time, out, t_s)
+        frozen: npt.NDArray[np.bool_] | None = None
+        for k, key in self._cn0_keys.items():  # per band
             m = self._alarms[key].machine
-            frozen[k] = m.active or m.pending
-        base.learn(
-            snap.cell_sat,
-            snap.cell_sig,
-            snap.cell_el_deg,
-            snap.cell_cn0_dbhz,
-            snap.time.total_s,
-            frozen=frozen,
-        )
+            if m.active or m.pending:
+                if frozen is None:
+                    frozen = np.zeros(N_BAND_KEYS, np.bool_)
+                frozen[k] = True
+        base.learn_cells(cells, t_s, frozen=frozen)
 
     def observe_fix(self, fix: FixStatus, time: GpsTime | None = None) -> list[AlarmTransition]:
         """Evaluate the NMEA fix alarms; ``time`` is used when the fix carries none."""

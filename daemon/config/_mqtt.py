@@ -47,6 +47,8 @@ class MqttSettings(Section):
     epoch_buffer: int = Field(default=1000, ge=1)
     #: … and alarm/status messages kept, in order (a large bound; past it the oldest are dropped and counted).
     alarm_buffer: int = Field(default=100_000, ge=1)
+    #: Messages sent and not yet acknowledged at once (1 = one at a time, awaiting each PUBACK).
+    publish_window: int = Field(default=32, ge=1, le=65535)
     reconnect_initial_s: float = Field(default=1.0, gt=0.0)
     reconnect_cap_s: float = Field(default=30.0, gt=0.0)
 

@@ -29,16 +29,25 @@ import numpy.typing as npt
 
 from ._state import (
     ARC,
+    GF_FLOOR,
     GF_LEVEL,
+    GF_LOW,
+    GF_PRED,
     GF_RATE,
     GF_VAR,
+    HALF1,
     HALF2,
     LAST_T,
     LOCK1,
+    LOCK2,
+    LT1,
+    LT2,
     LWL,
+    MW_FLOOR,
     MW_MEAN,
+    MW_THR,
     MW_VAR,
-    NCOL,
+    NROW,
     RANK,
     N,
 )
@@ -47,6 +56,7 @@ __all__ = ["ArcState", "SlipThresholds"]
 
 F64 = npt.NDArray[np.float64]
 Idx = npt.NDArray[np.intp]
+Bool = npt.NDArray[np.bool_]
 
 #: Reasons, as bits of the per-satellite ``reason`` array (for counters and diagnostics).
 REASON_FIRST = 1
@@ -65,6 +75,10 @@ REASON_NAMES = {
     REASON_MW: "mw_jump",
     REASON_GF: "gf_jump",
 }
+#: e(el) = 1 + 2·exp(el·_EL_SCALE): exp(−el/15°) with el in radians.
+_EL_SCALE = np.array(-180.0 / np.pi / 15.0)
+_ONE = np.array(1.0)
+_TWO = np.array(2.0)
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -85,101 +99,170 @@ class SlipThresholds:
     rate_weight: float = 0.1
 
 
-def _sel(all_true: bool, mask: npt.NDArray[np.bool_], a: F64, b: F64 | float) -> F64:
+def _sel(all_true: bool, mask: Bool, a: F64, b: F64 | float) -> F64:
     """``np.where(mask, a, b)``, skipped when the caller knows the mask is all True."""
     return a if all_true else np.where(mask, a, b)
 
 
 class ArcState:
-    """Slip detection over the gathered state block of one epoch (see ``_state``)."""
+    """Slip detection over the block of one epoch (see ``_state``)."""
 
     def __init__(self, thresholds: SlipThresholds) -> None:
-        self.th = thresholds
+        self.th = th = thresholds
         self.next_arc = 0
+        # Constants as 0-d arrays (a Python float operand costs a conversion per numpy call).
+        self._gf_k = np.array(th.gf_k_sigma)
+        self._mw_k = np.array(th.mw_k_sigma)
+        self._w = np.array(th.ema_weight)
+        self._keep_w = np.array(1.0 - th.ema_weight)
+        self._rate_w = np.array(th.rate_weight)
+        self._level_w = np.array(th.level_weight)
+        self._floor_per_s = np.array(th.gf_floor_m_per_s)
+        self._floor = np.array(th.gf_floor_m)
+        #: The GF floor's lower bound holds (see :meth:`detect`).
+        self._gf_bound = th.gf_floor_m >= 0.0 and th.gf_floor_m_per_s >= 0.0
+
+    def prepare_block(self, g: F64) -> None:
+        """Fill the layout-constant rows of a freshly gathered block (MW floor, GF bound)."""
+        np.multiply(g[LWL], self.th.mw_floor_wl_cycles, out=g[MW_FLOOR])
+        g[GF_LOW] = self.th.gf_floor_m
 
     def detect(
         self,
         g: F64,
         *,
-        t: float,
-        rank: F64,
-        mw_m: F64,
-        gf_m: F64,
+        t: F64,
+        gf_mw: F64,
         el_rad: F64,
-        flags: F64,
-        lli_lost: npt.NDArray[np.bool_],
+        el_known: bool,
+        cur: F64,
+        lli_lost: Bool | None,
         gap_s: float,
-    ) -> tuple[npt.NDArray[np.bool_], npt.NDArray[np.int64] | None]:
-        """Test this epoch's samples against the block ``g`` (m, NCOL), update it in place
+        all_tracked: bool | None,
+        no_new: Bool,
+    ) -> tuple[Bool, npt.NDArray[np.int64] | None]:
+        """Test this epoch's samples against the block ``g`` (NROW, d), update it in place
         (arc ids, counts, MW/GF trackers, flags), return (new_arc, reason bits or None when no
         arc starts).
 
-        ``flags`` is (m, 6) in state-column order: MSM lock-time indicator of band 1 and 2 (−1
-        none), decoded lock time of band 1 and 2 (s, NaN none), half-cycle flag of band 1 and 2.
+        ``t``: epoch time (s, 0-d); ``gf_mw`` (2, d): GF and MW (m); ``el_known``: no elevation
+        is NaN; ``cur`` (7, d): this epoch's pair rank, half-cycle flags of band 1 and 2, MSM
+        lock-time indicators of band 1 and 2 (−1 none) and decoded lock times of band 1 and 2
+        (s, NaN none), in the order of the block rows ``RANK … LT2``; ``lli_lost``: RINEX loss of
+        lock per satellite (None: none this epoch); ``all_tracked``: every arc has two samples or
+        more (None: unknown); ``no_new``: all False, read-only (returned when no arc starts).
         """
-        m = g.shape[0]
-        assert g.shape == (m, NCOL), g.shape
-        for a in (rank, mw_m, gf_m, el_rad, lli_lost):
-            assert a.shape == (m,), (a.shape, m)
-        assert flags.shape == (m, 6), flags.shape
-        th = self.th
-        dt = t - g[:, LAST_T]
-        prev = g[:, LOCK1 : HALF2 + 1]
+        d = g.shape[1]
+        assert g.shape == (NROW, d), g.shape
+        assert gf_mw.shape == (2, d), gf_mw.shape
+        assert el_rad.shape == (d,), el_rad.shape
+        assert cur.shape == (7, d), cur.shape
+        dt = t - g[LAST_T]
+        prev_id = g[RANK : HALF2 + 1]  # rank, half-cycle flags
+        prev_lock = g[LOCK1 : LT2 + 1]  # lock indicators, lock times
         # Cheap screen, a superset of the hard reasons below (computed exactly only if it fires):
-        # no previous sample or a gap, another pair, a lock indicator or lock time that went down,
-        # a half-cycle flag that changed, RINEX loss of lock.
+        # no previous sample or a gap, another pair, a half-cycle flag that changed, a lock
+        # indicator or lock time that went down, RINEX loss of lock.
         screen = (
-            np.count_nonzero(~(dt <= gap_s))
-            or np.count_nonzero(g[:, RANK] != rank)
-            or np.count_nonzero(flags[:, :4] < prev[:, :4])
-            or np.count_nonzero(flags[:, 4:] != prev[:, 4:])
-            or np.count_nonzero(lli_lost)
+            np.count_nonzero(dt <= np.array(gap_s)) != d
+            or np.count_nonzero(cur[0:3] != prev_id)
+            or np.count_nonzero(cur[3:7] < prev_lock)
+            or (lli_lost is not None and np.count_nonzero(lli_lost))
         )
+        n = g[N]
+        tracked = None
+        if all_tracked is None or not all_tracked:
+            tracked = n >= 2
+            all_tracked = np.count_nonzero(tracked) == d
+        # Jump tests (they count only where the arc continues so far), as (GF, MW) stacks.
+        pred = g[GF_PRED]
+        if tracked is None or all_tracked:
+            np.multiply(g[GF_RATE], dt, out=pred)
+        else:
+            np.multiply(np.where(tracked, g[GF_RATE], 0.0), dt, out=pred)
+        pred += g[GF_LEVEL]
+        res = gf_mw - g[GF_PRED : MW_MEAN + 1]  # GF − prediction, MW − mean of the arc
+        jump = np.abs(res)
+        # Thresholds max(k·σ, floor): MW exactly; GF first by its lower bound a (the floor
+        # (a + b·dt)·e(el) is at least a: dt > 0, b ≥ 0, e ≥ 1), exactly only where a residual
+        # exceeds that bound (rare: GF residuals are millimetres, a is 15 mm).
+        mw_thr = np.sqrt(g[MW_VAR], out=g[MW_THR])
+        mw_thr *= self._mw_k
+        np.maximum(mw_thr, g[MW_FLOOR], out=mw_thr)
+        abs_res = jump
+        jump = abs_res > g[GF_LOW : MW_THR + 1]  # GF jump (bound only), MW jump
+        if not self._gf_bound or (np.count_nonzero(jump) and np.count_nonzero(jump[0])):
+            gf_thr = np.sqrt(g[GF_VAR])
+            gf_thr *= self._gf_k
+            # GF floor (a + b·dt)·e(el), e(el) = 1 + 2·exp(−el/15°), 2 where el is unknown
+            el_factor = np.multiply(el_rad, _EL_SCALE)
+            np.exp(el_factor, out=el_factor)
+            el_factor *= _TWO
+            el_factor += _ONE
+            if not el_known:
+                el_factor[np.isnan(el_rad)] = 2.0
+            floor = g[GF_FLOOR]
+            np.multiply(dt, self._floor_per_s, out=floor)
+            floor += self._floor
+            floor *= el_factor
+            np.maximum(gf_thr, floor, out=gf_thr)
+            np.greater(abs_res[0], gf_thr, out=jump[0])
+        gf_res = res[0]
+        mw_res = res[1]
+        if not screen and not np.count_nonzero(jump) and all_tracked:
+            # The common case: every arc continues and learns from its residuals, in place.
+            var = g[GF_VAR : MW_VAR + 1]
+            var *= self._keep_w
+            sq = np.multiply(res, self._w)
+            sq *= res
+            var += sq
+            step = np.multiply(self._rate_w, gf_res)
+            step /= dt
+            g[GF_RATE] += step
+            np.multiply(self._level_w, gf_res, out=step)
+            np.add(pred, step, out=g[GF_LEVEL])
+            n += _ONE
+            mw_res /= n
+            g[MW_MEAN] += mw_res
+            g[LAST_T] = t
+            g[RANK : LT2 + 1] = cur
+            return no_new, None
+        return self._general(g, t=t, dt=dt, gf_mw=gf_mw, res=res, jump=jump, cur=cur,
+                             lli_lost=lli_lost, gap_s=gap_s, screen=bool(screen),
+                             all_tracked=bool(all_tracked))  # fmt: skip
+
+    def _general(
+        self, g: F64, *, t: F64, dt: F64, gf_mw: F64, res: F64, jump: Bool, cur: F64,
+        lli_lost: Bool | None, gap_s: float, screen: bool, all_tracked: bool,
+    ) -> tuple[Bool, npt.NDArray[np.int64] | None]:  # fmt: skip
+        """:meth:`detect` when an arc may start or a young arc has fewer than two samples."""
+        d = g.shape[1]
+        th = self.th
+        gf_m, mw_m = gf_mw
+        gf_res, mw_res = res
+        gf_jump, mw_jump = jump
+        n = g[N]
+        tracked = n >= 2
+        new = gf_jump | mw_jump
         if screen:
-            prev_rank = g[:, RANK]
-            lock = flags[:, 0:2]
+            prev_rank = g[RANK]
+            lock = cur[3:5]
             lock_drop = (
-                ((lock < prev[:, 0:2]) & (lock >= 0)) | (flags[:, 2:4] < prev[:, 2:4])
-            ).any(axis=1)
+                ((lock < g[LOCK1 : LOCK2 + 1]) & (lock >= 0)) | (cur[5:7] < g[LT1 : LT2 + 1])
+            ).any(axis=0)
             first = np.isnan(dt)
             gap = dt > gap_s
-            pair = (prev_rank >= 0) & (prev_rank != rank)
-            lli = lli_lost | (flags[:, 4:] != prev[:, 4:]).any(axis=1)
+            pair = (prev_rank >= 0) & (prev_rank != cur[0])
+            lli = (cur[1:3] != g[HALF1 : HALF2 + 1]).any(axis=0)
+            if lli_lost is not None:
+                lli |= lli_lost
             hard = first | gap | pair | lli | lock_drop
-        # Jump tests (they count only where the arc continues so far).
-        mw_res = mw_m - g[:, MW_MEAN]
-        mw_thr = np.sqrt(g[:, MW_VAR])
-        mw_thr *= th.mw_k_sigma
-        np.maximum(mw_thr, th.mw_floor_wl_cycles * g[:, LWL], out=mw_thr)
-        # e(el) = 1 + 2·exp(−el/15°), 2 where the elevation is unknown
-        el_factor = np.exp(el_rad * (-180.0 / np.pi / 15.0))
-        el_factor *= 2.0
-        el_factor += 1.0
-        el_nan = np.isnan(el_rad)
-        if np.count_nonzero(el_nan):
-            el_factor[el_nan] = 2.0
-        n = g[:, N]
-        tracked = n >= 2
-        all_tracked = np.count_nonzero(tracked) == m
-        pred = _sel(all_tracked, tracked, g[:, GF_RATE], 0.0) * dt
-        pred += g[:, GF_LEVEL]
-        gf_res = gf_m - pred
-        gf_thr = np.sqrt(g[:, GF_VAR])
-        gf_thr *= th.gf_k_sigma
-        floor = th.gf_floor_m_per_s * dt
-        floor += th.gf_floor_m
-        floor *= el_factor
-        np.maximum(gf_thr, floor, out=gf_thr)
-        mw_jump = np.abs(mw_res) > mw_thr
-        gf_jump = np.abs(gf_res) > gf_thr
-        new = mw_jump | gf_jump
-        if screen:
             new |= hard
-        all_ok = np.count_nonzero(new) == 0  # the common case: nothing restarts this epoch
+        all_ok = np.count_nonzero(new) == 0
         reason: npt.NDArray[np.int64] | None = None
         if not all_ok:
             if not screen:
-                first = gap = pair = lli = lock_drop = hard = np.zeros(m, np.bool_)
+                first = gap = pair = lli = lock_drop = hard = np.zeros(d, np.bool_)
             cont = ~hard
             reason = (
                 first * REASON_FIRST | gap * REASON_GAP | pair * REASON_PAIR | lli * REASON_LLI
@@ -187,50 +270,34 @@ class ArcState:
                 | (cont & gf_jump) * REASON_GF
             )  # fmt: skip
         w = th.ema_weight
-        if all_ok and all_tracked:
-            # Continuing arcs learn from their residuals, in place on the block's columns.
-            mw_var = g[:, MW_VAR]
-            mw_var *= 1.0 - w
-            mw_var += w * mw_res * mw_res
-            gf_var = g[:, GF_VAR]
-            gf_var *= 1.0 - w
-            gf_var += w * gf_res * gf_res
-            step = th.rate_weight * gf_res
-            step /= dt
-            g[:, GF_RATE] += step
-            pred += th.level_weight * gf_res
-            g[:, GF_LEVEL] = pred
-            n += 1.0
-            g[:, MW_MEAN] += mw_res / n
-        else:
-            ok = ~new
-            # Continuing arcs learn from their residuals; new arcs restart.
-            mw_var = g[:, MW_VAR]
-            g[:, MW_VAR] = _sel(all_ok, ok, (1.0 - w) * mw_var + w * mw_res * mw_res, mw_var)
-            # GF: the scatter learns only once the rate prediction is in use; α–β tracker: the
-            # level absorbs part of the residual, the rate a smaller part (the second sample of
-            # an arc sets the rate from a plain difference).
-            gf_var = g[:, GF_VAR]
-            learn = ok & tracked
-            g[:, GF_VAR] = _sel(
-                all_ok and all_tracked, learn, (1.0 - w) * gf_var + w * gf_res * gf_res, gf_var
-            )
-            rate = g[:, GF_RATE] + th.rate_weight * gf_res / dt
-            level = pred + th.level_weight * gf_res
-            if not all_tracked:
-                second = n == 1
-                rate = np.where(second, (gf_m - g[:, GF_LEVEL]) / dt, rate)
-                level = np.where(second, gf_m, level)
-            g[:, GF_RATE] = _sel(all_ok, ok, rate, 0.0)
-            g[:, GF_LEVEL] = _sel(all_ok, ok, level, gf_m)
-            n_new = _sel(all_ok, ok, n + 1.0, 1.0)
-            g[:, N] = n_new
-            g[:, MW_MEAN] = _sel(all_ok, ok, g[:, MW_MEAN] + mw_res / n_new, mw_m)
-            if not all_ok:
-                k = int(np.count_nonzero(new))
-                g[new, ARC] = self.next_arc + np.arange(k)
-                self.next_arc += k
-        g[:, LAST_T] = t
-        g[:, RANK] = rank
-        prev[...] = flags
+        ok = ~new
+        pred = g[GF_PRED]
+        # Continuing arcs learn from their residuals; new arcs restart.
+        mw_var = g[MW_VAR]
+        g[MW_VAR] = _sel(all_ok, ok, (1.0 - w) * mw_var + w * mw_res * mw_res, mw_var)
+        # GF: the scatter learns only once the rate prediction is in use; α–β tracker: the
+        # level absorbs part of the residual, the rate a smaller part (the second sample of
+        # an arc sets the rate from a plain difference).
+        gf_var = g[GF_VAR]
+        learn = ok & tracked
+        g[GF_VAR] = _sel(
+            all_ok and all_tracked, learn, (1.0 - w) * gf_var + w * gf_res * gf_res, gf_var
+        )
+        rate = g[GF_RATE] + th.rate_weight * gf_res / dt
+        level = pred + th.level_weight * gf_res
+        if not all_tracked:
+            second = n == 1
+            rate = np.where(second, (gf_m - g[GF_LEVEL]) / dt, rate)
+            level = np.where(second, gf_m, level)
+        g[GF_RATE] = _sel(all_ok, ok, rate, 0.0)
+        g[GF_LEVEL] = _sel(all_ok, ok, level, gf_m)
+        n_new = _sel(all_ok, ok, n + 1.0, 1.0)
+        g[MW_MEAN] = _sel(all_ok, ok, g[MW_MEAN] + mw_res / n_new, mw_m)
+        g[N] = n_new
+        if not all_ok:
+            k = int(np.count_nonzero(new))
+            g[ARC, new] = self.next_arc + np.arange(k)
+            self.next_arc += k
+        g[LAST_T] = t
+        g[RANK : LT2 + 1] = cur
         return new, reason

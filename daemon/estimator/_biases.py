@@ -4,17 +4,19 @@ Axes: ``S`` satellite slots × ``W`` pair ranks of the pair table; ``m`` satelli
 
 * Satellite part, per (satellite, rank): c·(d₂ − d₁) metres from the broadcast group delays
   (:func:`band_delays_s`) or −c·DCB from ``[estimator] satellite_dcb_ns``; × K gives TECU.
-* Receiver part, per group (system, pair): :class:`ReceiverBias` (reduced least squares with a
-  plane of VTEC), applied once its 1-σ is at most ``APPLY_SIGMA_TECU``.
-* Satellites whose satellite part is unknown (GLONASS FDMA, GPS L5 without CNAV ISC, …) enter
-  the same least-squares fit with one combined satellite + receiver bias per (satellite, pair)
-  (:class:`ReceiverBias` per-satellite groups): the system groups of the satellites with a known
-  satellite part anchor the VTEC plane, so plane and biases separate, and the accumulated normal
-  equations give each combined bias with its σ. Their observations are down-weighted while the
-  arc is young (levelling error). A combined bias is applied after ``COMB_MIN_SAMPLES`` updates
-  once its 1-σ is at most ``APPLY_SIGMA_TECU`` (until then their STEC is NaN). Without any known
-  satellite part at all (no ephemerides), every satellite enters the fit with 0 in its system
-  group and STEC carries the (unknown) satellite biases.
+* Receiver part, per group (system, pair): :class:`ReceiverBias` (least squares with a smooth
+  quadratic VTEC surface, open arcs re-levelled), applied once its 1-σ is at most
+  ``APPLY_SIGMA_TECU``.
+* Satellites whose satellite part is unknown (GLONASS FDMA with Δτ_n = 0 "not known", GPS L5
+  without CNAV ISC, …) enter the same least-squares fit with one combined satellite + receiver
+  bias per (satellite, pair) (:class:`ReceiverBias` per-satellite groups): the system groups of
+  the satellites with a known satellite part anchor the VTEC surface, so surface and biases
+  separate, and the accumulated normal equations give each combined bias with its σ. Their
+  observations are down-weighted while the arc is young (levelling error). A combined bias is
+  applied after ``COMB_MIN_SAMPLES`` updates once its 1-σ is at most ``APPLY_SIGMA_TECU`` (until
+  then their STEC is NaN). Without any known satellite part at all (no ephemerides), every
+  satellite enters the fit with 0 in its system group and STEC carries the (unknown) satellite
+  biases.
 """
 
 from __future__ import annotations
@@ -126,9 +128,12 @@ class BiasModel:
     def update(
         self, t: float, *, y: F64, idx: Idx, rank: Idx, group: Idx, mapping: F64, x_km: F64,
         y_km: F64, weight: F64, arc_samples: F64 | None = None,
+        arc: npt.NDArray[np.int64] | None = None, level: F64 | None = None,
     ) -> None:  # fmt: skip
         """One epoch of the fit: ``y`` = STEC_raw − satellite part (TECU) of usable satellites;
-        ``arc_samples``: samples so far in each satellite's arc (levelling maturity)."""
+        ``arc_samples``: samples so far in each satellite's arc (levelling maturity); ``arc``,
+        ``level``: arc id and the levelling offset inside ``y`` (TECU), to re-level open arcs
+        (:meth:`ReceiverBias.add_epoch`)."""
         m = y.shape[0]
         for a in (idx, rank, group, mapping, x_km, y_km, weight):
             assert a.shape == (m,), (a.shape, m)
@@ -151,7 +156,7 @@ class BiasModel:
                 weight[other] *= n_o / (n_o + _COMB_ARC_SAMPLES)
         ok = self.rx.add_epoch(
             t, y=y, mapping=mapping, x_km=x_km, y_km=y_km, group=group, weight=weight,
-            n_epoch_groups=n_sys,
+            n_epoch_groups=n_sys, arc=arc, level=level,
         )  # fmt: skip
         if ok and other.any():
             self.comb_count *= math.exp(-self.update_s / self.memory_s)

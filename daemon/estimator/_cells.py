@@ -43,6 +43,7 @@ N_SIG = 10 * 32  # packed signal codes are band*32 + attribute, bands 0–9
 COMB_NAMES = ("gf", "mw", "lev_x", "gf_tecu", "if_code", "if_phase", "mp1", "mp2")
 (GF_ROW, MW_ROW, LEVX_ROW, GFT_ROW, IFC_ROW, IFP_ROW, MP1_ROW, MP2_ROW) = range(len(COMB_NAMES))
 _MAX_STAMP = np.iinfo(np.int32).max
+_ZERO = np.array(0.0)
 
 
 @dataclass(slots=True, eq=False, kw_only=True)
@@ -60,12 +61,13 @@ class EpochLayout:
     rank: Idx  # (d,)
     rank_f: F64  # (d,) the same as float (state column)
     i12: Idx  # (2d,) cell index of band 1 then band 2 of each pair
+    i12_2: Idx  # (2, d) the same as rows band 1, band 2
     labels: tuple[str, ...]  # (m,) pair label ("" single-frequency)
     cell_pos: Idx  # (n,) position of each cell's satellite in ``present`` (m: out of range)
     bias_flat: Idx  # (d,) flat index sat·W + rank into the (S, W) bias tables
     group: Idx  # (d,) receiver-bias group (system, rank)
     wavelength_m: F64  # (2, d) c/f of band 1 and band 2
-    coefs: F64  # (d, 9) state columns F1 … NOISE: f1, f2, K, α, β, γ, λ_WL, L1 m/TECU, noise
+    coefs: F64  # (9, d) block rows F1 … NOISE: f1, f2, K, α, β, γ, λ_WL, L1 m/TECU, noise
     comb: F64  # (len(COMB_NAMES), 4, d) combination coefficients over L1, L2, P1, P2
     no_lli: npt.NDArray[np.bool_]  # (d,) all False, read-only
 
@@ -100,7 +102,8 @@ class CellRouter:
         pr = epoch.pseudorange_m
         # Usable values: code > 0 and code, phase, frequency finite (their product is finite
         # exactly when all three are: |values| < 1e9 · 1e9 · 1e10 never overflow).
-        ok = (pr > 0.0) & np.isfinite(pr * epoch.phase_cycles * epoch.freq_hz)
+        ok = np.isfinite(pr * epoch.phase_cycles * epoch.freq_hz)
+        ok &= pr > _ZERO
         key = b"".join((epoch.sat.tobytes(), epoch.sig.tobytes(), epoch.freq_hz.tobytes(),
                         ok.tobytes()))  # fmt: skip
         last = self._last
@@ -156,7 +159,7 @@ class CellRouter:
         co = iono_coefficients(f1, f2)
         coefs = np.stack(
             (f1, f2, co.k_tecu_per_m, co.alpha, co.beta, co.gamma, co.lambda_wl_m,
-             co.l1_m_per_tecu, co.noise_factor), axis=1,
+             co.l1_m_per_tecu, co.noise_factor),
         )  # fmt: skip
         k, a, b, gam = co.k_tecu_per_m, co.alpha, co.beta, co.gamma
         g1 = 2.0 / (gam - 1.0)
@@ -177,7 +180,8 @@ class CellRouter:
         ).reshape(len(COMB_NAMES), 4, d)
         sat16 = present.astype(np.int16)
         no_lli = np.zeros(d, np.bool_)
-        for arr in (present, sat16, has, rank_all, idx, rank, i12, cell_pos, no_lli):
+        i12_2 = i12.reshape(2, d)
+        for arr in (present, sat16, has, rank_all, idx, rank, i12, i12_2, cell_pos, no_lli, coefs):
             arr.setflags(write=False)
         return EpochLayout(
             key=key,
@@ -191,6 +195,7 @@ class CellRouter:
             rank=rank,
             rank_f=rank.astype(np.float64),
             i12=i12,
+            i12_2=i12_2,
             labels=tuple(labels.tolist()),
             cell_pos=cell_pos,
             bias_flat=idx * width + rank,

@@ -1,16 +1,21 @@
 """The rolling ionosphere estimator of one station: ObsEpoch in, StationSnapshot out.
 
 Pure and vectorised (STYLE rules 21–22): ``update(epoch)`` takes time from the epoch and never
-reads a clock; per-satellite state is one preallocated (S, NSTATE) matrix indexed by satellite id
-(``S = MAX_SAT_ID`` slots, columns in ``_state``), gathered once (with the layout's pair
-coefficients appended) and scattered once per epoch for the ``m`` satellites present; rolling windows are ring buffers (``_windows``); no per-satellite
-Python branch on the hot path. Pair choice per satellite: the first configured pair (``_pairs``)
-whose two signals both have code and phase this epoch; a change of pair starts a new arc. The pair
-choice, cell indices and pair constants depend only on the epoch's layout and are cached while it
-repeats (``_cells``); the linear combinations (GF, MW, levelling sample, IF, MP) come out of one
-contraction of the (4, d) measurements with the layout's coefficient matrix. Work on the common
-path (no arc starts, every satellite dual-frequency) skips the masking the rare cases need. The
-~500 lines keep the whole per-epoch path in one place (STYLE rule 1's soft cap exceeded on purpose).
+reads a clock; per-satellite state is one preallocated (NSTATE, S) matrix indexed by satellite id
+(``S = MAX_SAT_ID`` slots, rows in ``_state``). The rows of the layout's ``d`` satellites, with
+the layout's pair coefficients appended, form the working block, gathered when the layout changes
+and kept while it repeats (written back when it changes or the state is read:
+:meth:`StationEstimator.state_rows`); rolling windows are ring buffers (``_windows``); no
+per-satellite Python branch on the hot path. Pair choice per satellite: the first configured pair
+(``_pairs``) whose two signals both have code and phase this epoch; a change of pair starts a new
+arc. The pair choice, cell indices and pair constants depend only on the epoch's layout and are
+cached while it repeats (``_cells``); the linear combinations (GF, MW, levelling sample, IF, MP)
+come out of one contraction of the (4, d) measurements with the layout's coefficient matrix. Work
+on the common path (no arc starts, every satellite dual-frequency, arcs longer than the Hatch
+window) skips the masking the rare cases need; every shortcut gives the general path's results
+bit for bit (tests/test_estimator_fastpaths.py). Constants enter numpy calls as 0-d arrays (a
+Python float costs a conversion per call: the per-epoch cost is the number of calls). The ~600
+lines keep the whole per-epoch path in one place (STYLE rule 1's soft cap exceeded on purpose).
 
 Symbols per satellite (SCIENCE.md §2–§9): P1, P2 code (m); L1, L2 phase (m = cycles·c/f); K
 (TECU/m); GF = L1 − L2; MW Melbourne–Wübbena; STEC_raw = K·GF + levelling offset (TECU), the
@@ -24,24 +29,25 @@ from __future__ import annotations
 
 import copy
 import math
+from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import numpy.typing as npt
 
 from ionwarden.daemon.config import EstimatorSettings
-from ionwarden.daemon.geo import mapping_factor
 from ionwarden.parsers import MAX_SAT_ID
 
 from ._arcs import REASON_NAMES, REASON_PAIR, ArcState, SlipThresholds
 from ._biases import BiasModel
-from ._cells import IFP_ROW, MP1_ROW, CellRouter, EpochLayout
+from ._cells import GF_ROW, GFT_ROW, IFC_ROW, IFP_ROW, LEVX_ROW, MP1_ROW, CellRouter, EpochLayout
 from ._geometry import Geometry
 from ._pairs import PairTable, band_delays_s
 from ._persist import apply_rolling, checked_rolling, resume_allowed, rolling_state
-from ._snapshot import SatelliteFigures, StationSnapshot
+from ._snapshot import SatelliteFigures, StationSnapshot, new_satellite_figures, new_snapshot
 from ._state import (
     ARC,
+    F1,
     GF0,
     HATCH,
     IFL_PREV,
@@ -52,12 +58,13 @@ from ._state import (
     MP1,
     MP2,
     NOISE,
+    NROW,
     NSTATE,
     K,
     N,
     new_state,
 )  # fmt: skip
-from ._station import pierce_offsets_km, station_figures
+from ._station import SkyTerms, station_figures
 from ._windows import LagRing, SlotStd
 
 if TYPE_CHECKING:
@@ -74,6 +81,26 @@ _TIME_RESET_S = 3600.0
 STATE_VERSION = 2
 #: Epoch intervals remembered to estimate the sampling interval (median).
 _INTERVAL_HISTORY = 9
+_LEV_FLOOR = np.array(0.1)  # sin(el) floor of the levelling weights
+_ZERO = np.array(0.0)
+#: Figures of :meth:`StationEstimator._dual` spread over every satellite present (NaN where
+#: single-frequency) in epochs with single-frequency satellites.
+_SPREAD = ("stec", "rot", "roti", "iono_l1", "if_code", "if_phase", "hatch", "mp1", "mp2",
+           "noise_factor")  # fmt: skip
+
+
+@dataclass(slots=True, eq=False)
+class _Block:
+    """The working block of the current layout (see ``_state``), kept while the layout repeats."""
+
+    lay: EpochLayout
+    g: F64  # (NROW, d) state rows of lay.idx, then the layout's coefficients and work rows
+    cur: F64  # (7, d) this epoch's rank, half-cycle flags, lock indicators, lock times
+    cur_flags: F64  # (3, 2d) view of cur[1:7]: flags, indicators, times of band 1 then band 2
+    cells: F64  # (3, n) this epoch's half-cycle flags, lock indicators, lock times per cell
+    meas: F64  # (4, d) L1, L2 (m), P1, P2 (m)
+    arc: npt.NDArray[np.int32]  # (d,) arc ids, read-only (goes into snapshots)
+    n_min: float  # smallest sample count of the arcs (NaN: unknown)
 
 
 class StationEstimator:
@@ -97,7 +124,11 @@ class StationEstimator:
         S = MAX_SAT_ID
         th = SlipThresholds(mw_k_sigma=cfg.slip_mw_k_sigma, gf_floor_m=cfg.slip_gf_floor_m)
         self.arcs = ArcState(th)
-        self.state = new_state(S, th.mw_prior_sigma_m**2, th.gf_prior_sigma_m**2)
+        #: (NSTATE, S) per-satellite state; the rows of the current layout's satellites live in
+        #: ``_blk`` between epochs (:meth:`state_rows` writes them back).
+        self._st = new_state(S, th.mw_prior_sigma_m**2, th.gf_prior_sigma_m**2)
+        self._blk: _Block | None = None
+        self._sky = SkyTerms(self._shell_m)
         self.geometry = Geometry(
             S, cfg.geometry_refresh_s, shell_m=self._shell_m, keep_per_sat=ephemerides_per_sat
         )
@@ -175,31 +206,34 @@ class StationEstimator:
         present = lay.present
         m = present.shape[0]
         geo, geo_source = self.geometry.lookup(present, t)
+        el_known = self.geometry.all_known  # orbit geometry for all: no elevation is NaN
         el_all = geo[0]
         # sin(el) once: levelling weights, station weights and receiver-bias weights use it.
         sin_all = np.sin(el_all)
         el = el_all if lay.all_dual else el_all[lay.has]
         sin_el = sin_all if lay.all_dual else sin_all[lay.has]
-        figs = self._dual(epoch, lay, t=t, interval=interval, el=el, sin_el=sin_el)
+        figs = self._dual(epoch, lay, t=t, interval=interval, el=el, sin_el=sin_el,
+                          el_known=el_known)  # fmt: skip
 
-        def spread(a: F64) -> F64:
-            """A per-pair-satellite array over every satellite present (NaN single-frequency)."""
-            if lay.all_dual:
-                return a
-            out = np.full(m, np.nan)
-            out[lay.has] = a
-            return out
+        if not lay.all_dual:  # per-pair-satellite arrays over every satellite present
+            for name in _SPREAD:
+                full = np.full(m, np.nan)
+                full[lay.has] = figs[name]
+                figs[name] = full
 
-        mapping = mapping_factor(el_all, self._shell_m)
-        stec = spread(figs["stec"])
-        vtec = np.where(el_all > 0.0, stec / mapping, np.nan)
-        rot = spread(figs["rot"])
-        roti = spread(figs["roti"])
-        x_km, y_km = pierce_offsets_km(
-            self.geometry.lat_rad, self.geometry.lon_rad, geo[2], geo[3], self._shell_m
-        )
+        mapping = self._sky.mapping(el_all)
+        stec = figs["stec"]
+        # Rows x, y (km) of the pierce points and VTEC: the station figures' plane-fit input.
+        pts = np.empty((3, m))
+        self._sky.offsets(self.geometry.lat_rad, self.geometry.lon_rad, geo[2:4], pts[:2])
+        vtec = np.divide(stec, mapping, out=pts[2])
+        up = el_all > _ZERO
+        if np.count_nonzero(up) != m:
+            vtec[~up] = np.nan
+        rot = figs["rot"]
+        roti = figs["roti"]
         st = station_figures(
-            el_rad=el_all, sin_el=sin_all, vtec=vtec, rot=rot, roti=roti, x_km=x_km, y_km=y_km,
+            el_rad=el_all, sin_el=sin_all, el_known=el_known, pts=pts, rot=rot, roti=roti,
             mask_rad=self._mask_rad,
         )  # fmt: skip
         self._last_roti_median = st.roti_median
@@ -207,8 +241,8 @@ class StationEstimator:
         bias_ref, sigma_ref = self.biases.reference()
         if self.biases.due(t):
             self._update_receiver_bias(
-                t, figs, lay=lay, el_all=el_all, sin_all=sin_all, mapping=mapping, x_km=x_km,
-                y_km=y_km,
+                t, figs, lay=lay, el_all=el_all, sin_all=sin_all, mapping=mapping, x_km=pts[0],
+                y_km=pts[1],
             )  # fmt: skip
 
         if lay.all_dual:
@@ -224,7 +258,7 @@ class StationEstimator:
         deg = np.empty((4, m + 1))
         np.degrees(geo, out=deg[:, :m])
         deg[0, m] = np.nan
-        sats = SatelliteFigures(
+        sats = new_satellite_figures(
             sat=lay.sat16,
             pair=lay.labels,
             el_deg=deg[0, :m],
@@ -235,18 +269,18 @@ class StationEstimator:
             vtec_tecu=vtec,
             rot_tecu_per_min=rot,
             roti_tecu_per_min=roti,
-            iono_l1_m=spread(figs["iono_l1"]),
-            if_code_m=spread(figs["if_code"]),
-            if_phase_m=spread(figs["if_phase"]),
-            if_code_smoothed_m=spread(figs["hatch"]),
+            iono_l1_m=figs["iono_l1"],
+            if_code_m=figs["if_code"],
+            if_phase_m=figs["if_phase"],
+            if_code_smoothed_m=figs["hatch"],
             slip=slip,
             arc_id=arc_id,
-            mp1_m=spread(figs["mp1"]),
-            mp2_m=spread(figs["mp2"]),
-            if_noise_factor=spread(figs["noise_factor"]),
+            mp1_m=figs["mp1"],
+            mp2_m=figs["mp2"],
+            if_noise_factor=figs["noise_factor"],
             pair_switch=switch,
         )
-        return StationSnapshot(
+        return new_snapshot(
             station=self.station,
             time=epoch.time,
             n_sats=m,
@@ -263,115 +297,186 @@ class StationEstimator:
             satellites=sats,
             cell_sat=epoch.sat,
             cell_sig=epoch.sig,
-            cell_el_deg=deg[0].take(lay.cell_pos),
+            cell_el_deg=deg[0][lay.cell_pos],
             cell_cn0_dbhz=epoch.cn0_dbhz,
             geometry_source=geo_source if m else "none",
             counters=self._counters(),
         )
 
+    # -- the working block ----------------------------------------------------------------------
+    def _block(self, lay: EpochLayout) -> _Block:
+        """The block of ``lay`` (gathered from the state when the layout changed)."""
+        blk = self._blk
+        if blk is not None and blk.lay is lay:
+            return blk
+        self._sync()
+        d = lay.idx.shape[0]
+        g = np.empty((NROW, d))
+        g[:NSTATE] = self._st[:, lay.idx]
+        g[F1 : NOISE + 1] = lay.coefs
+        self.arcs.prepare_block(g)
+        cur = np.empty((7, d))
+        cur[0] = lay.rank_f
+        arc = g[ARC].astype(np.int32)
+        arc.setflags(write=False)
+        self._blk = blk = _Block(
+            lay=lay, g=g, cur=cur, cur_flags=cur[1:].reshape(3, 2 * d),
+            cells=np.empty((3, lay.cell_pos.shape[0])), meas=np.empty((4, d)), arc=arc,
+            n_min=math.nan,
+        )  # fmt: skip
+        return blk
+
+    def _sync(self) -> None:
+        """Write the working block back into the state and drop it."""
+        blk = self._blk
+        if blk is not None:
+            self._st[:, blk.lay.idx] = blk.g[:NSTATE]
+            self._blk = None
+
+    def state_rows(self) -> F64:
+        """The (NSTATE, S) per-satellite state, up to date (rows as ``_state.ROWS``); writing
+        into it is allowed."""
+        self._sync()
+        return self._st
+
     def _dual(
-        self, epoch: ObsEpoch, lay: EpochLayout, *, t: float, interval: float, el: F64, sin_el: F64
-    ) -> dict[str, Any]:
+        self, epoch: ObsEpoch, lay: EpochLayout, *, t: float, interval: float, el: F64,
+        sin_el: F64, el_known: bool,
+    ) -> dict[str, Any]:  # fmt: skip
         """All dual-frequency figures of the ``d`` satellites ``lay.idx`` (arrays of length d).
 
-        The state rows of ``idx`` are gathered once into ``g`` and scattered back at the end.
-        Cell values come as (2, d) arrays: row 0 band 1, row 1 band 2 of each pair; the linear
-        combinations of SCIENCE.md §3/§9 come out of one product with ``lay.comb``.
+        They work on the layout's block ``g`` (rows: ``_state``). Cell values come as (2, d)
+        arrays: row 0 band 1, row 1 band 2 of each pair; the linear combinations of SCIENCE.md
+        §3/§9 come out of one product with ``lay.comb``. Arrays returned are new each epoch or
+        read-only: snapshots hand them on.
         """
+        blk = self._block(lay)
+        g = blk.g
         idx = lay.idx
-        i12 = lay.i12
+        i12 = lay.i12_2
         d = idx.shape[0]
-        g = np.concatenate((self.state.take(idx, axis=0), lay.coefs), axis=1)
-        meas = np.empty((4, d))
-        np.multiply(epoch.phase_cycles.take(i12).reshape(2, d), lay.wavelength_m, out=meas[:2])
-        meas[2:] = epoch.pseudorange_m.take(i12).reshape(2, d)
+        meas = blk.meas
+        epoch.phase_cycles.take(i12, out=meas[:2], mode="clip")
+        meas[:2] *= lay.wavelength_m
+        epoch.pseudorange_m.take(i12, out=meas[2:], mode="clip")
         comb = np.einsum("kjd,jd->kd", lay.comb, meas)  # (combinations, d)
-        gf, mw, lev_x, gf_tecu, if_code, if_phase = comb[: IFP_ROW + 1]
+        gf_tecu = comb[GFT_ROW]
+        lev_x = comb[LEVX_ROW]
+        if_code = comb[IFC_ROW]
+        if_phase = comb[IFP_ROW]
         mp = comb[MP1_ROW:]
-        lli_lost = lay.no_lli
+        lli_lost = None
         if np.count_nonzero(epoch.lli):
-            lli_lost = np.logical_or.reduce(epoch.lli.take(i12).reshape(2, d) & 1, axis=0)
+            lli_lost = np.logical_or.reduce(epoch.lli[i12] & 1, axis=0)
         gap_s = max(self.settings.max_gap_s, self.settings.gap_samples * interval)
-        # Lock indicators, lock times and half-cycle flags of both bands, in state-column order.
-        flags = np.empty((6, d))
-        flags[0:2] = epoch.lock_indicator.take(i12).reshape(2, d)
-        flags[2:4] = epoch.lock_time_s.take(i12).reshape(2, d)
-        flags[4:6] = epoch.half_cycle.take(i12).reshape(2, d)
+        # Half-cycle flags, lock indicators and lock times of both bands, in block-row order:
+        # the three cell arrays as float rows, then one gather of both bands.
+        cells = blk.cells
+        cells[0] = epoch.half_cycle
+        cells[1] = epoch.lock_indicator
+        cells[2] = epoch.lock_time_s
+        cur = blk.cur
+        cells.take(lay.i12, axis=1, out=blk.cur_flags, mode="clip")
+        if math.isnan(blk.n_min):
+            blk.n_min = float(g[N].min()) if d else math.inf
+        t_arr = np.array(t)
         new, reason = self.arcs.detect(
-            g, t=t, rank=lay.rank_f, mw_m=mw, gf_m=gf, el_rad=el, flags=flags.T,
-            lli_lost=lli_lost, gap_s=gap_s,
+            g, t=t_arr, gf_mw=comb[GF_ROW : GF_ROW + 2], el_rad=el, el_known=el_known, cur=cur,
+            lli_lost=lli_lost, gap_s=gap_s, all_tracked=blk.n_min >= 2.0, no_new=lay.no_lli,
         )  # fmt: skip
         any_new = reason is not None
         if reason is not None:
             for bit, name in REASON_NAMES.items():
                 self.counters[f"arcs_{name}"] += int(np.count_nonzero(reason & bit))
             pair_switch = (reason & REASON_PAIR) != 0
+            arc = g[ARC].astype(np.int32)
+            arc.setflags(write=False)
+            blk.arc = arc
+            blk.n_min = math.nan
         else:
-            pair_switch = np.zeros(d, np.bool_)
-        n_arc = g[:, N]
+            pair_switch = lay.no_lli  # all False, read-only
+            arc = blk.arc
+            blk.n_min += 1.0
+        n_arc = g[N]
         # Arc starts reset every per-arc accumulator (levelling, ROT origin, Hatch, MP means).
-        keep = ~new
+        keep = ~new if any_new else new  # read only when an arc starts
         if any_new:
-            g[:, GF0] = np.where(keep, g[:, GF0], gf_tecu)
+            g[GF0] = np.where(keep, g[GF0], gf_tecu)
 
         # Levelling: running sin²el-weighted mean of K·(P2 − P1) − K·GF over the arc.
-        s_el = np.maximum(sin_el, 0.1)
-        s_el *= s_el
-        w = np.where(np.isnan(el), 1.0, s_el)
-        sw = np.where(keep, g[:, LEV_SW], 0.0) if any_new else g[:, LEV_SW]
+        w = np.maximum(sin_el, _LEV_FLOOR)
+        w *= w
+        if not el_known:
+            w = np.where(np.isnan(el), 1.0, w)
+        sw = g[LEV_SW]
+        lev = g[LEV_MEAN]
+        if any_new:
+            sw[...] = np.where(keep, sw, 0.0)
+            lev[...] = np.where(keep, lev, lev_x)
         sw += w
-        lev = np.where(keep, g[:, LEV_MEAN], lev_x) if any_new else g[:, LEV_MEAN]
-        lev += (w / sw) * (lev_x - lev)
-        g[:, LEV_SW] = sw
-        g[:, LEV_MEAN] = lev
+        w /= sw
+        step = lev_x - lev
+        step *= w
+        lev += step
         stec_raw = gf_tecu + lev
         # The bias tables change every receiver_bias_update_s at most: reuse the correction.
         cached = self._bias_cache
         if cached is not None and cached[0] is lay and cached[1] == self.biases.version:
             b_sat, total_bias = cached[2], cached[3]
         else:
-            b_sat, total_bias = self.biases.correction(lay.bias_flat, lay.group, g[:, K])
+            b_sat, total_bias = self.biases.correction(lay.bias_flat, lay.group, g[K])
             self._bias_cache = (lay, self.biases.version, b_sat, total_bias)
         stec = stec_raw - total_bias
 
         # ROT over the lag, from the arc-relative levelled phase; ROTI over the window.
-        rel = gf_tecu - g[:, GF0]
-        arc = g[:, ARC].astype(np.int32)
-        lagged, t_lag = self.rot_ring.lagged(t, idx, arc, interval)
-        rot = (rel - lagged) * (60.0 / (t - t_lag)) if math.isfinite(t_lag) else lagged
-        self.rot_ring.push(t, idx, rel, arc)
-        self.roti_window.push(t, idx, rot)
-        roti = self.roti_window.std(idx, self.settings.roti_min_samples)
+        rel = gf_tecu - g[GF0]
+        lagged, t_lag = self.rot_ring.lag_push(t, idx, rel, arc, interval)
+        if math.isfinite(t_lag):
+            rot = np.subtract(rel, lagged, out=lagged)
+            rot *= 60.0 / (t - t_lag)
+        else:
+            rot = lagged
+        roti = self.roti_window.push_std(t, idx, rot, self.settings.roti_min_samples)
 
         # Hatch filter (reset per arc) of the iono-free code, code-minus-carrier multipath.
-        n_h = np.minimum(n_arc, max(self.settings.hatch_window_s / interval, 1.0))
-        prev = g[:, HATCH] + if_phase - g[:, IFL_PREV]
-        hatch = if_code / n_h + (n_h - 1.0) / n_h * prev
+        window = max(self.settings.hatch_window_s / interval, 1.0)
+        prev = g[HATCH] + if_phase
+        prev -= g[IFL_PREV]
+        if not any_new and blk.n_min >= window:  # every arc longer than the window: N fixed
+            hatch = if_code / window
+            prev *= (window - 1.0) / window
+        else:
+            n_h = np.minimum(n_arc, window)
+            hatch = if_code / n_h
+            prev *= (n_h - 1.0) / n_h
+        hatch += prev
         if any_new:
             hatch = np.where(new, if_code, hatch)
-        g[:, HATCH] = hatch
-        g[:, IFL_PREV] = if_phase
-        mp_mean = g[:, MP1 : MP2 + 1].T
+        g[HATCH] = hatch
+        g[IFL_PREV] = if_phase
+        mp_mean = g[MP1 : MP2 + 1]
         if any_new:
-            mp_mean = np.where(keep, mp_mean, 0.0)
-        mp_mean += (mp - mp_mean) / n_arc
-        g[:, MP1 : MP2 + 1] = mp_mean.T
-        self.state[idx] = g[:, :NSTATE]
+            mp_mean[...] = np.where(keep, mp_mean, 0.0)
+        step2 = mp - mp_mean
+        step2[0] /= n_arc
+        step2[1] /= n_arc
+        mp_mean += step2
         mp -= mp_mean
         return {
             "stec": stec,
             "stec_raw": stec_raw,
+            "lev": lev,
             "b_sat": b_sat,
             "n_arc": n_arc,
             "rot": rot,
             "roti": roti,
-            "iono_l1": stec * g[:, L1M],
+            "iono_l1": stec * g[L1M],
             "if_code": if_code,
             "if_phase": if_phase,
             "hatch": hatch,
             "mp1": mp[0],
             "mp2": mp[1],
-            "noise_factor": g[:, NOISE],
+            "noise_factor": lay.coefs[NOISE - F1],
             "arc": arc,
             "new": new,
             "pair_switch": pair_switch,
@@ -398,13 +503,14 @@ class StationEstimator:
             t, y=y[use], idx=lay.idx[use], rank=lay.rank[use], group=lay.group[use],
             mapping=mapping[has][use], x_km=x_km[has][use], y_km=y_km[has][use],
             weight=quiet * sin_all[has][use] ** 2, arc_samples=figs["n_arc"][use],
+            arc=figs["arc"][use].astype(np.int64), level=figs["lev"][use],
         )  # fmt: skip
 
     def _restart_time(self) -> None:
         """Time went far backwards: forget everything tied to time (arcs, windows), keep the
         receiver-bias estimate (a property of the hardware)."""
         self.counters["time_resets"] = self.counters.get("time_resets", 0) + 1
-        self.state[:, LAST_T] = np.nan
+        self.state_rows()[LAST_T] = np.nan
         self.rot_ring = LagRing(MAX_SAT_ID, self.settings.rot_interval_s, self.rot_ring.rows)
         self.roti_window = SlotStd(
             MAX_SAT_ID, self.settings.roti_window_s, self.settings.roti_sample_s

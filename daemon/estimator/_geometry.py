@@ -4,7 +4,9 @@ Axes: ``S`` satellite slots (``MAX_SAT_ID``); angles in radians inside, degrees 
 (GSV input). Elevation changes by less than 0.01° per second, so a satellite's geometry is
 recomputed from its orbit only when it is older than ``refresh_s`` (all satellites of the epoch
 in one vectorised call) and in between extrapolated linearly from the per-slot cache (rates from
-the last two refreshes).
+the last two refreshes). While the satellites repeat and all of them were refreshed together,
+their cached rows and rates are kept as (4, m) arrays, so an epoch costs two operations plus the
+angle wraps.
 """
 
 from __future__ import annotations
@@ -29,6 +31,8 @@ GSV_MAX_AGE_S = 30.0
 _TWO_PI = 2.0 * np.pi
 #: Step of the second orbit evaluation that gives a cold satellite its extrapolation rate (s).
 _RATE_STEP_S = 10.0
+_TWO_PI_0D = np.array(_TWO_PI)
+_PI_0D = np.array(np.pi)
 
 
 class Geometry:
@@ -54,6 +58,14 @@ class Geometry:
         self.store = EphemerisStore(keep_per_sat=keep_per_sat)
         self.has_ephemeris = False
         self.counters: dict[str, int] = {}
+        #: Bumped whenever ``geo``, ``rate``, ``t_orbit`` or the receiver change.
+        self.version = 0
+        #: Whether the last :meth:`lookup` had orbit geometry for every satellite (no NaN, no
+        #: GSV fallback).
+        self.all_known = False
+        #: (sats, version, t_orbit, geo rows, rates) of the last satellites seen when all had
+        #: orbit geometry refreshed at one time (see the module doc).
+        self._same: tuple[Idx, int, float, F64, F64] | None = None
 
     # -- inputs ---------------------------------------------------------------------------------
     def set_receiver_position(self, ecef_m: npt.ArrayLike, source: str) -> None:
@@ -65,6 +77,7 @@ class Geometry:
         self.rx_source = source
         lat, lon, _ = ecef_to_geodetic(xyz)
         self.lat_rad, self.lon_rad = float(lat), float(lon)
+        self.version += 1
         if moved:
             self.t_orbit.fill(np.nan)
 
@@ -80,6 +93,7 @@ class Geometry:
         self.gsv_el[s] = np.radians(e)
         self.gsv_az[s] = np.radians(np.where(np.isfinite(a), a, np.nan))
         self.gsv_t[s] = t_s
+        self.version += 1
 
     def add_ephemeris(self, eph: KeplerEphemeris | GlonassEphemeris, t_s: float | None) -> None:
         """Store a broadcast ephemeris (``t_s``: data time of reception, places GLONASS t_b)."""
@@ -91,6 +105,7 @@ class Geometry:
         if added:
             self.has_ephemeris = True
             self.t_orbit[eph.sat] = np.nan
+            self.version += 1
 
     # -- lookup ---------------------------------------------------------------------------------
     def lookup(self, sats: Idx, t_s: float) -> tuple[F64, str]:
@@ -102,6 +117,16 @@ class Geometry:
         than ``refresh_s`` or a satellite has no cached value yet (one vectorised call; the
         ephemeris store's selection cache then hits for the unchanged satellite list).
         """
+        same = self._same
+        if same is not None and same[0] is sats and same[1] == self.version:
+            dt_s = t_s - same[2]
+            if abs(dt_s) <= self.refresh_s:
+                # The operations of the general case below, with one dt for all satellites.
+                geo = np.multiply(same[4], np.array(dt_s))
+                geo += same[3]
+                self._wrap(geo)
+                self.all_known = True
+                return geo, "ephemeris"
         dt = t_s - self.t_orbit.take(sats)
         orbits = self.rx_ecef is not None and self.has_ephemeris
         m = sats.shape[0]
@@ -115,7 +140,8 @@ class Geometry:
         el, az, lat, lon = geo
         have = ~np.isnan(el)
         source = "ephemeris"
-        if not (m and np.count_nonzero(have) == m):
+        self.all_known = all_known = np.count_nonzero(have) == m
+        if not (m and all_known):
             gsv_ok = ~have & (np.abs(t_s - self.gsv_t[sats]) <= GSV_MAX_AGE_S)
             source = "ephemeris" if have.any() else "none"
             if gsv_ok.any():
@@ -127,11 +153,22 @@ class Geometry:
                         self.lat_rad, self.lon_rad, az[gsv_ok], el[gsv_ok], self.shell_m
                     )
                 source = "gsv" if not have.any() else "ephemeris+gsv"
-        az %= _TWO_PI
-        lon += np.pi
-        lon %= _TWO_PI
-        lon -= np.pi
+        elif orbits and not sats.flags.writeable:
+            t_orbit = self.t_orbit[sats]
+            if np.count_nonzero(t_orbit == t_orbit[0]) == m:
+                self._same = (sats, self.version, float(t_orbit[0]), self.geo[:, sats],
+                              self.rate[:, sats])  # fmt: skip
+        self._wrap(geo)
         return geo, source
+
+    @staticmethod
+    def _wrap(geo: F64) -> None:
+        """Azimuth to [0, 2π), longitude to [−π, π), in place."""
+        geo[1] %= _TWO_PI_0D
+        lon = geo[3]
+        lon += _PI_0D
+        lon %= _TWO_PI_0D
+        lon -= _PI_0D
 
     def _rows(self, sats: Idx, t_s: float) -> F64:
         """(m, 4) rows (el, az, pierce lat, lon) from the orbits at ``t_s`` (NaN where none)."""
@@ -174,3 +211,4 @@ class Geometry:
         self.rate[:, sats] = np.where(usable & ~np.isnan(rate), rate, 0.0).T
         self.geo[:, sats] = new.T
         self.t_orbit[sats] = t_s
+        self.version += 1

@@ -160,10 +160,20 @@ def band_delays_s(eph: KeplerEphemeris | GlonassEphemeris) -> npt.NDArray[np.flo
       *differences* d₂ − d₁ for either pair.
     * BeiDou (BDS-SIS-ICD-B1I §5.2.4.10): the clock refers to B3I; the B1I user applies Δt_SV − TGD1
       and the B2I user Δt_SV − TGD2, so d₂(B1I) = TGD1, d₇(B2I) = TGD2, d₆(B3I) = 0.
-    * GLONASS: the L1/L2 delay difference is not in our decoded message: unknown.
+    * GLONASS FDMA (GLONASS ICD Ed. 5.1 Table 4.5, RTCM 10403.3 DF125): Δτ_n = t_f2 − t_f1 is the
+      satellite's L2 minus L1 equipment delay, and τ_n is the clock of the L1 signal, so d₁ = 0,
+      d₂ = Δτ_n, and the satellite part of K·(P2 − P1) is K·c·Δτ_n (sign from the clause's
+      definition, from memory: confirm against the ICD text). Δτ_n = 0 means "not known" (what
+      many receivers send, and RINEX 3 has no such field): unknown, so the satellite keeps its
+      combined satellite + receiver group. The L3 CDMA delay is not broadcast in 1020: unknown.
+      Its LSB (2⁻³⁰ s ≈ 0.93 ns) is 2.7 TECU on L1/L2: a coarse but unbiased satellite part.
     """
     out = np.full(10, np.nan)
     if not hasattr(eph, "tgd_s"):
+        dtau = float(getattr(eph, "dtau_s", 0.0))
+        if dtau != 0.0 and math.isfinite(dtau):
+            out[1] = 0.0
+            out[2] = dtau
         return out
     sys_letter = SYSTEMS[eph.sat // 100]
     t1, t2 = eph.tgd_s

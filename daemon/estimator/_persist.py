@@ -20,7 +20,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from ._state import LAST_T, NSTATE
+from ._state import COLUMNS, LAST_T, from_columns, to_columns
 
 if TYPE_CHECKING:
     from ._estimator import StationEstimator
@@ -30,7 +30,8 @@ __all__ = ["apply_rolling", "checked_rolling", "resume_allowed", "rolling_state"
 
 def rolling_state(est: StationEstimator) -> dict[str, Any]:
     """The rolling state of ``est`` as arrays and numbers (live satellite rows only)."""
-    live = np.flatnonzero(~np.isnan(est.state[:, LAST_T]))
+    state = est.state_rows()
+    live = np.flatnonzero(~np.isnan(state[LAST_T]))
     ring = est.rot_ring
     win = est.roti_window
     lengths = np.array([e[0].shape[0] for e in win.entries], np.int64)
@@ -43,7 +44,7 @@ def rolling_state(est: StationEstimator) -> dict[str, Any]:
         "bias_due_t": float(est.biases.last_t),
         "next_arc": int(est.arcs.next_arc),
         "sats": live.astype(np.int64),
-        "state": est.state[live],
+        "state": to_columns(state, live),
         "rot": {
             "lag_s": ring.lag_s,
             "head": int(ring.head),
@@ -81,21 +82,22 @@ def checked_rolling(est: StationEstimator, st: dict[str, Any]) -> dict[str, Any]
         raise ValueError("estimator state: ROT lag or ROTI slot differs from the configuration")
     sats = np.asarray(st["sats"], np.int64).reshape(-1)
     k = sats.shape[0]
-    if k and not (sats.min() >= 0 and sats.max() < est.state.shape[0]):
+    n_slots = est.state_rows().shape[1]
+    if k and not (sats.min() >= 0 and sats.max() < n_slots):
         raise ValueError("estimator state: satellite slot out of range")
     rows = int(np.asarray(rot["t"]).shape[0])
     w = est.roti_window.rows
     lengths = _arr(roti["len"], np.int64, (w,))
     n = int(lengths.sum())
     win_sat = _arr(roti["sat"], np.int64, (n,))
-    if n and not (win_sat.min() >= 0 and win_sat.max() < est.state.shape[0]):
+    if n and not (win_sat.min() >= 0 and win_sat.max() < n_slots):
         raise ValueError("estimator state: ROTI satellite slot out of range")
     return {
         **st,
         "t": float(st["t"]),
         "intervals": _arr(st["intervals"], np.float64, est._intervals.shape),
         "sats": sats,
-        "state": _arr(st["state"], np.float64, (k, NSTATE)),
+        "state": _arr(st["state"], np.float64, (k, len(COLUMNS))),
         "rot": {
             "head": int(rot["head"]),
             "t": _arr(rot["t"], np.float64, (rows,)),
@@ -125,7 +127,7 @@ def resume_allowed(est: StationEstimator, st: dict[str, Any], t: float) -> bool:
 def apply_rolling(est: StationEstimator, st: dict[str, Any]) -> None:
     """Put the (checked) rolling state ``st`` into ``est``: the inverse of :func:`rolling_state`."""
     sats = st["sats"]
-    est.state[sats] = st["state"]
+    from_columns(est.state_rows(), sats, st["state"])
     est.arcs.next_arc = max(est.arcs.next_arc, int(st["next_arc"]))
     est._last_epoch_t = st["t"]
     est._n_epochs = int(st["n_epochs"])
@@ -141,13 +143,16 @@ def apply_rolling(est: StationEstimator, st: dict[str, Any]) -> None:
     ring.value[:, sats] = rot["value"]
     ring.last_arc[sats] = rot["last_arc"]
     ring.arc_t0[sats] = rot["arc_t0"]
+    ring.loaded()
     roti = st["roti"]
     win = est.roti_window
     bounds = np.concatenate(([0], np.cumsum(roti["len"])))
-    win.entries = [
-        (roti["sat"][a:b].astype(np.intp), roti["val"][a:b].copy())
-        for a, b in zip(bounds[:-1].tolist(), bounds[1:].tolist(), strict=True)
-    ]
+    win.load_entries(
+        [
+            (roti["sat"][a:b].astype(np.intp), roti["val"][a:b].copy())
+            for a, b in zip(bounds[:-1].tolist(), bounds[1:].tolist(), strict=True)
+        ]
+    )
     win.last_slot = roti["last_slot"]
     win._since_exact = roti["since_exact"]
     for name in ("total", "total_sq", "count"):

@@ -2,21 +2,52 @@
 
 Model per epoch (common practice for single-station bias estimation; SCIENCE.md §4):
 
-    y_i = STEC_raw,i − B_sat,i = M_i·(a0 + a1·x_i + a2·y_i) + B_g(i) + noise
+    y_i = STEC_raw,i − B_sat,i = M_i·V(x_i, y_i) + B_g(i) + noise,
+    V(x, y) = a0 + a1·x + a2·y + a3·x² + a4·x·y + a5·y²
 
 with M the thin-shell mapping factor, (x, y) the pierce-point offsets east/north (1000 km units),
 and B_g one bias per *group*: g = (system, pair) for satellites whose satellite part is known
 (each signal pair has its own receiver delay), or g = (satellite, pair) for the others (GLONASS
-FDMA: the satellite's and the receiver's inter-frequency biases differ per channel and are only
-known together). The per-satellite groups are added on first use (:meth:`group_index`); they are
-anchored by the system groups through the shared VTEC plane (no extra constraint needed as long
-as satellites with a known satellite part are in view). The VTEC parameters a change every epoch, the biases do not: each epoch's normal equations
-are reduced onto the biases (a eliminated) and accumulated with exponential forgetting (time
-constant ``memory_s``), each epoch's weight scaled down when the ionosphere is disturbed
-(``quiet_weight``), so the estimate is dominated by quiet periods. A weak prior (σ = 100 TECU)
-keeps the system solvable while geometry has not yet separated B from a0.
+FDMA without a broadcast Δτ_n: the satellite's and the receiver's inter-frequency biases differ
+per channel and are only known together). The per-satellite groups are added on first use
+(:meth:`group_index`); they are anchored by the system groups through the shared VTEC surface.
 
-Axes: ``m`` satellites of the epoch, ``G`` group slots (``N_SYSTEMS × pair-table width``).
+What keeps B and V apart (measured on our simulator's quiet day, 30 min, seeds 1–8):
+
+* **A quadratic surface with a curvature prior.** A plane leaves the curvature of VTEC over
+  ±1000 km of pierce points (≈1 TECU/(1000 km)² north–south there: a few tenths of a TECU
+  vertical, × M ≈ 2–3 at low elevation) in the residuals, and that misfit grows with M just as
+  a bias does against a0: with exact data it biased the receiver bias by 0.7 TECU at every
+  seed (0.25 with the quadratic). Free curvature, though, also soaks up levelling errors
+  (which grow at low elevation too), so a3…a5 get a zero-mean prior of σ = ``_CURVATURE_SIGMA``
+  TECU/(1000 km)² (quiet mid-latitude curvature is of that order: common practice, our
+  measurement): σ = 0.3 left 0.55 TECU of misfit, σ ≥ 2 let the noise through (worst seed 1.4
+  TECU of STEC error instead of 1.0).
+* **Re-levelling of open arcs** (``arc`` / ``level`` in :meth:`add_epoch`): the levelling
+  offset of an arc improves as the arc grows, and its early observations would otherwise stay
+  in the normal equations with the early, poorer offset.
+* The coefficients follow a random walk between updates (variance rate ``_VTEC_RW`` per second)
+  instead of being eliminated every epoch: a Kalman filter in information form. On our data
+  its rate hardly matters (0.5 TECU/√h to unbounded gave the same figures); it is kept loose
+  on a0 and the gradients (3 TECU/√h: a daytime rise of several TECU per hour is followed
+  without lag) and tighter on the curvature, which then averages over time. An infinite rate
+  is the per-epoch elimination of the previous model of this module.
+
+The biases do not change: the information (normal equations) of all parameters is accumulated
+with exponential forgetting (time constant ``memory_s``), each epoch's weight scaled down when
+the ionosphere is disturbed (the caller's weights), so the estimate is dominated by quiet
+periods. A weak prior (σ = 100 TECU on biases, 1000 on V) keeps the system solvable while
+geometry has not yet separated B from a0. The random walk is applied in information form:
+Λ ← Λ − Λ·,a (Q⁻¹ + Λaa)⁻¹ Λa,· (the standard prediction step with process noise Q on the
+coefficients only).
+
+The σ reported is formal (post-fit scatter × √diag of the inverse normal matrix) and treats the
+30-s samples of an arc as independent, while an arc's levelling error is one error for the
+whole arc: it is optimistic (0.06 TECU where the error was ~1 TECU on a bad seed).
+
+Axes: ``m`` satellites of the epoch, ``p`` VTEC coefficients, ``G`` group slots (``N_SYSTEMS ×
+pair-table width``, plus per-satellite groups); ``normal`` / ``rhs`` are ordered (coefficients,
+groups), size ``p + G``.
 """
 
 from __future__ import annotations
@@ -31,24 +62,43 @@ __all__ = ["ReceiverBias"]
 
 F64 = npt.NDArray[np.float64]
 _PRIOR_SIGMA_TECU = 100.0
+_PRIOR_VTEC_SIGMA = 1000.0
+#: Number of VTEC surface coefficients (a0 … a5 above).
+N_VTEC = 6
+#: Random-walk variance rate of each coefficient per second: (TECU)², (TECU per 1000 km)² and
+#: (TECU per (1000 km)²)² per s (3 TECU/√h on a0 and the gradients, 0.25 on the curvature).
+_VTEC_RW = np.array([3.0, 3.0, 3.0, 0.25, 0.25, 0.25]) ** 2 / 3600.0
+#: Prior σ of the curvature coefficients a3…a5, TECU per (1000 km)² (see the module doc).
+_CURVATURE_SIGMA = 1.0
+#: Version of :meth:`ReceiverBias.state_dict` (1: reduced bias normal equations, plane model;
+#: 2: full normal equations of (coefficients, biases)).
+STATE_VERSION = 2
 
 
 class ReceiverBias:
-    """Accumulated, reduced normal equations for the receiver bias of each group."""
+    """Accumulated normal equations of the VTEC surface and the receiver bias of each group."""
 
     def __init__(self, group_labels: list[str], memory_s: float) -> None:
         self.labels = list(group_labels)
         self._pos = {label: i for i, label in enumerate(self.labels) if label}
         g = len(self.labels)
+        p = N_VTEC
         self.memory_s = float(memory_s)
-        self.normal = np.zeros((g, g))
-        self.rhs = np.zeros(g)
+        self.normal = np.zeros((p + g, p + g))
+        self.rhs = np.zeros(p + g)
         self.sq_res = 0.0  # forgetting-weighted Σ w·residual²
         self.dof = 0.0  # forgetting-weighted degrees of freedom
         self.last_t = math.nan
         self.bias = np.zeros(g)
         self.sigma = np.full(g, np.nan)
-        self.vtec_coef = np.full(3, np.nan)
+        self.vtec_coef = np.full(p, np.nan)
+        self._x = np.zeros(p + g)  # last solution (coefficients, biases)
+        self._sd_unit = np.full(g, np.nan)  # σ of each group for unit scatter
+        # Open arcs: id, Σ w·h of their observations so far (transformed like ``rhs``) and the
+        # levelling offset their y carried (see :meth:`add_epoch`).
+        self._arc_id = np.zeros(0, np.int64)
+        self._arc_h = np.zeros((0, p + g))
+        self._arc_lev = np.zeros(0)
 
     def group_index(self, label: str) -> int:
         """The group of ``label``, appended (normal equations grown, rarely) if new."""
@@ -56,28 +106,54 @@ class ReceiverBias:
         if i is not None:
             return i
         g = len(self.labels)
+        n = self.normal.shape[0]
         self.labels.append(label)
         self._pos[label] = g
-        normal = np.zeros((g + 1, g + 1))
-        normal[:g, :g] = self.normal
+        normal = np.zeros((n + 1, n + 1))
+        normal[:n, :n] = self.normal
         self.normal = normal
         self.rhs = np.append(self.rhs, 0.0)
         self.bias = np.append(self.bias, 0.0)
         self.sigma = np.append(self.sigma, np.nan)
+        self._x = np.append(self._x, 0.0)
+        self._sd_unit = np.append(self._sd_unit, np.nan)
+        self._arc_h = np.concatenate((self._arc_h, np.zeros((self._arc_h.shape[0], 1))), axis=1)
         return g
 
     @staticmethod
     def _design(mapping: F64, x_km: F64, y_km: F64) -> F64:
-        """Columns M·(1, x, y), x/y in 1000 km: a plane of VTEC. (A quadratic surface removes
-        ~0.5 TECU of curvature leak with exact data on our simulator's quiet day, but with real
-        levelling noise it decorrelates worse from the biases: tried, plane kept.)"""
+        """Columns M·(1, x, y, x², x·y, y²), x/y in 1000 km: a quadratic surface of VTEC."""
         x = x_km / 1000.0
         y = y_km / 1000.0
-        return np.stack((mapping, mapping * x, mapping * y), axis=1)
+        return np.stack(
+            (mapping, mapping * x, mapping * y, mapping * x * x, mapping * x * y, mapping * y * y),
+            axis=1,
+        )
 
     def vtec_model(self, mapping: F64, x_km: F64, y_km: F64) -> F64:
         """Slant TEC of the last fitted epoch's VTEC surface at these pierce points (TECU)."""
         return np.asarray(self._design(mapping, x_km, y_km) @ self.vtec_coef, dtype=np.float64)
+
+    def _predict(self, dt: float) -> None:
+        """Forgetting of everything and the random walk of the VTEC coefficients over ``dt``."""
+        lam = math.exp(-dt / self.memory_s)
+        self.normal *= lam
+        self.rhs *= lam
+        self._arc_h *= lam
+        self.sq_res *= lam
+        self.dof *= lam
+        p = N_VTEC
+        q = _VTEC_RW * max(dt, 1e-3)
+        col = self.normal[:, :p]
+        s = self.normal[:p, :p] + np.diag(1.0 / q)
+        try:
+            k = np.linalg.solve(s, col.T)  # (p, p+G)
+        except np.linalg.LinAlgError:
+            return
+        self.normal -= col @ k
+        self.rhs -= k.T @ self.rhs[:p]
+        self._arc_h -= self._arc_h[:, :p] @ k
+        self.normal = 0.5 * (self.normal + self.normal.T)
 
     def add_epoch(
         self,
@@ -90,100 +166,163 @@ class ReceiverBias:
         group: npt.NDArray[np.intp],
         weight: F64,
         n_epoch_groups: int | None = None,
+        arc: npt.NDArray[np.int64] | None = None,
+        level: F64 | None = None,
     ) -> bool:
         """Accumulate one epoch; returns False (nothing learnt) with fewer than 5 satellites.
 
-        Afterwards ``vtec_coef`` holds this epoch's fitted surface (a0 … a5) with the current biases
-        (``vtec_model`` evaluates it for other satellites). ``n_epoch_groups``: the groups that cost
-        this epoch a degree of freedom (default all; per-satellite groups live across epochs)."""
+        Afterwards ``vtec_coef`` holds the fitted surface (a0 … a5) at ``t`` with the current
+        biases (``vtec_model`` evaluates it for other satellites). ``n_epoch_groups``: the groups
+        that cost this epoch a degree of freedom (default all; per-satellite groups live across
+        epochs).
+
+        ``arc`` (arc id) and ``level`` (the arc's levelling offset contained in ``y``, TECU):
+        the levelling offset of an arc improves as the arc grows, so the observations an arc
+        contributed earlier are re-levelled with its current offset (their Σ w·h is kept per
+        open arc; the right-hand side gains Σ w·h·Δoffset): each arc then enters the fit with
+        its best levelling, not with the early, poorer one. Arcs absent from an epoch are
+        closed (their contribution stays with their last offset)."""
         m = y.shape[0]
         assert mapping.shape == x_km.shape == y_km.shape == group.shape == weight.shape == (m,)
         if m < 5:
             return False
         if math.isfinite(self.last_t):
-            lam = math.exp(-max(t - self.last_t, 0.0) / self.memory_s)
-            self.normal *= lam
-            self.rhs *= lam
-            self.sq_res *= lam
-            self.dof *= lam
+            self._predict(max(t - self.last_t, 0.0))
         self.last_t = t
+        p = N_VTEC
         a = self._design(mapping, x_km, y_km)
-        npar = a.shape[1]
         groups, gi = np.unique(group, return_inverse=True)
-        gmat = np.zeros((m, groups.shape[0]))
-        gmat[np.arange(m), gi] = 1.0
-        aw = a * weight[:, None]
-        gw = gmat * weight[:, None]
-        n_aa = a.T @ aw
-        n_ab = aw.T @ gmat
-        n_bb = gmat.T @ gw
-        r_a = aw.T @ y
-        r_b = gw.T @ y
-        try:
-            inv = np.linalg.inv(n_aa + 1e-9 * np.eye(npar))
-        except np.linalg.LinAlgError:
+        cols = np.concatenate((np.arange(p), p + groups))
+        h = np.zeros((m, p + groups.shape[0]))
+        h[:, :p] = a
+        h[np.arange(m), p + gi] = 1.0
+        hw = h * weight[:, None]
+        ix = np.ix_(cols, cols)
+        self.normal[ix] += hw.T @ h
+        self.rhs[cols] += hw.T @ y
+        if arc is not None and level is not None:
+            self._relevel(arc, level, cols, hw)
+        if not self._solve():
             return False
-        red = n_bb - n_ab.T @ inv @ n_ab
-        rr = r_b - n_ab.T @ inv @ r_a
-        ix = np.ix_(groups, groups)
-        self.normal[ix] += red
-        self.rhs[groups] += rr
-        self._solve()
-        # Post-fit scatter of this epoch with the current biases (for the σ scale).
-        yc = y - self.bias[group]
-        coef = inv @ (aw.T @ yc)
-        res = yc - a @ coef
+        # Post-fit scatter of this epoch with the current estimate (for the σ scale).
+        res = y - h @ self._x[cols]
         self.sq_res += float(np.sum(weight * res * res))
         n_g = groups.shape[0] if n_epoch_groups is None else n_epoch_groups
-        self.dof += max(m - npar - n_g, 0)
-        self.vtec_coef = coef
+        self.dof += max(m - p - n_g, 0)
+        self._scale_sigma()  # with this epoch's scatter, as a reload from a checkpoint gives
+        self.vtec_coef = self._x[:p].copy()
         return True
 
-    def _solve(self) -> None:
-        g = self.normal.shape[0]
-        used = np.diag(self.normal) > 0
-        if not used.any():
-            return
-        n = self.normal[np.ix_(used, used)] + np.eye(int(used.sum())) / _PRIOR_SIGMA_TECU**2
+    def _relevel(
+        self, arc: npt.NDArray[np.int64], level: F64, cols: npt.NDArray[np.intp], hw: F64
+    ) -> None:
+        """Re-level the open arcs' earlier observations; add this epoch's to their sums."""
+        m = arc.shape[0]
+        new_h = np.zeros((m, self.rhs.shape[0]))
+        if self._arc_id.shape[0]:
+            order = np.argsort(self._arc_id)
+            known = self._arc_id[order]
+            pos = np.minimum(np.searchsorted(known, arc), known.shape[0] - 1)
+            found = known[pos] == arc
+            rows = order[pos[found]]
+            old_h = self._arc_h[rows]
+            self.rhs += old_h.T @ (level[found] - self._arc_lev[rows])
+            new_h[found] = old_h
+        new_h[:, cols] += hw
+        self._arc_id = np.asarray(arc, np.int64).copy()
+        self._arc_h = new_h
+        self._arc_lev = np.asarray(level, np.float64).copy()
+
+    def _solve(self) -> bool:
+        p = N_VTEC
+        n_all = self.normal.shape[0]
+        diag = np.diag(self.normal)
+        used = diag > 0
+        used[:p] = True
+        prior = np.full(n_all, 1.0 / _PRIOR_SIGMA_TECU**2)
+        prior[:p] = 1.0 / _PRIOR_VTEC_SIGMA**2
+        prior[3:p] = 1.0 / _CURVATURE_SIGMA**2
+        sel = np.flatnonzero(used)
+        n = self.normal[np.ix_(sel, sel)] + np.diag(prior[sel])
         try:
             cov = np.linalg.inv(n)
         except np.linalg.LinAlgError:
-            return
-        self.bias = np.zeros(g)
-        self.bias[used] = cov @ self.rhs[used]
+            return False
+        x = np.zeros(n_all)
+        x[sel] = cov @ self.rhs[sel]
+        self._x = x
+        var = np.full(n_all, np.nan)
+        var[sel] = np.diag(cov)
+        self.bias = x[p:].copy()
+        self.bias[~used[p:]] = 0.0
+        self._sd_unit = np.sqrt(var[p:])  # NaN for unused groups
+        self._scale_sigma()
+        return True
+
+    def _scale_sigma(self) -> None:
+        """σ of each group: the post-fit scatter (unit weight) × √diag of the inverse normals."""
         s0 = math.sqrt(self.sq_res / self.dof) if self.dof > 1.0 else 1.0
-        self.sigma = np.full(g, np.nan)
-        self.sigma[used] = s0 * np.sqrt(np.diag(cov))
+        self.sigma = s0 * self._sd_unit
 
     def state_dict(self) -> dict[str, Any]:
         """State for checkpointing: numbers, strings and lists only (JSON- and npz-friendly);
         groups go by label, so a changed pair list is harmless."""
         return {
-            "version": 1,
+            "version": STATE_VERSION,
             "labels": list(self.labels),
+            "n_vtec": N_VTEC,
             "normal": self.normal.tolist(),
             "rhs": self.rhs.tolist(),
             "sq_res": self.sq_res,
             "dof": self.dof,
             "last_t": self.last_t,
+            # open arcs (re-levelling): resumed arcs continue exactly after a restart
+            "arc_id": self._arc_id.tolist(),
+            "arc_h": self._arc_h.tolist(),
+            "arc_lev": self._arc_lev.tolist(),
         }
 
     def load_state(self, state: dict[str, Any]) -> None:
-        """Restore from :meth:`state_dict`; groups unknown to this config are dropped."""
-        if int(state.get("version", -1)) != 1:
+        """Restore from :meth:`state_dict`; groups unknown to this config are dropped.
+
+        Version 1 (bias-only normal equations, the VTEC plane eliminated every epoch) loads as
+        the bias block with nothing known about the surface, which is what it meant; a surface
+        of another size is eliminated the same way."""
+        version = int(state.get("version", -1))
+        if version not in (1, STATE_VERSION):
             raise ValueError(f"unknown receiver-bias state version {state.get('version')!r}")
         labels = [str(x) for x in state["labels"]]
         normal = np.asarray(state["normal"], dtype=np.float64)
         rhs = np.asarray(state["rhs"], dtype=np.float64)
-        if normal.shape != (len(labels), len(labels)) or rhs.shape != (len(labels),):
+        q = int(state.get("n_vtec", 0)) if version >= 2 else 0
+        n = q + len(labels)
+        if normal.shape != (n, n) or rhs.shape != (n,):
             raise ValueError("receiver-bias state: normal/rhs shapes do not match labels")
+        p = N_VTEC
+        if q != p and q > 0:  # another surface: keep only what it says about the biases
+            n_aa = normal[:q, :q] + np.eye(q) / _PRIOR_VTEC_SIGMA**2
+            k = np.linalg.solve(n_aa, normal[:q, q:])
+            rhs = rhs[q:] - k.T @ rhs[:q]
+            normal = normal[q:, q:] - normal[q:, :q] @ k
+            q = 0
         pos = self._pos
         src = [i for i, label in enumerate(labels) if label in pos]
-        dst = [pos[labels[i]] for i in src]
+        dst = [p + pos[labels[i]] for i in src]
+        src_all = [*range(q), *(q + i for i in src)]
+        dst_all = [*range(q), *dst]
         self.normal[:] = 0.0
         self.rhs[:] = 0.0
-        self.normal[np.ix_(dst, dst)] = normal[np.ix_(src, src)]
-        self.rhs[dst] = rhs[src]
+        self.normal[np.ix_(dst_all, dst_all)] = normal[np.ix_(src_all, src_all)]
+        self.rhs[dst_all] = rhs[src_all]
+        self._arc_id = np.zeros(0, np.int64)
+        self._arc_h = np.zeros((0, self.rhs.shape[0]))
+        self._arc_lev = np.zeros(0)
+        arc_h = np.asarray(state.get("arc_h", []), dtype=np.float64)
+        if q == p and arc_h.shape[0]:  # open arcs, columns mapped like the normal equations
+            self._arc_id = np.asarray(state["arc_id"], dtype=np.int64)
+            self._arc_lev = np.asarray(state["arc_lev"], dtype=np.float64)
+            self._arc_h = np.zeros((arc_h.shape[0], self.rhs.shape[0]))
+            self._arc_h[:, dst_all] = arc_h[:, src_all]
         self.sq_res = float(state["sq_res"])
         self.dof = float(state["dof"])
         self.last_t = float(state.get("last_t", math.nan))

@@ -1,12 +1,17 @@
 """Per-satellite state of the estimator as ONE float64 matrix (STYLE rule 21).
 
-Axes: ``S`` satellite slots (``MAX_SAT_ID``) × ``NCOL`` named columns. Each epoch gathers the rows
-of its ``m`` satellites once (``block = state[idx]``), works on column views of that block, and
-scatters it back once (``state[idx] = block``): two fancy-index operations per epoch instead of two
-per quantity. Integer-valued columns (arc id, counts, ranks, lock indicators, flags) are exact in
-float64. "Unknown" is NaN (or −1 for ids/indicators), as in a fresh state. Only the first
-``NSTATE`` columns are kept between epochs; the pair coefficients ``F1 … NOISE`` depend only on
-the epoch layout and are appended to the gathered block from it (``EpochLayout.coefs``).
+Axes: ``NSTATE`` named rows × ``S`` satellite slots (``MAX_SAT_ID``). Each epoch works on a block
+of the ``d`` satellites of its layout, shape (``NROW``, d): the state rows of those satellites
+(gathered once when the layout changes, kept while it repeats, scattered back when it changes or
+the state is read), then the pair coefficients ``F1 … NOISE`` of the layout and the slip tests'
+floors and thresholds. Rows are quantities, so every quantity of the block is one contiguous row,
+and quantities that are processed together are neighbours (stacked (2, d) or (7, d) operations
+instead of one per quantity).
+Integer-valued rows (arc id, counts, ranks, lock indicators, flags) are exact in float64.
+"Unknown" is NaN (or −1 for ids/indicators), as in a fresh state.
+
+The checkpoint keeps the column order of ``COLUMNS`` (state format of version 2);
+:func:`to_columns` and :func:`from_columns` convert.
 """
 
 from __future__ import annotations
@@ -14,9 +19,11 @@ from __future__ import annotations
 import numpy as np
 import numpy.typing as npt
 
-__all__ = ["COLUMNS", "NCOL", "NSTATE", "new_state"]
+__all__ = ["COLUMNS", "NROW", "NSTATE", "ROWS", "from_columns", "new_state", "to_columns"]
 
-#: Column names, in order; the module constants below are their indices.
+F64 = npt.NDArray[np.float64]
+
+#: Checkpoint column names, in checkpoint order (see the module doc).
 COLUMNS = (
     "arc",  # arc id (−1 none)
     "n",  # samples in the current arc
@@ -32,22 +39,50 @@ COLUMNS = (
     "gf0",  # K·GF at the arc start (TECU): ROT values are stored relative to it
     "hatch", "ifl_prev",  # Hatch-smoothed IF code and the previous IF phase (m)
     "mp1", "mp2",  # running arc means of the raw MP1/MP2 (m)
+)  # fmt: skip
+#: Row names of the state and of an epoch's block, in row order. The arc test's "previous sample"
+#: rows (rank, half-cycle flags, lock indicators, lock times) follow the order of the epoch's
+#: values they are compared with; the GF and MW rows pair up as (GF, MW) stacks; "gf_pred" is a
+#: work row (the epoch's GF prediction, next to "mw_mean": the two references of the jump tests).
+ROWS = (
+    "arc", "n", "last_t",
+    "rank", "half1", "half2", "lock1", "lock2", "locktime1", "locktime2",
+    "gf_var", "mw_var",
+    "gf_pred", "mw_mean",
+    "gf_rate", "gf_level",
+    "lev_mean", "lev_sw", "gf0", "hatch", "ifl_prev", "mp1", "mp2",
     "f1", "f2",  # frequencies the coefficients below belong to (Hz)
     "k", "alpha", "beta", "gamma", "lwl", "l1m", "noise",  # SCIENCE.md §3 coefficients
+    "gf_floor", "mw_floor",  # the jump tests' floors (m): GF per epoch, MW per layout
+    "gf_low", "mw_thr",  # GF threshold's lower bound (m, per layout), MW threshold (per epoch)
 )  # fmt: skip
-NCOL = len(COLUMNS)
-(ARC, N, LAST_T, RANK, LOCK1, LOCK2, LT1, LT2, HALF1, HALF2, MW_MEAN, MW_VAR, GF_LEVEL, GF_RATE,
- GF_VAR, LEV_MEAN, LEV_SW, GF0, HATCH, IFL_PREV, MP1, MP2, F1, F2, K, ALPHA, BETA, GAMMA, LWL, L1M,
- NOISE) = range(NCOL)  # fmt: skip
-#: Columns stored per satellite slot (the rest of a gathered block comes from the layout).
+NROW = len(ROWS)
+(ARC, N, LAST_T, RANK, HALF1, HALF2, LOCK1, LOCK2, LT1, LT2, GF_VAR, MW_VAR, GF_PRED, MW_MEAN,
+ GF_RATE, GF_LEVEL, LEV_MEAN, LEV_SW, GF0, HATCH, IFL_PREV, MP1, MP2, F1, F2, K, ALPHA, BETA,
+ GAMMA, LWL, L1M, NOISE, GF_FLOOR, MW_FLOOR, GF_LOW, MW_THR) = range(NROW)  # fmt: skip
+#: Rows stored per satellite slot (the rest of a block comes from the layout).
 NSTATE = F1
+#: State row of each checkpoint column.
+_COLUMN_ROWS = np.array([ROWS.index(c) for c in COLUMNS], np.intp)
+assert sorted({*_COLUMN_ROWS.tolist(), GF_PRED}) == list(range(NSTATE))
 
 
-def new_state(n_slots: int, mw_var0: float, gf_var0: float) -> npt.NDArray[np.float64]:
-    """A fresh (n_slots, NSTATE) state: nothing seen yet."""
-    st = np.zeros((n_slots, NSTATE))
-    st[:, [ARC, RANK, LOCK1, LOCK2]] = -1.0
-    st[:, [LAST_T, LT1, LT2]] = np.nan
-    st[:, MW_VAR] = mw_var0
-    st[:, GF_VAR] = gf_var0
+def new_state(n_slots: int, mw_var0: float, gf_var0: float) -> F64:
+    """A fresh (NSTATE, n_slots) state: nothing seen yet."""
+    st = np.zeros((NSTATE, n_slots))
+    st[[ARC, RANK, LOCK1, LOCK2]] = -1.0
+    st[[LAST_T, LT1, LT2, GF_PRED]] = np.nan
+    st[MW_VAR] = mw_var0
+    st[GF_VAR] = gf_var0
     return st
+
+
+def to_columns(state: F64, slots: npt.NDArray[np.intp]) -> F64:
+    """The (k, len(COLUMNS)) checkpoint rows of the satellite ``slots``."""
+    out: F64 = state[_COLUMN_ROWS][:, slots].T.copy()
+    return out
+
+
+def from_columns(state: F64, slots: npt.NDArray[np.intp], rows: F64) -> None:
+    """Write checkpoint rows (k, len(COLUMNS)) of the satellite ``slots`` into ``state``."""
+    state[_COLUMN_ROWS[:, None], slots[None, :]] = rows.T

@@ -9,8 +9,15 @@
 
 Sending order: alarm class, then summaries, then bulk — so the large, rate-limited satellite
 payloads of 20 stations never sit in front of the next second's summaries. Within a class the
-order is kept. A message leaves the buffer only once the broker acknowledged it (the publisher
-peeks, publishes, then pops), so a broken link re-sends it: at-least-once.
+order is kept. A message leaves the buffer only once the broker acknowledged it, so a broken link
+re-sends it: at-least-once.
+
+Pipelining: the publisher keeps a window of messages in flight. :meth:`OutboundBuffer.take` hands
+out the next message not yet sent (in sending order) and marks it in flight — it stays queued;
+:meth:`OutboundBuffer.pop` removes it once acknowledged; :meth:`OutboundBuffer.resend_all` (after a
+broken link) makes every unacknowledged message "not yet sent" again, in its original order. Within
+each FIFO the in-flight messages are its oldest ones (a prefix), so an overflow drops an in-flight
+message first; its later acknowledgement is then a no-op.
 """
 
 from __future__ import annotations
@@ -44,13 +51,25 @@ class OutboundMessage:
 class OutboundBuffer:
     """Bounded FIFOs; ``put_nowait`` never blocks and never fails."""
 
-    __slots__ = ("_alarm", "_bulk", "_epoch", "alarm_bound", "dropped_alarm", "dropped_epoch")
+    __slots__ = (
+        "_alarm",
+        "_bulk",
+        "_epoch",
+        "_queues",
+        "_sent",
+        "alarm_bound",
+        "dropped_alarm",
+        "dropped_epoch",
+    )
 
     def __init__(self, *, alarm_bound: int, epoch_bound: int) -> None:
         self._alarm: deque[OutboundMessage] = deque()
         self.alarm_bound = alarm_bound
         self._epoch: deque[OutboundMessage] = deque(maxlen=epoch_bound)
         self._bulk: deque[OutboundMessage] = deque(maxlen=epoch_bound)
+        #: The FIFOs in sending order, and how many of each one's oldest messages are in flight.
+        self._queues = (self._alarm, self._epoch, self._bulk)
+        self._sent = [0, 0, 0]
         self.dropped_alarm = 0
         self.dropped_epoch = 0
 
@@ -65,15 +84,27 @@ class OutboundBuffer:
     def epoch_depth(self) -> int:
         return len(self._epoch) + len(self._bulk)
 
-    def _queue(self, msg: OutboundMessage) -> deque[OutboundMessage]:
+    @property
+    def in_flight(self) -> int:
+        """Messages handed out by :meth:`take` and not yet acknowledged (nor dropped)."""
+        return sum(self._sent)
+
+    @property
+    def unsent(self) -> int:
+        """Messages queued and not yet handed out by :meth:`take`."""
+        return len(self) - self.in_flight
+
+    @staticmethod
+    def _index(msg: OutboundMessage) -> int:
         if msg.alarm_class:
-            return self._alarm
-        return self._bulk if msg.bulk else self._epoch
+            return 0
+        return 2 if msg.bulk else 1
 
     def put_nowait(self, msg: OutboundMessage) -> bool:
         """Queue ``msg``; returns False when an older message was dropped to make room."""
-        q = self._queue(msg)
-        if msg.alarm_class:
+        i = self._index(msg)
+        q = self._queues[i]
+        if i == 0:
             dropped = len(q) >= self.alarm_bound
             if dropped:
                 q.popleft()
@@ -82,18 +113,41 @@ class OutboundBuffer:
             dropped = len(q) == q.maxlen  # a full deque with maxlen drops its oldest itself
             if dropped:
                 self.dropped_epoch += 1
+        if dropped and self._sent[i]:
+            self._sent[i] -= 1  # the oldest was in flight: its acknowledgement becomes a no-op
         q.append(msg)
         return not dropped
 
     def peek(self) -> OutboundMessage | None:
-        """The next message to send (alarm class, then summaries, then bulk), left in place."""
-        for q in (self._alarm, self._epoch, self._bulk):
+        """The oldest queued message in sending order (alarm class, then summaries, then bulk),
+        left in place (sent or not)."""
+        for q in self._queues:
             if q:
                 return q[0]
         return None
 
+    def take(self) -> OutboundMessage | None:
+        """The next message not yet sent, in sending order, marked in flight (still queued)."""
+        sent = self._sent
+        for i, q in enumerate(self._queues):
+            k = sent[i]
+            if k < len(q):
+                sent[i] = k + 1
+                return q[k]
+        return None
+
     def pop(self, msg: OutboundMessage) -> None:
-        """Remove ``msg`` after it was acknowledged (a no-op if overflow already dropped it)."""
-        q = self._queue(msg)
+        """Remove ``msg`` after it was acknowledged (a no-op if overflow already dropped it).
+
+        Acknowledgements are expected oldest first within each FIFO (the publisher settles them in
+        sending order)."""
+        i = self._index(msg)
+        q = self._queues[i]
         if q and q[0] is msg:
             q.popleft()
+            if self._sent[i]:
+                self._sent[i] -= 1
+
+    def resend_all(self) -> None:
+        """The link broke: every message in flight is unacknowledged, send it again (in order)."""
+        self._sent = [0, 0, 0]

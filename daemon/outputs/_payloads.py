@@ -9,6 +9,7 @@ same input gives the same bytes (golden tests). No clock is read here: "now" is 
 
 from __future__ import annotations
 
+import functools
 import json
 import math
 from typing import TYPE_CHECKING, Any
@@ -16,7 +17,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from ionwarden.daemon.alarms import BAND_NAMES
-from ionwarden.parsers import MAX_SAT_ID, gps_to_utc, sat_name, utc_to_gps
+from ionwarden.parsers import MAX_SAT_ID, GpsTime, gps_to_utc, sat_name, utc_to_gps
 
 if TYPE_CHECKING:
     import datetime as dt
@@ -25,7 +26,6 @@ if TYPE_CHECKING:
 
     from ionwarden.daemon.alarms import AlarmStatus, AlarmTransition
     from ionwarden.daemon.estimator import StationSnapshot
-    from ionwarden.parsers import GpsTime
 
     from ._model import DaemonSnapshot
 
@@ -54,9 +54,6 @@ SCHEMA_NAMES: dict[str, int] = {
     "alarm-state": 1,
     "alarm-event": 1,
 }
-
-#: Satellite id → RINEX name ("G07"), for a vectorised lookup.
-_SAT_NAMES = np.array([sat_name(i) for i in range(MAX_SAT_ID)], dtype=object)
 
 
 def schema_id(name: str) -> str:
@@ -97,52 +94,169 @@ def _col(a: npt.NDArray[Any], digits: int) -> list[float | None]:
     return values
 
 
+# --- fast paths for the per-epoch payloads --------------------------------------------------------
+# Summary and satellites are formatted into fixed templates instead of through a dict and
+# json.dumps; the bytes are identical (json writes a float as ``float.__repr__`` and a finite value
+# only: NaN/±∞ become null, as in _num/_col). tests/test_outputs_fastjson.py checks the equality
+# against json.dumps on arbitrary values.
+
+_float_repr = float.__repr__
+
+
+def _jnum(x: float, digits: int) -> str:
+    """``json.dumps(_num(x, digits))``."""
+    v = float(x)
+    return _float_repr(round(v, digits)) if math.isfinite(v) else "null"
+
+
+@functools.lru_cache(maxsize=1024)
+def _jstr(text: str) -> str:
+    """A JSON string literal (as ``encode`` writes it), cached: station names, pairs, sources."""
+    return json.dumps(text, ensure_ascii=False)
+
+
+@functools.lru_cache(maxsize=256)
+def _time_json(week: int, tow_s: float) -> str:
+    """``"time_utc":…,"gps_week":…,"gps_tow_s":…`` of a GPS time, cached: every station of one
+    epoch shares it."""
+    t = GpsTime(week, tow_s)
+    return (
+        f'"time_utc":"{iso_utc(gps_to_utc(t))}","gps_week":{int(week)},'
+        f'"gps_tow_s":{_float_repr(round(tow_s, 3))}'
+    )
+
+
+def _jcol(a: npt.NDArray[Any], digits: int) -> str:
+    """``json.dumps(_col(a, digits))`` without the Python objects of _col."""
+    r = np.round(a.astype(np.float64), digits)
+    parts = list(map(_float_repr, r.tolist()))
+    bad = ~np.isfinite(r)
+    if bad.any():
+        for i in np.flatnonzero(bad).tolist():
+            parts[i] = "null"
+    return "[" + ",".join(parts) + "]"
+
+
+_SUMMARY_HEAD = '{"schema":"' + schema_id("summary") + '","station":'
+_SATELLITES_HEAD = '{"schema":"' + schema_id("satellites") + '","station":'
+#: Satellite id → its JSON string literal ('"G07"').
+_SAT_JSON = np.array([json.dumps(sat_name(i)) for i in range(MAX_SAT_ID)], dtype=object)
+
+
 def summary_payload(snap: StationSnapshot) -> bytes:
     """``<prefix>/<station>/summary``: station figures of one epoch."""
-    return encode(
-        {
-            "schema": schema_id("summary"),
-            "station": snap.station,
-            **time_fields(snap.time),
-            "n_sats": snap.n_sats,
-            "vtec_tecu": _num(snap.vtec_tecu, 3),
-            "roti_max_tecu_per_min": _num(snap.roti_max_tecu_per_min, 4),
-            "roti_median_tecu_per_min": _num(snap.roti_median_tecu_per_min, 4),
-            "rot_max_abs_tecu_per_min": _num(snap.rot_max_abs_tecu_per_min, 4),
-            "gradient_mm_per_km": _num(snap.gradient_mm_per_km, 2),
-            "gradient_tecu_per_km": _num(snap.gradient_tecu_per_km, 5),
-            "gradient_azimuth_deg": _num(snap.gradient_azimuth_deg, 1),
-            "dual_freq_fraction": _num(snap.dual_freq_fraction, 3),
-            "receiver_bias_tecu": _num(snap.receiver_bias_tecu, 3),
-            "receiver_bias_sigma_tecu": _num(snap.receiver_bias_sigma_tecu, 3),
-            "geometry_source": snap.geometry_source,
-        }
-    )
+    t = snap.time
+    return (
+        f"{_SUMMARY_HEAD}{_jstr(snap.station)},{_time_json(t.week, t.tow_s)},"
+        f'"n_sats":{int(snap.n_sats)},'
+        f'"vtec_tecu":{_jnum(snap.vtec_tecu, 3)},'
+        f'"roti_max_tecu_per_min":{_jnum(snap.roti_max_tecu_per_min, 4)},'
+        f'"roti_median_tecu_per_min":{_jnum(snap.roti_median_tecu_per_min, 4)},'
+        f'"rot_max_abs_tecu_per_min":{_jnum(snap.rot_max_abs_tecu_per_min, 4)},'
+        f'"gradient_mm_per_km":{_jnum(snap.gradient_mm_per_km, 2)},'
+        f'"gradient_tecu_per_km":{_jnum(snap.gradient_tecu_per_km, 5)},'
+        f'"gradient_azimuth_deg":{_jnum(snap.gradient_azimuth_deg, 1)},'
+        f'"dual_freq_fraction":{_jnum(snap.dual_freq_fraction, 3)},'
+        f'"receiver_bias_tecu":{_jnum(snap.receiver_bias_tecu, 3)},'
+        f'"receiver_bias_sigma_tecu":{_jnum(snap.receiver_bias_sigma_tecu, 3)},'
+        f'"geometry_source":{_jstr(snap.geometry_source)}}}'
+    ).encode()
+
+
+#: The satellites payload's float columns and their decimals, in payload order.
+_SAT_COLUMNS: tuple[tuple[str, int], ...] = (
+    ("el_deg", 2),
+    ("az_deg", 2),
+    ("ipp_lat_deg", 4),
+    ("ipp_lon_deg", 4),
+    ("stec_tecu", 3),
+    ("vtec_tecu", 3),
+    ("rot_tecu_per_min", 4),
+    ("roti_tecu_per_min", 4),
+    ("iono_l1_m", 4),
+)
+_SAT_SCALE = np.array([10.0**d for _, d in _SAT_COLUMNS])[:, None]
+#: Decimals written by the fixed-width formatter (the most any satellites column uses).
+_FRAC_DIGITS = 4
+#: 10^p for the digit positions p = 12 … 0, most significant first (float64: exact, and float
+#: division is far cheaper than int64 division here); a formatter of w integer digits uses the last
+#: w + _FRAC_DIGITS + 1 (one more position on top: digit_p = q_p − 10·q_(p+1)).
+_POW = 10.0 ** np.arange(12, -1, -1)
+_SPACE, _ZERO, _MINUS, _DOT, _COMMA, _CLOSE = b" 0-.,]"
+
+
+def _fixed_columns(r: npt.NDArray[np.float64]) -> list[str] | None:
+    """JSON text of each row of ``r`` (already rounded to at most 4 decimals; NaN/±∞ → null),
+    written as ``float.__repr__`` would, in a few whole-array steps; None when a value is outside
+    the range where that holds (|x| ≥ 1e8: the caller formats it the slow way).
+
+    Why it equals repr: a value rounded to d ≤ 4 decimals with |x| < 1e8 is the double nearest to
+    k·10⁻ᵈ with |k| < 2⁴⁰, and no other decimal of ≤ 4 places is that close, so repr's shortest
+    round-tripping text is k·10⁻ᵈ without trailing zeros, in fixed notation (1e-4 ≤ |x| < 1e16).
+    The digits come from float arithmetic on integers < 1e12 (exact: each quotient k/10ᵖ is at
+    least 10⁻ᵖ away from the next integer, far more than its rounding error). Each value is a
+    fixed-width field; blanks are removed at the end."""
+    m, n = r.shape
+    flat = r.reshape(-1)
+    finite = np.isfinite(flat)
+    mag = np.abs(np.where(finite, flat, 0.0))
+    k = np.rint(mag * 10.0**_FRAC_DIGITS)
+    top = float(k.max()) if k.size else 0.0
+    if top >= 1e12:  # |x| ≥ 1e8
+        return None
+    w = len(str(int(top) // 10**_FRAC_DIGITS))  # integer digits of the largest value
+    nd = w + _FRAC_DIGITS
+    q = np.floor(k[:, None] / _POW[-nd - 1 :])  # q[:, j] = ⌊k / 10^p⌋, p = nd … 0
+    d = q[:, 1:] - 10.0 * q[:, :-1]  # digit at p = nd − 1 … 0
+    d += _ZERO
+    digits = d.astype(np.uint8)
+    q = q[:, 1:]
+    text = np.empty((m * n, nd + 3), np.uint8)  # sign, w digits, ".", decimals, ","
+    text[:, 0] = np.where(np.signbit(flat), _MINUS, _SPACE)
+    # Integer digits: a leading zero (nothing at or above it) is blank, the units digit never.
+    text[:, 1:w] = np.where(q[:, : w - 1] == 0.0, _SPACE, digits[:, : w - 1])
+    text[:, w] = digits[:, w - 1]
+    text[:, w + 1] = _DOT
+    # Decimals: written while a non-zero digit is at or after them (k mod 10^(p+1) ≠ 0); the
+    # first always.
+    keep = q[:, w - 1 : nd - 1] * _POW[-_FRAC_DIGITS - 1 : -1] != k[:, None]
+    keep[:, 0] = True
+    text[:, w + 2 : -1] = np.where(keep, digits[:, w:], _SPACE)
+    text[:, -1] = _COMMA
+    if not finite.all():
+        text[~finite] = np.frombuffer(b"null".rjust(nd + 2) + b",", np.uint8)
+    text[n - 1 :: n, -1] = _CLOSE  # end of each row
+    return text.tobytes().replace(b" ", b"").decode().split("]")[:m]
+
+
+@functools.lru_cache(maxsize=256)
+def _pairs_json(pairs: tuple[str, ...]) -> str:
+    """The ``pair`` column (cached: it changes only when the tracked signal set does)."""
+    return ",".join(map(_jstr, pairs))
 
 
 def satellites_payload(snap: StationSnapshot) -> bytes:
     """``<prefix>/<station>/satellites``: per-satellite figures as columns (index i = one satellite)."""
     s = snap.satellites
-    return encode(
-        {
-            "schema": schema_id("satellites"),
-            "station": snap.station,
-            **time_fields(snap.time),
-            "sat": _SAT_NAMES[s.sat.astype(np.intp)].tolist(),
-            "pair": list(s.pair),
-            "el_deg": _col(s.el_deg, 2),
-            "az_deg": _col(s.az_deg, 2),
-            "ipp_lat_deg": _col(s.ipp_lat_deg, 4),
-            "ipp_lon_deg": _col(s.ipp_lon_deg, 4),
-            "stec_tecu": _col(s.stec_tecu, 3),
-            "vtec_tecu": _col(s.vtec_tecu, 3),
-            "rot_tecu_per_min": _col(s.rot_tecu_per_min, 4),
-            "roti_tecu_per_min": _col(s.roti_tecu_per_min, 4),
-            "iono_l1_m": _col(s.iono_l1_m, 4),
-            "slip": s.slip.tolist(),
-            "arc_id": s.arc_id.tolist(),
-        }
+    t = snap.time
+    cols: list[str] | None = None
+    if s.sat.size:
+        raw = np.stack([getattr(s, name) for name, _ in _SAT_COLUMNS]).astype(np.float64)
+        # np.round(x, d) is rint(x·10ᵈ)/10ᵈ; done for all columns at once, each with its d.
+        cols = _fixed_columns(np.rint(raw * _SAT_SCALE) / _SAT_SCALE)
+    if cols is None:
+        cols = [_jcol(getattr(s, name), d)[1:-1] for name, d in _SAT_COLUMNS]
+    sats = ",".join(_SAT_JSON[s.sat.astype(np.intp)].tolist())
+    slips = ",".join(["true" if x else "false" for x in s.slip.tolist()])
+    arcs = ",".join(map(str, s.arc_id.tolist()))
+    body = ",".join(
+        [f'"{name}":[{col}]' for (name, _), col in zip(_SAT_COLUMNS, cols, strict=True)]
     )
+    return (
+        f"{_SATELLITES_HEAD}{_jstr(snap.station)},{_time_json(t.week, t.tow_s)},"
+        f'"sat":[{sats}],"pair":[{_pairs_json(tuple(s.pair))}],{body},'
+        f'"slip":[{slips}],"arc_id":[{arcs}]}}'
+    ).encode()
 
 
 def station_status_payload(

@@ -1,10 +1,13 @@
 """The MQTT publisher: never blocks the estimator, survives the broker going away (aiomqtt 2.5).
 
-Producers call the ``*_nowait`` methods (sync, O(1) plus formatting) from the event loop; they
-format the payload and queue it in the :class:`OutboundBuffer`. :meth:`MqttPublisher.run` — one
-named task in the runtime's TaskGroup — connects, drains the buffer in order, and on any transient
-MQTT error waits a backoff delay (``ionwarden.daemon.runtime`` pure generator) and reconnects with
-a fresh client (so nothing half-sent is replayed behind our back; our buffer is the only source).
+Producers call the ``*_nowait`` methods (sync, never blocking) from the event loop; they format
+the payload and queue it in the :class:`OutboundBuffer` and, while connected and the window of
+``publish_window`` unacknowledged messages has room, hand it to the socket right away (a
+non-blocking write; what the socket does not take is written when it can). :meth:`MqttPublisher.run`
+— one named task in the runtime's TaskGroup — connects, keeps the window full, settles
+acknowledgements in sending order, and on any transient MQTT error waits a backoff delay
+(``ionwarden.daemon.runtime`` pure generator) and reconnects with a fresh client (so nothing
+half-sent is replayed behind our back; our buffer is the only source).
 
 ionwarden only publishes: it never subscribes and takes no commands over MQTT.
 """
@@ -17,18 +20,19 @@ import datetime as dt
 import logging
 import socket
 import time
+from collections import deque
 from importlib import metadata
 from typing import TYPE_CHECKING
 
 import aiomqtt
 from paho.mqtt.packettypes import PacketTypes
-from paho.mqtt.properties import Properties
 
 from ionwarden.daemon.alarms import AlarmKind, AlarmState, AlarmStatus
 from ionwarden.daemon.runtime import backoff_delays
 
 from . import _payloads as fmt
 from ._buffer import OutboundBuffer, OutboundMessage
+from ._client import PackedOnce, QuickAckClient
 from ._credentials import resolve_password, tls_context
 from ._model import MqttStatistics
 from ._topics import Topic, TopicTree
@@ -127,8 +131,15 @@ class MqttPublisher:
         self._station_state: dict[str, str] = {}
         self._last_epoch: dict[str, GpsTime] = {}
         self._last_sats_s: dict[str, float] = {}
-        self._expiry: dict[int, Properties] = {}
+        self._sats_due: dict[str, float] = {}
+        self._expiry: dict[int, PackedOnce] = {}
         self._last_health_s: float | None = None
+        self._failed: BaseException | None = None
+        self._live: QuickAckClient | None = None  # the connected client, during a session
+        #: Messages in flight, in sending order: (message, acknowledged, deadline (loop time)).
+        self._inflight: deque[tuple[OutboundMessage, asyncio.Future[None], float]] = deque()
+        self._lost = False
+        self._topics: dict[str, tuple[Topic, Topic]] = {}
 
     @property
     def topics(self) -> TopicTree:
@@ -163,6 +174,8 @@ class MqttPublisher:
                 self._buffer.alarm_bound,
             )
         self._drained.clear()
+        if self._live is not None:
+            self._fill()
         self._wake.set()
 
     def _set_station_state(self, station: str, state: str) -> None:
@@ -180,14 +193,24 @@ class MqttPublisher:
             alarm_class=True,
         )
 
+    def _station_topics(self, station: str) -> tuple[Topic, Topic]:
+        """The summary and satellites topics of a station (validated once, then cached)."""
+        topics = self._topics.get(station)
+        if topics is None:
+            topics = (self._tree.summary(station), self._tree.satellites(station))
+            self._topics[station] = topics
+        return topics
+
     def publish_snapshot_nowait(self, snap: StationSnapshot) -> None:
         """Queue the epoch summary (and the satellite figures when due) of one station."""
         station = snap.station
         self._last_epoch[station] = snap.time
-        self._set_station_state(station, "online")
+        if self._station_state.get(station) != "online":
+            self._set_station_state(station, "online")
+        summary_topic, satellites_topic = self._station_topics(station)
         s = self._s
         self._put(
-            self._tree.summary(station),
+            summary_topic,
             fmt.summary_payload(snap),
             qos=s.qos_summary,
             retain=False,
@@ -196,10 +219,19 @@ class MqttPublisher:
         )
         t = snap.time.total_s
         last = self._last_sats_s.get(station)
-        if last is None or t - last >= s.satellites_interval_s or t < last:
+        due = self._sats_due.get(station)
+        if last is None or due is None or t >= due or t < last:
             self._last_sats_s[station] = t
+            gap = s.satellites_interval_s
+            if due is None:
+                # Stagger stations (receivers align epochs to the second): after its first one,
+                # the n-th station's second satellites message waits n mod ⌊interval⌋ seconds
+                # more, so the formatting and sending of 20 stations does not land in the same
+                # second every interval; still at most one per interval.
+                gap += len(self._sats_due) % max(int(gap), 1)
+            self._sats_due[station] = t + gap
             self._put(
-                self._tree.satellites(station),
+                satellites_topic,
                 fmt.satellites_payload(snap),
                 qos=s.qos_satellites,
                 retain=False,
@@ -320,7 +352,7 @@ class MqttPublisher:
         self._stop.set()
         self._wake.set()
 
-    def _client(self) -> aiomqtt.Client:
+    def _client(self) -> QuickAckClient:
         s = self._s
         will = aiomqtt.Will(
             topic=self._tree.daemon_status().value,
@@ -328,7 +360,7 @@ class MqttPublisher:
             qos=s.qos_status,
             retain=True,
         )
-        return aiomqtt.Client(
+        return QuickAckClient(
             s.host,
             s.port,
             username=s.username or None,
@@ -341,6 +373,9 @@ class MqttPublisher:
             tls_context=self._tls,
             # Small QoS 1 packets and their PUBACKs must not wait for Nagle + delayed ACK (~40 ms).
             socket_options=((socket.IPPROTO_TCP, socket.TCP_NODELAY, 1),),
+            # Our window is the bound: paho's own in-flight limit must not hold messages back
+            # (a little room on top for the status messages sent outside the window).
+            max_inflight_messages=s.publish_window + 4,
             logger=logging.getLogger("ionwarden.daemon.outputs.mqtt.client"),
         )
 
@@ -388,51 +423,141 @@ class MqttPublisher:
             self._set_connected(False)
             self._running = False
 
+    def _props(self, msg: OutboundMessage) -> PackedOnce | None:
+        if msg.expiry_s is None:
+            return None
+        props = self._expiry.get(msg.expiry_s)
+        if props is None:
+            props = PackedOnce(PacketTypes.PUBLISH)  # type: ignore[no-untyped-call]
+            props.MessageExpiryInterval = msg.expiry_s
+            self._expiry[msg.expiry_s] = props
+        return props
+
     async def _publish(self, client: aiomqtt.Client, msg: OutboundMessage) -> None:
-        props = None
-        if msg.expiry_s is not None:
-            props = self._expiry.get(msg.expiry_s)
-            if props is None:
-                props = Properties(PacketTypes.PUBLISH)  # type: ignore[no-untyped-call]
-                props.MessageExpiryInterval = msg.expiry_s
-                self._expiry[msg.expiry_s] = props
+        """One publish, awaited (the "online" and goodbye messages, outside the window)."""
         await client.publish(
-            msg.topic.value, msg.payload, qos=msg.qos, retain=msg.retain, properties=props
+            msg.topic.value,
+            msg.payload,
+            qos=msg.qos,
+            retain=msg.retain,
+            properties=self._props(msg),
         )
 
-    async def _session(self, client: aiomqtt.Client) -> None:
+    def _link_lost(self) -> None:
+        self._lost = True
+        self._wake.set()
+
+    def _fill(self) -> None:
+        """Send buffered messages while the window has room (sync: called by the producers too,
+        so a summary leaves on the socket during the estimate step that made it)."""
+        client = self._live
+        if client is None:
+            return
+        buf = self._buffer
+        inflight = self._inflight
+        window = self._s.publish_window
+        deadline = asyncio.get_running_loop().time() + self._s.timeout_s
+        while len(inflight) < window:
+            msg = buf.take()
+            if msg is None:
+                return
+            try:
+                ack = client.iw_publish(
+                    msg.topic.value, msg.payload, msg.qos, msg.retain, self._props(msg)
+                )
+            except TRANSIENT_MQTT_ERRORS as exc:  # the link is down: the session ends
+                if self._failed is None:
+                    self._failed = exc
+                self._wake.set()
+                return
+            inflight.append((msg, ack, deadline))
+
+    def _settle(self) -> None:
+        """Settle acknowledged messages, in sending order (also called on each PUBACK)."""
+        inflight = self._inflight
+        buf = self._buffer
+        while inflight and inflight[0][1].done():
+            msg, _, _ = inflight.popleft()
+            buf.pop(msg)
+            self._published += 1
+            if self._on_published is not None:
+                self._on_published(msg, self._monotonic() - msg.queued_s)
+
+    def _on_ack(self) -> None:
+        self._settle()
+        self._wake.set()  # the window has room again
+
+    async def _session(self, client: QuickAckClient) -> None:
         online = OutboundMessage(
             topic=self._tree.daemon_status(),
             payload=fmt.daemon_status_payload("online", self._clock(), self._version),
             qos=self._s.qos_status,
             retain=True,
         )
+        self._lost = False
+        self._failed = None
+        client.iw_on_lost = self._link_lost
+        client.iw_on_ack = self._on_ack
         try:
             await self._publish(client, online)
             _raise_if_cancelled()
-            while True:
-                msg = self._buffer.peek()
-                if msg is None:
-                    self._drained.set()
-                    if self._stop.is_set():
-                        break
-                    self._wake.clear()
-                    await self._wake.wait()
-                    continue
-                # One at a time: with Nagle's algorithm on the broker (mosquitto's default),
-                # pipelined PUBACKs stall ~40 ms on delayed ACKs; measured in bench_outputs.py.
-                await self._publish(client, msg)
-                _raise_if_cancelled()
-                self._buffer.pop(msg)
-                self._published += 1
-                if self._on_published is not None:
-                    self._on_published(msg, self._monotonic() - msg.queued_s)
+            try:
+                self._live = client
+                await self._pump()
+            finally:
+                self._abandon()
         except asyncio.CancelledError:
             with contextlib.suppress(TimeoutError, *TRANSIENT_MQTT_ERRORS):
                 async with asyncio.timeout(GOODBYE_TIMEOUT_S):
                     await self._goodbye(client)
             raise
         await self._goodbye(client)
+
+    async def _pump(self) -> None:
+        """Keep up to ``publish_window`` messages in flight until stopped or the link breaks.
+
+        Each message is handed to the client at once (producers send too, see :meth:`_fill`) and
+        settled in sending order when its PUBACK arrives (QoS 0: once written). A message leaves
+        the buffer only when it and every message sent before it are settled, so the buffer's
+        order and at-least-once guarantees hold; a failed publish, a lost connection or a PUBACK
+        missing after ``timeout_s`` ends the session (reconnect, then everything unacknowledged
+        is sent again, in order)."""
+        loop = asyncio.get_running_loop()
+        inflight = self._inflight
+        wake = self._wake
+        while True:
+            wake.clear()
+            self._settle()
+            if self._failed is not None:
+                raise self._failed
+            if self._lost:
+                raise aiomqtt.MqttError("connection to the broker lost")
+            self._fill()
+            if inflight and inflight[0][1].done():  # e.g. QoS 0, complete once written
+                continue
+            if not inflight:
+                self._drained.set()
+                if self._stop.is_set():
+                    return
+                await wake.wait()
+            else:
+                deadline = inflight[0][2]
+                try:
+                    async with asyncio.timeout_at(deadline):
+                        await wake.wait()
+                except TimeoutError:
+                    if not inflight[0][1].done() and loop.time() >= deadline:
+                        raise aiomqtt.MqttError(
+                            f"no acknowledgement within {self._s.timeout_s:g} s"
+                        ) from None
+            _raise_if_cancelled()
+
+    def _abandon(self) -> None:
+        """The session ends: forget the publishes in flight; their messages stay buffered and are
+        sent again, in order, on the next connection."""
+        self._live = None
+        self._inflight.clear()
+        self._buffer.resend_all()
 
     async def _goodbye(self, client: aiomqtt.Client) -> None:
         """Retained "offline" for every station we announced, then for the daemon."""

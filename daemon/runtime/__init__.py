@@ -7,6 +7,7 @@ overflow (rule 15); reconnects use a pure backoff generator (rule 16).
 from ._backoff import BACKOFF_CAP_S, BACKOFF_INITIAL_S, backoff_delays, max_delay_s
 from ._checkpoint import CHECKPOINT_FORMAT, fingerprint, load_checkpoint, save_checkpoint
 from ._core import DecoderCounts, FrameConsumer, FramingCore, StationCore
+from ._lane import StepLane
 from ._notify import SdNotifier, watchdog_interval_s
 from ._pacer import ReplayPacer
 from ._queues import BoundedQueue, Overflow, QueueStatistics
@@ -51,6 +52,7 @@ __all__ = [
     "StationRunner",
     "StationState",
     "StationStatistics",
+    "StepLane",
     "VirtualClockLoop",
     "backoff_delays",
     "fingerprint",

@@ -46,6 +46,10 @@ class StationCore(Protocol):
 
     def counts(self) -> DecoderCounts: ...
 
+    def frames_total(self) -> int:
+        """``counts().frames_total``, cheaply (the estimate loop reads it around every chunk)."""
+        ...
+
     def reset(self) -> None:
         """Start afresh after repeated pipeline failures: drop the partial frame and the
         estimator's state (counters are kept)."""
@@ -95,15 +99,18 @@ class FramingCore:
         self._done = DecoderCounts()  # counts of framers already ended
         self._consumer = consumer
         self._rebuild = rebuild
+        self._frames_total = 0  # every frame the framers returned (= their RTCM + NMEA counts)
 
     def feed(self, data: bytes, /) -> Sequence[object]:
         frames = self._framer.feed(data)
+        self._frames_total += len(frames)
         if self._consumer is None or not frames:
             return ()
         return self._consumer.feed_frames(frames)
 
     def end_stream(self) -> Sequence[object]:
         frames = self._framer.feed(b"")
+        self._frames_total += len(frames)
         self._done = _add(self._done, self._framer.statistics())
         self._framer = Framer()
         if self._consumer is None or not frames:
@@ -112,6 +119,9 @@ class FramingCore:
 
     def counts(self) -> DecoderCounts:
         return _add(self._done, self._framer.statistics())
+
+    def frames_total(self) -> int:
+        return self._frames_total
 
     def reset(self) -> None:
         self._done = _add(self._done, self._framer.statistics())

@@ -53,6 +53,7 @@ if TYPE_CHECKING:
     from ionwarden.daemon.ingest import SourceSpec, Transport
 
     from ._core import DecoderCounts, StationCore
+    from ._lane import StepLane
 
 __all__ = [
     "PIPELINE_LOG_INTERVAL_S",
@@ -171,7 +172,10 @@ _END = object()  # the source ended for good
 
 
 class StationRunner:
-    """Run with ``ingest_loop()`` and ``estimate_loop()`` as two tasks of the root TaskGroup."""
+    """Run with ``ingest_loop()`` and ``estimate_loop()`` as two tasks of the root TaskGroup.
+
+    ``lane`` (shared by every station of a daemon) lets one estimate step run per loop iteration,
+    so outputs are sent between the steps of stations whose epochs arrived together."""
 
     def __init__(
         self,
@@ -184,8 +188,10 @@ class StationRunner:
         produces_epochs: bool = True,
         on_finished: Callable[[], None] | None = None,
         on_latency: Callable[[str, float], None] | None = None,
+        lane: StepLane | None = None,
     ):
         self._on_latency = on_latency
+        self._lane = lane
         self._on_finished = on_finished
         self.config = config
         self.core = core
@@ -293,7 +299,7 @@ class StationRunner:
         try:
             while True:
                 self._set_state(StationState.CONNECTING)
-                frames_before = self.core.counts().frames_total
+                frames_before = self.core.frames_total()
                 try:
                     transport = await self._opener(cfg.source, cfg.password)
                 except RETRYABLE_ERRORS as exc:
@@ -318,7 +324,7 @@ class StationRunner:
                     log.info("%s: source ended", self.name)
                     return
                 await self.queue.put(_BREAK)
-                if self.core.counts().frames_total > frames_before:  # it worked for a while
+                if self.core.frames_total() > frames_before:  # it worked for a while
                     delays = backoff_delays(
                         initial_s=cfg.backoff_initial_s, cap_s=cfg.backoff_cap_s, rng=self._rng
                     )
@@ -401,10 +407,17 @@ class StationRunner:
                     arrived, chunk = item
                     if self._pacer is not None:  # a paced replay's bytes "arrive" when released
                         arrived = max(arrived, loop.time())
-                    frames_before = self.core.counts().frames_total
-                    delay = self._step(chunk, arrived)
-                    if self.core.counts().frames_total > frames_before:
-                        self._detector.saw_frame(loop.time())
+                    lane = self._lane
+                    if lane is not None:
+                        await lane.turn()
+                    try:
+                        frames_before = self.core.frames_total()
+                        delay = self._step(chunk, arrived)
+                        if self.core.frames_total() > frames_before:
+                            self._detector.saw_frame(loop.time())
+                    finally:
+                        if lane is not None:
+                            lane.done()
                     if delay > 0:  # replay pacing is planned idleness, not a stuck pipeline
                         self._progress = loop.time() + delay
                         await asyncio.sleep(delay)

@@ -36,6 +36,7 @@ from ionwarden.daemon.outputs import GOODBYE_TIMEOUT_S
 from ionwarden.parsers import utc_to_gps
 
 from ._checkpoint import load_checkpoint, save_checkpoint
+from ._lane import StepLane
 from ._notify import SdNotifier, watchdog_interval_s
 from ._station import SourceEvent, StationConfig, StationRunner, StationState
 from ._summary import format_status, format_summary
@@ -138,6 +139,8 @@ class Daemon:
         self._wall = wall_clock
         self._utc_now = utc_now
         self._stations: dict[str, _Running] = {}
+        #: One estimate step per loop iteration across stations (see _lane.py).
+        self._lane = StepLane()
         self._stop = asyncio.Event()
         self._reload_requested = asyncio.Event()
         self._wake = asyncio.Event()  # stop, reload or a source ended
@@ -216,6 +219,7 @@ class Daemon:
             produces_epochs=bundle.produces_epochs,
             on_finished=self._wake.set,
             on_latency=self._exporter.observe_epoch_latency if self._exporter is not None else None,
+            lane=self._lane,
         )
         running = _Running(runner=runner, bundle=bundle)
         self._stations[cfg.name] = running

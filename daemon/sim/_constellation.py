@@ -275,6 +275,12 @@ def _glonass_series(
         v = v - np.array([-w * r[1], w * r[0], 0.0])
         states.append(np.concatenate([r, v]))
     tau = [_grid(rng.uniform(-1e-4, 1e-4), 2.0**-30) for _ in slots]
+    # Δτ_n (L2 − L1 equipment delay, GLONASS ICD Table 4.5): whole DF125 LSBs (2⁻³⁰ s), 1–8 of
+    # either sign; slots ≡ 2 (mod 8) broadcast 0 ("not known", as some receivers send).
+    dtau = [
+        0.0 if slot % 8 == 2 else float(rng.integers(1, 9) * rng.choice((-1, 1))) * 2.0**-30
+        for slot in slots
+    ]
     per_set: list[list[GlonassEphemeris]] = []
     state = np.array(states)
     for ref in refs:
@@ -304,6 +310,7 @@ def _glonass_series(
                 gamma_n=0.0,
                 health=0,
                 source=1020,
+                dtau_s=dtau[j],
             )
             row.append(quantise_for_rtcm(eph))
         per_set.append(row)

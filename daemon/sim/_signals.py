@@ -12,7 +12,9 @@ Code biases (truth, metres, added to the pseudorange):
   F/NAV clock); E5b and E6 random.
 * BeiDou: clocks refer to B3I, b(6I) = 0, b(2I) = c·TGD1, b(7I) = c·TGD2 (BDS-SIS-ICD-B1I §5.2.4.10);
   B2a random.
-* GLONASS: random (no broadcast group delay in our ephemeris).
+* GLONASS: b(1C) random, b(2C) = b(1C) + c·Δτ_n where the ephemeris broadcasts Δτ_n ≠ 0 (GLONASS
+  ICD Ed. 5.1 Table 4.5: Δτ_n = t_f2 − t_f1, the L2 minus L1 equipment delay), random where it
+  broadcasts 0 ("not known").
 Receiver biases: random per system × signal slot (a few ns).
 """
 
@@ -25,6 +27,7 @@ import numpy as np
 
 from ionwarden.parsers import (
     GLO_NO_CHANNEL,
+    GlonassEphemeris,
     KeplerEphemeris,
     frequencies_hz,
     signal_code,
@@ -71,6 +74,13 @@ def _first_eph(const: Constellation, system: str) -> dict[int, KeplerEphemeris]:
     return {e.sat: e for e in series.ephemerides[0] if isinstance(e, KeplerEphemeris)}
 
 
+def _glonass_dtau(const: Constellation) -> dict[int, float]:
+    series = const.series.get("R")
+    if series is None:
+        return {}
+    return {e.sat: e.dtau_s for e in series.ephemerides[0] if isinstance(e, GlonassEphemeris)}
+
+
 def build_signal_table(const: Constellation, seed: int) -> SignalTable:
     rng = np.random.default_rng([seed, 4242])
     s_n = const.sats.shape[0]
@@ -99,9 +109,12 @@ def build_signal_table(const: Constellation, seed: int) -> SignalTable:
     # Satellite code biases (see module docstring), metres.
     bias = rng.normal(0.0, 0.3, shape)
     ephs = {**_first_eph(const, "G"), **_first_eph(const, "E"), **_first_eph(const, "C")}
+    dtau = _glonass_dtau(const)
     for i, sat in enumerate(const.sats.tolist()):
         eph = ephs.get(sat)
         system = sat // 100
+        if system == 1 and dtau.get(sat, 0.0) != 0.0:  # GLONASS L1 (slot 0) / L2 (slot 1)
+            bias[i, 1] = bias[i, 0] + _C_MPS * dtau[sat]
         if eph is None:
             continue
         f = freq[i]

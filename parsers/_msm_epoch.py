@@ -1,0 +1,309 @@
+"""Decode all MSM4–7 messages of one epoch at once, straight into an :class:`ObsEpoch`.
+
+A receiver sends the same messages with the same masks epoch after epoch, so everything that
+depends only on their layouts (RTCM 10403.3 §3.5.12: message numbers, satellite, signal and cell
+masks, payload lengths) is worked out once per combination and cached: where every needed field
+of every output cell sits in the messages' bytes laid end to end, its scale and invalid code,
+the output satellite / signal / frequency columns, and which repeated cells are dropped. Decoding
+is then one gather of the big-endian 64-bit word under every field (as ``_msm`` does for one
+message), two shifts and a mask, one scaling, and a handful of element-wise operations on the
+rows below; epochs of the same layout decoded together (a replayed file, a feed that closes
+several epochs) share those operations.
+
+Rows (``_NROWS`` × ``n`` output cells; satellite fields repeated for each of their cells):
+0 DF397 rough range (integer ms, Tables 3.5-81/83/85/87), 1 DF399 rough phase-range rate (m/s;
+MSM5/7 only, NaN otherwise), 2 DF398 rough range modulo 1 ms, 3 DF404 fine phase-range rate (m/s;
+MSM5/7 only), 4 fine pseudorange DF400/DF405, 5 fine phase range DF401/DF406 (Tables
+3.5-82/84/86/88), 6 CNR DF403/DF408, 7 lock-time indicator DF402/DF407, 8 half-cycle DF420.
+Rows 0–1 plus rows 2–3 give the rough range and the rate; the formulas are those of
+``_msm.decode_msm``, operation for operation, so both give bit-identical values.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Final
+
+import numpy as np
+import numpy.typing as npt
+
+from ._epoch import ObsEpoch
+from ._msm import _LIGHT_MS_M, _PAD, MsmHead
+from ._msm_tables import LOCK_TIME_DF402_S, LOCK_TIME_DF407_S
+from ._signals import frequencies_hz
+
+if TYPE_CHECKING:
+    from collections.abc import Sequence
+
+    from ._gnsstime import GpsTime
+
+__all__ = ["decode_epochs"]
+
+_F64 = npt.NDArray[np.float64]
+_IDX = npt.NDArray[np.intp]
+_NROWS: Final = 9
+_MAX_EPOCH_LAYOUTS: Final = 64  # cached epoch layouts; cleared when full (a stream uses a few)
+#: Lock-time lookup: DF407 indicators (RTCM 10403.3 Table 3.5-75) then DF402 ones (Table 3.5-74).
+_LOCK_BOTH: Final = np.concatenate([LOCK_TIME_DF407_S, LOCK_TIME_DF402_S])
+_LOCK_BOTH.setflags(write=False)
+_DF402_AT: Final = LOCK_TIME_DF407_S.shape[0]
+#: Field of each row (MSM4/5, MSM6/7); DF399 and DF404 are absent from MSM4/6 (rows of NaN).
+_ROWS_45: Final = ("DF397", "DF399", "DF398", "DF404", "DF400", "DF401", "DF403", "DF402", "DF420")
+_ROWS_67: Final = ("DF397", "DF399", "DF398", "DF404", "DF405", "DF406", "DF408", "DF407", "DF420")
+_SAT_ROWS: Final = frozenset({"DF397", "DF398", "DF399"})
+#: Most epochs of one layout decoded together (bounds the temporaries: ~30 kB per epoch of 120
+#: cells).
+_MAX_BATCH: Final = 64
+_BE32: Final = np.dtype(">u4")
+#: "No invalid code" in 32 bits: a value no ≤ 24-bit field takes.
+_NO_INVALID: Final = 1 << 30
+_STEP: Final = np.arange(_MAX_BATCH, dtype=np.intp)
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class _EpochLayout:
+    """Everything about an epoch's messages that does not depend on the measured values."""
+
+    #: Per element (``_NROWS`` × n, row-major): first payload byte, shifts, mask, invalid, scale.
+    bytepos: _IDX
+    lsh: npt.NDArray[np.uint32]
+    rsh: npt.NDArray[np.int32]
+    mask: npt.NDArray[np.int32]
+    invalid: npt.NDArray[np.int32]
+    scale: _F64
+    n: int
+    #: Output columns shared (read-only) by every epoch of this layout.
+    sat: npt.NDArray[np.int16]
+    sig: npt.NDArray[np.uint16]
+    freq_hz: _F64
+    #: Multipliers of (pseudorange, phase) in light-ms: c/1000 (m), f/1000 (cycles).
+    mult: _F64
+    lli: npt.NDArray[np.uint8]
+    #: Bytes of all the messages, end to end.
+    nbytes: int
+    #: Lock-time table and per-cell offset into it (None when all cells use one indicator type).
+    lock_table: npt.NDArray[np.float32]
+    lock_offset: _IDX | None
+    #: GLONASS FDMA cells: output position, and index into the messages' channel arrays joined.
+    glo_pos: _IDX
+    glo_src: _IDX
+    glo_sat: npt.NDArray[np.int16]
+    glo_sig: npt.NDArray[np.uint16]
+    sources: tuple[int, ...]
+    duplicates: int
+
+
+_LAYOUTS: dict[tuple[tuple[object, int], ...], _EpochLayout] = {}
+
+
+def _build(heads: Sequence[MsmHead]) -> _EpochLayout:
+    rows: list[list[tuple[_IDX, int]]] = [[] for _ in range(_NROWS)]
+    dummy: list[list[bool]] = [[] for _ in range(_NROWS)]
+    sats, sigs, freqs, lock_off, glo_pos, glo_src = [], [], [], [], [], []
+    offset = cell0 = glo0 = 0
+    for h in heads:
+        lay = h.layout
+        n = lay.sat.shape[0]
+        names = _ROWS_45 if h.msm_level in (4, 5) else _ROWS_67
+        for r, name in enumerate(names):
+            seg = lay.seg.get(name)
+            if seg is None:  # DF399/DF404 of MSM4/6: no rate
+                rows[r].append((np.zeros(n, np.intp), offset))
+                dummy[r].append(True)
+                continue
+            idx = seg.start + (lay.cell_sat if name in _SAT_ROWS else np.arange(n))
+            rows[r].append((idx.astype(np.intp), offset))
+            dummy[r].append(False)
+        sats.append(lay.sat)
+        sigs.append(lay.sig)
+        freqs.append(lay.freq_hz)
+        lock_off.append(np.full(n, _DF402_AT if h.msm_level in (4, 5) else 0, np.intp))
+        if lay.glo_fdma:
+            glo_pos.append(cell0 + np.arange(n))
+            glo_src.append(glo0 + lay.cell_sat)
+            glo0 += lay.sat_ids.shape[0]
+        offset += len(h.payload)
+        cell0 += n
+
+    sat = np.concatenate(sats).astype(np.int16)
+    sig = np.concatenate(sigs).astype(np.uint16)
+    total = sat.shape[0]
+    keep = np.arange(total)
+    # Only two messages of one system (e.g. MSM6 and MSM7) can repeat a cell: keep the later one.
+    if len({h.system for h in heads}) < len(heads):
+        key = sat.astype(np.int32) * 1024 + sig
+        _, first_rev = np.unique(key[::-1], return_index=True)
+        keep = np.sort(total - 1 - first_rev)
+    n = keep.shape[0]
+
+    parts: dict[str, list[npt.NDArray[np.generic]]] = {
+        k: [] for k in ("bytepos", "lsh", "rsh", "mask", "invalid", "scale")
+    }
+    for r in range(_NROWS):
+        for (idx, off), is_dummy, h in zip(rows[r], dummy[r], heads, strict=True):
+            lay = h.layout
+            m = idx.shape[0]
+            if is_dummy:  # mask 0 reads 0, which is the invalid code: NaN
+                parts["bytepos"].append(np.full(m, off, np.intp))
+                parts["lsh"].append(np.zeros(m, np.int64))
+                parts["rsh"].append(np.zeros(m, np.int64))
+                parts["mask"].append(np.zeros(m, np.int64))
+                parts["invalid"].append(np.zeros(m, np.int64))
+                parts["scale"].append(np.ones(m))
+                continue
+            parts["bytepos"].append(lay.bytepos[idx] + off)
+            # Every field is ≤ 24 bits and starts ≤ 7 bits into its byte: a 32-bit word holds it.
+            parts["lsh"].append(lay.lsh[idx].astype(np.int64))
+            parts["rsh"].append(lay.rsh[idx] - 32)
+            parts["mask"].append(lay.mask[idx])
+            parts["invalid"].append(np.minimum(lay.invalid[idx], _NO_INVALID))
+            parts["scale"].append(lay.scale[idx])
+
+    def rowwise(name: str, dtype: type[np.generic]) -> npt.NDArray[np.generic]:
+        full = np.concatenate(parts[name]).reshape(_NROWS, total) if total else None
+        out = full[:, keep] if full is not None else np.zeros((_NROWS, 0))
+        return np.ascontiguousarray(out, dtype).ravel()
+
+    freq = np.concatenate(freqs)[keep]
+    offs = np.concatenate(lock_off)[keep]
+    g_pos = np.concatenate(glo_pos) if glo_pos else np.zeros(0, np.intp)
+    g_src = np.concatenate(glo_src) if glo_src else np.zeros(0, np.intp)
+    # GLONASS cells that survive deduplication, at their output position.
+    where = np.full(total, -1, np.intp)
+    where[keep] = np.arange(n)
+    g_new = where[g_pos]
+    kept = g_new >= 0
+    g_pos, g_src = g_new[kept], g_src[kept]
+    mixed = bool(offs.any()) and not bool(offs.all())
+    out_sat, out_sig = sat[keep], sig[keep]
+    lli = np.zeros(n, np.uint8)
+    mult = np.empty((2, n))
+    mult[0] = _LIGHT_MS_M
+    mult[1] = freq * 1e-3
+    for arr in (out_sat, out_sig, freq, mult, lli):
+        arr.setflags(write=False)  # shared by every epoch with this layout
+    return _EpochLayout(
+        bytepos=rowwise("bytepos", np.intp),  # type: ignore[arg-type]
+        lsh=rowwise("lsh", np.uint32),  # type: ignore[arg-type]
+        rsh=rowwise("rsh", np.int32),  # type: ignore[arg-type]
+        mask=rowwise("mask", np.int32),  # type: ignore[arg-type]
+        invalid=rowwise("invalid", np.int32),  # type: ignore[arg-type]
+        scale=rowwise("scale", np.float64),  # type: ignore[arg-type]
+        n=n,
+        sat=out_sat,
+        sig=out_sig,
+        freq_hz=freq,
+        mult=mult,
+        lli=lli,
+        nbytes=offset,
+        lock_table=_LOCK_BOTH
+        if mixed
+        else (LOCK_TIME_DF402_S if offs.all() else LOCK_TIME_DF407_S),
+        lock_offset=offs if mixed else None,
+        glo_pos=g_pos,
+        glo_src=g_src,
+        glo_sat=out_sat[g_pos],
+        glo_sig=out_sig[g_pos],
+        sources=tuple(h.msg_type for h in heads),
+        duplicates=total - n,
+    )
+
+
+def decode_epochs(
+    epochs: Sequence[tuple[Sequence[MsmHead], GpsTime, int]],
+) -> tuple[list[ObsEpoch], int]:
+    """The epochs of these MSM messages (checked by ``parse_msm_head``), and their repeated cells.
+
+    Each item is (messages of one epoch in arrival order, its time, its station id). Epochs with
+    the same layout are decoded together. Cells come in message order; a cell that a later message
+    repeats (MSM6 and MSM7 of one system) is kept once, from the later message, and the count of
+    those dropped is returned. GLONASS FDMA frequencies use each message's ``glo_channels``.
+
+    ``sat``, ``sig``, ``lli`` and (without GLONASS FDMA) ``freq_hz`` are read-only arrays shared
+    by every epoch of the same layout; the measured columns are new for each call (an epoch's
+    columns may be views of one block allocated for the epochs decoded together).
+    """
+    groups: dict[tuple[tuple[object, int], ...], list[int]] = {}
+    for k, (heads, _, _) in enumerate(epochs):
+        groups.setdefault(tuple([(h.layout, len(h.payload)) for h in heads]), []).append(k)
+    out: list[ObsEpoch] = [None] * len(epochs)  # type: ignore[list-item]
+    duplicates = 0
+    for key, members in groups.items():
+        lay = _LAYOUTS.get(key)
+        if lay is None:
+            if len(_LAYOUTS) >= _MAX_EPOCH_LAYOUTS:
+                _LAYOUTS.clear()
+            lay = _LAYOUTS[key] = _build(epochs[members[0]][0])
+        for at in range(0, len(members), _MAX_BATCH):
+            part = members[at : at + _MAX_BATCH]
+            _decode_group(lay, [epochs[k] for k in part], out, part)
+        duplicates += lay.duplicates * len(members)
+    return out, duplicates
+
+
+def _decode_group(
+    lay: _EpochLayout,
+    epochs: list[tuple[Sequence[MsmHead], GpsTime, int]],
+    out: list[ObsEpoch],
+    where: list[int],
+) -> None:
+    k = len(epochs)
+    n = lay.n
+    # RTCM 10403.3 §3.5.12: one gather of the big-endian 64-bit word at every field's first byte,
+    # shift the field to the top, arithmetic-shift it down (sign-extends), mask unsigned fields.
+    # (32-bit words: every field is ≤ 24 bits and starts ≤ 7 bits into its first byte.)
+    buf = b"".join([h.payload for heads, _, _ in epochs for h in heads] + [_PAD])
+    words = np.ndarray((len(buf) - 3,), _BE32, buf, 0, (1,))
+    pos = lay.bytepos if k == 1 else np.add.outer(_STEP[:k] * lay.nbytes, lay.bytepos)
+    left = np.left_shift(words.take(pos), lay.lsh, dtype=np.uint32)
+    raw = left.view(np.int32) >> lay.rsh
+    raw &= lay.mask
+    val = raw * lay.scale
+    val[raw == lay.invalid] = np.nan
+    v = val.reshape(k, _NROWS, n)
+    r = raw.reshape(k, _NROWS, n)
+
+    # §3.5.12.3–4: rough + fine values. Rows 0–1 plus rows 2–3 give the rough range (ms) and
+    # the phase-range rate (m/s); fine pseudorange and phase range (rows 4–5) plus the rough
+    # range, times c/1000 and f/1000, give metres and cycles.
+    rough_rate = v[:, 0:2] + v[:, 2:4]
+    ranges = v[:, 4:6] + rough_rate[:, 0:1]
+    freq = [lay.freq_hz] * k
+    if lay.glo_pos.shape[0]:
+        mult = np.empty((k, 2, n))
+        mult[:] = lay.mult
+        for j, (heads, _, _) in enumerate(epochs):
+            chans = [h.glo_channels for h in heads if h.glo_channels is not None]
+            chan = (chans[0] if len(chans) == 1 else np.concatenate(chans)).take(lay.glo_src)
+            f = lay.freq_hz.copy()
+            f[lay.glo_pos] = frequencies_hz(lay.glo_sat, lay.glo_sig, chan)
+            mult[j, 1] = f * 1e-3
+            freq[j] = f
+        ranges *= mult
+    else:
+        ranges *= lay.mult
+    cn0 = v[:, 6].astype(np.float32)
+    lock_raw = r[:, 7]
+    lock_s = lay.lock_table.take(
+        lock_raw if lay.lock_offset is None else lock_raw + lay.lock_offset
+    )
+    lock_ind = lock_raw.astype(np.int16)
+    half = r[:, 8].astype(np.bool_)
+    for j, (_, time, station) in enumerate(epochs):
+        out[where[j]] = ObsEpoch(
+            time=time,
+            station_id=station,
+            sat=lay.sat,
+            sig=lay.sig,
+            pseudorange_m=ranges[j, 0],
+            phase_cycles=ranges[j, 1],
+            range_rate_mps=rough_rate[j, 1],
+            cn0_dbhz=cn0[j],
+            lock_time_s=lock_s[j],
+            lock_indicator=lock_ind[j],
+            half_cycle=half[j],
+            lli=lay.lli,
+            freq_hz=freq[j],
+            sources=lay.sources,
+            _validate=False,
+        )
