@@ -44,12 +44,9 @@ from ionwarden.daemon.alarms import StationAlarms
 from ionwarden.daemon.config import AlarmSettings, MqttSettings, PrometheusSettings
 from ionwarden.daemon.estimator import FixStatus, StationPipeline, StationSnapshot
 from ionwarden.daemon.outputs import (
-    DaemonSnapshot,
     Exporter,
-    IngestFigures,
     MqttPublisher,
     OutboundMessage,
-    StationFigures,
     _client,
     summary_payload,
 )
@@ -304,26 +301,11 @@ async def bench_frames_synchronized(
 
 
 def bench_exporter(n_stations: int, n_sats: int, repeats: int = 50) -> None:
-    stations = []
-    alarms = []
-    for i in range(n_stations):
-        name = f"ST{i:02d}"
-        snap = make_snapshot(name, T0, n=n_sats)
-        eng = StationAlarms(name, AlarmSettings())
-        eng.observe_snapshot(snap)
-        alarms += eng.statuses()
-        stations.append(
-            StationFigures(
-                station=name,
-                snapshot=snap,
-                ingest=IngestFigures(bytes_total=10**6, frames_total=10**4, connected=True),
-                last_epoch_monotonic_s=time.monotonic(),
-                epochs_total=1000,
-            )
-        )
+    from bench_exporter import build  # this directory is sys.path[0] when run as a script
+
     registry = CollectorRegistry()
     exp = Exporter(PrometheusSettings(port=0), registry=registry)
-    exp.update(DaemonSnapshot(stations=tuple(stations), alarms=tuple(alarms)))
+    exp.update(build(n_stations, n_sats))
     for i in range(n_stations):
         for _ in range(10):
             exp.observe_epoch_latency(f"ST{i:02d}", 0.004)

@@ -258,8 +258,7 @@ class StreamDecoder:
             try:
                 head = parse_msm_head(frame.payload)
             except ParseError as exc:
-                self._errors[t] = self._errors.get(t, 0) + 1
-                self._last_error = f"{exc} at stream offset {frame.offset}"
+                self._count_error(t, exc, frame.offset)
                 return
             self._decoded[t] = self._decoded.get(t, 0) + 1
             self._on_msm(head, out)
@@ -274,12 +273,16 @@ class StreamDecoder:
         try:
             msg = decoder(frame.payload)
         except ParseError as exc:
-            self._errors[t] = self._errors.get(t, 0) + 1
-            self._last_error = f"{exc} at stream offset {frame.offset}"
+            self._count_error(t, exc, frame.offset)
             return
         self._decoded[t] = self._decoded.get(t, 0) + 1
         self._learn(msg, out)
         out.append(msg)
+
+    def _count_error(self, msg_type: int, exc: ParseError, offset: int) -> None:
+        """A message that failed to decode: counted per type, the last one kept for statistics."""
+        self._errors[msg_type] = self._errors.get(msg_type, 0) + 1
+        self._last_error = f"{exc} at stream offset {offset}"
 
     def _decode_misc(
         self, decoder: Callable[[bytes, DecodeContext], object], payload: bytes
