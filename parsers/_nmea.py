@@ -4,7 +4,8 @@
 §5.2.1: XOR of the bytes between ``$`` and ``*``, two hex digits), so a bad checksum is a
 :class:`ParseError` that the framer counts. Sentences we use (GGA, RMC, GSA, GSV, GST, GNS, VTG, ZDA,
 and the Unicore high-precision ``…H`` variants that pynmeagps reads with the same fields) are parsed
-by ``pynmeagps.NMEAReader.parse``; every other sentence passes through raw as :class:`NmeaOther`
+by ``pynmeagps.NMEAReader.parse`` (GGA and GST, decoded every second, first through the lean
+builders of ``_nmea_fast``, which give the same values); every other sentence passes through raw as :class:`NmeaOther`
 without calling pynmeagps (it costs tens of µs per sentence). pynmeagps exceptions become
 :class:`ParseError` (``raise … from exc``).
 
@@ -24,6 +25,7 @@ from pynmeagps import exceptions as nmea_exc
 from pynmeagps.nmeatypes_core import VALNONE
 
 from ._errors import ParseError
+from ._nmea_fast import FAST_BUILDERS
 
 if TYPE_CHECKING:
     from collections.abc import Container
@@ -406,6 +408,11 @@ def decode_sentence(raw: bytes, wanted: Container[str] | None = None) -> NmeaMes
     builder = BUILDERS.get(formatter)
     if builder is None or (wanted is not None and formatter not in wanted):
         return NmeaOther(talker=talker, sentence_id=formatter, raw=bytes(s))
+    fast = FAST_BUILDERS.get(formatter)
+    if fast is not None and comma >= 0:  # lean GGA/GST; None = off the plain path
+        lean = fast(talker, bytes(s[comma + 1 : star]))
+        if lean is not None:
+            return lean
     try:
         msg = NMEAReader.parse(bytes(s), validate=VALNONE)
         if msg is None:

@@ -150,7 +150,13 @@ class StationPipeline:
     def _on_gga(self, gga: GgaFix) -> FixStatus:
         self._gga = gga
         self._gga_time = self._utc_time(gga.time_utc)
-        if gga.quality > 0 and math.isfinite(gga.lat_deg) and math.isfinite(gga.lon_deg):
+        if (
+            _SOURCE_RANK["gga"]
+            >= _SOURCE_RANK[self._position_source]  # else set_position ignores it
+            and gga.quality > 0
+            and math.isfinite(gga.lat_deg)
+            and math.isfinite(gga.lon_deg)
+        ):
             h = (gga.alt_msl_m if math.isfinite(gga.alt_msl_m) else 0.0) + (
                 gga.geoid_sep_m if math.isfinite(gga.geoid_sep_m) else 0.0
             )

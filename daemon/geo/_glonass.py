@@ -44,8 +44,9 @@ __all__ = [
 F64 = npt.NDArray[np.float64]
 #: RK4 step and node spacing (s); the ICD example integrates with steps of this order.
 GLONASS_STEP_S = 60.0
-#: Node table half-width at first build (nodes: ±30 min); it grows on demand up to the cap below.
-_INITIAL_SPAN_K = 30
+#: Nodes added beyond the farthest request when the table is built or grows (±5 min of headroom:
+#: the table then grows about once per 5 min of use instead of every minute).
+_GROW_SPAN_K = 5
 #: Beyond this distance from t_b the result is NaN: a broadcast GLONASS orbit is meant for about
 #: ±15 min (SCIENCE.md §6) and is worthless after a few hours.
 MAX_GLONASS_PROPAGATION_S = 4 * 3600.0
@@ -203,30 +204,34 @@ class GlonassBatch:
         tb = np.where(tb - t_gps_s > _HALF_DAY_S, tb - _DAY_S, tb)
         return np.where(t_gps_s - tb > _HALF_DAY_S, tb + _DAY_S, tb)
 
-    def nodes(self, tb_gps_s: F64, span_k: int) -> F64:
-        """Node table (n, 2K+1, 6): the RK4 state at t_b + (k − K)·h; rebuilt only when t_b moves
-        to another day or the span must grow."""
-        if (
-            self._tb_gps_s is None
-            or span_k > self._span_k
-            or not np.array_equal(self._tb_gps_s, tb_gps_s)
-        ):
-            k = max(span_k, self._span_k)
-            n = len(self)
-            table = np.empty((n, 2 * k + 1, 6), dtype=np.float64)
+    def nodes(self, tb_gps_s: F64, span_k: int, grow_k: int = 0) -> F64:
+        """Node table (n, 2K+1, 6), K ≥ ``span_k``: the RK4 state at t_b + (k − K)·h. Built anew
+        when t_b moves to another day; when only the span must grow, the table is extended from
+        its ends (the same steps from t_b, so the same values), to ``span_k + grow_k``."""
+        same_tb = self._tb_gps_s is not None and np.array_equal(self._tb_gps_s, tb_gps_s)
+        if same_tb and span_k <= self._span_k:
+            return self._nodes
+        k0 = self._span_k if same_tb else 0
+        k = max(span_k + grow_k, k0)
+        n = len(self)
+        table = np.empty((n, 2 * k + 1, 6), dtype=np.float64)
+        if k0:
+            table[:, k - k0 : k + k0 + 1] = self._nodes
+        else:
             table[:, k] = self.state0
-            step = np.full(n, GLONASS_STEP_S)
-            fwd = self.state0
-            back = self.state0
-            for j in range(1, k + 1):
-                fwd = rk4_propagate(fwd, self.acc_ls, step, 1)
-                back = rk4_propagate(back, self.acc_ls, -step, 1)
-                table[:, k + j] = fwd
-                table[:, k - j] = back
-            self._nodes = table
-            self._span_k = k
-            self._tb_gps_s = np.array(tb_gps_s, copy=True)
-        return self._nodes
+        # Forward and backward rows in one (2n, 6) RK4 step: elementwise IEEE operations (+ − × ÷
+        # and sqrt, all correctly rounded), so each row's values do not depend on the batch.
+        state = np.concatenate((table[:, k + k0], table[:, k - k0]))
+        acc = np.concatenate((self.acc_ls, self.acc_ls))
+        step = np.concatenate((np.full(n, GLONASS_STEP_S), np.full(n, -GLONASS_STEP_S)))
+        for j in range(k0 + 1, k + 1):
+            state = rk4_propagate(state, acc, step, 1)
+            table[:, k + j] = state[:n]
+            table[:, k - j] = state[n:]
+        self._nodes = table
+        self._span_k = k
+        self._tb_gps_s = np.array(tb_gps_s, copy=True)
+        return table
 
 
 _HERMITE_T = hermite_matrix(GLONASS_STEP_S)  # (4, 8)
@@ -246,8 +251,9 @@ def glonass_state(batch: GlonassBatch, t_gps_s: npt.ArrayLike) -> tuple[F64, F64
         valid = np.abs(dt) <= MAX_GLONASS_PROPAGATION_S
         dt = np.where(valid, dt, 0.0)
         need = float(np.max(np.abs(dt), initial=0.0))
-    span_k = max(_INITIAL_SPAN_K, math.ceil(need / GLONASS_STEP_S))
-    table = batch.nodes(tb, span_k)
+    # Nodes up to the one past the farthest request (then j below is never clamped), plus room to
+    # grow: a fresh batch (every new GLONASS ephemeris) integrates only what is used.
+    table = batch.nodes(tb, math.floor(need / GLONASS_STEP_S) + 1, _GROW_SPAN_K)
     k = (table.shape[1] - 1) // 2
     h = GLONASS_STEP_S
     j = np.minimum(np.floor(dt / h), k - 1)
