@@ -63,113 +63,22 @@ def test_lean_equals_pynmeagps_on_every_real_gga_gst() -> None:
 
 
 @pytest.mark.parametrize(
-    "fields",
+    "csv",
     [
         # from memory: NMEA 0183 §6.3 GGA layouts, edge cases of the time and position fields
-        [
-            "103607.00",
-            "5327.03942",
-            "N",
-            "00214.42462",
-            "W",
-            "1",
-            "06",
-            "5.88",
-            "56.0",
-            "M",
-            "48.5",
-            "M",
-            "",
-            "",
-        ],
-        [
-            "103607",
-            "5327.03942",
-            "S",
-            "00214.42462",
-            "E",
-            "4",
-            "12",
-            "0.6",
-            "56.0",
-            "M",
-            "48.5",
-            "M",
-            "1.0",
-            "0123",
-        ],
-        [
-            "235960.00",
-            "5327.03942",
-            "N",
-            "00214.42462",
-            "W",
-            "1",
-            "06",
-            "5.88",
-            "56.0",
-            "M",
-            "48.5",
-            "M",
-            "",
-            "",
-        ],  # leap second: pynmeagps gives no time
-        [
-            "103607.1234567",
-            "0000.00000",
-            "S",
-            "00000.0000",
-            "W",
-            "1",
-            "06",
-            "",
-            "",
-            "",
-            "",
-            "",
-            "",
-            "",
-        ],  # 7 fraction digits; zero position in the southern/western hemispheres
-        ["1036", "53.0", "N", "0.0", "W", "0", "", "", "", "", "", "", "", ""],  # short fields
-        ["", "", "", "", "", "", "", "", "", "", "", "", "", ""],  # all empty
-        ["103607.5", "5327.03942", "N", "00214.42462", "W", "1", "06"],  # too few fields
-        [
-            "103607.00",
-            "5327.03942",
-            "N",
-            "00214.42462",
-            "W",
-            "1.5",
-            "06",
-            "5.88",
-            "56.0",
-            "M",
-            "48.5",
-            "M",
-            "",
-            "",
-        ],  # non-integer quality: pynmeagps error
-        [
-            "103607.00",
-            "5327.0394",
-            "N",
-            "00214.42462",
-            "W",
-            "1",
-            "06",
-            "5.88",
-            "56.0",
-            "M",
-            "48.5",
-            "M",
-            "",
-            "",
-            "extra",
-        ],  # extra field: pynmeagps ignores it
+        "103607.00,5327.03942,N,00214.42462,W,1,06,5.88,56.0,M,48.5,M,,",
+        "103607,5327.03942,S,00214.42462,E,4,12,0.6,56.0,M,48.5,M,1.0,0123",
+        "235960.00,5327.03942,N,00214.42462,W,1,06,5.88,56.0,M,48.5,M,,",  # leap second: pynmeagps gives no time
+        "103607.1234567,0000.00000,S,00000.0000,W,1,06,,,,,,,",  # 7 fraction digits; zero position in the southern/western hemispheres
+        "1036,53.0,N,0.0,W,0,,,,,,,,",  # short fields
+        ",,,,,,,,,,,,,",  # all empty
+        "103607.5,5327.03942,N,00214.42462,W,1,06",  # too few fields
+        "103607.00,5327.03942,N,00214.42462,W,1.5,06,5.88,56.0,M,48.5,M,,",  # non-integer quality: pynmeagps error
+        "103607.00,5327.0394,N,00214.42462,W,1,06,5.88,56.0,M,48.5,M,,,extra",  # extra field: pynmeagps ignores it
     ],
 )
-def test_lean_gga_equals_pynmeagps_on_edge_cases(fields: list[str]) -> None:
-    raw = sentence("GNGGA", fields)
+def test_lean_gga_equals_pynmeagps_on_edge_cases(csv: str) -> None:
+    raw = sentence("GNGGA", csv.split(","))
     assert outcome(raw) == reference(raw)
 
 
