@@ -5,9 +5,9 @@
 :class:`ParseError` that the framer counts. Sentences we use (GGA, RMC, GSA, GSV, GST, GNS, VTG, ZDA,
 and the Unicore high-precision ``…H`` variants that pynmeagps reads with the same fields) are parsed
 by ``pynmeagps.NMEAReader.parse`` (GGA and GST, decoded every second, first through the lean
-builders of ``_nmea_fast``, which give the same values); every other sentence passes through raw as :class:`NmeaOther`
-without calling pynmeagps (it costs tens of µs per sentence). pynmeagps exceptions become
-:class:`ParseError` (``raise … from exc``).
+builders of ``_nmea_fast``, which give the same values); every other sentence passes through raw
+as :class:`NmeaOther` without calling pynmeagps (it costs tens of µs per sentence). pynmeagps
+exceptions become :class:`ParseError` (``raise … from exc``).
 
 Units are in field names; absent numeric fields are NaN (floats) or ``None`` (integers, times).
 Satellite numbers become our satellite ids (``parsers._signals``) through :func:`nmea_sat_id`.

@@ -81,6 +81,12 @@ def escape_label_value(v: str) -> str:
     return v.replace("\\", r"\\").replace("\n", r"\n").replace('"', r"\"")
 
 
+def _help_text(doc: str, *, openmetrics: bool) -> str:
+    """A HELP line's text: escaped as a label value in OpenMetrics, backslash and newline only in
+    text format 0.0.4 (exposition format spec)."""
+    return escape_label_value(doc) if openmetrics else doc.replace("\\", r"\\").replace("\n", r"\n")
+
+
 @dataclass(slots=True)
 class Family:
     """One metric family: ``labels[i]`` (values in ``labelnames`` order) has value ``values[i]``.
@@ -154,12 +160,8 @@ def render(families: list[Family], cache: LabelCache, *, openmetrics: bool) -> s
     """The exposition text of ``families`` (without OpenMetrics' closing ``# EOF``)."""
     out: list[str] = []
     for fam in families:
-        if openmetrics:
-            doc = escape_label_value(fam.doc)
-            head = fam.name
-        else:
-            doc = fam.doc.replace("\\", r"\\").replace("\n", r"\n")
-            head = fam.sample_name
+        doc = _help_text(fam.doc, openmetrics=openmetrics)
+        head = fam.name if openmetrics else fam.sample_name
         out.append(f"# HELP {head} {doc}\n# TYPE {head} {fam.type}\n")
         name = fam.sample_name
         out.extend(
@@ -211,14 +213,13 @@ class MetricWriter:
             if metric.type not in _TYPES_004 or not self._name_ok(name):
                 return None
             split: dict[str, list[str]] = {}
+            doc = _help_text(metric.documentation, openmetrics=openmetrics)
             if openmetrics:
-                doc = escape_label_value(metric.documentation)
                 out.append(f"# HELP {name} {doc}\n# TYPE {name} {metric.type}\n")
                 if metric.unit:
                     out.append(f"# UNIT {name} {metric.unit}\n")
             else:
                 typ, suffix = _TYPES_004[metric.type]
-                doc = metric.documentation.replace("\\", r"\\").replace("\n", r"\n")
                 out.append(f"# HELP {name}{suffix} {doc}\n# TYPE {name}{suffix} {typ}\n")
                 split = {f"{name}{sfx}": [] for sfx in _SPLIT_SUFFIXES}
             for s in metric.samples:
