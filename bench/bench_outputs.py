@@ -157,13 +157,27 @@ async def bench_outputs_work(seconds: int, n_stations: int, n_sats: int) -> None
     )
 
 
+def _replayed_stations(
+    seconds: int, n_stations: int
+) -> tuple[list[bytes], list[StationPipeline], list[StationAlarms]]:
+    """The simulator's invented quiet-day stream (one chunk per second) and ``n_stations``
+    pipelines + alarm engines that have taken its first chunk (ephemerides, arc set-up: untimed)."""
+    sc = build_scenario("quiet-day", duration_s=seconds + 1.0)
+    chunks = [data for _, data in iter_stream(Simulator(sc), 0)]
+    names = [f"ST{i:02d}" for i in range(n_stations)]
+    pipes = [StationPipeline(n, reference_time=sc.start) for n in names]
+    engines = [StationAlarms(n, AlarmSettings()) for n in names]
+    for p in pipes:
+        p.feed(chunks[0])
+    return chunks, pipes, engines
+
+
 async def bench_frames(
     seconds: int, n_stations: int, *, host: str, port: int, stagger: bool
 ) -> None:
     """Frame bytes received → estimator pipeline → alarms → summary PUBACK, on the simulator's
     invented quiet-day stream (one simulated receiver replayed as ``n_stations`` stations)."""
-    sc = build_scenario("quiet-day", duration_s=seconds + 1.0)
-    chunks = [data for _, data in iter_stream(Simulator(sc), 0)]
+    chunks, pipes, engines = _replayed_stations(seconds, n_stations)
     settings = MqttSettings(host=host, port=port, topic_prefix=f"iwbench/{os.getpid()}")
     submitted: dict[bytes, float] = {}
     acked: list[float] = []
@@ -173,11 +187,6 @@ async def bench_frames(
         if t0 is not None:
             acked.append(time.perf_counter() - t0)
 
-    names = [f"ST{i:02d}" for i in range(n_stations)]
-    pipes = [StationPipeline(n, reference_time=sc.start) for n in names]
-    engines = [StationAlarms(n, AlarmSettings()) for n in names]
-    for p in pipes:  # first epoch: ephemerides and arc set-up, not timed
-        p.feed(chunks[0])
     est: list[float] = []
     pub = MqttPublisher(settings, on_published=on_published)
     async with asyncio.TaskGroup() as tg:
@@ -221,8 +230,7 @@ async def bench_frames_synchronized(
     to the GPS second); as in the daemon, each station's estimate step is its own task. Splits the
     frame → summary PUBACK latency into the wait behind other stations' steps (queueing), the
     station's own estimation, and snapshot → PUBACK (alarms, formatting, queueing, the MQTT path)."""
-    sc = build_scenario("quiet-day", duration_s=seconds + 1.0)
-    chunks = [data for _, data in iter_stream(Simulator(sc), 0)]
+    chunks, pipes, engines = _replayed_stations(seconds, n_stations)
     settings = MqttSettings(host=host, port=port, topic_prefix=f"iwbench/{os.getpid()}")
     # payload -> (frame arrival, station step start, snapshot out)
     submitted: dict[bytes, tuple[float, float, float]] = {}
@@ -233,11 +241,6 @@ async def bench_frames_synchronized(
         if t is not None:
             rows.append((*t, time.perf_counter()))
 
-    names = [f"ST{i:02d}" for i in range(n_stations)]
-    pipes = [StationPipeline(n, reference_time=sc.start) for n in names]
-    engines = [StationAlarms(n, AlarmSettings()) for n in names]
-    for p in pipes:  # first epoch: ephemerides and arc set-up, not timed
-        p.feed(chunks[0])
     est: list[float] = []
     pub = MqttPublisher(settings, on_published=on_published)
     inboxes: list[asyncio.Queue[tuple[float, bytes] | None]] = [
@@ -269,7 +272,8 @@ async def bench_frames_synchronized(
         tg.create_task(pub.run(), name="daemon.output[mqtt]")
         await asyncio.wait_for(pub.wait_connected(), 10)
         tasks = [
-            tg.create_task(station(i), name=f"daemon.estimate[{n}]") for i, n in enumerate(names)
+            tg.create_task(station(i), name=f"daemon.estimate[{p.station}]")
+            for i, p in enumerate(pipes)
         ]
         loop = asyncio.get_running_loop()
         start = loop.time()
