@@ -5,8 +5,11 @@
 1. Pipeline only (framer + MSM decode + estimator, no asyncio): CPU per epoch over the bundled demo
    capture, reported as % of one core for a 1 Hz station.
 2. The real daemon (one root TaskGroup; per station a loopback TCP "receiver" pushing the demo at
-   its real rate, or with --source file a paced file replay: one epoch per second per station): 20 stations (RSS), then N stations (default 200)
-   sustained for S seconds: process CPU % of one core, epochs delivered vs expected, queue peaks.
+   its real rate, or with --source file a paced file replay: one epoch per second per station): 20
+   stations (RSS), then N stations (default 200) sustained for S seconds: process CPU % of one
+   core, epochs delivered vs expected, queue peaks. The TCP receivers run in a child process, so
+   the CPU and RSS figures are the daemon's alone (as on a reference station, where the receiver
+   is another machine).
 Figures depend on the machine and on other load (the dev machines are shared: say so when quoting).
 """
 
@@ -14,9 +17,11 @@ from __future__ import annotations
 
 import argparse
 import asyncio
+import multiprocessing
 import resource
 import time
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -25,6 +30,9 @@ from ionwarden.daemon.estimator import StationPipeline, StationSnapshot
 from ionwarden.daemon.ingest import FileSource, TcpSource
 from ionwarden.daemon.runtime import FramingCore, StationConfig
 from ionwarden.daemon.runtime._supervisor import Daemon, DaemonOptions, StationBundle
+
+if TYPE_CHECKING:
+    from multiprocessing.connection import Connection
 
 DEMO = Path(__file__).resolve().parents[1] / "daemon" / "data" / "demo.bin"
 
@@ -82,16 +90,38 @@ async def _receiver(data: bytes, writer: asyncio.StreamWriter, stop: asyncio.Eve
         writer.close()
 
 
-async def fleet(n: int, seconds: float, source: str) -> tuple[float, float, int, int, int]:
-    servers: list[asyncio.Server] = []
+async def _receivers_main(n: int, conn: Connection) -> None:
+    """Child process: ``n`` loopback receivers; sends their ports, serves until told to stop."""
+    data = DEMO.read_bytes()
     stop = asyncio.Event()
+    servers = [
+        await asyncio.start_server(lambda _r, w: _receiver(data, w, stop), "127.0.0.1", 0)
+        for _ in range(n)
+    ]
+    conn.send([s.sockets[0].getsockname()[1] for s in servers])
+    loop = asyncio.get_running_loop()
+    await loop.run_in_executor(None, conn.recv)  # the parent's "stop"
+    stop.set()
+    for srv in servers:
+        srv.close()
+    await asyncio.sleep(0.2)  # let the receivers return
+
+
+def _receivers_process(n: int, conn: Connection) -> None:
+    asyncio.run(_receivers_main(n, conn))
+
+
+async def fleet(n: int, seconds: float, source: str) -> tuple[float, float, int, int, int]:
+    child: multiprocessing.Process | None = None
+    parent_end: Connection | None = None
     if source == "tcp":
-        data = DEMO.read_bytes()
-        servers = [
-            await asyncio.start_server(lambda _r, w: _receiver(data, w, stop), "127.0.0.1", 0)
-            for _ in range(n)
-        ]
-        sources = [TcpSource(host="127.0.0.1", port=s.sockets[0].getsockname()[1]) for s in servers]
+        parent_end, child_end = multiprocessing.Pipe()
+        child = multiprocessing.get_context("spawn").Process(
+            target=_receivers_process, args=(n, child_end), daemon=True
+        )
+        child.start()
+        ports = parent_end.recv()
+        sources = [TcpSource(host="127.0.0.1", port=port) for port in ports]
     else:
         sources = [FileSource(path=str(DEMO), speed=1.0) for _ in range(n)]
     stations = tuple(
@@ -111,10 +141,9 @@ async def fleet(n: int, seconds: float, source: str) -> tuple[float, float, int,
         cpu, wall = time.process_time() - c0, time.monotonic() - w0
         stats = daemon.statistics()
         daemon.request_stop()
-    stop.set()
-    for srv in servers:
-        srv.close()
-    await asyncio.sleep(0.2)  # let the receivers return
+    if child is not None and parent_end is not None:
+        parent_end.send("stop")
+        child.join(10)
     epochs = sum(s.epochs_total for s in stats) - e0
     peak = max(s.queue.peak for s in stats)
     drops = sum(s.queue.dropped_total for s in stats)

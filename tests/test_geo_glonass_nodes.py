@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ionwarden.daemon.geo import GlonassBatch, glonass_state
+from ionwarden.daemon.geo import GlonassBatch, _glonass, glonass_state
 from ionwarden.daemon.geo._glonass import GLONASS_STEP_S, rk4_propagate
 
 from .test_geo_glonass import TB_GPS_S, _eph
@@ -61,3 +61,38 @@ def test_glonass_state_builds_only_the_span_it_needs() -> None:
     b = glonass_state(GlonassBatch.from_ephemerides([_eph()]), TB_GPS_S + 3000.0)
     for x, y in zip(a, b, strict=True):
         np.testing.assert_array_equal(x[:1], y)
+
+
+def test_rows_shared_between_batches_bitwise(monkeypatch) -> None:
+    """A batch that holds a row another batch of the process integrated copies it (no RK4 for that
+    row) and its table still equals plain RK4 steps from t_b bit for bit (GLONASS ICD Ed. 5.1
+    §A.3.1.2 integration, the oracle above)."""
+    monkeypatch.setattr(_glonass, "_ROW_CACHE", {})
+    first = GlonassBatch.from_ephemerides([_eph(), _eph(sat=106, tb_s=11700.0 - 900.0)])
+    tb2 = first.resolve_tb(np.full(2, TB_GPS_S))
+    first.nodes(tb2, 12)
+    # Another station's batch: the same two ephemerides plus a new one.
+    second = _batch()
+    integrated: list[int] = []
+    real = _glonass.rk4_propagate
+
+    def counting(state, acc, step, steps):  # type: ignore[no-untyped-def]
+        integrated.append(state.shape[0])
+        return real(state, acc, step, steps)
+
+    monkeypatch.setattr(_glonass, "rk4_propagate", counting)
+    tb3 = second.resolve_tb(np.full(3, TB_GPS_S))
+    table = second.nodes(tb3, 9)
+    assert integrated
+    assert set(integrated) == {2}  # only the new row, forward and backward
+    np.testing.assert_array_equal(table, _plain_nodes(second, 9))
+
+
+def test_row_cache_is_bounded(monkeypatch) -> None:
+    """The process-wide row cache keeps at most _ROW_CACHE_MAX rows (oldest leave first)."""
+    monkeypatch.setattr(_glonass, "_ROW_CACHE", {})
+    monkeypatch.setattr(_glonass, "_ROW_CACHE_MAX", 4)
+    for i in range(6):
+        b = GlonassBatch.from_ephemerides([_eph(vz_mps=1000.0 + i)])
+        b.nodes(b.resolve_tb(np.full(1, TB_GPS_S)), 2)
+    assert len(_glonass._ROW_CACHE) == 4

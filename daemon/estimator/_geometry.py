@@ -205,7 +205,10 @@ class Geometry:
         usable = (span > 0.0) & (span < 4.0 * self.refresh_s)
         cold = ~usable[:, 0] & ~np.isnan(new[:, 0])
         if np.count_nonzero(cold):
-            ahead = self._rows(sats[cold], t_s + _RATE_STEP_S)
+            # All of ``sats`` at t + step, not only the cold ones: the ephemeris selection (and
+            # with it the orbit node tables, GLONASS RK4 included) is cached per satellite list,
+            # so a subset would build and integrate new ones (a new ephemeris made this ~6 ms).
+            ahead = self._rows(sats, t_s + _RATE_STEP_S)[cold]
             rate[cold] = self._rate(ahead, new[cold], np.full((ahead.shape[0], 1), _RATE_STEP_S))
             usable[cold] = True
         self.rate[:, sats] = np.where(usable & ~np.isnan(rate), rate, 0.0).T

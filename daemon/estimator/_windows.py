@@ -173,8 +173,10 @@ class SlotStd:
     sum of squares and count of the values of satellite ``s`` held in the ring, whose entry
     ``n mod R`` holds the (satellites, values) written in slot ``n`` for the last ``R =
     window/slot`` slots up to ``last_slot`` (entries of skipped slots are emptied). Removing an
-    entry subtracts exactly what adding it added (its increments value, value² are kept beside
-    it), and the sums are rebuilt exactly each time the ring wraps, so rounding cannot drift.
+    entry subtracts exactly what adding it added (value² is recomputed from the kept value, which
+    gives the same bits; keeping only the values halves the ring's memory: 300 entries per
+    station at the default 1 s slots), and the sums are rebuilt exactly each time the ring wraps,
+    so rounding cannot drift.
     """
 
     def __init__(self, n_slots: int, window_s: float, slot_s: float) -> None:
@@ -183,8 +185,6 @@ class SlotStd:
         self.rows = max(2, round(window_s / slot_s))
         empty = (np.zeros(0, np.intp), np.zeros(0))
         self.entries: list[tuple[npt.NDArray[np.intp], F64]] = [empty] * self.rows
-        #: Per entry its increments (values, values²) concatenated, None: not built yet.
-        self._incs: list[F64 | None] = [None] * self.rows
         self.acc = np.zeros((3, n_slots))  # total, total_sq, count
         self.last_slot = -1
         self._since_exact = 0
@@ -210,13 +210,10 @@ class SlotStd:
         """Replace the ring entries (restoring a checkpoint; the sums are set separately)."""
         assert len(entries) == self.rows, (len(entries), self.rows)
         self.entries = entries
-        self._incs = [None] * self.rows
 
     def _inc(self, row: int) -> F64:
-        inc = self._incs[row]
-        if inc is None:
-            inc = self._increments(self.entries[row][1])
-        return inc
+        """The increments (values, values²) that adding entry ``row`` added."""
+        return self._increments(self.entries[row][1])
 
     @staticmethod
     def _increments(vals: F64) -> F64:
@@ -239,7 +236,6 @@ class SlotStd:
             self.acc[:2, sats] -= self._inc(row).reshape(2, -1)
             self.acc[2, sats] -= 1.0
             self.entries[row] = (sats[:0], vals[:0])
-            self._incs[row] = None
 
     def _recompute(self) -> None:
         sats = np.concatenate([e[0] for e in self.entries])
@@ -279,7 +275,8 @@ class SlotStd:
             s, v = sats[fin], value[fin]
         else:
             s, v = sats, value
-        inc = self._increments(v)  # holds a copy: the caller's array may be handed on
+        vals = np.array(v)  # a copy: the caller's array may be handed on
+        inc = self._increments(vals)
         blk: F64 | None = None
         if start == slot and self.entries[row][0] is s and not s.flags.writeable:
             # The common case: the slot replaces the entry of the same satellites R slots ago
@@ -295,8 +292,7 @@ class SlotStd:
                 self._drop(n % self.rows)
             self.acc[:2, s] += inc.reshape(2, -1)
             self.acc[2, s] += 1.0
-        self.entries[row] = (s, inc[: v.shape[0]])
-        self._incs[row] = inc
+        self.entries[row] = (s, vals)
         if self._since_exact >= self.rows:
             self._recompute()
             self._since_exact = 0

@@ -207,7 +207,9 @@ class GlonassBatch:
     def nodes(self, tb_gps_s: F64, span_k: int, grow_k: int = 0) -> F64:
         """Node table (n, 2K+1, 6), K ≥ ``span_k``: the RK4 state at t_b + (k − K)·h. Built anew
         when t_b moves to another day; when only the span must grow, the table is extended from
-        its ends (the same steps from t_b, so the same values), to ``span_k + grow_k``."""
+        its ends (the same steps from t_b, so the same values), to ``span_k + grow_k``. Rows
+        another batch of this process already integrated far enough (every station of a daemon
+        receives the same ephemerides) are copied from the shared row cache, not integrated."""
         same_tb = self._tb_gps_s is not None and np.array_equal(self._tb_gps_s, tb_gps_s)
         if same_tb and span_k <= self._span_k:
             return self._nodes
@@ -215,23 +217,62 @@ class GlonassBatch:
         k = max(span_k + grow_k, k0)
         n = len(self)
         table = np.empty((n, 2 * k + 1, 6), dtype=np.float64)
-        if k0:
-            table[:, k - k0 : k + k0 + 1] = self._nodes
-        else:
-            table[:, k] = self.state0
-        # Forward and backward rows in one (2n, 6) RK4 step: elementwise IEEE operations (+ − × ÷
-        # and sqrt, all correctly rounded), so each row's values do not depend on the batch.
-        state = np.concatenate((table[:, k + k0], table[:, k - k0]))
-        acc = np.concatenate((self.acc_ls, self.acc_ls))
-        step = np.concatenate((np.full(n, GLONASS_STEP_S), np.full(n, -GLONASS_STEP_S)))
-        for j in range(k0 + 1, k + 1):
-            state = rk4_propagate(state, acc, step, 1)
-            table[:, k + j] = state[:n]
-            table[:, k - j] = state[n:]
+        keys = [self.state0[i].tobytes() + self.acc_ls[i].tobytes() for i in range(n)]
+        todo: list[int] = []
+        for i, key in enumerate(keys):
+            hit = _ROW_CACHE.get(key)
+            if hit is not None and hit[0] >= k:
+                table[i] = hit[1][hit[0] - k : hit[0] + k + 1]
+            else:
+                todo.append(i)
+        if todo:
+            rows = np.asarray(todo, dtype=np.intp)
+            part = np.empty((rows.shape[0], 2 * k + 1, 6), dtype=np.float64)
+            if k0:
+                part[:, k - k0 : k + k0 + 1] = self._nodes[rows]
+            else:
+                part[:, k] = self.state0[rows]
+            _integrate(part, self.acc_ls[rows], k0, k)
+            table[rows] = part
+            for j, i in enumerate(todo):
+                _cache_row(keys[i], k, part[j])
         self._nodes = table
         self._span_k = k
         self._tb_gps_s = np.array(tb_gps_s, copy=True)
         return table
+
+
+#: Node rows shared by every GLONASS batch of the process, keyed by the row's state at t_b and
+#: lunisolar accelerations (the nodes depend on nothing else): (K, (2K+1, 6) nodes). The rows of
+#: a table are independent (elementwise IEEE operations), so a row integrated in one batch is
+#: bit for bit the row any other batch would integrate. Bounded: oldest rows leave first.
+_ROW_CACHE: dict[bytes, tuple[int, F64]] = {}
+_ROW_CACHE_MAX = 128
+
+
+def _cache_row(key: bytes, k: int, row: F64) -> None:
+    old = _ROW_CACHE.pop(key, None)
+    if old is not None and old[0] >= k:
+        _ROW_CACHE[key] = old
+        return
+    _ROW_CACHE[key] = (k, row.copy())
+    while len(_ROW_CACHE) > _ROW_CACHE_MAX:
+        del _ROW_CACHE[next(iter(_ROW_CACHE))]
+
+
+def _integrate(table: F64, acc_ls: F64, k0: int, k: int) -> None:
+    """Fill nodes k0+1 … k each way of ``table`` (n, 2k+1, 6) from its nodes ±k0 (k0 = 0: the
+    t_b state in the middle column)."""
+    n = table.shape[0]
+    # Forward and backward rows in one (2n, 6) RK4 step: elementwise IEEE operations (+ − × ÷
+    # and sqrt, all correctly rounded), so each row's values do not depend on the batch.
+    state = np.concatenate((table[:, k + k0], table[:, k - k0]))
+    acc = np.concatenate((acc_ls, acc_ls))
+    step = np.concatenate((np.full(n, GLONASS_STEP_S), np.full(n, -GLONASS_STEP_S)))
+    for j in range(k0 + 1, k + 1):
+        state = rk4_propagate(state, acc, step, 1)
+        table[:, k + j] = state[:n]
+        table[:, k - j] = state[n:]
 
 
 _HERMITE_T = hermite_matrix(GLONASS_STEP_S)  # (4, 8)
