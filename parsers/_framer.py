@@ -12,6 +12,18 @@ cannot swallow the next real frame. The price is latency, not loss: a false prea
 frames behind it until its claimed length (at most 1029 bytes) has arrived and failed its CRC. The
 scanner keeps its position between calls: bytes already searched are not searched again while more
 data is awaited.
+
+Runs: a receiver sends its frames back to back, so both kinds are taken a run at a time. From an
+RTCM candidate the length fields lead to the frames right behind it, and one batched CRC checks them
+all. From a ``$``/``!`` candidate one regular expression matches the well-formed sentences right
+behind it (printable run ending in ``*hh``, CR LF or bare LF, at most ``MAX_NMEA_SENTENCE`` bytes
+before the line ending), and one ``np.bitwise_xor.reduceat`` over the whole sentences checks all
+their checksums. The sentences of a run are taken in order, each with the outcome the one-by-one
+path would give it (a frame, or a counted checksum failure); where that path would go on from a
+``$``/``!`` inside a bad sentence, the run stops and the one-by-one path takes over. The frames,
+offsets, counters and resynchronisation are the same as one by one for any input and any way of
+cutting it into feeds. A sentence cut by the end of the buffer is never part of a run; it waits on
+the one-by-one path, which remembers how far it has scanned.
 """
 
 from __future__ import annotations
@@ -19,6 +31,7 @@ from __future__ import annotations
 import enum
 import re
 from dataclasses import dataclass, field
+from itertools import accumulate
 from types import MappingProxyType
 from typing import Final
 
@@ -154,6 +167,41 @@ def _nmea_checksum(body: bytes | bytearray) -> int:
     return int(np.bitwise_xor.reduce(np.frombuffer(body, np.uint8))) if body else 0
 
 
+# NMEA 0183 §5.3: sentences back to back, each the start character, printable ASCII ending in "*hh"
+# (at most MAX_NMEA_SENTENCE bytes after the start character, as _nmea_at allows), then CR LF or a
+# bare LF. A match holds complete sentences only; each one's "*" is the unique one before its "hh"
+# and line ending, because the printable run cannot cross the CR or LF.
+_NMEA_RUN = re.compile(
+    rb"(?:[$!][\x20-\x7e]{0,%d}\*[0-9A-Fa-f]{2}\r?\n)+" % (MAX_NMEA_SENTENCE - 3)
+)
+#: Most bytes of back-to-back NMEA sentences matched and checksummed in one batch (a receiver's
+#: second of NMEA is about 1 kB); a longer run is taken in several batches.
+_NMEA_RUN_BYTES: Final = 4096
+
+
+def _tail_table() -> dict[bytes, int]:
+    """``"*hh"`` + line ending → XOR of those bytes with the checksum ``hh`` states.
+
+    A sentence ``c body * h h EOL`` is good when XOR(body) = hh (NMEA 0183 §5.3.1), that is when
+    the XOR of ALL its bytes equals ``c ^ table[tail]``: one XOR per whole sentence then checks it,
+    and a sentence is never an empty segment (``reduceat`` gives ``a[i]``, not 0, for those).
+    """
+    table: dict[bytes, int] = {}
+    for hi in _HEX:
+        for lo in _HEX:
+            digits = bytes((hi, lo))
+            for eol in (b"\r\n", b"\n"):
+                tail = b"*" + digits + eol
+                x = int(digits, 16)
+                for b in tail:
+                    x ^= b
+                table[tail] = x
+    return table
+
+
+_TAIL_XOR: Final = _tail_table()
+
+
 class Framer:
     """Splits one byte stream into RTCM 3 and NMEA 0183 frames; see the module docstring."""
 
@@ -245,11 +293,8 @@ class Framer:
                 if self._rtcm_at(i, frames) is NEED_DATA:
                     return
                 continue
-            frame = self._nmea_at(i)
-            if frame is NEED_DATA:
+            if self._nmea_run(i, frames) is NEED_DATA:
                 return
-            if frame is not None:
-                frames.append(frame)
 
     def _rtcm_at(self, i: int, frames: list[Frame]) -> NeedData | None:
         """Take the RTCM candidate at ``i`` and the complete frames right behind it.
@@ -311,6 +356,53 @@ class Framer:
         by_type[msg_type] = by_type.get(msg_type, 0) + 1
         frames.append(RtcmFrame(msg_type=msg_type, payload=payload, offset=self._base + i))
 
+    def _nmea_run(self, i: int, frames: list[Frame]) -> NeedData | None:
+        """Take the sentence candidate at ``i`` and the well-formed sentences right behind it.
+
+        A candidate that is no complete sentence, or that waited for data last time (its scan
+        resumes), goes to :meth:`_nmea_at` alone; so does a sentence of the run that
+        :meth:`_take_nmea_run` leaves to it.
+        """
+        if self._nmea_resume[0] != self._base + i:
+            m = _NMEA_RUN.match(self._buf, i, i + _NMEA_RUN_BYTES)
+            if m is not None:
+                i = self._take_nmea_run(i, m.group(), frames)
+                if i == m.end():
+                    return None
+        frame = self._nmea_at(i)
+        if frame is NEED_DATA:
+            return NEED_DATA
+        if frame is not None:
+            frames.append(frame)
+        return None
+
+    def _take_nmea_run(self, i: int, run: bytes, frames: list[Frame]) -> int:
+        """Check the sentences of ``run`` (a match of ``_NMEA_RUN`` at ``i``) with one batched XOR
+        and take them in order; return where the scan goes on (``i + len(run)`` if all were taken).
+
+        A good sentence becomes a frame. A bad checksum is counted and the sentence discarded, as
+        :meth:`_nmea_at` would (it steps one byte, and the search for the next start character
+        lands on the next sentence), unless a ``$``/``!`` inside it would start a candidate
+        there: then the scan stops at that sentence and leaves it to :meth:`_nmea_at`.
+        """
+        parts = run.splitlines(keepends=True)  # a match holds only CR LF / LF: one per sentence
+        starts = list(accumulate(map(len, parts[:-1]), initial=0))
+        xors: list[int] = np.bitwise_xor.reduceat(np.frombuffer(run, np.uint8), starts).tolist()
+        counts = self._counts
+        offset = self._base + i
+        for s, x in zip(parts, xors, strict=True):
+            if x == _TAIL_XOR[s[-5:] if s[-2] == 0x0D else s[-4:]] ^ s[0]:
+                frames.append(NmeaFrame(raw=s, offset=offset))
+                counts[1] += 1
+            elif s.find(b"$", 1) < 0 and s.find(b"!", 1) < 0:
+                counts[4] += 1
+                counts[6] += len(s)
+            else:
+                break
+            offset += len(s)
+        self._pos = offset - self._base
+        return self._pos
+
     def _nmea_at(self, i: int) -> NmeaFrame | NeedData | None:
         buf = self._buf
         # End of the printable run after the start character, at most MAX_NMEA_SENTENCE bytes on;
@@ -322,7 +414,9 @@ class Framer:
         e = stop.start() if stop is not None else limit
         self._nmea_resume = (self._base + i, self._base + e)
         at_end = e == len(buf) or (e == len(buf) - 1 and buf[e] == 0x0D)
-        if at_end and e - i <= MAX_NMEA_SENTENCE:
+        # A printable run of up to MAX_NMEA_SENTENCE bytes after the start character may still
+        # end in CR LF with the next bytes (e − i − 1 is the run's length).
+        if at_end and e - i - 1 <= MAX_NMEA_SENTENCE:
             return self._incomplete()
         # NMEA 0183 §5.3: "*hh" then CR LF (a bare LF is accepted: some loggers strip the CR).
         if buf[e : e + 2] == b"\r\n":

@@ -2,7 +2,8 @@
 
 :func:`decode_sentence` takes one ``$...*hh`` sentence. It checks the checksum itself (NMEA 0183
 §5.2.1: XOR of the bytes between ``$`` and ``*``, two hex digits), so a bad checksum is a
-:class:`ParseError` that the framer counts. Sentences we use (GGA, RMC, GSA, GSV, GST, GNS, VTG, ZDA,
+:class:`ParseError`, unless the caller says it was checked already (``checked=True``: the stream
+decoder, for sentences our framer verified). Sentences we use (GGA, RMC, GSA, GSV, GST, GNS, VTG, ZDA,
 and the Unicore high-precision ``…H`` variants that pynmeagps reads with the same fields) are parsed
 by ``pynmeagps.NMEAReader.parse`` (GGA and GST, decoded every second, first through the lean
 builders of ``_nmea_fast``, which give the same values); every other sentence passes through raw
@@ -16,6 +17,7 @@ Satellite numbers become our satellite ids (``parsers._signals``) through :func:
 from __future__ import annotations
 
 import datetime as dt
+import functools
 import math
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
@@ -61,6 +63,8 @@ KNOT_MPS = 1852.0 / 3600.0  # international knot (NMEA 0183 speeds are in knots 
 #: Longest sentence we accept: NMEA 0183 §5.3 allows 82 characters; vendor variants (Unicore
 #: "H" sentences, PUBX) run longer, so allow a margin.
 MAX_SENTENCE_BYTES = 256
+#: Distinct address fields whose naming (talker, formatter, builder) is cached (see ``_address``).
+_ADDRESS_CACHE_SIZE = 256
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -377,35 +381,49 @@ def nmea_checksum(body: bytes) -> int:
     return c
 
 
-def decode_sentence(raw: bytes, wanted: Container[str] | None = None) -> NmeaMessage:
+@functools.lru_cache(maxsize=_ADDRESS_CACHE_SIZE)
+def _address(field: bytes) -> tuple[str, str, str, Any]:
+    """(name, talker, formatter, builder or None) of an address field.
+
+    NMEA 0183 §5.3.2: two talker characters then the sentence formatter; §5.3.3: "P" then the
+    manufacturer's code (talker "P", the rest as formatter, never decoded). Cached: a receiver uses
+    a dozen addresses, and naming a sentence we do not decode is then one lookup.
+    """
+    if not field.isalnum() or not field.isascii():
+        raise ParseError(f"bad address field {field[:16]!r}", message_id="NMEA")
+    name = field.decode("ascii")
+    if name[:1] == "P":  # proprietary: "P" + manufacturer (NMEA 0183 §5.3.3)
+        return name, "P", name[1:], None
+    return name, name[:2], name[2:], BUILDERS.get(name[2:])
+
+
+def decode_sentence(
+    raw: bytes, wanted: Container[str] | None = None, *, checked: bool = False
+) -> NmeaMessage:
     """Decode one ``$...*hh`` sentence (CRLF optional); ParseError on bad checksum or content.
 
     ``wanted``: sentence formatters ("GGA", "GSV", …) to decode in full; any other valid sentence
     comes back as :class:`NmeaOther` after its checksum is checked, without the (slow) field parse.
-    ``None`` decodes every type we know.
+    ``None`` decodes every type we know. ``checked``: the checksum was verified already (the raw
+    bytes of an ``NmeaFrame`` from our framer), so it is not computed again; every other check
+    stays.
     """
     s = raw.rstrip(b"\r\n")
     if len(s) > MAX_SENTENCE_BYTES:
         raise ParseError(f"sentence longer than {MAX_SENTENCE_BYTES} bytes", message_id="NMEA")
     star = len(s) - 3
-    if len(s) < 7 or s[:1] != b"$" or s[star : star + 1] != b"*":
+    if len(s) < 7 or s[0] != 0x24 or s[star] != 0x2A:  # "$" … "*"
         raise ParseError("not a $...*hh sentence", message_id="NMEA")
     comma = s.find(b",", 1, star)
-    address = s[1 : comma if comma >= 0 else star]
-    if not address.isalnum() or not address.isascii():
-        raise ParseError(f"bad address field {address[:16]!r}", message_id="NMEA")
-    name = address.decode("ascii")
-    try:
-        sent = int(s[star + 1 :], 16)
-    except ValueError as exc:
-        raise ParseError(f"checksum {s[star + 1 :]!r} is not hex", message_id=name) from exc
-    calc = nmea_checksum(s[1:star])
-    if sent != calc:
-        raise ParseError(f"bad checksum {sent:02X}, computed {calc:02X}", message_id=name)
-    if name[:1] == "P":  # proprietary: "P" + manufacturer (NMEA 0183 §5.3.3)
-        return NmeaOther(talker="P", sentence_id=name[1:], raw=bytes(s))
-    talker, formatter = name[:2], name[2:]
-    builder = BUILDERS.get(formatter)
+    name, talker, formatter, builder = _address(bytes(s[1 : comma if comma >= 0 else star]))
+    if not checked:
+        try:
+            sent = int(s[star + 1 :], 16)
+        except ValueError as exc:
+            raise ParseError(f"checksum {s[star + 1 :]!r} is not hex", message_id=name) from exc
+        calc = nmea_checksum(s[1:star])
+        if sent != calc:
+            raise ParseError(f"bad checksum {sent:02X}, computed {calc:02X}", message_id=name)
     if builder is None or (wanted is not None and formatter not in wanted):
         return NmeaOther(talker=talker, sentence_id=formatter, raw=bytes(s))
     fast = FAST_BUILDERS.get(formatter)

@@ -405,7 +405,8 @@ class StreamDecoder:
             wanted = self.nmea_wanted
             if wanted is not None and self._ref is None:
                 wanted = wanted | _DATE_SENTENCES
-            msg = decode_sentence(frame.raw, wanted)
+            # Our framer verified the checksum (NmeaFrame): not computed a second time.
+            msg = decode_sentence(frame.raw, wanted, checked=True)
         except ParseError as exc:
             self._nmea_err += 1
             self._last_error = f"{exc} at stream offset {frame.offset}"

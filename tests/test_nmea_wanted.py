@@ -2,11 +2,18 @@
 
 from __future__ import annotations
 
+import re
+
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from ionwarden.daemon.bench import demo_capture
 from ionwarden.daemon.estimator import FixStatus, StationPipeline, StationSnapshot
 from ionwarden.parsers import GgaFix, NmeaOther, ParseError, decode_sentence
+from ionwarden.parsers._framer import Framer
+
+from .test_nmea import NMEA_FILES, candidates
 
 # A GGA sentence (NMEA 0183 v4.11 layout; checksum valid, decoded through pynmeagps below).
 GGA = b"$GPGGA,092725.00,4717.11399,N,00833.91590,E,1,08,1.01,499.6,M,48.0,M,,*5B\r\n"
@@ -41,3 +48,78 @@ def test_pipeline_stops_parsing_gsv_once_ephemerides_give_geometry() -> None:
     assert snaps[-1].geometry_source == "ephemeris"
     assert pipe.decoder.nmea_wanted == frozenset({"GGA", "GST"})
     assert len(fixes) >= len(snaps) - 2  # one GGA per second in the demo (daemon/data/demo.md)
+
+
+def _outcome(raw: bytes, wanted: frozenset[str] | None, *, checked: bool) -> str:
+    """The decoded value's repr or the ParseError's reason and message id."""
+    try:
+        return repr(decode_sentence(raw, wanted, checked=checked))
+    except ParseError as exc:
+        return f"ParseError({exc.reason!r}, {exc.message_id!r})"
+
+
+@pytest.mark.parametrize("wanted", [None, frozenset({"GGA", "GST"}), frozenset()])
+def test_decode_sentence_checked_equals_unchecked_on_real_sentences(wanted) -> None:
+    """decode_sentence gives the same value with checked=True for every checksum-good sentence of
+    the real captures in ../shared/data/real/nmea (source: its own checking path on the same bytes)."""
+    seen = 0
+    for path in NMEA_FILES:
+        for raw in candidates(path.read_bytes()):
+            plain = _outcome(raw, wanted, checked=False)
+            if "checksum" in plain:  # the framer never hands these over
+                continue
+            assert _outcome(raw, wanted, checked=True) == plain
+            seen += 1
+    assert seen > 4661  # the u-blox extract alone has 4,661 (PROVENANCE.md)
+
+
+@pytest.mark.parametrize(
+    ("raw", "reason"),
+    [
+        # NMEA 0183 §5.3: "!" starts encapsulated (AIS) sentences, which we do not decode.
+        (b"!AIVDM,1,1,,A,13u?etPv2;0n:dDPwUM1U1Cb069D,0*24\r\n", "not a $...*hh sentence"),
+        (b"$*00\r\n", "not a $...*hh sentence"),  # no address field
+        (b"$GP-GA,1*21\r\n", "bad address field b'GP-GA'"),  # §5.3.2: address is alphanumeric
+    ],
+)
+def test_decode_sentence_checked_keeps_other_errors(raw, reason) -> None:
+    """decode_sentence with checked=True still rejects a framed (checksum-good) sentence it cannot
+    name (NMEA 0183 §5.3)."""
+    with pytest.raises(ParseError, match=re.escape(reason)):
+        decode_sentence(raw, frozenset(), checked=True)
+    with pytest.raises(ParseError, match=re.escape(reason)):
+        decode_sentence(raw, frozenset())
+
+
+def test_decode_sentence_checked_skips_only_the_checksum() -> None:
+    """decode_sentence(checked=True) trusts the caller's checksum and names the sentence as usual."""
+    bad = GGA.replace(b"*5B", b"*00")
+    other = decode_sentence(bad, frozenset(), checked=True)
+    assert isinstance(other, NmeaOther)
+    assert (other.talker, other.sentence_id, other.raw) == ("GP", "GGA", bad.rstrip(b"\r\n"))
+    # Proprietary (NMEA 0183 §5.3.3): talker "P", the rest of the address as the id.
+    pubx = b"$PUBX,00,081350.00*00\r\n"
+    assert decode_sentence(pubx, None, checked=True) == NmeaOther(
+        talker="P", sentence_id="UBX", raw=pubx.rstrip(b"\r\n")
+    )
+
+
+@settings(max_examples=300, deadline=None)
+@given(
+    st.sampled_from(
+        [b"$GPGGA,", b"$GNGST,", b"$GNRMC,", b"$GPGSV,", b"$PUBX,", b"$GP-GA,", b"!AI"]
+    ),
+    st.binary(max_size=90).map(lambda b: bytes(0x20 + v % 0x5F for v in b)),
+    st.sampled_from([None, frozenset({"GGA", "GST"})]),
+)
+def test_decode_sentence_checked_equals_unchecked_on_framed_sentences(head, tail, wanted) -> None:
+    """decode_sentence(checked=True) gives the value or ParseError of the checking path for every
+    sentence our framer passes (printable fields, checksum made valid; NMEA 0183 §5.3.1)."""
+    body = (head + tail)[1:].replace(b"*", b",")
+    ck = 0
+    for b in body:
+        ck ^= b
+    raw = head[:1] + body + b"*%02X\r\n" % ck
+    frames = Framer().feed(raw)
+    assert len(frames) == 1
+    assert _outcome(raw, wanted, checked=True) == _outcome(raw, wanted, checked=False)

@@ -3,15 +3,22 @@
 from __future__ import annotations
 
 from pathlib import Path
-from typing import Literal, Self
+from typing import Annotated, Any, Literal, Self
 
-from pydantic import Field, SecretStr, model_validator
+from pydantic import BeforeValidator, Field, SecretStr, model_validator
 
 from ._base import Section
 
 __all__ = ["MqttSettings"]
 
-QoS = Literal[0, 1, 2]
+
+def _qos_text(value: Any) -> Any:
+    """ "0", "1", "2" from the environment or a secret file as the numbers they name."""
+    return int(value) if isinstance(value, str) and value.strip() in ("0", "1", "2") else value
+
+
+#: MQTT QoS level (MQTT 3.1.1 §4.3), also given as text by an ``IONWARDEN_MQTT__QOS_*`` variable.
+QoS = Annotated[Literal[0, 1, 2], BeforeValidator(_qos_text)]
 
 
 class MqttSettings(Section):

@@ -1,30 +1,27 @@
 """The root settings tree and how it is loaded (STYLE rule 24).
 
-Sources, lowest precedence first — each later one overrides the earlier:
+Sources, lowest precedence first — each later one overrides the earlier, key by key within a
+section (see ``_sources`` for the naming rules):
 
 1. the TOML file (``--config FILE``),
-2. environment variables ``IONWARDEN_<SECTION>__<KEY>`` (e.g. ``IONWARDEN_MQTT__HOST``),
+2. environment variables ``IONWARDEN_<SECTION>__<KEY>`` (e.g. ``IONWARDEN_MQTT__HOST``), any case;
+   lists, tables and whole sections as JSON (e.g. ``IONWARDEN_STATIONS='[{…}]'``),
 3. the secrets directory: systemd's ``$CREDENTIALS_DIRECTORY`` (``LoadCredential=``), one file per
-   key named like the variable without prefix (e.g. ``mqtt__password``).
+   key named like the variable without prefix (e.g. ``mqtt__password``), surrounding whitespace
+   stripped,
+4. keyword overrides given to :func:`load_settings` (tests and tools).
 
-Every error becomes one :class:`ConfigError` line naming the key path, never a traceback.
+``Settings()`` alone is the defaults. Every error becomes one :class:`ConfigError` line naming the
+key path (or the variable or file whose JSON is malformed), never a traceback.
 """
 
 from __future__ import annotations
 
 import os
-import tomllib
 from pathlib import Path
 from typing import Any
 
-from pydantic import Field, ValidationError, model_validator
-from pydantic_settings import (
-    BaseSettings,
-    NestedSecretsSettingsSource,
-    PydanticBaseSettingsSource,
-    SettingsConfigDict,
-    TomlConfigSettingsSource,
-)
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
 
 from ionwarden.daemon.errors import ConfigError
 
@@ -34,6 +31,7 @@ from ._logging import LoggingSettings
 from ._mqtt import MqttSettings
 from ._prometheus import PrometheusSettings
 from ._runtime import RuntimeSettings
+from ._sources import merge, read_env, read_secrets, read_toml
 from ._stations import StationSettings
 
 __all__ = ["ENV_PREFIX", "Settings", "format_validation_error", "load_settings", "redacted_dump"]
@@ -41,18 +39,11 @@ __all__ = ["ENV_PREFIX", "Settings", "format_validation_error", "load_settings",
 ENV_PREFIX = "IONWARDEN_"
 
 
-class Settings(BaseSettings):
+class Settings(BaseModel):
     """Everything ionwarden can be told."""
 
-    model_config = SettingsConfigDict(
-        frozen=True,
-        extra="forbid",
-        env_prefix=ENV_PREFIX,
-        env_nested_delimiter="__",
-        secrets_nested_delimiter="__",
-        secrets_prefix="",
-        secrets_dir_missing="ok",
-    )
+    # validate_default as under pydantic-settings' BaseSettings, which this root replaced.
+    model_config = ConfigDict(frozen=True, extra="forbid", validate_default=True)
 
     stations: list[StationSettings] = Field(default_factory=list)
     estimator: EstimatorSettings = EstimatorSettings()
@@ -70,24 +61,6 @@ class Settings(BaseSettings):
                 raise ValueError(f"stations[{i}].name: duplicate station name {station.name!r}")
             seen.add(station.name)
         return self
-
-    @classmethod
-    def settings_customise_sources(
-        cls,
-        settings_cls: type[BaseSettings],
-        init_settings: PydanticBaseSettingsSource,
-        env_settings: PydanticBaseSettingsSource,
-        dotenv_settings: PydanticBaseSettingsSource,
-        file_secret_settings: PydanticBaseSettingsSource,
-    ) -> tuple[PydanticBaseSettingsSource, ...]:
-        # First in the tuple wins: secrets > environment > TOML file. Explicit keyword arguments
-        # (tests only) win over all. No .env files.
-        return (
-            init_settings,
-            NestedSecretsSettingsSource(file_secret_settings),
-            env_settings,
-            TomlConfigSettingsSource(settings_cls),
-        )
 
 
 def _key_path(loc: tuple[int | str, ...]) -> str:
@@ -123,29 +96,15 @@ def load_settings(
 
     ``secrets_dir`` defaults to ``$CREDENTIALS_DIRECTORY`` when set.
     """
-    if path is not None:
-        if not path.is_file():
-            raise ConfigError(str(path), "no such file")
-        try:
-            with path.open("rb") as fh:
-                tomllib.load(fh)
-        except tomllib.TOMLDecodeError as exc:
-            raise ConfigError(str(path), f"invalid TOML: {exc}") from exc
-        except OSError as exc:
-            raise ConfigError(str(path), f"cannot read: {exc.strerror}") from exc
+    toml = read_toml(path) if path is not None else {}
     if secrets_dir is None and os.environ.get("CREDENTIALS_DIRECTORY"):
         secrets_dir = Path(os.environ["CREDENTIALS_DIRECTORY"])
-
-    class _Bound(Settings):
-        model_config = SettingsConfigDict(toml_file=path, secrets_dir=secrets_dir)
-
+    env = read_env(Settings, os.environ, ENV_PREFIX)
+    secrets = read_secrets(Settings, secrets_dir)
     try:
-        bound = _Bound(**overrides)
+        return Settings.model_validate(merge(toml, env, secrets, overrides))
     except ValidationError as exc:
         raise ConfigError("", format_validation_error(exc)) from exc
-    except ValueError as exc:  # pydantic-settings raises plain ValueError for unparsable env JSON
-        raise ConfigError("", str(exc).splitlines()[0]) from exc
-    return bound  # a Settings (subclassed only to bind this file and secrets directory)
 
 
 def redacted_dump(settings: Settings) -> dict[str, Any]:
