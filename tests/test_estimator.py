@@ -12,7 +12,7 @@ import pytest
 
 from ionwarden.daemon.config import EstimatorSettings
 from ionwarden.daemon.estimator import StationEstimator
-from ionwarden.parsers import GpsTime, ObsEpoch, signal_code
+from ionwarden.parsers import MAX_SAT_ID, GpsTime, ObsEpoch, signal_code
 
 from ._estimator_synth import Scenario, Truth, generate, run, stack
 
@@ -359,17 +359,50 @@ def test_cell_router_rebuilds_when_a_cell_becomes_unusable():
     assert lay2.n_unusable == 1
 
 
-def test_cell_router_layout_unchanged_across_stamp_restart():
-    """CellRouter builds the same layout when its int32 stamp counter restarts (after 2³¹ rebuilds)."""
-    from ionwarden.daemon.estimator._cells import _MAX_STAMP
+def _layout_oracle(pairs, sat, sig, usable):
+    """Per present satellite the first configured pair whose two signals both have a usable cell
+    (the last such cell where one repeats), by plain Python loops."""
+    present = sorted({int(s) for s in sat if 0 <= s < MAX_SAT_ID})
+    last = {}
+    for k, (s, g, u) in enumerate(zip(sat.tolist(), sig.tolist(), usable.tolist(), strict=True)):
+        if u:
+            last[(s, g)] = k
+    out = []
+    for s in present:
+        sys_i = s // 100
+        for r in range(pairs.width):
+            a, b = int(pairs.sig1[sys_i, r]), int(pairs.sig2[sys_i, r])
+            if a and b and (s, a) in last and (s, b) in last:
+                out.append((s, r, last[(s, a)], last[(s, b)]))
+                break
+    return present, out
 
-    tr = generate(Scenario(n_sats=5, duration_s=2.0))
+
+def test_cell_router_matches_plain_loops():
+    """CellRouter's pair choice and cell indices equal plain loops over random epochs with
+    repeated cells, unusable values, signals outside the pair table and satellites out of range
+    (pair order from EstimatorSettings' defaults; "first configured pair", issue 6)."""
+    rng = np.random.default_rng(7)
     est = StationEstimator()
-    before = est.cells.layout(tr.epochs[0])
-    est.cells._stamp = _MAX_STAMP  # the next rebuild restarts the stamps
-    est.cells._last = None
-    after = est.cells.layout(tr.epochs[0])
-    assert est.cells._stamp == 1
-    for name in ("present", "idx", "rank", "i12", "cell_pos", "group", "coefs", "comb"):
-        np.testing.assert_array_equal(getattr(before, name), getattr(after, name), err_msg=name)
-    assert before.labels == after.labels
+    pairs = est.pairs
+    codes = [signal_code(c) for c in ("1C", "2W", "2L", "5Q", "5X", "7Q", "2I", "6I", "7I", "1X")]
+    for _ in range(60):
+        n = int(rng.integers(0, 40))
+        sat = rng.choice([1, 2, 3, 5, 101, 102, 205, 206, 319, 320, 699, 700, 1000], n)
+        sig = rng.choice(codes, n)
+        pr = rng.choice([2.2e7, 0.0, np.nan], n, p=[0.85, 0.05, 0.10])
+        ep = ObsEpoch(
+            time=GpsTime(2300, 100.0), sat=sat.astype(np.int16), sig=sig.astype(np.uint16),
+            pseudorange_m=pr, phase_cycles=np.full(n, 1.1e8), range_rate_mps=np.zeros(n),
+            cn0_dbhz=np.full(n, 45.0, np.float32), lock_time_s=np.full(n, 100.0, np.float32),
+            lock_indicator=np.zeros(n, np.int16), half_cycle=np.zeros(n, np.bool_),
+            lli=np.zeros(n, np.uint8), freq_hz=1.1e9 + sig * 1e6,  # distinct per signal
+        )  # fmt: skip
+        usable = np.isfinite(pr) & (pr > 0) & (sig >= 32)
+        lay = est.cells.layout(ep)
+        present, chosen = _layout_oracle(pairs, sat, sig, usable)
+        assert lay.present.tolist() == present
+        assert lay.idx.tolist() == [c[0] for c in chosen]
+        assert lay.rank.tolist() == [c[1] for c in chosen]
+        assert lay.i12_2[0].tolist() == [c[2] for c in chosen]
+        assert lay.i12_2[1].tolist() == [c[3] for c in chosen]

@@ -42,7 +42,6 @@ N_SIG = 10 * 32  # packed signal codes are band*32 + attribute, bands 0–9
 #: Rows of the combination matrix (see module doc).
 COMB_NAMES = ("gf", "mw", "lev_x", "gf_tecu", "if_code", "if_phase", "mp1", "mp2")
 (GF_ROW, MW_ROW, LEVX_ROW, GFT_ROW, IFC_ROW, IFP_ROW, MP1_ROW, MP2_ROW) = range(len(COMB_NAMES))
-_MAX_STAMP = np.iinfo(np.int32).max
 _ZERO = np.array(0.0)
 
 
@@ -77,10 +76,8 @@ class CellRouter:
 
     def __init__(self, pairs: PairTable) -> None:
         self.pairs = pairs
-        S = MAX_SAT_ID
         # Only signals named in the pair table matter: map their packed codes to compact slots
-        # (the rest, and the table's padding code 0, to one never-stamped slot) so the per-cell
-        # tables stay small enough for the CPU cache.
+        # (the rest, and the table's padding code 0, to one slot no usable cell takes).
         codes = np.unique(np.concatenate((pairs.sig1.ravel(), pairs.sig2.ravel())))
         codes = codes[codes > 0]
         self._sig_slot = np.full(N_SIG, codes.shape[0], np.intp)
@@ -88,12 +85,6 @@ class CellRouter:
         self._n_sig_slots = int(codes.shape[0])
         self._c1 = self._sig_slot[pairs.sig1]
         self._c2 = self._sig_slot[pairs.sig2]
-        # Per-cell lookup by (satellite, signal), stamped per layout instead of cleared (int32:
-        # stamps restart before they overflow, cell indices are far below 2³¹).
-        self._cell_stamp = np.zeros((S, codes.shape[0] + 1), np.int32)
-        self._cell_index = np.zeros((S, codes.shape[0] + 1), np.int32)
-        self._seen = np.zeros(S, np.int32)
-        self._stamp = 0
         self._last: EpochLayout | None = None
         self.rebuilds = 0
 
@@ -118,33 +109,39 @@ class CellRouter:
         sig = epoch.sig.astype(np.intp)
         in_range = (sat >= 0) & (sat < MAX_SAT_ID) & (sig < N_SIG)
         usable = in_range & (sig >= 32) & ok
-        if self._stamp >= _MAX_STAMP:  # after ~2³¹ rebuilds: forget every stamp, start again
-            self._cell_stamp.fill(0)
-            self._seen.fill(0)
-            self._stamp = 0
-        self._stamp += 1
-        stamp = self._stamp
         slot = self._sig_slot[np.where(in_range, sig, 0)]
         cells = np.flatnonzero(usable & (slot < self._n_sig_slots))
-        self._cell_stamp[sat[cells], slot[cells]] = stamp
-        self._cell_index[sat[cells], slot[cells]] = cells
+        # Usable cells by key satellite·(slots + 1) + signal slot, sorted (stable: of a repeated
+        # cell the last one is the rightmost, and the one taken).
+        width_k = self._n_sig_slots + 1
+        keys = sat[cells] * width_k + slot[cells]
+        order = np.argsort(keys, kind="stable")
+        sorted_keys = keys[order]
+
+        def find(query: Idx) -> tuple[npt.NDArray[np.bool_], Idx]:
+            """Whether each key is a usable cell, and that cell's index (0 where not)."""
+            pos = np.searchsorted(sorted_keys, query, side="right") - 1
+            pos_ok = np.maximum(pos, 0)
+            if not sorted_keys.shape[0]:
+                return np.zeros(query.shape, np.bool_), np.zeros(query.shape, np.intp)
+            found = (pos >= 0) & (sorted_keys[pos_ok] == query)
+            return found, cells[order[pos_ok]]
 
         # Satellites present, and per satellite the first configured pair with both signals.
-        self._seen[sat[in_range]] = stamp
-        present = np.flatnonzero(self._seen == stamp)  # sorted, unique
+        present = np.unique(sat[in_range])  # sorted, unique
         sysi = present // 100
         c1 = self._c1[sysi]
         c2 = self._c2[sysi]
-        col = present[:, None]
-        avail = (self._cell_stamp[col, c1] == stamp) & (self._cell_stamp[col, c2] == stamp)
-        has = avail.any(axis=1)
+        col = present[:, None] * width_k
+        ok1, cell1 = find(col + c1)
+        ok2, cell2 = find(col + c2)
+        avail = ok1 & ok2
+        has: npt.NDArray[np.bool_] = avail.any(axis=1)
         rank_all = avail.argmax(axis=1)
         idx = present[has]
         rank = rank_all[has]
         rows = np.flatnonzero(has)
-        i1 = self._cell_index[idx, c1[rows, rank]]
-        i2 = self._cell_index[idx, c2[rows, rank]]
-        i12 = np.concatenate((i1, i2)).astype(np.intp)
+        i12 = np.concatenate((cell1[rows, rank], cell2[rows, rank])).astype(np.intp)
         d = idx.shape[0]
         m = present.shape[0]
 
