@@ -136,7 +136,7 @@ class CellRouter:
         ok1, cell1 = find(col + c1)
         ok2, cell2 = find(col + c2)
         avail = ok1 & ok2
-        has: npt.NDArray[np.bool_] = avail.any(axis=1)
+        has = np.logical_or.reduce(avail, axis=1)
         rank_all = avail.argmax(axis=1)
         idx = present[has]
         rank = rank_all[has]
