@@ -369,6 +369,10 @@ class Framer:
                 i = self._take_nmea_run(i, m.group(), frames)
                 if i == m.end():
                     return None
+        return self._nmea_single(i, frames)
+
+    def _nmea_single(self, i: int, frames: list[Frame]) -> NeedData | None:
+        """The sentence candidate at ``i`` alone (:meth:`_nmea_at`), appended if it is one."""
         frame = self._nmea_at(i)
         if frame is NEED_DATA:
             return NEED_DATA

@@ -12,7 +12,6 @@ from ionwarden.parsers._crc import crc24q, frame_rtcm
 from ionwarden.parsers._framer import (
     _NMEA_RUN_BYTES,
     MAX_NMEA_SENTENCE,
-    NEED_DATA,
     Frame,
     Framer,
     NeedData,
@@ -88,12 +87,7 @@ class _OneByOne(Framer):
     or ``!``)."""
 
     def _nmea_run(self, i: int, frames: list[Frame]) -> NeedData | None:
-        frame = self._nmea_at(i)
-        if frame is NEED_DATA:
-            return NEED_DATA
-        if frame is not None:
-            frames.append(frame)
-        return None
+        return self._nmea_single(i, frames)
 
 
 def _sentence(
