@@ -1,8 +1,7 @@
 """StationPipeline against the simulator's truth (our own invented scenarios, daemon/sim).
 
-Each scenario runs once per module (1 Hz, cut to keep the suite fast). BeiDou is left out: the
-simulator's BeiDou ephemerides carry week = GPS week + 1356 (KeplerEphemeris wants the GPS week,
-parsers/_ephemeris.py), so no orbit is usable for them (reported to the simulator's owner).
+Each scenario runs once per module (1 Hz, cut to keep the suite fast). The quiet-day runs are GPS,
+GLONASS and Galileo; BeiDou has its own run (test_truth_beidou_stec_within_one_tecu).
 """
 
 from __future__ import annotations
@@ -25,12 +24,12 @@ def _without_dtau(ephs: list) -> list:
 
 
 def _run(
-    name: str, duration_s: float, systems: str = "GRE", *, dtau: bool = True
+    name: str, duration_s: float, systems: str = "GRE", *, dtau: bool = True, seed: int = 1
 ) -> dict[str, np.ndarray]:
     """Run a scenario through the pipeline; (epoch, satellite) arrays of ours and the truth.
     ``dtau=False``: the GLONASS Δτ_n are withheld (see :func:`_without_dtau`)."""
     sc = dataclasses.replace(
-        build_scenario(name, duration_s=duration_s, rate_hz=1.0), systems=systems
+        build_scenario(name, seed=seed, duration_s=duration_s, rate_hz=1.0), systems=systems
     )
     sim = Simulator(sc)
     pipe = StationPipeline("HARC", position_ecef_m=sim.station_ecef(0), ephemerides_per_sat=400)
@@ -106,15 +105,14 @@ def test_truth_stec_within_one_tecu(quiet):
 
 
 def test_truth_glonass_stec_settles(quiet):
-    """GLONASS STEC (satellite part from the broadcast Δτ_n, or a per-satellite combined bias where Δτ_n = 0) is within 1.5 TECU RMS after 5 min of arc."""
+    """GLONASS STEC (satellite part from the broadcast Δτ_n, or a per-satellite combined bias where Δτ_n = 0) is within 1.0 TECU RMS after 5 min of arc (issue 6 acceptance)."""
     q = quiet
     ok = (q["t_el"] > 15.0) & (q["age"] >= 300.0) & np.isfinite(q["stec"]) & (q["sys"] == 1)
     d = q["stec"][ok] - q["t_stec"][ok]
     assert ok.sum() > 5_000
-    # Issue 6 asks 1.0 TECU; measured (simulator truth, seeds 1–8, arc ≥ 300 s) 0.75 here (seed 1),
-    # 0.48–0.95 on seven seeds and 1.32 on seed 6 (one satellite's levelling error, −2 TECU, over
-    # a 30-min run), so 1.5 is asserted.
-    assert np.sqrt(np.mean(d**2)) < 1.5
+    # Measured (simulator truth, arc ≥ 300 s): 0.57 TECU here (seed 1), 0.31–0.95 on seeds 1–12
+    # (test_truth_stec_within_one_tecu_every_seed); 1.5 was asserted while seed 6 was at 1.32.
+    assert np.sqrt(np.mean(d**2)) < 1.0
 
 
 def test_truth_glonass_combined_biases_without_dtau():
@@ -123,9 +121,37 @@ def test_truth_glonass_combined_biases_without_dtau():
     ok = (q["t_el"] > 15.0) & (q["age"] >= 300.0) & np.isfinite(q["stec"]) & (q["sys"] == 1)
     d = q["stec"][ok] - q["t_stec"][ok]
     assert ok.sum() > 5_000
-    # Measured (simulator truth, seeds 1–8): 0.52 here (seed 1), 0.43–0.69 on seven seeds, 1.27
-    # on seed 7 (the common receiver-bias error of that seed), so 1.5 is asserted.
+    # Measured (simulator truth, seeds 1–12): 0.42 here (seed 1), 0.35–0.84 on ten seeds, 1.11 on
+    # seed 7 (the common receiver-bias error of that seed; 1.27 before the arcs' levelling errors
+    # entered the fit as random effects), so 1.5 is kept.
     assert np.sqrt(np.mean(d**2)) < 1.5
+
+
+def test_truth_beidou_stec_within_one_tecu():
+    """BeiDou STEC (B1I/B3I, satellite part from the broadcast TGD1) is within 1.0 TECU RMS of the truth (el > 15°, arc ≥ 5 min; issue 6 acceptance)."""
+    q = _run("quiet-day", 1800.0, systems="GREC")
+    ok = (q["t_el"] > 15.0) & (q["age"] >= 300.0) & np.isfinite(q["stec"]) & (q["sys"] == 3)
+    d = q["stec"][ok] - q["t_stec"][ok]
+    assert ok.sum() > 3_000
+    # Measured (simulator truth, arc ≥ 300 s): 0.37 TECU RMS on seed 1 (0.55, 0.44, 0.80 on seeds
+    # 2, 6, 7).
+    assert np.sqrt(np.mean(d**2)) < 1.0
+
+
+@pytest.mark.parametrize("seed", range(2, 13))
+def test_truth_stec_within_one_tecu_every_seed(seed):
+    """STEC is within 1.0 TECU RMS of the truth (el > 15°, arc ≥ 5 min) for GPS+Galileo and for GLONASS on seeds 2–12 of the quiet day too (issue 6 acceptance)."""
+    q = _run("quiet-day", 1800.0, seed=seed)
+    base = (q["t_el"] > 15.0) & (q["age"] >= 300.0) & np.isfinite(q["stec"])
+    # Measured (simulator truth), TECU RMS, seeds 2–12: GPS+Galileo 0.38–0.90, GLONASS 0.31–0.95
+    # (seeds 6 and 7 highest: a receiver-bias error of 0.3–0.8 TECU learnt in the first minutes
+    # of the cold start). Before the arcs' levelling errors entered the fit as random effects:
+    # 0.45–1.03 and 0.48–1.32.
+    for systems in ((0, 2), (1,)):
+        ok = base & np.isin(q["sys"], systems)
+        d = q["stec"][ok] - q["t_stec"][ok]
+        assert ok.sum() > 5_000
+        assert np.sqrt(np.mean(d**2)) < 1.0, systems
 
 
 def test_truth_rot_unbiased_at_noise_floor(quiet):

@@ -420,11 +420,18 @@ class StationEstimator:
         lev += step
         stec_raw = gf_tecu + lev
         # The bias tables change every receiver_bias_update_s at most: reuse the correction.
+        # An arc that starts drops its predecessor's levelling correction (``arc``).
         cached = self._bias_cache
-        if cached is not None and cached[0] is lay and cached[1] == self.biases.version:
+        if (
+            not any_new
+            and cached is not None
+            and cached[0] is lay
+            and cached[1] == self.biases.version
+        ):
             b_sat, total_bias = cached[2], cached[3]
         else:
-            b_sat, total_bias = self.biases.correction(lay.bias_flat, lay.group, g[K])
+            arc_ids = g[ARC].astype(np.int64)
+            b_sat, total_bias = self.biases.correction(lay.bias_flat, lay.group, g[K], arc_ids)
             self._bias_cache = (lay, self.biases.version, b_sat, total_bias)
         stec = stec_raw - total_bias
 
