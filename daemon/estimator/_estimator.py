@@ -14,8 +14,7 @@ come out of one contraction of the (4, d) measurements with the layout's coeffic
 on the common path (no arc starts, every satellite dual-frequency, arcs longer than the Hatch
 window) skips the masking the rare cases need; every shortcut gives the general path's results
 bit for bit (tests/test_estimator_fastpaths.py). Constants enter numpy calls as 0-d arrays (a
-Python float costs a conversion per call: the per-epoch cost is the number of calls). The ~600
-lines keep the whole per-epoch path in one place (STYLE rule 1's soft cap exceeded on purpose).
+Python float costs a conversion per call: the per-epoch cost is the number of calls).
 
 Symbols per satellite (SCIENCE.md §2–§9): P1, P2 code (m); L1, L2 phase (m = cycles·c/f); K
 (TECU/m); GF = L1 − L2; MW Melbourne–Wübbena; STEC_raw = K·GF + levelling offset (TECU), the
@@ -25,6 +24,7 @@ ROTI = std of ROT over ``roti_window_s``; IF = α·X1 + β·X2; Hatch-smoothed I
 N = min(samples in arc, window/interval); MP1/MP2 code-minus-carrier with the arc mean removed.
 """
 
+# size: ~600 lines keep the whole per-epoch path in one place (STYLE rule 1, on purpose).
 from __future__ import annotations
 
 import copy
@@ -419,20 +419,15 @@ class StationEstimator:
         step *= w
         lev += step
         stec_raw = gf_tecu + lev
-        # The bias tables change every receiver_bias_update_s at most: reuse the correction.
-        # An arc that starts drops its predecessor's levelling correction (``arc``).
-        cached = self._bias_cache
-        if (
-            not any_new
-            and cached is not None
-            and cached[0] is lay
-            and cached[1] == self.biases.version
-        ):
+        # The bias tables change every receiver_bias_update_s at most: reuse the correction,
+        # except when an arc starts (it drops its predecessor's levelling correction).
+        cached, ver = self._bias_cache, self.biases.version
+        if not any_new and cached is not None and cached[0] is lay and cached[1] == ver:
             b_sat, total_bias = cached[2], cached[3]
         else:
             arc_ids = g[ARC].astype(np.int64)
             b_sat, total_bias = self.biases.correction(lay.bias_flat, lay.group, g[K], arc_ids)
-            self._bias_cache = (lay, self.biases.version, b_sat, total_bias)
+            self._bias_cache = (lay, ver, b_sat, total_bias)
         stec = stec_raw - total_bias
 
         # ROT over the lag, from the arc-relative levelled phase; ROTI over the window.
