@@ -3,8 +3,11 @@
 NMEA: ``decode_sentence`` over every sentence of the real u-blox extract
 (../shared/data/real/nmea/pygnssutils_pygpsdata-rtcm3_nmea-extract.nmea, 4,661 sentences), side by
 side with ``pynmeagps.NMEAReader.parse`` alone on the same bytes, plus the cost per sentence type.
-RTCM: 1019/1020/1045 and 1006/1033 decoders over RTK134_202102051543.rtcm3 (3,104 messages), side by
-side with pyrtcm on the same frames. Run:
+Live path: the framer and StreamDecoder over the same extract as one byte stream, every sentence
+decoded and with only GGA/GST wanted (as StationPipeline sets ``nmea_wanted`` once every satellite
+has orbit geometry; the framer checks runs of sentences with one numpy call, the decoder skips the
+second checksum). RTCM: 1019/1020/1045 and 1006/1033 decoders over RTK134_202102051543.rtcm3 (3,104
+messages), side by side with pyrtcm on the same frames. Run:
     .venv/bin/python bench/bench_nmea_eph.py
 Figures depend on the machine and on other load (shared dev box: note contention).
 """
@@ -18,7 +21,7 @@ from typing import TYPE_CHECKING
 from pynmeagps import NMEAReader
 from pyrtcm import RTCMReader
 
-from ionwarden.parsers import GsvAssembler, decode_sentence
+from ionwarden.parsers import Framer, GsvAssembler, StreamDecoder, decode_sentence
 from ionwarden.parsers._crc import crc24q
 from ionwarden.parsers._rtcm_misc import DECODERS, DecodeContext
 
@@ -64,6 +67,25 @@ def bench_nmea() -> None:
     for kind, group in sorted(by_type.items()):
         t = best_of(lambda g=group: [decode_sentence(s) for s in g])  # type: ignore[misc]
         print(f"    {kind.decode()}: {t / len(group) * 1e6:6.1f} µs/sentence ({len(group)})")
+    stream = b"".join(lines)
+
+    def framer() -> None:
+        Framer().feed(stream)
+
+    def decoder(wanted: frozenset[str] | None) -> Callable[[], None]:
+        def run() -> None:
+            d = StreamDecoder()
+            d.nmea_wanted = wanted
+            for i in range(0, len(stream), 4096):
+                d.feed(stream[i : i + 4096])
+
+        return run
+
+    t_fr = best_of(framer)
+    t_all = best_of(decoder(None))
+    t_fix = best_of(decoder(frozenset({"GGA", "GST"})))
+    print(f"  live path, one byte stream: Framer {t_fr / n * 1e6:5.2f} µs/sentence; StreamDecoder "
+          f"all decoded {t_all / n * 1e6:5.1f}, GGA/GST wanted {t_fix / n * 1e6:5.1f} µs/sentence")  # fmt: skip
 
 
 def bench_rtcm() -> None:

@@ -53,6 +53,9 @@ __all__ = ["PipelineOutput", "StationPipeline"]
 PipelineOutput = StationSnapshot | FixStatus
 #: NMEA sentences still needed when ephemerides give every satellite's geometry.
 _FIX_SENTENCES = frozenset({"GGA", "GST"})
+#: ... and while some satellite has none: GSV elevations are the fallback. Nothing else is routed
+#: (the decoder adds RMC/ZDA itself while it still needs the date).
+_FALLBACK_SENTENCES = _FIX_SENTENCES | {"GSV"}
 _SOURCE_RANK = {"config": 3, "rtcm": 2, "rinex": 2, "gga": 1, "": 0}
 
 
@@ -75,6 +78,7 @@ class StationPipeline:
             settings, station=station, ephemerides_per_sat=ephemerides_per_sat
         )
         self.decoder = StreamDecoder(reference_time)
+        self.decoder.nmea_wanted = _FALLBACK_SENTENCES  # the sentences routed below
         self._position_source = ""
         self._last_t: GpsTime | None = None
         self._gga: GgaFix | None = None
@@ -134,7 +138,9 @@ class StationPipeline:
         snap = self.estimator.update(epoch)
         # GSV elevations are only a fallback: while every satellite has ephemeris geometry, parse
         # just the sentences we route (GGA/GST), which saves most of the NMEA cost per second.
-        self.decoder.nmea_wanted = _FIX_SENTENCES if snap.geometry_source == "ephemeris" else None
+        self.decoder.nmea_wanted = (
+            _FIX_SENTENCES if snap.geometry_source == "ephemeris" else _FALLBACK_SENTENCES
+        )
         return snap
 
     def _on_ephemeris(self, eph: KeplerEphemeris | GlonassEphemeris) -> None:
