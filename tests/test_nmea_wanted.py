@@ -11,7 +11,7 @@ from hypothesis import strategies as st
 from ionwarden.daemon.bench import demo_capture
 from ionwarden.daemon.estimator import FixStatus, StationPipeline, StationSnapshot
 from ionwarden.parsers import GgaFix, NmeaOther, ParseError, decode_sentence
-from ionwarden.parsers._framer import Framer
+from ionwarden.parsers._framer import Framer, NmeaFrame, RtcmFrame
 
 from .test_nmea import NMEA_FILES, candidates
 
@@ -123,3 +123,24 @@ def test_decode_sentence_checked_equals_unchecked_on_framed_sentences(head, tail
     frames = Framer().feed(raw)
     assert len(frames) == 1
     assert _outcome(raw, wanted, checked=True) == _outcome(raw, wanted, checked=False)
+
+
+def test_pipeline_parses_only_routed_sentences_before_orbits() -> None:
+    """Without ephemerides StationPipeline parses GGA, GST and GSV (the fallback elevations), not
+    GSA/VTG/RMC, and the GSV elevations reach the estimator (bundled demo with its ephemeris
+    messages removed, first 200 kB)."""
+    pipe = StationPipeline("demo")
+    assert pipe.decoder.nmea_wanted == frozenset({"GGA", "GST", "GSV"})
+    data = demo_capture()[:200_000]
+    kept = b"".join(
+        f.raw if isinstance(f, NmeaFrame) else data[f.offset : f.offset + len(f.payload) + 6]
+        for f in Framer().feed(data)
+        if not (isinstance(f, RtcmFrame) and f.msg_type in (1019, 1020, 1042, 1044, 1045, 1046))
+    )
+    outs = []
+    for i in range(0, len(kept), 4096):
+        outs += pipe.feed(kept[i : i + 4096])
+    snaps = [o for o in outs if isinstance(o, StationSnapshot)]
+    assert snaps
+    assert {s.geometry_source for s in snaps[5:]} == {"gsv"}
+    assert pipe.decoder.nmea_wanted == frozenset({"GGA", "GST", "GSV"})
