@@ -57,6 +57,20 @@ def test_pipeline_rtk134_plausible_ionosphere(rtk134):
     )
 
 
+def test_pipeline_rtk134_no_relevelling_without_a_trusted_bias(rtk134):
+    """On RTK134 (16 min at a low-latitude site: too short to tell the receiver bias from the
+    VTEC surface, σ > 3 TECU) neither the receiver bias nor the arcs' levelling corrections are
+    applied: an arc's offset is only as good as the fit it came from (real dataset,
+    PROVENANCE.md)."""
+    p, snaps = rtk134
+    assert snaps[-1].receiver_bias_sigma_tecu > 3.0
+    assert snaps[-1].receiver_bias_tecu == 0.0
+    flat = np.arange(p.estimator.biases.sat_m.size)
+    values, arcs = p.estimator.biases.arc_corrections(flat)
+    assert not values.any()
+    assert (arcs == -1).all()
+
+
 def test_pipeline_gsv_fallback_flagged(real_data):
     """StationPipeline uses NMEA GSV elevations when the stream has no ephemerides, flagged "gsv" (pygnssutils_pygpsdata-rtcm3.log)."""
     data = (real_data / "rtcm/pygnssutils_pygpsdata-rtcm3.log").read_bytes()

@@ -261,7 +261,12 @@ class BiasModel:
             self.comb_count[s_o, r_o] += 1.0
         redundant = m - N_VTEC - np.unique(group).shape[0] >= _ARC_CORR_MIN_DOF
         if ok and arc is not None and arc_var is not None and redundant:
-            self.set_arc_corrections(idx * self.pairs.width + rank, self.rx.arc_offset, arc)
+            # Only where the fit is good enough to apply the group's receiver bias: an arc's
+            # offset is relative to the surface and bias it was fitted with.
+            use = self.rx.sigma[group] <= APPLY_SIGMA_TECU
+            self.set_arc_corrections(
+                (idx * self.pairs.width + rank)[use], self.rx.arc_offset[use], arc[use]
+            )
         elif self._corr_flat.shape[0]:
             self.set_arc_corrections(_NO_IDX, _NO_VAL, _NO_ARC)
         self._refresh()
