@@ -20,8 +20,9 @@ Axes: ``S`` satellite slots × ``W`` pair ranks of the pair table; ``m`` satelli
 * Levelling error of each arc: the fit takes it as a random effect (:class:`ReceiverBias`) with
   a prior variance from the arc's own levelling samples, and its estimate re-levels the arc's
   STEC (:meth:`BiasModel.arc_corrections`, per (satellite, rank) of the satellites in the last
-  update, when that epoch had at least ``_ARC_CORR_MIN_DOF`` satellites more than parameters; a
-  satellite absent from it, e.g. an arc younger than ``receiver_bias_min_arc_s``, gets none). A
+  update, when that epoch had at least ``_ARC_CORR_MIN_DOF`` satellites more than parameters
+  and the arc's group has its receiver bias applied, σ ≤ ``APPLY_SIGMA_TECU``; a satellite
+  absent from it, e.g. an arc younger than ``receiver_bias_min_arc_s``, gets none). A
   correction belongs to its arc: an arc that starts between two updates gets none (the
   estimator passes the arc ids to :meth:`correction`).
 
