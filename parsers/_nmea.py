@@ -5,10 +5,10 @@
 :class:`ParseError`, unless the caller says it was checked already (``checked=True``: the stream
 decoder, for sentences our framer verified). Sentences we use (GGA, RMC, GSA, GSV, GST, GNS, VTG, ZDA,
 and the Unicore high-precision ``…H`` variants that pynmeagps reads with the same fields) are parsed
-by ``pynmeagps.NMEAReader.parse`` (GGA and GST, decoded every second, first through the lean
-builders of ``_nmea_fast``, which give the same values); every other sentence passes through raw
-as :class:`NmeaOther` without calling pynmeagps (it costs tens of µs per sentence). pynmeagps
-exceptions become :class:`ParseError` (``raise … from exc``).
+by ``pynmeagps.NMEAReader.parse`` (GGA, GST, GSV, RMC and GSA, decoded every second, first
+through the lean builders of ``_nmea_fast``, which give the same values); every other sentence
+passes through raw as :class:`NmeaOther` without calling pynmeagps (it costs tens of µs per
+sentence). pynmeagps exceptions become :class:`ParseError` (``raise … from exc``).
 
 Units are in field names; absent numeric fields are NaN (floats) or ``None`` (integers, times).
 Satellite numbers become our satellite ids (``parsers._signals``) through :func:`nmea_sat_id`.
@@ -427,7 +427,7 @@ def decode_sentence(
     if builder is None or (wanted is not None and formatter not in wanted):
         return NmeaOther(talker=talker, sentence_id=formatter, raw=bytes(s))
     fast = FAST_BUILDERS.get(formatter)
-    if fast is not None and comma >= 0:  # lean GGA/GST; None = off the plain path
+    if fast is not None and comma >= 0:  # lean GGA/GST/GSV/RMC/GSA; None = off the plain path
         lean = fast(talker, bytes(s[comma + 1 : star]))
         if lean is not None:
             return lean
