@@ -28,10 +28,12 @@ from __future__ import annotations
 
 import datetime as _dt
 import functools
+import weakref
 from collections import deque
+from collections.abc import Hashable
 from dataclasses import dataclass, field
 from types import MappingProxyType
-from typing import TYPE_CHECKING, Final, cast
+from typing import TYPE_CHECKING, Any, Final, TypeVar, cast
 
 from ._ephemeris import GlonassEphemeris, KeplerEphemeris
 from ._epoch import ObsEpoch
@@ -155,6 +157,51 @@ _SLOT: Final = RawRtcm(msg_type=-1, payload=b"", offset=-1)
 #: Decoded non-MSM messages kept for reuse (about one ephemeris set per satellite of four
 #: constellations, plus station messages); cleared whole when full.
 _MISC_CACHE_SIZE = 256
+#: Process-wide table of the immutable values held by the decoders' caches (decoded ephemerides
+#: and station messages, and the payload bytes that key them): value → [the one kept object, how
+#: many cache entries hold it]. Receivers of one network broadcast the same ephemerides, so every
+#: station's cache, ephemeris store and last-set table holds one shared object per distinct value
+#: instead of its own equal copy (~120 KiB per station on the demo). Content-keyed (equal values
+#: only), so sharing cannot change a result; a value leaves when the last cache holding it is
+#: cleared or its decoder is collected, so the table holds nothing the caches do not.
+_SHARED: dict[Hashable, list[Any]] = {}
+_H = TypeVar("_H", bound=Hashable)
+
+
+def _share(value: _H) -> _H:
+    """The process's kept object equal to ``value`` (``value`` itself if unhashable), counted as
+    held by one more cache entry."""
+    try:
+        entry = _SHARED.get(value)
+    except TypeError:  # a message holding arrays: not shared
+        return value
+    if entry is None:
+        _SHARED[value] = [value, 1]
+        return value
+    entry[1] += 1
+    return cast("_H", entry[0])
+
+
+def _release(values: Iterable[object]) -> None:
+    """Undo one :func:`_share` of each of ``values`` (the objects it returned)."""
+    for value in values:
+        try:
+            entry = _SHARED.get(value)
+        except TypeError:
+            continue
+        if entry is not None and entry[0] is value:
+            entry[1] -= 1
+            if entry[1] <= 0:
+                del _SHARED[value]
+
+
+def _release_cache(cache: dict[tuple[bytes, int], Message]) -> None:
+    """Empty a decoder's cache of decoded messages, releasing its shared values."""
+    _release([key[0] for key in cache])
+    _release(cache.values())
+    cache.clear()
+
+
 #: Sentences that carry the UTC date (reference time for MSM times of week).
 _DATE_SENTENCES = frozenset({"RMC", "ZDA"})
 
@@ -193,6 +240,8 @@ class StreamDecoder:
         #: known, because the epoch times need the date.
         self.nmea_wanted: frozenset[str] | None = None
         self._misc_cache: dict[tuple[bytes, int], Message] = {}
+        # A collected decoder releases what its cache shared (the callback holds the cache only).
+        weakref.finalize(self, _release_cache, self._misc_cache).atexit = False
         #: (reference, its GPS − UTC leap seconds): the reference changes once per epoch.
         self._leap_of: tuple[GpsTime | None, int] = (None, LEAP_NOW_S)
         # Message number → decoder (RTCM 10403.3 Table 3.5-1): MSM4–7 go to _on_msm (decoded a
@@ -296,8 +345,8 @@ class StreamDecoder:
         # _rtcm_misc decoders return the typed messages listed in ``Message``.
         msg = cast("Message", decoder(payload, DecodeContext(reference_time=self._ref)))
         if len(self._misc_cache) >= _MISC_CACHE_SIZE:
-            self._misc_cache.clear()
-        self._misc_cache[key] = msg
+            _release_cache(self._misc_cache)
+        self._misc_cache[(_share(payload), key[1])] = msg = _share(msg)
         return msg
 
     def _learn(self, msg: Message, out: list[Message]) -> None:

@@ -16,6 +16,9 @@ __all__ = ["LagRing", "SlotStd"]
 F64 = npt.NDArray[np.float64]
 _ZERO = np.array(0.0)
 _ONE = np.array(1.0)
+#: The satellites of an empty ring entry (shared, read-only).
+_NO_SATS = np.zeros(0, np.intp)
+_NO_SATS.setflags(write=False)
 
 
 class LagRing:
@@ -29,6 +32,12 @@ class LagRing:
     (no arc id per row needed). Values are stored relative to the arc's first value (float32 is
     then exact to ~1e-4 TECU) — the caller passes them so. The capacity is what ``lag_s`` needs at
     1 Hz and grows (rarely, by reallocation) when the data rate needs more rows.
+
+    Memory: the values live in ``_data`` (R, columns), one column per satellite slot ever pushed
+    (``_col[s]``, −1: none; columns are added, rarely by reallocation, never reassigned), not in
+    an (R, ``n_slots``) array: a station sees tens of the ``n_slots`` satellites (33 × 700 float32
+    = 90 KiB at the default 30 s lag and 1 Hz, ~6 KiB in columns). ``value`` is the full-width
+    view, built on demand (checkpoints, tests); writes into it take effect at :meth:`loaded`.
     """
 
     def __init__(self, n_slots: int, lag_s: float, rows: int | None = None) -> None:
@@ -45,19 +54,47 @@ class LagRing:
         return math.ceil(self.lag_s / max(interval_s, 1e-3)) + 3
 
     def _alloc(self, rows: int) -> None:
+        """An empty ring of ``rows`` rows (no value, no column)."""
         self.t = np.full(rows, np.nan)
-        self.value = np.full((rows, self.n_slots), np.nan, np.float32)
+        self._col = np.full(self.n_slots, -1, np.intp)
+        self._slots: list[int] = []  # the slot of each column
+        self._data = np.full((rows, 0), np.nan, np.float32)
+        #: The full-width ``value`` handed out since the last push (None: not built).
+        self._full: npt.NDArray[np.float32] | None = None
+        self._forget()
         self.head = -1
+
+    def _forget(self) -> None:
+        rows = self.t.shape[0]
         #: The read-only satellite array each row was last written with (None: unknown): a row
         #: rewritten for the same satellites needs no clearing.
         self._row_sats: list[npt.NDArray[np.intp] | None] = [None] * rows
         #: The read-only (satellites, arc ids) of the last :meth:`lag_push` (None: unknown).
         self._last_push: tuple[npt.NDArray[np.intp], npt.NDArray[np.int32]] | None = None
+        #: The columns of the last read-only satellite array: (satellites, columns).
+        self._cols_of: tuple[npt.NDArray[np.intp], npt.NDArray[np.intp]] | None = None
+
+    @property
+    def value(self) -> npt.NDArray[np.float32]:
+        """(R, ``n_slots``) values, NaN where none (a copy of the column store, built on demand;
+        write into it, then call :meth:`loaded`, to change the ring)."""
+        if self._full is None:
+            full = np.full((self.rows, self.n_slots), np.nan, np.float32)
+            full[:, self._slots] = self._data[:, : len(self._slots)]
+            self._full = full
+        return self._full
 
     def loaded(self) -> None:
         """Call after writing ``t``, ``value``, ``last_arc`` or ``arc_t0`` from outside."""
-        self._row_sats = [None] * self.rows
-        self._last_push = None
+        full = self._full
+        if full is not None:  # take the values back: one column per satellite holding one
+            slots = np.flatnonzero(~np.isnan(full).all(axis=0))
+            self._col = np.full(self.n_slots, -1, np.intp)
+            self._col[slots] = np.arange(slots.shape[0])
+            self._slots = slots.tolist()
+            self._data = np.ascontiguousarray(full[:, slots])
+            self._full = None
+        self._forget()
         t0 = self.arc_t0[~np.isnan(self.arc_t0)]
         self.t0_max = float(t0.max()) if t0.size else -math.inf
 
@@ -71,11 +108,34 @@ class LagRing:
         if need <= self.rows:
             return
         order = (np.arange(self.rows) + self.head + 1) % self.rows  # oldest first
-        t, value = self.t[order], self.value[order]
         old = self.rows
-        self._alloc(need)
-        self.t[:old], self.value[:old] = t, value
+        t = np.full(need, np.nan)
+        data = np.full((need, self._data.shape[1]), np.nan, np.float32)
+        t[:old], data[:old] = self.t[order], self._data[order]
+        self.t, self._data, self._full = t, data, None
+        self._forget()
         self.head = old - 1
+
+    def _cols(self, sats: npt.NDArray[np.intp]) -> npt.NDArray[np.intp]:
+        """Columns of ``sats`` (unique), adding columns for satellites not seen before."""
+        memo = self._cols_of
+        if memo is not None and memo[0] is sats:
+            return memo[1]
+        cols = self._col[sats]
+        if np.count_nonzero(cols < 0):
+            new = sats[cols < 0]
+            first = len(self._slots)
+            self._col[new] = np.arange(first, first + new.shape[0])
+            self._slots.extend(new.tolist())
+            if len(self._slots) > self._data.shape[1]:
+                # a few spare columns: satellites rise a few at a time
+                grown = np.full((self.rows, len(self._slots) + 8), np.nan, np.float32)
+                grown[:, :first] = self._data[:, :first]
+                self._data = grown
+            cols = self._col[sats]
+        if not sats.flags.writeable:
+            self._cols_of = (sats, cols)
+        return cols
 
     def push(
         self, t: float, sats: npt.NDArray[np.intp], value: F64, arc: npt.NDArray[np.int32]
@@ -93,13 +153,16 @@ class LagRing:
     ) -> None:  # fmt: skip
         self.head = row = (self.head + 1) % self.t.shape[0]
         self.t[row] = t
+        self._full = None
+        cols = self._cols(sats)
+        data = self._data[row]
         if sats.flags.writeable:
-            self.value[row].fill(np.nan)
+            data.fill(np.nan)
             self._row_sats[row] = None
         elif self._row_sats[row] is not sats:
-            self.value[row].fill(np.nan)
+            data.fill(np.nan)
             self._row_sats[row] = sats
-        self.value[row].put(sats, value)  # put casts to float32 faster than item assignment
+        data.put(cols, value)  # put casts to float32 faster than item assignment
         if any_started:
             assert started is not None
             self.arc_t0[sats[started]] = t
@@ -124,7 +187,8 @@ class LagRing:
             v, t_k = np.full(sats.shape, np.nan), math.nan
         else:
             t_k = float(self.t[k])
-            v = self.value[k][sats].astype(np.float64)
+            cols = self._cols(sats)  # first: it may widen ``_data``
+            v = self._data[k].take(cols).astype(np.float64)
             if any_started or not t_k >= self.t0_max:
                 other = ~(self.arc_t0[sats] <= t_k)
                 if started is not None:
@@ -159,7 +223,8 @@ class LagRing:
         if k < 0:
             return np.full(sats.shape, np.nan), math.nan
         t_k = float(self.t[k])
-        v = self.value[k].take(sats).astype(np.float64)
+        cols = self._cols(sats)  # first: it may widen ``_data``
+        v = self._data[k].take(cols).astype(np.float64)
         other = (self.last_arc.take(sats) != arc) | ~(self.arc_t0.take(sats) <= t_k)
         v[other] = np.nan
         return v, t_k
@@ -174,22 +239,30 @@ class SlotStd:
     ``n mod R`` holds the (satellites, values) written in slot ``n`` for the last ``R =
     window/slot`` slots up to ``last_slot`` (entries of skipped slots are emptied). Removing an
     entry subtracts exactly what adding it added (value² is recomputed from the kept value, which
-    gives the same bits; keeping only the values halves the ring's memory: 300 entries per
-    station at the default 1 s slots), and the sums are rebuilt exactly each time the ring wraps,
-    so rounding cannot drift.
+    gives the same bits), and the sums are rebuilt exactly each time the ring wraps, so rounding
+    cannot drift.
+
+    Memory (300 entries per station at the default 1 s slots): entry ``r`` is the satellite
+    array ``_sats[r]`` (the caller's read-only array, shared, not copied; a NaN-filtered subset
+    is reused while the same satellites lack a value) and the first ``len(_sats[r])`` values of
+    row ``r`` of one (R, widest entry) float64 pool, which grows (rarely, by reallocation) when an
+    epoch has more satellites: no numpy array or tuple per entry (~150 B of object overhead each,
+    long-lived small blocks that fragment the heap).
     """
 
     def __init__(self, n_slots: int, window_s: float, slot_s: float) -> None:
         self.slot_s = float(slot_s)
         self.n_slots = n_slots
         self.rows = max(2, round(window_s / slot_s))
-        empty = (np.zeros(0, np.intp), np.zeros(0))
-        self.entries: list[tuple[npt.NDArray[np.intp], F64]] = [empty] * self.rows
+        self._sats: list[npt.NDArray[np.intp]] = [_NO_SATS] * self.rows
+        self._vals: F64 = np.zeros((self.rows, 0))
         self.acc = np.zeros((3, n_slots))  # total, total_sq, count
         self.last_slot = -1
         self._since_exact = 0
         #: Flat indices into ``acc`` of the three rows of a read-only satellite array.
         self._flat: tuple[npt.NDArray[np.intp], npt.NDArray[np.intp]] | None = None
+        #: The last NaN-filtered satellite subset: (the caller's array, finite mask, subset).
+        self._subset: tuple[npt.NDArray[np.intp], bytes, npt.NDArray[np.intp]] | None = None
 
     @property
     def total(self) -> F64:
@@ -206,14 +279,27 @@ class SlotStd:
         row: F64 = self.acc[2]
         return row
 
+    @property
+    def entries(self) -> list[tuple[npt.NDArray[np.intp], F64]]:
+        """The ring entries as (satellites, values) in row order (values are views: copy them
+        to keep them past the next push)."""
+        return [(s, self._vals[r, : s.shape[0]]) for r, s in enumerate(self._sats)]
+
     def load_entries(self, entries: list[tuple[npt.NDArray[np.intp], F64]]) -> None:
         """Replace the ring entries (restoring a checkpoint; the sums are set separately)."""
         assert len(entries) == self.rows, (len(entries), self.rows)
-        self.entries = entries
+        assert all(s.shape == v.shape for s, v in entries)
+        width = max(s.shape[0] for s, _ in entries)
+        vals = np.zeros((self.rows, max(width, self._vals.shape[1])))
+        for r, (s, v) in enumerate(entries):
+            vals[r, : s.shape[0]] = v
+        self._vals = vals
+        self._sats = [s if s.shape[0] else _NO_SATS for s, _ in entries]
+        self._subset = None
 
     def _inc(self, row: int) -> F64:
         """The increments (values, values²) that adding entry ``row`` added."""
-        return self._increments(self.entries[row][1])
+        return self._increments(self._vals[row, : self._sats[row].shape[0]])
 
     @staticmethod
     def _increments(vals: F64) -> F64:
@@ -231,18 +317,33 @@ class SlotStd:
         return flat[1]
 
     def _drop(self, row: int) -> None:
-        sats, vals = self.entries[row]
+        sats = self._sats[row]
         if sats.size:
             self.acc[:2, sats] -= self._inc(row).reshape(2, -1)
             self.acc[2, sats] -= 1.0
-            self.entries[row] = (sats[:0], vals[:0])
+            self._sats[row] = _NO_SATS
 
     def _recompute(self) -> None:
-        sats = np.concatenate([e[0] for e in self.entries])
-        vals = np.concatenate([e[1] for e in self.entries])
+        sats = np.concatenate(self._sats)
+        vals = np.concatenate([v for _, v in self.entries])
         self.acc[0] = np.bincount(sats, vals, self.n_slots)
         self.acc[1] = np.bincount(sats, vals * vals, self.n_slots)
         self.acc[2] = np.bincount(sats, minlength=self.n_slots)
+
+    def _finite_subset(
+        self, sats: npt.NDArray[np.intp], fin: npt.NDArray[np.bool_]
+    ) -> npt.NDArray[np.intp]:
+        """``sats[fin]`` as a read-only array, the same object as last time for the same
+        (read-only) ``sats`` and mask: entries of consecutive slots share it."""
+        key = fin.tobytes()
+        last = self._subset
+        if last is not None and last[0] is sats and last[1] == key:
+            return last[2]
+        s = sats[fin]
+        if not sats.flags.writeable:
+            s.setflags(write=False)
+            self._subset = (sats, key, s)
+        return s
 
     def push(self, t: float, sats: npt.NDArray[np.intp], value: F64) -> None:
         """Add this epoch's values (NaN ignored; ``sats`` unique) if ``t`` opens a new slot."""
@@ -272,13 +373,17 @@ class SlotStd:
         nan = np.isnan(value)
         if np.count_nonzero(nan):
             fin = ~nan
-            s, v = sats[fin], value[fin]
+            s, v = self._finite_subset(sats, fin), value[fin]
         else:
             s, v = sats, value
-        vals = np.array(v)  # a copy: the caller's array may be handed on
-        inc = self._increments(vals)
+        k = s.shape[0]
+        if k > self._vals.shape[1]:
+            grown = np.zeros((self.rows, k))
+            grown[:, : self._vals.shape[1]] = self._vals
+            self._vals = grown
+        inc = self._increments(v)
         blk: F64 | None = None
-        if start == slot and self.entries[row][0] is s and not s.flags.writeable:
+        if start == slot and self._sats[row] is s and not s.flags.writeable:
             # The common case: the slot replaces the entry of the same satellites R slots ago
             # (their counts lose one and gain one: unchanged).
             fi = self._flat_index(s)
@@ -292,7 +397,8 @@ class SlotStd:
                 self._drop(n % self.rows)
             self.acc[:2, s] += inc.reshape(2, -1)
             self.acc[2, s] += 1.0
-        self.entries[row] = (s, vals)
+        self._vals[row, :k] = v
+        self._sats[row] = s if k else _NO_SATS
         if self._since_exact >= self.rows:
             self._recompute()
             self._since_exact = 0
