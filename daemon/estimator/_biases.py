@@ -60,7 +60,7 @@ import numpy.typing as npt
 from ionwarden.parsers import SYSTEMS, sat_id, sat_name
 
 from ._pairs import C_MPS
-from ._rxbias import N_VTEC, ReceiverBias
+from ._rxbias import N_VTEC, ReceiverBias, match_ids
 
 if TYPE_CHECKING:
     from ionwarden.daemon.config import EstimatorSettings
@@ -287,11 +287,7 @@ class BiasModel:
         sums = np.zeros(m)
         cnt = np.zeros(m)
         if self._nz_id.shape[0]:
-            order = np.argsort(self._nz_id)
-            known = self._nz_id[order]
-            pos = np.minimum(np.searchsorted(known, arc), known.shape[0] - 1)
-            found = known[pos] == arc
-            rows = order[pos[found]]
+            found, rows = match_ids(self._nz_id, arc)
             sums[found] = self._nz_sum[rows]
             cnt[found] = self._nz_cnt[rows]
             dn = n[found] - self._nz_n[rows]

@@ -85,7 +85,7 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 
-__all__ = ["ReceiverBias"]
+__all__ = ["N_VTEC", "ReceiverBias", "match_ids"]
 
 F64 = npt.NDArray[np.float64]
 _PRIOR_SIGMA_TECU = 100.0
@@ -100,6 +100,19 @@ _CURVATURE_SIGMA = 1.4
 #: Version of :meth:`ReceiverBias.state_dict` (1: reduced bias normal equations, plane model;
 #: 2: full normal equations of (coefficients, biases)).
 STATE_VERSION = 2
+
+
+def match_ids(
+    known: npt.NDArray[np.int64], ids: npt.NDArray[np.int64]
+) -> tuple[npt.NDArray[np.bool_], npt.NDArray[np.intp]]:
+    """For each of ``ids``: whether it is in ``known`` (non-empty, unique), and the rows of
+    ``known`` holding the ones found, in the order of ``ids``."""
+    order = np.argsort(known)
+    sorted_ids = known[order]
+    pos = np.minimum(np.searchsorted(sorted_ids, ids), sorted_ids.shape[0] - 1)
+    found = sorted_ids[pos] == ids
+    rows: npt.NDArray[np.intp] = order[pos[found]]
+    return found, rows
 
 
 class ReceiverBias:
@@ -282,11 +295,7 @@ class ReceiverBias:
         new_n = np.zeros((m, m))
         new_r = np.zeros(m)
         if self._arc_id.shape[0]:
-            order = np.argsort(self._arc_id)
-            known = self._arc_id[order]
-            pos = np.minimum(np.searchsorted(known, arc), known.shape[0] - 1)
-            found = known[pos] == arc
-            rows = order[pos[found]]
+            found, rows = match_ids(self._arc_id, arc)
             closed = np.ones(self._arc_id.shape[0], np.bool_)
             closed[rows] = False
             if closed.any():
