@@ -15,12 +15,16 @@ from ._estimator_synth import Scenario, generate, run, stack
 C = 299_792_458.0
 
 
-@pytest.fixture(scope="module")
-def arc():
-    """One 20-minute arc of 5 satellites (no slips), with its snapshots."""
+@pytest.fixture(scope="module", params=[5, 12], ids=["5sats", "12sats"])
+def arc(request):
+    """One 20-minute arc of 5 or 12 satellites (no slips), with its snapshots: with 12 the
+    receiver-bias fit has the spare satellites to re-level the arcs (``_biases``)."""
     tr = generate(
-        Scenario(n_sats=5, duration_s=1200.0, wave_amp_tecu=0.5, signals=("1C", "2W"), seed=11)
-    )
+        Scenario(
+            n_sats=request.param, duration_s=1200.0, wave_amp_tecu=0.5, signals=("1C", "2W"),
+            seed=11,
+        )
+    )  # fmt: skip
     return tr, run(tr, StationEstimator())
 
 
@@ -78,7 +82,11 @@ def test_estimator_streaming_equals_batch_over_arc(arc, sat_index):
     bias = np.array(
         [s.receiver_bias_tecu if np.isfinite(s.receiver_bias_tecu) else 0.0 for s in snaps]
     )
-    np.testing.assert_allclose(got["stec_tecu"] + bias, stec, atol=1e-6)
+    # ... and the arc's levelling correction from the receiver-bias fit (reported per satellite).
+    relevel = stack(snaps, tr, "stec_relevel_tecu")[:, sat_index]
+    if len(tr.sats) >= 12:
+        assert np.count_nonzero(relevel[np.isfinite(relevel)])  # the re-levelling is exercised
+    np.testing.assert_allclose(got["stec_tecu"] + bias + relevel, stec, atol=1e-6)
     # VTEC = STEC / M(el) (SCIENCE.md §6 thin shell, h = 350 km)
     vtec = stack(snaps, tr, "vtec_tecu")[:, sat_index]
     np.testing.assert_allclose(vtec, got["stec_tecu"] / mapping_factor(el, 350e3), rtol=1e-12)

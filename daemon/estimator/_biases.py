@@ -167,13 +167,14 @@ class BiasModel:
 
     def correction(
         self, flat: Idx, group: Idx, k: F64, arc: npt.NDArray[np.integer[Any]] | None = None
-    ) -> tuple[F64, F64]:
-        """(satellite part in TECU, total to subtract from STEC_raw) per satellite, for the
-        satellites/ranks at ``flat = sat·W + rank`` in receiver groups ``group``; the total is
-        NaN for a satellite whose satellite part is unknown and whose combined bias is not
-        learnt yet (its STEC would be off by tens of TECU: better unknown than wrong). With
-        ``arc`` (the satellites' arc ids) an arc's levelling correction applies to that arc
-        only, not to a new arc started since the last update."""
+    ) -> tuple[F64, F64, F64]:
+        """(satellite part in TECU, total to subtract from STEC_raw, the levelling correction
+        inside that total) per satellite, for the satellites/ranks at ``flat = sat·W + rank`` in
+        receiver groups ``group``; the total is NaN for a satellite whose satellite part is
+        unknown and whose combined bias is not learnt yet (its STEC would be off by tens of
+        TECU: better unknown than wrong). With ``arc`` (the satellites' arc ids) an arc's
+        levelling correction applies to that arc only, not to a new arc started since the last
+        update."""
         b_sat = k * self.sat_m.ravel().take(flat)
         rx = self.applied.take(group)
         if not self.fit_all:
@@ -184,7 +185,9 @@ class BiasModel:
             if arc is not None:
                 corr = np.where(corr_arc == arc, corr, 0.0)
             rx += corr
-        return b_sat, b_sat + rx
+        else:
+            corr = np.zeros(flat.shape)
+        return b_sat, b_sat + rx, corr
 
     def set_arc_corrections(self, flat: Idx, value: F64, arc: npt.NDArray[np.int64]) -> None:
         """Replace the levelling corrections: ê_a (TECU) of the (satellite, rank)s at ``flat =

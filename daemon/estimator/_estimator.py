@@ -86,7 +86,7 @@ _ZERO = np.array(0.0)
 #: Figures of :meth:`StationEstimator._dual` spread over every satellite present (NaN where
 #: single-frequency) in epochs with single-frequency satellites.
 _SPREAD = ("stec", "rot", "roti", "iono_l1", "if_code", "if_phase", "hatch", "mp1", "mp2",
-           "noise_factor")  # fmt: skip
+           "noise_factor", "relevel")  # fmt: skip
 
 
 @dataclass(slots=True, eq=False)
@@ -136,7 +136,7 @@ class StationEstimator:
         self.roti_window = SlotStd(S, cfg.roti_window_s, cfg.roti_sample_s)
         self.biases = BiasModel(self.pairs, cfg, S)
         self.cells = CellRouter(self.pairs)
-        self._bias_cache: tuple[EpochLayout, int, F64, F64] | None = None
+        self._bias_cache: tuple[EpochLayout, int, F64, F64, F64] | None = None
         self._last_epoch_t = -math.inf
         self._intervals = np.full(_INTERVAL_HISTORY, np.nan)
         self._interval = 1.0  # s, median of the recent epoch intervals
@@ -279,6 +279,7 @@ class StationEstimator:
             mp2_m=figs["mp2"],
             if_noise_factor=figs["noise_factor"],
             pair_switch=switch,
+            stec_relevel_tecu=figs["relevel"],
         )
         return new_snapshot(
             station=self.station,
@@ -423,11 +424,14 @@ class StationEstimator:
         # except when an arc starts (it drops its predecessor's levelling correction).
         cached, ver = self._bias_cache, self.biases.version
         if not any_new and cached is not None and cached[0] is lay and cached[1] == ver:
-            b_sat, total_bias = cached[2], cached[3]
+            b_sat, total_bias, relevel = cached[2], cached[3], cached[4]
         else:
             arc_ids = g[ARC].astype(np.int64)
-            b_sat, total_bias = self.biases.correction(lay.bias_flat, lay.group, g[K], arc_ids)
-            self._bias_cache = (lay, ver, b_sat, total_bias)
+            b_sat, total_bias, relevel = self.biases.correction(
+                lay.bias_flat, lay.group, g[K], arc_ids
+            )
+            relevel.setflags(write=False)  # goes into snapshots
+            self._bias_cache = (lay, ver, b_sat, total_bias, relevel)
         stec = stec_raw - total_bias
 
         # ROT over the lag, from the arc-relative levelled phase; ROTI over the window.
@@ -467,6 +471,7 @@ class StationEstimator:
         return {
             "stec": stec,
             "stec_raw": stec_raw,
+            "relevel": relevel,
             "lev": lev,
             "b_sat": b_sat,
             "n_arc": n_arc,

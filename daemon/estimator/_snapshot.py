@@ -55,11 +55,14 @@ class SatelliteFigures:
     arc_id: npt.NDArray[np.int32]
     #: Optional extras (empty arrays when a producer does not fill them): code-minus-carrier
     #: multipath of band 1 and band 2 of the pair (arc mean removed, m), the iono-free noise
-    #: amplification √(α²+β²), and "this new arc is a frequency-pair switch".
+    #: amplification √(α²+β²), "this new arc is a frequency-pair switch", and the arc's
+    #: levelling correction already subtracted from ``stec_tecu`` (TECU, 0 where none; the
+    #: receiver-bias fit's estimate of the arc's levelling error, ``_biases``).
     mp1_m: F64 = field(default_factory=lambda: np.zeros(0))
     mp2_m: F64 = field(default_factory=lambda: np.zeros(0))
     if_noise_factor: F64 = field(default_factory=lambda: np.zeros(0))
     pair_switch: npt.NDArray[np.bool_] = field(default_factory=lambda: np.zeros(0, np.bool_))
+    stec_relevel_tecu: F64 = field(default_factory=lambda: np.zeros(0))
 
     def __len__(self) -> int:
         return int(self.sat.shape[0])
