@@ -439,8 +439,9 @@ class BiasModel:
                 strict=True,
             ):
                 slot = self._slot(label)
-                if slot is not None and slot[0] * self.pairs.width + slot[1] not in flat:
-                    flat.append(slot[0] * self.pairs.width + slot[1])
+                at = -1 if slot is None else slot[0] * self.pairs.width + slot[1]
+                if at >= 0 and at not in flat:
+                    flat.append(at)
                     values.append(v)
                     arcs.append(a)
             self.set_arc_corrections(

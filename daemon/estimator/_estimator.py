@@ -426,10 +426,7 @@ class StationEstimator:
         if not any_new and cached is not None and cached[0] is lay and cached[1] == ver:
             b_sat, total_bias, relevel = cached[2], cached[3], cached[4]
         else:
-            arc_ids = g[ARC].astype(np.int64)
-            b_sat, total_bias, relevel = self.biases.correction(
-                lay.bias_flat, lay.group, g[K], arc_ids
-            )
+            b_sat, total_bias, relevel = self.biases.correction(lay.bias_flat, lay.group, g[K], arc)
             relevel.setflags(write=False)  # goes into snapshots
             self._bias_cache = (lay, ver, b_sat, total_bias, relevel)
         stec = stec_raw - total_bias
