@@ -125,6 +125,12 @@ async def collect(
     return got
 
 
+def persistent_client(port: int, identifier: str) -> aiomqtt.Client:
+    """A subscriber on the local broker at ``port`` whose session (subscriptions, queued QoS 1
+    messages) outlives its connection: the same ``identifier``, clean_session off."""
+    return aiomqtt.Client("127.0.0.1", port, identifier=identifier, clean_session=False, timeout=5)
+
+
 def schema_of(topic: str) -> str:
     """Which payload schema a topic of our tree carries."""
     parts = topic.split("/")

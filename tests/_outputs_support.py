@@ -9,6 +9,7 @@ from __future__ import annotations
 import numpy as np
 
 from ionwarden.daemon.estimator import SatelliteFigures, StationSnapshot
+from ionwarden.daemon.outputs import OutboundMessage, Topic
 from ionwarden.parsers import GpsTime, signal_code
 
 #: An invented epoch: GPS week 2395, 2025-12-02 (a Tuesday) 12:00:00 UTC.
@@ -92,3 +93,15 @@ def storm_roti(t_s: float) -> float:
     if m < 30:
         return 0.9
     return 0.9 - 0.08 * (m - 30)
+
+
+def class_message(topic: Topic, n: int, klass: int) -> OutboundMessage:
+    """Message number ``n`` of the buffer property tests: class 0 alarm, 1 summary, 2 bulk."""
+    return OutboundMessage(
+        topic=topic,
+        payload=str(n).encode(),
+        qos=1,
+        retain=False,
+        alarm_class=klass == 0,
+        bulk=klass == 2,
+    )

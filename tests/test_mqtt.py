@@ -26,6 +26,7 @@ from tests._mqtt_support import (
     collect,
     free_port,
     need,
+    persistent_client,
     port_open,
     private_broker,
     schema_of,
@@ -274,14 +275,9 @@ def test_mqtt_survives_broker_restart_without_losing_transitions(tmp_path):
     with private_broker(tmp_path) as brk:
         cfg = settings("127.0.0.1", brk.port, prefix, epoch_buffer=5, satellites_interval_s=1e6)
 
-        def persistent_sub() -> aiomqtt.Client:
-            return aiomqtt.Client(
-                "127.0.0.1", brk.port, identifier=sub_id, clean_session=False, timeout=5
-            )
-
         async def main():
             eng = StationAlarms("ALPHA", AlarmSettings(stall_after_s=5.0))
-            async with persistent_sub() as sub:
+            async with persistent_client(brk.port, sub_id) as sub:
                 await sub.subscribe(f"{prefix}/ALPHA/events", qos=1)
             pub = MqttPublisher(cfg)
             async with asyncio.TaskGroup() as tg:
@@ -307,7 +303,7 @@ def test_mqtt_survives_broker_restart_without_losing_transitions(tmp_path):
                 await asyncio.wait_for(pub.wait_connected(), cfg.reconnect_cap_s + 5.0)
                 await asyncio.wait_for(pub.wait_drained(), 10)
                 pub.stop()
-            async with persistent_sub() as sub:
+            async with persistent_client(brk.port, sub_id) as sub:
                 got = await collect(
                     sub, until=lambda g: {p["seq"] for _, p, _ in g} >= set(range(1, 8))
                 )

@@ -7,6 +7,7 @@ from hypothesis import strategies as st
 
 from ionwarden.daemon.alarms import Debouncer
 from ionwarden.daemon.outputs import OutboundBuffer, OutboundMessage, Topic
+from tests._outputs_support import class_message
 
 TOPIC = Topic("p/ALPHA/summary")
 
@@ -26,14 +27,7 @@ def test_buffer_is_bounded_ordered_and_counts_every_drop(ops, alarm_bound, epoch
     put: list[OutboundMessage] = []
     for n, (op, klass) in enumerate(ops):
         if op == "put":
-            msg = OutboundMessage(
-                topic=TOPIC,
-                payload=str(n).encode(),
-                qos=1,
-                retain=False,
-                alarm_class=klass == 0,
-                bulk=klass == 2,
-            )
+            msg = class_message(TOPIC, n, klass)
             put.append(msg)
             buf.put_nowait(msg)
         else:

@@ -28,8 +28,8 @@ from ionwarden.daemon.outputs import (
     summary_payload,
 )
 from ionwarden.parsers import GpsTime, gps_to_utc, sat_name
-from tests._mqtt_support import collect, private_broker, unique_prefix
-from tests._outputs_support import T0, make_snapshot
+from tests._mqtt_support import collect, persistent_client, private_broker, unique_prefix
+from tests._outputs_support import T0, class_message, make_snapshot
 
 TOPIC = Topic("p/ALPHA/summary")
 
@@ -57,16 +57,7 @@ def test_buffer_in_flight_keeps_order_bounds_and_counts(ops, alarm_bound, epoch_
     for n, (op, klass) in enumerate(ops):
         if op == "put":
             put += 1
-            buf.put_nowait(
-                OutboundMessage(
-                    topic=TOPIC,
-                    payload=str(n).encode(),
-                    qos=1,
-                    retain=False,
-                    alarm_class=klass == 0,
-                    bulk=klass == 2,
-                )
-            )
+            buf.put_nowait(class_message(TOPIC, n, klass))
         elif op == "take":
             before_alarm_unsent = buf.alarm_depth - sum(m.alarm_class for m in inflight)
             msg = buf.take()
@@ -377,7 +368,6 @@ def test_satellites_messages_are_staggered_across_stations():
 def test_broker_lost_with_window_in_flight_resends_every_transition_in_order(tmp_path):
     """MqttPublisher with a full window in flight when the broker dies: after the reconnect every
     alarm transition arrives, in order (duplicates allowed: at-least-once), none dropped."""
-    import aiomqtt
 
     prefix = unique_prefix()
     sub_id = f"iwtest-sub-{prefix.rsplit('/', 1)[-1]}"
@@ -392,14 +382,9 @@ def test_broker_lost_with_window_in_flight_resends_every_transition_in_order(tmp
             reconnect_cap_s=1.0,
         )
 
-        def persistent_sub() -> aiomqtt.Client:
-            return aiomqtt.Client(
-                "127.0.0.1", brk.port, identifier=sub_id, clean_session=False, timeout=5
-            )
-
         async def main():
             eng = StationAlarms("ALPHA", AlarmSettings(stall_after_s=5.0))
-            async with persistent_sub() as sub:
+            async with persistent_client(brk.port, sub_id) as sub:
                 await sub.subscribe(f"{prefix}/ALPHA/events", qos=1)
             pub = MqttPublisher(cfg)
             n = 0
@@ -417,7 +402,7 @@ def test_broker_lost_with_window_in_flight_resends_every_transition_in_order(tmp
                 await asyncio.wait_for(pub.wait_connected(), cfg.reconnect_cap_s + 5.0)
                 await asyncio.wait_for(pub.wait_drained(), 20)
                 pub.stop()
-            async with persistent_sub() as sub:
+            async with persistent_client(brk.port, sub_id) as sub:
                 got = await collect(
                     sub, until=lambda g: {p["seq"] for _, p, _ in g} >= set(range(1, n + 1))
                 )
