@@ -36,6 +36,7 @@ from types import MappingProxyType
 from typing import Final
 
 import numpy as np
+import numpy.typing as npt
 
 from ._crc import crc24q_table
 from ._errors import ParseError
@@ -94,6 +95,34 @@ class NmeaFrame:
 
 Frame = RtcmFrame | NmeaFrame
 
+# Hot-path construction (~20 frames a second per station): the frozen dataclasses' generated
+# ``__init__`` stores each field with ``object.__setattr__(self, name, value)``, which looks the
+# slot up by name every time; these store the same values through the slot descriptors directly
+# (about half the cost). Same type, same fields, equal values: tests/test_decode_shortcuts.py.
+_NEW = object.__new__
+_SET_TYPE = vars(RtcmFrame)["msg_type"].__set__
+_SET_PAYLOAD = vars(RtcmFrame)["payload"].__set__
+_SET_RTCM_OFFSET = vars(RtcmFrame)["offset"].__set__
+_SET_RAW = vars(NmeaFrame)["raw"].__set__
+_SET_NMEA_OFFSET = vars(NmeaFrame)["offset"].__set__
+
+
+def _rtcm_frame(msg_type: int, payload: bytes, offset: int) -> RtcmFrame:
+    """``RtcmFrame(msg_type=…, payload=…, offset=…)``, built field by field (see above)."""
+    frame = _NEW(RtcmFrame)
+    _SET_TYPE(frame, msg_type)
+    _SET_PAYLOAD(frame, payload)
+    _SET_RTCM_OFFSET(frame, offset)
+    return frame
+
+
+def _nmea_frame(raw: bytes, offset: int) -> NmeaFrame:
+    """``NmeaFrame(raw=…, offset=…)``, built field by field (see above)."""
+    frame = _NEW(NmeaFrame)
+    _SET_RAW(frame, raw)
+    _SET_NMEA_OFFSET(frame, offset)
+    return frame
+
 
 @dataclass(frozen=True, slots=True, kw_only=True)
 class FramerStatistics:
@@ -137,6 +166,29 @@ def crc24q_fast(data: bytes | bytearray | memoryview) -> int:
     return int(np.bitwise_xor.reduce(_CRC_FLAT[idx]))
 
 
+#: Table rows and frame starts of a run of back-to-back frames, by the frames' lengths: a receiver
+#: repeats the same messages with the same lengths second after second (MSM lengths change only
+#: with the satellite and signal masks). Cleared when full.
+_RUN_ROWS: dict[tuple[int, ...], tuple[npt.NDArray[np.intp], npt.NDArray[np.intp]]] = {}
+_RUN_ROWS_SIZE: Final = 64
+
+
+def _run_rows(lengths: tuple[int, ...]) -> tuple[npt.NDArray[np.intp], npt.NDArray[np.intp]]:
+    """``_CRC_ROW`` rows of every byte of frames of these lengths laid end to end, and each frame's
+    first byte (relative to the first frame): see :func:`_crc_run`."""
+    hit = _RUN_ROWS.get(lengths)
+    if hit is not None:
+        return hit
+    rows = np.concatenate([_CRC_ROW[_RTCM_MAX_FRAME - n :] for n in lengths])
+    first = np.array([0, *accumulate(lengths[:-1])], np.intp)
+    rows.setflags(write=False)
+    first.setflags(write=False)
+    if len(_RUN_ROWS) >= _RUN_ROWS_SIZE:
+        _RUN_ROWS.clear()
+    _RUN_ROWS[lengths] = rows, first
+    return rows, first
+
+
 def _crc_run(buf: bytearray, starts: list[int], end: int) -> list[int]:
     """CRC-24Q of frames laid end to end in ``buf``: ``starts[k]`` to the next start (or ``end``).
 
@@ -147,11 +199,8 @@ def _crc_run(buf: bytearray, starts: list[int], end: int) -> list[int]:
         idx = _CRC_ROW[_RTCM_MAX_FRAME - (end - s0) :] + np.frombuffer(buf, np.uint8, end - s0, s0)
         return [int(np.bitwise_xor.reduce(_CRC_FLAT.take(idx)))]
     ends = [*starts[1:], end]
-    rows = np.concatenate(
-        [_CRC_ROW[_RTCM_MAX_FRAME - (b - a) :] for a, b in zip(starts, ends, strict=True)]
-    )
+    rows, first = _run_rows(tuple([b - a for a, b in zip(starts, ends, strict=True)]))
     idx = rows + np.frombuffer(buf, np.uint8, end - s0, s0)
-    first = np.array(starts, np.intp) - s0
     crcs: list[int] = np.bitwise_xor.reduceat(_CRC_FLAT.take(idx), first).tolist()
     return crcs
 
@@ -354,7 +403,7 @@ class Framer:
         self._counts[0] += 1
         by_type = self._by_type
         by_type[msg_type] = by_type.get(msg_type, 0) + 1
-        frames.append(RtcmFrame(msg_type=msg_type, payload=payload, offset=self._base + i))
+        frames.append(_rtcm_frame(msg_type, payload, self._base + i))
 
     def _nmea_run(self, i: int, frames: list[Frame]) -> NeedData | None:
         """Take the sentence candidate at ``i`` and the well-formed sentences right behind it.
@@ -396,7 +445,7 @@ class Framer:
         offset = self._base + i
         for s, x in zip(parts, xors, strict=True):
             if x == _TAIL_XOR[s[-5:] if s[-2] == 0x0D else s[-4:]] ^ s[0]:
-                frames.append(NmeaFrame(raw=s, offset=offset))
+                frames.append(_nmea_frame(s, offset))
                 counts[1] += 1
             elif s.find(b"$", 1) < 0 and s.find(b"!", 1) < 0:
                 counts[4] += 1
@@ -439,4 +488,4 @@ class Framer:
             return None
         self._pos = end
         self._counts[1] += 1
-        return NmeaFrame(raw=bytes(buf[i:end]), offset=self._base + i)
+        return _nmea_frame(bytes(buf[i:end]), self._base + i)

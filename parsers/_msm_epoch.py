@@ -43,6 +43,10 @@ _F64 = npt.NDArray[np.float64]
 _IDX = npt.NDArray[np.intp]
 _NROWS: Final = 9
 _MAX_EPOCH_LAYOUTS: Final = 64  # cached epoch layouts; cleared when full (a stream uses a few)
+#: Channel assignments cached per layout (cleared when full): one is used for months, a handful
+#: while a satellite's channel is being learnt (MSM4 before its 1020, a channel reused after a
+#: constellation change).
+_MAX_GLO_CHANNEL_SETS: Final = 8
 #: Lock-time lookup: DF407 indicators (RTCM 10403.3 Table 3.5-75) then DF402 ones (Table 3.5-74).
 _LOCK_BOTH: Final = np.concatenate([LOCK_TIME_DF407_S, LOCK_TIME_DF402_S])
 _LOCK_BOTH.setflags(write=False)
@@ -91,6 +95,9 @@ class _EpochLayout:
     glo_sig: npt.NDArray[np.uint16]
     sources: tuple[int, ...]
     duplicates: int
+    #: GLONASS FDMA: (frequencies, multipliers) of every cell, read-only, by the channel bytes of
+    #: the epoch's GLONASS messages (receivers keep a satellite's channel for months).
+    glo_cache: dict[bytes, tuple[_F64, _F64]]
 
 
 _LAYOUTS: dict[tuple[tuple[object, int], ...], _EpochLayout] = {}
@@ -206,6 +213,7 @@ def _build(heads: Sequence[MsmHead]) -> _EpochLayout:
         glo_sig=out_sig[g_pos],
         sources=tuple(h.msg_type for h in heads),
         duplicates=total - n,
+        glo_cache={},
     )
 
 
@@ -219,8 +227,9 @@ def decode_epochs(
     repeats (MSM6 and MSM7 of one system) is kept once, from the later message, and the count of
     those dropped is returned. GLONASS FDMA frequencies use each message's ``glo_channels``.
 
-    ``sat``, ``sig``, ``lli`` and (without GLONASS FDMA) ``freq_hz`` are read-only arrays shared
-    by every epoch of the same layout; the measured columns are new for each call (an epoch's
+    ``sat``, ``sig``, ``lli`` and ``freq_hz`` are read-only arrays shared by every epoch of the
+    same layout (``freq_hz`` with GLONASS FDMA cells: of the same layout and channels); the
+    measured columns are new for each call (an epoch's
     columns may be views of one block allocated for the epochs decoded together).
     """
     groups: dict[tuple[tuple[object, int], ...], list[int]] = {}
@@ -239,6 +248,30 @@ def decode_epochs(
             _decode_group(lay, [epochs[k] for k in part], out, part)
         duplicates += lay.duplicates * len(members)
     return out, duplicates
+
+
+def _glo_columns(lay: _EpochLayout, heads: Sequence[MsmHead]) -> tuple[_F64, _F64]:
+    """Frequencies (Hz) and (pseudorange, phase) multipliers of every cell of an epoch with
+    GLONASS FDMA cells, from its messages' channels (``MsmHead.glo_channels``); read-only, cached
+    per layout by the channel bytes, which with the layout fix every value."""
+    chans = [h.glo_channels for h in heads if h.glo_channels is not None]
+    key = b"".join([c.tobytes() for c in chans])
+    hit = lay.glo_cache.get(key)
+    if hit is not None:
+        return hit
+    chan = (chans[0] if len(chans) == 1 else np.concatenate(chans)).take(lay.glo_src)
+    f = lay.freq_hz.copy()
+    # GLONASS ICD Ed. 5.1 §3.3.1.4 (f = base + k · step): parsers._signals.frequencies_hz
+    f[lay.glo_pos] = frequencies_hz(lay.glo_sat, lay.glo_sig, chan)
+    mult = np.empty((2, lay.n))
+    mult[0] = lay.mult[0]
+    mult[1] = f * 1e-3
+    f.setflags(write=False)
+    mult.setflags(write=False)
+    if len(lay.glo_cache) >= _MAX_GLO_CHANNEL_SETS:
+        lay.glo_cache.clear()
+    lay.glo_cache[key] = (f, mult)
+    return f, mult
 
 
 def _decode_group(
@@ -270,15 +303,14 @@ def _decode_group(
     ranges = v[:, 4:6] + rough_rate[:, 0:1]
     freq = [lay.freq_hz] * k
     if lay.glo_pos.shape[0]:
-        mult = np.empty((k, 2, n))
-        mult[:] = lay.mult
-        for j, (heads, _, _) in enumerate(epochs):
-            chans = [h.glo_channels for h in heads if h.glo_channels is not None]
-            chan = (chans[0] if len(chans) == 1 else np.concatenate(chans)).take(lay.glo_src)
-            f = lay.freq_hz.copy()
-            f[lay.glo_pos] = frequencies_hz(lay.glo_sat, lay.glo_sig, chan)
-            mult[j, 1] = f * 1e-3
-            freq[j] = f
+        per_epoch = [_glo_columns(lay, heads) for heads, _, _ in epochs]
+        if k == 1:
+            freq[0], mult = per_epoch[0]  # (2, n) broadcast over the one epoch: same products
+        else:
+            mult = np.empty((k, 2, n))
+            for j, (f, m) in enumerate(per_epoch):
+                mult[j] = m
+                freq[j] = f
         ranges *= mult
     else:
         ranges *= lay.mult

@@ -8,7 +8,9 @@ and the Unicore high-precision ``…H`` variants that pynmeagps reads with the s
 by ``pynmeagps.NMEAReader.parse`` (GGA, GST, GSV, RMC and GSA, decoded every second, first
 through the lean builders of ``_nmea_fast``, which give the same values); every other sentence
 passes through raw as :class:`NmeaOther` without calling pynmeagps (it costs tens of µs per
-sentence). pynmeagps exceptions become :class:`ParseError` (``raise … from exc``).
+sentence), or, from :func:`decode_wanted`, is only checked and gives ``None`` (for callers that
+drop those sentences anyway). pynmeagps exceptions become :class:`ParseError` (``raise … from
+exc``).
 
 Units are in field names; absent numeric fields are NaN (floats) or ``None`` (integers, times).
 Satellite numbers become our satellite ids (``parsers._signals``) through :func:`nmea_sat_id`.
@@ -20,7 +22,7 @@ import datetime as dt
 import functools
 import math
 from dataclasses import dataclass
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, cast
 
 from pynmeagps import NMEAReader
 from pynmeagps import exceptions as nmea_exc
@@ -54,6 +56,7 @@ __all__ = [
     "VtgVelocity",
     "ZdaTime",
     "decode_sentence",
+    "decode_wanted",
     "nmea_checksum",
     "nmea_sat_id",
 ]
@@ -408,6 +411,26 @@ def decode_sentence(
     bytes of an ``NmeaFrame`` from our framer), so it is not computed again; every other check
     stays.
     """
+    return cast("NmeaMessage", _decode(raw, wanted, checked, True))  # keep_other: never None
+
+
+def decode_wanted(
+    raw: bytes,
+    wanted: Container[str] | None = None,
+    *,
+    checked: bool = False,
+    keep_other: bool = False,
+) -> NmeaMessage | None:
+    """:func:`decode_sentence`, but ``None`` where it returns :class:`NmeaOther` (a valid sentence
+    outside ``wanted`` or of a type we do not decode), without building that value: for callers
+    that would drop it anyway. Same checks, same errors, same values otherwise. ``keep_other``
+    returns the :class:`NmeaOther` after all (exactly :func:`decode_sentence`)."""
+    return _decode(raw, wanted, checked, keep_other)
+
+
+def _decode(
+    raw: bytes, wanted: Container[str] | None, checked: bool, keep_other: bool
+) -> NmeaMessage | None:
     s = raw.rstrip(b"\r\n")
     if len(s) > MAX_SENTENCE_BYTES:
         raise ParseError(f"sentence longer than {MAX_SENTENCE_BYTES} bytes", message_id="NMEA")
@@ -425,7 +448,7 @@ def decode_sentence(
         if sent != calc:
             raise ParseError(f"bad checksum {sent:02X}, computed {calc:02X}", message_id=name)
     if builder is None or (wanted is not None and formatter not in wanted):
-        return NmeaOther(talker=talker, sentence_id=formatter, raw=bytes(s))
+        return NmeaOther(talker=talker, sentence_id=formatter, raw=bytes(s)) if keep_other else None
     fast = FAST_BUILDERS.get(formatter)
     if fast is not None and comma >= 0:  # lean GGA/GST/GSV/RMC/GSA; None = off the plain path
         lean = fast(talker, bytes(s[comma + 1 : star]))

@@ -94,8 +94,24 @@ def _i(s: str) -> int | None:
     return None if s == "" else int(s)
 
 
+#: Degrees of recent latitude/longitude texts: a fixed station sends the same ones every second,
+#: and ``round(x, 10)`` is the dearest step of a GGA. Cleared when full.
+_DMM_CACHE: dict[str, float] = {}
+_DMM_CACHE_SIZE = 512  # two texts per station: ample for a process of stations
+
+
 def _dmm(pos: str) -> float:
     """``(d)ddmm.mmmm`` → unsigned degrees as pynmeagps ``dmm2ddd`` (NaN where it gives "")."""
+    deg = _DMM_CACHE.get(pos)
+    if deg is None:
+        deg = _dmm_uncached(pos)
+        if len(_DMM_CACHE) >= _DMM_CACHE_SIZE:
+            _DMM_CACHE.clear()
+        _DMM_CACHE[pos] = deg
+    return deg
+
+
+def _dmm_uncached(pos: str) -> float:
     dp = pos.find(".")
     if dp < 4:
         return NAN

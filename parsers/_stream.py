@@ -58,7 +58,7 @@ from ._nmea import (
     RmcFix,
     SatellitesInView,
     ZdaTime,
-    decode_sentence,
+    decode_wanted,
 )
 from ._rtcm_misc import DECODERS, DecodeContext
 from ._rtcm_station import ReceiverDescriptor, StationReference
@@ -126,6 +126,9 @@ class StreamStatistics:
     #: CRC-good frames whose content a decoder rejected (:class:`ParseError`), by type.
     decode_errors_by_type: Mapping[int, int] = field(default_factory=lambda: MappingProxyType({}))
     nmea_decoded: int = 0
+    #: Valid sentences outside ``nmea_wanted`` not returned (``emit_nmea_other=False``); they
+    #: are counted in ``nmea_decoded`` too.
+    nmea_skipped: int = 0
     nmea_errors: int = 0
     last_error: str = ""
     epochs: int = 0
@@ -209,12 +212,23 @@ _DATE_SENTENCES = frozenset({"RMC", "ZDA"})
 class StreamDecoder:
     """Decodes one receiver byte stream into epochs, ephemerides, station and NMEA messages."""
 
-    def __init__(self, reference_time: GpsTime | None = None, *, emit_msm: bool = False) -> None:
-        """``emit_msm`` also returns each :class:`MsmMessage` as it is decoded (diagnostics)."""
+    def __init__(
+        self,
+        reference_time: GpsTime | None = None,
+        *,
+        emit_msm: bool = False,
+        emit_nmea_other: bool = True,
+    ) -> None:
+        """``emit_msm`` also returns each :class:`MsmMessage` as it is decoded (diagnostics).
+        ``emit_nmea_other=False`` drops the valid sentences that would come out as
+        :class:`NmeaOther` (outside ``nmea_wanted``, or of a type we do not decode) after their
+        checks, counted in ``statistics().nmea_skipped`` (for callers that ignore them anyway).
+        """
         self._framer = Framer()
         self._ref = reference_time
         self._ref_source = "constructor" if reference_time is not None else ""
         self._emit_msm = emit_msm
+        self._emit_nmea_other = emit_nmea_other
         self._glo_channels = new_glo_channel_table()
         self._open: _Epoch | None = None
         self._gsv = GsvAssembler()
@@ -226,6 +240,7 @@ class StreamDecoder:
         self._raw: dict[int, int] = {}
         self._errors: dict[int, int] = {}
         self._nmea_ok = 0
+        self._nmea_skipped = 0
         self._nmea_err = 0
         self._last_error = ""
         self._epochs = 0
@@ -240,6 +255,9 @@ class StreamDecoder:
         #: known, because the epoch times need the date.
         self.nmea_wanted: frozenset[str] | None = None
         self._misc_cache: dict[tuple[bytes, int], Message] = {}
+        #: id → (Kepler ephemeris of the cache, its GPS time of ephemeris): a repeated ephemeris
+        #: is the cache's same object, so ``_learn`` reuses its time (cleared with the cache).
+        self._eph_refs: dict[int, tuple[KeplerEphemeris, GpsTime]] = {}
         # A collected decoder releases what its cache shared (the callback holds the cache only).
         weakref.finalize(self, _release_cache, self._misc_cache).atexit = False
         #: (reference, its GPS − UTC leap seconds): the reference changes once per epoch.
@@ -285,6 +303,7 @@ class StreamDecoder:
             raw_by_type=MappingProxyType(dict(self._raw)),
             decode_errors_by_type=MappingProxyType(dict(self._errors)),
             nmea_decoded=self._nmea_ok,
+            nmea_skipped=self._nmea_skipped,
             nmea_errors=self._nmea_err,
             last_error=self._last_error,
             epochs=self._epochs,
@@ -346,6 +365,7 @@ class StreamDecoder:
         msg = cast("Message", decoder(payload, DecodeContext(reference_time=self._ref)))
         if len(self._misc_cache) >= _MISC_CACHE_SIZE:
             _release_cache(self._misc_cache)
+            self._eph_refs.clear()
         self._misc_cache[(_share(payload), key[1])] = msg = _share(msg)
         return msg
 
@@ -356,11 +376,19 @@ class StreamDecoder:
             if 0 < slot < self._glo_channels.shape[0] and -7 <= msg.channel <= 6:
                 self._glo_channels[slot] = msg.channel
         elif isinstance(msg, KeplerEphemeris):
-            toe_gps = msg.toe_s + (BDS_GPS_OFFSET_S if msg.time_system == "BDT" else 0.0)
-            ref = GpsTime(msg.week, 0.0) + toe_gps
+            known = self._eph_refs.get(id(msg))
+            if known is not None and known[0] is msg:  # held there: the id is still this object's
+                ref = known[1]
+            else:
+                toe_gps = msg.toe_s + (BDS_GPS_OFFSET_S if msg.time_system == "BDT" else 0.0)
+                ref = GpsTime(msg.week, 0.0) + toe_gps
+                if len(self._eph_refs) >= _MISC_CACHE_SIZE:  # bounded like the cache
+                    self._eph_refs.clear()
+                self._eph_refs[id(msg)] = (msg, ref)
             source = _WEEK_SOURCES.get(msg.source) if isinstance(msg.source, int) else None
             if source is None:
-                if msg.source == 1019 and (self._gps_1019_ref is None or ref > self._gps_1019_ref):
+                last = self._gps_1019_ref
+                if msg.source == 1019 and (last is None or (ref is not last and ref > last)):
                     self._gps_1019_ref = ref
             elif self._ref is None:
                 self._set_reference(ref, source, out)
@@ -454,13 +482,17 @@ class StreamDecoder:
             wanted = self.nmea_wanted
             if wanted is not None and self._ref is None:
                 wanted = wanted | _DATE_SENTENCES
-            # Our framer verified the checksum (NmeaFrame): not computed a second time.
-            msg = decode_sentence(frame.raw, wanted, checked=True)
+            # Our framer verified the checksum (NmeaFrame): not computed a second time. Without
+            # emit_nmea_other, NmeaOther values are not even built (None, counted below).
+            msg = decode_wanted(frame.raw, wanted, checked=True, keep_other=self._emit_nmea_other)
         except ParseError as exc:
             self._nmea_err += 1
             self._last_error = f"{exc} at stream offset {frame.offset}"
             return
         self._nmea_ok += 1
+        if msg is None:
+            self._nmea_skipped += 1
+            return
         if isinstance(msg, GsvPart):  # GSV groups come out whole (one object per talker+signal)
             group = self._gsv.push(msg)
             if group is not None:
