@@ -165,7 +165,9 @@ def _replayed_stations(
     sc = build_scenario("quiet-day", duration_s=seconds + 1.0)
     chunks = [data for _, data in iter_stream(Simulator(sc), 0)]
     names = [f"ST{i:02d}" for i in range(n_stations)]
-    pipes = [StationPipeline(n, reference_time=sc.start) for n in names]
+    # defer=True as the daemon builds them: the receiver-bias fit and the messages after each
+    # epoch wait for settle(), run once the other stations' snapshots are out.
+    pipes = [StationPipeline(n, reference_time=sc.start, defer=True) for n in names]
     engines = [StationAlarms(n, AlarmSettings()) for n in names]
     for p in pipes:
         p.feed(chunks[0])
@@ -211,6 +213,13 @@ async def bench_frames(
                         submitted[summary_payload(out)] = arrived
                     elif isinstance(out, FixStatus):
                         pub.publish_transitions_nowait(engines[i].observe_fix(out))
+                if stagger or i == n_stations - 1:
+                    # the deferred parts: at once when spread, after every station's snapshot
+                    # when all arrived together (as the daemon's StepLane orders them)
+                    for j in (i,) if stagger else range(n_stations):
+                        for out in pipes[j].settle():
+                            if isinstance(out, FixStatus):
+                                pub.publish_transitions_nowait(engines[j].observe_fix(out))
         await asyncio.wait_for(pub.wait_drained(), 30)
         pub.stop()
     ms = [x * 1e3 for x in acked]
@@ -266,6 +275,16 @@ async def bench_frames_synchronized(
                     pub.publish_transitions_nowait(engines[i].observe_fix(out))
             if lane is not None:
                 lane.done()
+            if pipes[i].unsettled():  # the deferred part, as StationRunner.estimate_loop
+                if lane is not None:
+                    await lane.turn(background=True)
+                else:
+                    await asyncio.sleep(0)
+                for out in pipes[i].settle():
+                    if isinstance(out, FixStatus):
+                        pub.publish_transitions_nowait(engines[i].observe_fix(out))
+                if lane is not None:
+                    lane.done()
             await asyncio.sleep(0)  # one chunk per turn, as the daemon's estimate loop
 
     async with asyncio.TaskGroup() as tg:

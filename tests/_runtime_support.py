@@ -159,6 +159,12 @@ class StandInCore:
         self._inner.reset()
         self.state = {"arcs": 0}
 
+    def unsettled(self) -> bool:
+        return False
+
+    def settle(self) -> list[object]:
+        return []
+
     def state_dict(self) -> dict[str, Any]:
         return dict(self.state)
 

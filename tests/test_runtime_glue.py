@@ -95,3 +95,45 @@ def test_step_lane_passes_on_when_a_waiter_is_cancelled():
         lane.done()
 
     asyncio.run(main())
+
+
+def test_step_lane_serves_urgent_steps_before_background_ones():
+    """StepLane: a background step (a station's deferred receiver-bias fit) waits while urgent
+    steps (other stations' bytes → snapshot → publish) are waiting, then runs; each class is
+    first come first served, and a free lane is taken at once by either class."""
+    import asyncio
+
+    from ionwarden.daemon.runtime import StepLane
+
+    log: list[str] = []
+
+    async def main():
+        lane = StepLane()
+        await lane.turn(background=True)  # free: taken at once
+        lane.done()
+        await asyncio.sleep(0)
+        start = asyncio.Event()
+
+        async def station(name: str) -> None:
+            await start.wait()
+            await lane.turn()
+            try:
+                log.append(f"urgent {name}")
+            finally:
+                lane.done()
+            await lane.turn(background=True)
+            try:
+                log.append(f"background {name}")
+            finally:
+                lane.done()
+
+        async with asyncio.TaskGroup() as tg:
+            for name in "ABC":
+                tg.create_task(station(name), name=f"daemon.estimate[{name}]")
+            await asyncio.sleep(0)
+            start.set()
+        assert lane.waiting == 0
+
+    asyncio.run(main())
+    assert log == ["urgent A", "urgent B", "urgent C", "background A", "background B",
+                   "background C"]  # fmt: skip

@@ -22,6 +22,7 @@ scatters of the test residuals, kept across arcs (they describe the signal's noi
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -29,6 +30,7 @@ import numpy.typing as npt
 
 from ._state import (
     ARC,
+    DT,
     GF_FLOOR,
     GF_LEVEL,
     GF_LOW,
@@ -52,7 +54,7 @@ from ._state import (
     N,
 )
 
-__all__ = ["ArcState", "SlipThresholds"]
+__all__ = ["ArcBlock", "ArcState", "SlipThresholds"]
 
 F64 = npt.NDArray[np.float64]
 Idx = npt.NDArray[np.intp]
@@ -104,6 +106,53 @@ def _sel(all_true: bool, mask: Bool, a: F64, b: F64 | float) -> F64:
     return a if all_true else np.where(mask, a, b)
 
 
+class ArcBlock:
+    """The rows of a block ``g`` (NROW, d) the slip tests use, as views made once per block, and
+    their work buffers (no allocation and no indexing per epoch on the common path). Copies and
+    pickles rebuild the views of the copied ``g`` (the buffers are written before they are read).
+
+    ``n_ref`` (≥ 2): rows of ``g`` from ``GF_PRED`` on that :meth:`ArcState.detect` subtracts
+    from its samples in one call: the GF prediction and MW mean it tests against, then rows the
+    caller wants differenced too (read back from ``diff[2:]``).
+    """
+
+    __slots__ = ("absres", "d", "diff", "div", "dt", "g", "jump", "last_t", "level",
+                 "level_step", "low_thr", "mw_floor", "mw_thr", "mw_var", "n", "n_ref", "pred",
+                 "prev", "prev_id", "prev_lock", "rate", "ref", "res", "res_gf", "scr", "scr_dt",
+                 "scr_flags", "scr_id", "scr_lock", "sq", "upd", "var", "x")  # fmt: skip
+
+    def __init__(self, g: F64, n_ref: int = 2) -> None:
+        d = g.shape[1]
+        assert g.shape == (NROW, d), g.shape
+        assert 2 <= n_ref <= NROW - GF_PRED, n_ref
+        self.g, self.d, self.n_ref = g, d, n_ref
+        self.last_t, self.dt, self.n = g[LAST_T], g[DT], g[N]
+        self.prev = g[RANK : LT2 + 1]  # rank, half-cycle flags, lock indicators, lock times
+        self.prev_id = g[RANK : HALF2 + 1]
+        self.prev_lock = g[LOCK1 : LT2 + 1]
+        self.pred, self.rate, self.level = g[GF_PRED], g[GF_RATE], g[GF_LEVEL]
+        self.ref = g[GF_PRED : GF_PRED + n_ref]  # GF prediction, MW mean, the caller's rows
+        self.diff = np.empty((n_ref, d))
+        self.res = self.diff[:2]  # residuals: GF − prediction, MW − mean of the arc
+        self.res_gf = self.diff[0]
+        self.upd = g[GF_RATE : MW_MEAN + 1 : MW_MEAN - GF_RATE]  # (GF rate, MW mean)
+        self.div = g[DT : N - 1 : N - DT]  # (dt, n)
+        self.var = g[GF_VAR : MW_VAR + 1]
+        self.mw_var, self.mw_thr, self.mw_floor = g[MW_VAR], g[MW_THR], g[MW_FLOOR]
+        self.low_thr = g[GF_LOW : MW_THR + 1]  # (GF bound, MW threshold)
+        self.absres, self.sq, self.x = (np.empty((2, d)) for _ in range(3))
+        self.level_step = np.empty(d)
+        self.jump = np.empty((2, d), np.bool_)
+        # Screen flags: pair rank or half-cycle flag changed, lock indicator or time went
+        # down (7 rows), previous sample recent enough (1 row).
+        self.scr = np.empty((8, d), np.bool_)
+        self.scr_id, self.scr_lock = self.scr[0:3], self.scr[3:7]
+        self.scr_flags, self.scr_dt = self.scr[0:7], self.scr[7]
+
+    def __reduce__(self) -> tuple[type[ArcBlock], tuple[F64, int]]:
+        return (ArcBlock, (self.g, self.n_ref))
+
+
 class ArcState:
     """Slip detection over the block of one epoch (see ``_state``)."""
 
@@ -115,12 +164,14 @@ class ArcState:
         self._mw_k = np.array(th.mw_k_sigma)
         self._w = np.array(th.ema_weight)
         self._keep_w = np.array(1.0 - th.ema_weight)
-        self._rate_w = np.array(th.rate_weight)
         self._level_w = np.array(th.level_weight)
+        #: Weights of the (GF, MW) residuals in the (GF rate, MW mean) updates: (b, 1).
+        self._upd_w = np.array([[th.rate_weight], [1.0]])
         self._floor_per_s = np.array(th.gf_floor_m_per_s)
         self._floor = np.array(th.gf_floor_m)
         #: The GF floor's lower bound holds (see :meth:`detect`).
         self._gf_bound = th.gf_floor_m >= 0.0 and th.gf_floor_m_per_s >= 0.0
+        self._gap = (math.nan, np.array(math.nan))  # (gap_s, the same as a 0-d array)
 
     def prepare_block(self, g: F64) -> None:
         """Fill the layout-constant rows of a freshly gathered block (MW floor, GF bound)."""
@@ -129,7 +180,7 @@ class ArcState:
 
     def detect(
         self,
-        g: F64,
+        b: ArcBlock,
         *,
         t: F64,
         gf_mw: F64,
@@ -141,57 +192,62 @@ class ArcState:
         all_tracked: bool | None,
         no_new: Bool,
     ) -> tuple[Bool, npt.NDArray[np.int64] | None]:
-        """Test this epoch's samples against the block ``g`` (NROW, d), update it in place
+        """Test this epoch's samples against the block ``b.g`` (NROW, d), update it in place
         (arc ids, counts, MW/GF trackers, flags), return (new_arc, reason bits or None when no
         arc starts).
 
-        ``t``: epoch time (s, 0-d); ``gf_mw`` (2, d): GF and MW (m); ``el_known``: no elevation
+        ``t``: epoch time (s, 0-d); ``gf_mw`` (``b.n_ref``, d): GF and MW (m), then the samples
+        whose differences with the block rows after ``MW_MEAN`` go to ``b.diff[2:]``, computed
+        before any update (``b.diff`` is valid until the next call); ``el_known``: no elevation
         is NaN; ``cur`` (7, d): this epoch's pair rank, half-cycle flags of band 1 and 2, MSM
         lock-time indicators of band 1 and 2 (−1 none) and decoded lock times of band 1 and 2
         (s, NaN none), in the order of the block rows ``RANK … LT2``; ``lli_lost``: RINEX loss of
         lock per satellite (None: none this epoch); ``all_tracked``: every arc has two samples or
         more (None: unknown); ``no_new``: all False, read-only (returned when no arc starts).
         """
-        d = g.shape[1]
-        assert g.shape == (NROW, d), g.shape
-        assert gf_mw.shape == (2, d), gf_mw.shape
+        g, d = b.g, b.d
+        assert gf_mw.shape == (b.n_ref, d), gf_mw.shape
         assert el_rad.shape == (d,), el_rad.shape
         assert cur.shape == (7, d), cur.shape
-        dt = t - g[LAST_T]
-        prev_id = g[RANK : HALF2 + 1]  # rank, half-cycle flags
-        prev_lock = g[LOCK1 : LT2 + 1]  # lock indicators, lock times
+        dt = np.subtract(t, b.last_t, out=b.dt)
+        gap = self._gap
+        if gap[0] != gap_s:
+            self._gap = gap = (gap_s, np.array(gap_s))
         # Cheap screen, a superset of the hard reasons below (computed exactly only if it fires):
         # no previous sample or a gap, another pair, a half-cycle flag that changed, a lock
         # indicator or lock time that went down, RINEX loss of lock.
+        np.not_equal(cur[0:3], b.prev_id, out=b.scr_id)
+        np.less(cur[3:7], b.prev_lock, out=b.scr_lock)
+        np.less_equal(dt, gap[1], out=b.scr_dt)
         screen = (
-            np.count_nonzero(dt <= np.array(gap_s)) != d
-            or np.count_nonzero(cur[0:3] != prev_id)
-            or np.count_nonzero(cur[3:7] < prev_lock)
+            np.count_nonzero(b.scr_flags)
+            or np.count_nonzero(b.scr_dt) != d
             or (lli_lost is not None and np.count_nonzero(lli_lost))
         )
-        n = g[N]
+        n = b.n
         tracked = None
         if all_tracked is None or not all_tracked:
             tracked = n >= 2
             all_tracked = np.count_nonzero(tracked) == d
         # Jump tests (they count only where the arc continues so far), as (GF, MW) stacks.
-        pred = g[GF_PRED]
+        pred = b.pred
         if tracked is None or all_tracked:
-            np.multiply(g[GF_RATE], dt, out=pred)
+            np.multiply(b.rate, dt, out=pred)
         else:
-            np.multiply(np.where(tracked, g[GF_RATE], 0.0), dt, out=pred)
-        pred += g[GF_LEVEL]
-        res = gf_mw - g[GF_PRED : MW_MEAN + 1]  # GF − prediction, MW − mean of the arc
-        jump = np.abs(res)
+            np.multiply(np.where(tracked, b.rate, 0.0), dt, out=pred)
+        pred += b.level
+        np.subtract(gf_mw, b.ref, out=b.diff)
+        res = b.res  # GF − prediction, MW − mean of the arc
+        abs_res = np.abs(res, out=b.absres)
         # Thresholds max(k·σ, floor): MW exactly; GF first by its lower bound a (the floor
         # (a + b·dt)·e(el) is at least a: dt > 0, b ≥ 0, e ≥ 1), exactly only where a residual
         # exceeds that bound (rare: GF residuals are millimetres, a is 15 mm).
-        mw_thr = np.sqrt(g[MW_VAR], out=g[MW_THR])
+        mw_thr = np.sqrt(b.mw_var, out=b.mw_thr)
         mw_thr *= self._mw_k
-        np.maximum(mw_thr, g[MW_FLOOR], out=mw_thr)
-        abs_res = jump
-        jump = abs_res > g[GF_LOW : MW_THR + 1]  # GF jump (bound only), MW jump
-        if not self._gf_bound or (np.count_nonzero(jump) and np.count_nonzero(jump[0])):
+        np.maximum(mw_thr, b.mw_floor, out=mw_thr)
+        jump = np.greater(abs_res, b.low_thr, out=b.jump)  # GF jump (bound only), MW jump
+        any_jump = np.count_nonzero(jump)
+        if not self._gf_bound or (any_jump and np.count_nonzero(jump[0])):
             gf_thr = np.sqrt(g[GF_VAR])
             gf_thr *= self._gf_k
             # GF floor (a + b·dt)·e(el), e(el) = 1 + 2·exp(−el/15°), 2 where el is unknown
@@ -207,25 +263,24 @@ class ArcState:
             floor *= el_factor
             np.maximum(gf_thr, floor, out=gf_thr)
             np.greater(abs_res[0], gf_thr, out=jump[0])
-        gf_res = res[0]
-        mw_res = res[1]
-        if not screen and not np.count_nonzero(jump) and all_tracked:
-            # The common case: every arc continues and learns from its residuals, in place.
-            var = g[GF_VAR : MW_VAR + 1]
+            any_jump = np.count_nonzero(jump)
+        if not screen and not any_jump and all_tracked:
+            # The common case: every arc continues and learns from its residuals, in place:
+            # scatters, then GF rate += rate_weight·res_GF/dt and MW mean += res_MW/(n + 1) as
+            # one stack, GF level = prediction + level_weight·res_GF.
+            var = b.var
             var *= self._keep_w
-            sq = np.multiply(res, self._w)
+            sq = np.multiply(res, self._w, out=b.sq)
             sq *= res
             var += sq
-            step = np.multiply(self._rate_w, gf_res)
-            step /= dt
-            g[GF_RATE] += step
-            np.multiply(self._level_w, gf_res, out=step)
-            np.add(pred, step, out=g[GF_LEVEL])
+            x = np.multiply(res, self._upd_w, out=b.x)
             n += _ONE
-            mw_res /= n
-            g[MW_MEAN] += mw_res
-            g[LAST_T] = t
-            g[RANK : LT2 + 1] = cur
+            x /= b.div
+            b.upd += x
+            step = np.multiply(self._level_w, b.res_gf, out=b.level_step)
+            np.add(pred, step, out=b.level)
+            b.last_t.fill(t)
+            b.prev[...] = cur
             return no_new, None
         return self._general(g, t=t, dt=dt, gf_mw=gf_mw, res=res, jump=jump, cur=cur,
                              lli_lost=lli_lost, gap_s=gap_s, screen=bool(screen),
@@ -238,7 +293,7 @@ class ArcState:
         """:meth:`detect` when an arc may start or a young arc has fewer than two samples."""
         d = g.shape[1]
         th = self.th
-        gf_m, mw_m = gf_mw
+        gf_m, mw_m = gf_mw[0], gf_mw[1]
         gf_res, mw_res = res
         gf_jump, mw_jump = jump
         n = g[N]

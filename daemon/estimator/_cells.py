@@ -12,9 +12,9 @@ mask) and reused otherwise.
 
 Linear combinations per satellite (rows of :attr:`EpochLayout.comb`, over the measurement rows
 L1, L2, P1, P2 in metres): GF = L1 − L2; MW = (f1·L1 − f2·L2)/(f1 − f2) − (f1·P1 + f2·P2)/(f1 + f2);
-levelling sample K·(P2 − P1) − K·GF; K·GF; IF code α·P1 + β·P2; IF phase α·L1 + β·L2; raw
-multipath MP1 = P1 − (1 + g)·L1 + g·L2 and MP2 = P2 − γ·g·L1 + (γ·g − 1)·L2 with g = 2/(γ − 1)
-(SCIENCE.md §3, §9).
+levelling sample K·(P2 − P1) − K·GF; raw multipath MP1 = P1 − (1 + g)·L1 + g·L2 and
+MP2 = P2 − γ·g·L1 + (γ·g − 1)·L2 with g = 2/(γ − 1); K·GF; IF code α·P1 + β·P2; IF phase
+α·L1 + β·L2 (SCIENCE.md §3, §9).
 """
 
 from __future__ import annotations
@@ -39,9 +39,10 @@ __all__ = ["COMB_NAMES", "N_SIG", "CellRouter", "EpochLayout"]
 F64 = npt.NDArray[np.float64]
 Idx = npt.NDArray[np.intp]
 N_SIG = 10 * 32  # packed signal codes are band*32 + attribute, bands 0–9
-#: Rows of the combination matrix (see module doc).
-COMB_NAMES = ("gf", "mw", "lev_x", "gf_tecu", "if_code", "if_phase", "mp1", "mp2")
-(GF_ROW, MW_ROW, LEVX_ROW, GFT_ROW, IFC_ROW, IFP_ROW, MP1_ROW, MP2_ROW) = range(len(COMB_NAMES))
+#: Rows of the combination matrix (see module doc); the first six are differenced with the state
+#: rows of the same order (``_state``: "gf_pred" … "gf0") in one call.
+COMB_NAMES = ("gf", "mw", "lev_x", "mp1", "mp2", "gf_tecu", "if_code", "if_phase")
+(GF_ROW, MW_ROW, LEVX_ROW, MP1_ROW, MP2_ROW, GFT_ROW, IFC_ROW, IFP_ROW) = range(len(COMB_NAMES))
 _ZERO = np.array(0.0)
 
 
@@ -168,11 +169,11 @@ class CellRouter:
                 [one, -one, zero, zero],
                 [f1 / (f1 - f2), -f2 / (f1 - f2), -f1 / (f1 + f2), -f2 / (f1 + f2)],
                 [-k, k, -k, k],
+                [-(1.0 + g1), g1, one, zero],
+                [-gam * g1, gam * g1 - 1.0, zero, one],
                 [k, -k, zero, zero],
                 [zero, zero, a, b],
                 [a, b, zero, zero],
-                [-(1.0 + g1), g1, one, zero],
-                [-gam * g1, gam * g1 - 1.0, zero, one],
             ]
         ).reshape(len(COMB_NAMES), 4, d)
         sat16 = present.astype(np.int16)

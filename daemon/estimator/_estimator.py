@@ -29,7 +29,6 @@ from __future__ import annotations
 
 import copy
 import math
-from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -38,9 +37,18 @@ import numpy.typing as npt
 from ionwarden.daemon.config import EstimatorSettings
 from ionwarden.parsers import MAX_SAT_ID
 
-from ._arcs import REASON_NAMES, REASON_PAIR, ArcState, SlipThresholds
+from ._arcs import REASON_NAMES, REASON_PAIR, ArcBlock, ArcState, SlipThresholds
 from ._biases import BiasModel
-from ._cells import GF_ROW, GFT_ROW, IFC_ROW, IFP_ROW, LEVX_ROW, MP1_ROW, CellRouter, EpochLayout
+from ._cells import (
+    GFT_ROW,
+    IFC_ROW,
+    IFP_ROW,
+    LEVX_ROW,
+    MP1_ROW,
+    MP2_ROW,
+    CellRouter,
+    EpochLayout,
+)
 from ._geometry import Geometry
 from ._pairs import PairTable, band_delays_s
 from ._persist import apply_rolling, checked_rolling, resume_allowed, rolling_state
@@ -49,6 +57,7 @@ from ._state import (
     ARC,
     F1,
     GF0,
+    GF_PRED,
     HATCH,
     IFL_PREV,
     L1M,
@@ -89,18 +98,51 @@ _SPREAD = ("stec", "rot", "roti", "iono_l1", "if_code", "if_phase", "hatch", "mp
            "noise_factor", "relevel")  # fmt: skip
 
 
-@dataclass(slots=True, eq=False)
 class _Block:
-    """The working block of the current layout (see ``_state``), kept while the layout repeats."""
+    """The working block of the current layout (see ``_state``), kept while the layout repeats,
+    with the views and work buffers of :meth:`StationEstimator._dual`, made once per block.
 
-    lay: EpochLayout
-    g: F64  # (NROW, d) state rows of lay.idx, then the layout's coefficients and work rows
-    cur: F64  # (7, d) this epoch's rank, half-cycle flags, lock indicators, lock times
-    cur_flags: F64  # (3, 2d) view of cur[1:7]: flags, indicators, times of band 1 then band 2
-    cells: F64  # (3, n) this epoch's half-cycle flags, lock indicators, lock times per cell
-    meas: F64  # (4, d) L1, L2 (m), P1, P2 (m)
-    arc: npt.NDArray[np.int32]  # (d,) arc ids, read-only (goes into snapshots)
-    n_min: float  # smallest sample count of the arcs (NaN: unknown)
+    Copies and pickles rebuild the views from the arrays they view (a copied view would be an
+    independent array): only ``lay``, ``g``, ``cur``, ``arc`` and ``n_min`` carry state; the other
+    buffers are written each epoch before they are read.
+    """
+
+    __slots__ = ("arc", "arcs", "cell_rows", "cells", "cur", "cur_flags", "g", "gf0", "hatch",
+                 "ifl_prev", "l1m", "lay", "lev", "lev_sw", "means", "meas", "meas_l", "meas_p",
+                 "mp_mean", "n", "n_min", "noise", "prev", "rel", "step", "step_lev", "step_mp",
+                 "w")  # fmt: skip
+
+    def __init__(
+        self, lay: EpochLayout, g: F64, cur: F64, arc: npt.NDArray[np.int32], n_min: float
+    ) -> None:
+        d = lay.idx.shape[0]
+        self.lay = lay
+        self.g = g  # (NROW, d) state rows of lay.idx, the layout's coefficients, work rows
+        #: the slip tests' views of g; they difference the rows GF_PRED … GF0 (``_state``)
+        self.arcs = ArcBlock(g, GF0 - GF_PRED + 1)
+        self.cur = cur  # (7, d) this epoch's rank, half-cycle flags, lock indicators, lock times
+        self.cur_flags = cur[1:].reshape(3, 2 * d)  # flags, indicators, times: band 1, band 2
+        #: (3, n) this epoch's half-cycle flags, lock indicators, lock times per cell
+        self.cells = cells = np.empty((3, lay.cell_pos.shape[0]))
+        self.cell_rows = (cells[0], cells[1], cells[2])
+        self.meas = meas = np.empty((4, d))  # L1, L2 (m), P1, P2 (m)
+        self.meas_l, self.meas_p = meas[:2], meas[2:]
+        self.arc = arc  # (d,) arc ids, read-only (goes into snapshots)
+        self.n_min = n_min  # smallest sample count of the arcs (NaN: unknown)
+        self.n, self.lev_sw, self.lev, self.gf0 = g[N], g[LEV_SW], g[LEV_MEAN], g[GF0]
+        self.means = g[LEV_MEAN : MP2 + 1]  # levelling offset, MP1 and MP2 arc means
+        self.mp_mean = g[MP1 : MP2 + 1]
+        self.hatch, self.ifl_prev, self.l1m = g[HATCH], g[IFL_PREV], g[L1M]
+        self.noise = lay.coefs[NOISE - F1]  # IF noise factor, read-only (goes into snapshots)
+        self.w = np.empty(d)  # levelling weights
+        diff = self.arcs.diff  # rows GF_PRED … GF0 subtracted from the epoch's comb rows
+        self.step = diff[LEV_MEAN - GF_PRED : MP2 - GF_PRED + 1]  # steps of ``means``
+        self.step_lev, self.step_mp = self.step[0], self.step[1:]
+        self.rel = diff[GF0 - GF_PRED]  # K·GF relative to the arc's first
+        self.prev = np.empty(d)  # Hatch: the previous smoothed code carried to this epoch
+
+    def __reduce__(self) -> tuple[Any, ...]:
+        return (_Block, (self.lay, self.g, self.cur, self.arc, self.n_min))
 
 
 class StationEstimator:
@@ -112,9 +154,14 @@ class StationEstimator:
         *,
         station: str = "",
         ephemerides_per_sat: int = 3,
+        defer_fit: bool = False,
     ) -> None:
         """``ephemerides_per_sat``: newest broadcast sets kept per satellite (raise it when a whole
-        day's navigation file is loaded up front, as ``ionwarden process`` does)."""
+        day's navigation file is loaded up front, as ``ionwarden process`` does).
+
+        ``defer_fit``: the periodic receiver-bias fit of an epoch (it changes only later epochs'
+        figures) waits for :meth:`settle`; every other entry point settles first, so the results
+        are the same bit for bit (the daemon runs it after other stations' snapshots are out)."""
         cfg = settings or EstimatorSettings()
         self.settings = cfg
         self.station = station
@@ -136,7 +183,13 @@ class StationEstimator:
         self.roti_window = SlotStd(S, cfg.roti_window_s, cfg.roti_sample_s)
         self.biases = BiasModel(self.pairs, cfg, S)
         self.cells = CellRouter(self.pairs)
+        self._defer_fit = defer_fit
+        #: The deferred receiver-bias fit: (positional, keyword) arguments of _update_receiver_bias.
+        self._pending_fit: tuple[tuple[Any, ...], dict[str, Any]] | None = None
         self._bias_cache: tuple[EpochLayout, int, F64, F64, F64] | None = None
+        #: Hatch constants of the sampling interval: (interval, window N, N and (N − 1)/N as
+        #: 0-d arrays).
+        self._hatch_consts: tuple[float, float, F64, F64] = (math.nan, 1.0, _ZERO, _ZERO)
         self._last_epoch_t = -math.inf
         self._intervals = np.full(_INTERVAL_HISTORY, np.nan)
         self._interval = 1.0  # s, median of the recent epoch intervals
@@ -151,8 +204,21 @@ class StationEstimator:
             self.counters[f"arcs_{name}"] = 0
 
     # -- inputs other than observations -----------------------------------------------------------
+    def unsettled(self) -> bool:
+        """A receiver-bias fit waits for :meth:`settle` (``defer_fit``)."""
+        return self._pending_fit is not None
+
+    def settle(self) -> None:
+        """Run the deferred receiver-bias fit, if any (``defer_fit``)."""
+        pending, self._pending_fit = self._pending_fit, None
+        if pending is not None:
+            with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+                self._update_receiver_bias(*pending[0], **pending[1])
+
     def add_ephemeris(self, eph: KeplerEphemeris | GlonassEphemeris) -> None:
         """Use a broadcast ephemeris for geometry and its group delays for the satellite bias."""
+        if self._pending_fit is not None:
+            self.settle()
         if not 0 <= eph.sat < MAX_SAT_ID or self._last_eph.get(eph.sat) == eph:
             return  # receivers repeat the same set every few seconds
         self._last_eph[eph.sat] = eph
@@ -164,17 +230,23 @@ class StationEstimator:
 
     def set_receiver_position(self, ecef_m: npt.ArrayLike, source: str) -> None:
         """Receiver antenna position (ECEF m) from config, RTCM 1005/1006 or GGA."""
+        if self._pending_fit is not None:
+            self.settle()
         self.geometry.set_receiver_position(ecef_m, source)
 
     def set_gsv(
         self, time: GpsTime, sats: npt.ArrayLike, el_deg: npt.ArrayLike, az_deg: npt.ArrayLike
     ) -> None:
         """Fallback elevations/azimuths from NMEA GSV (used only where no orbit is known)."""
+        if self._pending_fit is not None:
+            self.settle()
         self.geometry.set_gsv(time.total_s, sats, el_deg, az_deg)
 
     # -- the hot path -------------------------------------------------------------------------------
     def update(self, epoch: ObsEpoch) -> StationSnapshot:
         """Process one epoch (time from the epoch) and return the station snapshot."""
+        if self._pending_fit is not None:
+            self.settle()
         n = epoch.sat.shape[0]
         assert epoch.sig.shape == epoch.pseudorange_m.shape == epoch.phase_cycles.shape == (n,)
         t = epoch.time.total_s
@@ -240,10 +312,13 @@ class StationEstimator:
         # The snapshot reports the receiver bias that was applied to this epoch's STEC.
         bias_ref, sigma_ref = self.biases.reference()
         if self.biases.due(t):
-            self._update_receiver_bias(
-                t, figs, lay=lay, el_all=el_all, sin_all=sin_all, mapping=mapping, x_km=pts[0],
-                y_km=pts[1],
-            )  # fmt: skip
+            # It changes later epochs only (this one reports the bias it was corrected with).
+            fit_kw = {"lay": lay, "el_all": el_all, "sin_all": sin_all, "mapping": mapping,
+                      "x_km": pts[0], "y_km": pts[1]}  # fmt: skip
+            if self._defer_fit:  # the arrays stay untouched until the next entry settles
+                self._pending_fit = ((t, figs), fit_kw)
+            else:
+                self._update_receiver_bias(t, figs, **fit_kw)
 
         if lay.all_dual:
             slip, arc_id, switch = figs["new"], figs["arc"], figs["pair_switch"]
@@ -298,7 +373,7 @@ class StationEstimator:
             satellites=sats,
             cell_sat=epoch.sat,
             cell_sig=epoch.sig,
-            cell_el_deg=deg[0][lay.cell_pos],
+            cell_el_deg=deg.take(lay.cell_pos),  # row 0 (cell_pos ≤ m): the flat take
             cell_cn0_dbhz=epoch.cn0_dbhz,
             geometry_source=geo_source if m else "none",
             counters=self._counters(),
@@ -320,11 +395,7 @@ class StationEstimator:
         cur[0] = lay.rank_f
         arc = g[ARC].astype(np.int32)
         arc.setflags(write=False)
-        self._blk = blk = _Block(
-            lay=lay, g=g, cur=cur, cur_flags=cur[1:].reshape(3, 2 * d),
-            cells=np.empty((3, lay.cell_pos.shape[0])), meas=np.empty((4, d)), arc=arc,
-            n_min=math.nan,
-        )  # fmt: skip
+        self._blk = blk = _Block(lay, g, cur, arc, math.nan)
         return blk
 
     def _sync(self) -> None:
@@ -356,33 +427,31 @@ class StationEstimator:
         idx = lay.idx
         i12 = lay.i12_2
         d = idx.shape[0]
-        meas = blk.meas
-        epoch.phase_cycles.take(i12, out=meas[:2], mode="clip")
-        meas[:2] *= lay.wavelength_m
-        epoch.pseudorange_m.take(i12, out=meas[2:], mode="clip")
-        comb = np.einsum("kjd,jd->kd", lay.comb, meas)  # (combinations, d)
+        meas_l = epoch.phase_cycles.take(i12, out=blk.meas_l, mode="clip")
+        meas_l *= lay.wavelength_m
+        epoch.pseudorange_m.take(i12, out=blk.meas_p, mode="clip")
+        comb = np.einsum("kjd,jd->kd", lay.comb, blk.meas)  # (combinations, d)
         gf_tecu = comb[GFT_ROW]
-        lev_x = comb[LEVX_ROW]
         if_code = comb[IFC_ROW]
         if_phase = comb[IFP_ROW]
-        mp = comb[MP1_ROW:]
         lli_lost = None
         if np.count_nonzero(epoch.lli):
             lli_lost = np.logical_or.reduce(epoch.lli[i12] & 1, axis=0)
         gap_s = max(self.settings.max_gap_s, self.settings.gap_samples * interval)
         # Half-cycle flags, lock indicators and lock times of both bands, in block-row order:
         # the three cell arrays as float rows, then one gather of both bands.
-        cells = blk.cells
-        cells[0] = epoch.half_cycle
-        cells[1] = epoch.lock_indicator
-        cells[2] = epoch.lock_time_s
+        c0, c1, c2 = blk.cell_rows
+        c0[...] = epoch.half_cycle
+        c1[...] = epoch.lock_indicator
+        c2[...] = epoch.lock_time_s
         cur = blk.cur
-        cells.take(lay.i12, axis=1, out=blk.cur_flags, mode="clip")
+        blk.cells.take(lay.i12, axis=1, out=blk.cur_flags, mode="clip")
         if math.isnan(blk.n_min):
             blk.n_min = float(g[N].min()) if d else math.inf
         t_arr = np.array(t)
+        # One subtraction for the slip tests, the levelling and MP steps and ROT (``_state``).
         new, reason = self.arcs.detect(
-            g, t=t_arr, gf_mw=comb[GF_ROW : GF_ROW + 2], el_rad=el, el_known=el_known, cur=cur,
+            blk.arcs, t=t_arr, gf_mw=comb[: GFT_ROW + 1], el_rad=el, el_known=el_known, cur=cur,
             lli_lost=lli_lost, gap_s=gap_s, all_tracked=blk.n_min >= 2.0, no_new=lay.no_lli,
         )  # fmt: skip
         any_new = reason is not None
@@ -398,28 +467,38 @@ class StationEstimator:
             pair_switch = lay.no_lli  # all False, read-only
             arc = blk.arc
             blk.n_min += 1.0
-        n_arc = g[N]
-        # Arc starts reset every per-arc accumulator (levelling, ROT origin, Hatch, MP means).
-        keep = ~new if any_new else new  # read only when an arc starts
+        n_arc = blk.n
+        sw = blk.lev_sw
+        lev = blk.lev
+        means = blk.means  # levelling offset, MP1 and MP2 arc means
+        step = blk.step  # their samples minus themselves
+        rel = blk.rel  # K·GF relative to the arc's first
         if any_new:
+            # Arc starts reset every per-arc accumulator (levelling, ROT origin, Hatch, MP means).
+            keep = ~new
+            lev_mp = comb[LEVX_ROW : MP2_ROW + 1]
             g[GF0] = np.where(keep, g[GF0], gf_tecu)
+            sw[...] = np.where(keep, sw, 0.0)
+            lev[...] = np.where(keep, lev, lev_mp[0])
+            blk.mp_mean[...] = np.where(keep, blk.mp_mean, 0.0)
+            np.subtract(lev_mp, means, out=step)
+            np.subtract(gf_tecu, blk.gf0, out=rel)
 
-        # Levelling: running sin²el-weighted mean of K·(P2 − P1) − K·GF over the arc.
-        w = np.maximum(sin_el, _LEV_FLOOR)
+        # Levelling: running sin²el-weighted mean of K·(P2 − P1) − K·GF over the arc, and the
+        # running arc means of MP1/MP2, as one stack: mean += (sample − mean)·(w/Σw) for the
+        # levelling row, (sample − mean)/n for the MP rows.
+        w = np.maximum(sin_el, _LEV_FLOOR, out=blk.w)
         w *= w
         if not el_known:
             w = np.where(np.isnan(el), 1.0, w)
-        sw = g[LEV_SW]
-        lev = g[LEV_MEAN]
-        if any_new:
-            sw[...] = np.where(keep, sw, 0.0)
-            lev[...] = np.where(keep, lev, lev_x)
         sw += w
         w /= sw
-        step = lev_x - lev
-        step *= w
-        lev += step
+        blk.step_lev *= w
+        blk.step_mp /= n_arc
+        means += step
         stec_raw = gf_tecu + lev
+        mp = comb[MP1_ROW : MP2_ROW + 1]
+        mp -= blk.mp_mean
         # The bias tables change every receiver_bias_update_s at most: reuse the correction,
         # except when an arc starts (it drops its predecessor's levelling correction).
         cached, ver = self._bias_cache, self.biases.version
@@ -432,7 +511,6 @@ class StationEstimator:
         stec = stec_raw - total_bias
 
         # ROT over the lag, from the arc-relative levelled phase; ROTI over the window.
-        rel = gf_tecu - g[GF0]
         lagged, t_lag = self.rot_ring.lag_push(t, idx, rel, arc, interval)
         if math.isfinite(t_lag):
             rot = np.subtract(rel, lagged, out=lagged)
@@ -442,12 +520,17 @@ class StationEstimator:
         roti = self.roti_window.push_std(t, idx, rot, self.settings.roti_min_samples)
 
         # Hatch filter (reset per arc) of the iono-free code, code-minus-carrier multipath.
-        window = max(self.settings.hatch_window_s / interval, 1.0)
-        prev = g[HATCH] + if_phase
-        prev -= g[IFL_PREV]
+        hc = self._hatch_consts
+        if hc[0] != interval:
+            window = max(self.settings.hatch_window_s / interval, 1.0)
+            self._hatch_consts = hc = (interval, window, np.array(window),
+                                       np.array((window - 1.0) / window))  # fmt: skip
+        window = hc[1]
+        prev = np.add(blk.hatch, if_phase, out=blk.prev)
+        prev -= blk.ifl_prev
         if not any_new and blk.n_min >= window:  # every arc longer than the window: N fixed
-            hatch = if_code / window
-            prev *= (window - 1.0) / window
+            hatch = if_code / hc[2]
+            prev *= hc[3]
         else:
             n_h = np.minimum(n_arc, window)
             hatch = if_code / n_h
@@ -455,16 +538,8 @@ class StationEstimator:
         hatch += prev
         if any_new:
             hatch = np.where(new, if_code, hatch)
-        g[HATCH] = hatch
-        g[IFL_PREV] = if_phase
-        mp_mean = g[MP1 : MP2 + 1]
-        if any_new:
-            mp_mean[...] = np.where(keep, mp_mean, 0.0)
-        step2 = mp - mp_mean
-        step2[0] /= n_arc
-        step2[1] /= n_arc
-        mp_mean += step2
-        mp -= mp_mean
+        blk.hatch[...] = hatch
+        blk.ifl_prev[...] = if_phase
         return {
             "stec": stec,
             "stec_raw": stec_raw,
@@ -474,13 +549,13 @@ class StationEstimator:
             "n_arc": n_arc,
             "rot": rot,
             "roti": roti,
-            "iono_l1": stec * g[L1M],
+            "iono_l1": stec * blk.l1m,
             "if_code": if_code,
             "if_phase": if_phase,
             "hatch": hatch,
-            "mp1": mp[0],
-            "mp2": mp[1],
-            "noise_factor": lay.coefs[NOISE - F1],
+            "mp1": comb[MP1_ROW],
+            "mp2": comb[MP2_ROW],
+            "noise_factor": blk.noise,
             "arc": arc,
             "new": new,
             "pair_switch": pair_switch,
@@ -513,6 +588,7 @@ class StationEstimator:
     def _restart_time(self) -> None:
         """Time went far backwards: forget everything tied to time (arcs, windows), keep the
         receiver-bias estimate (a property of the hardware)."""
+        self.settle()
         self.counters["time_resets"] = self.counters.get("time_resets", 0) + 1
         self.state_rows()[LAST_T] = np.nan
         self.rot_ring = LagRing(MAX_SAT_ID, self.settings.rot_interval_s, self.rot_ring.rows)
@@ -560,6 +636,7 @@ class StationEstimator:
     def state_dict(self) -> dict[str, Any]:
         """What survives a restart (version 2): the receiver-bias normal equations and, once an
         epoch was seen, the rolling state (arcs, ROT ring, ROTI window; see ``_persist``)."""
+        self.settle()
         out: dict[str, Any] = {
             "version": STATE_VERSION,
             "station": self.station,
@@ -573,6 +650,7 @@ class StationEstimator:
         """Restore :meth:`state_dict` (version 1: biases only). The rolling part is applied at the
         next :meth:`update` if that epoch continues the saved arcs (``_persist``), else dropped;
         a rolling part that does not fit this configuration is dropped (counted), never fatal."""
+        self.settle()
         version = int(state.get("version", -1))
         if version not in (1, STATE_VERSION):
             raise ValueError(f"unknown estimator state version {state.get('version')!r}")
@@ -601,4 +679,5 @@ class StationEstimator:
 
     def copy(self) -> StationEstimator:
         """An independent deep copy (the whole rolling state)."""
+        self.settle()
         return copy.deepcopy(self)

@@ -70,14 +70,25 @@ class StationPipeline:
         position_ecef_m: npt.ArrayLike | None = None,
         reference_time: GpsTime | None = None,
         ephemerides_per_sat: int = 3,
+        defer: bool = False,
     ) -> None:
         """``reference_time`` helps the byte decoder place MSM times of week (the daemon passes
-        its clock's reading at start; offline processing leaves it None)."""
+        its clock's reading at start; offline processing leaves it None).
+
+        ``defer`` (the daemon sets it): what the snapshot of an epoch does not depend on — the
+        estimator's periodic receiver-bias fit and the messages after a chunk's last epoch (its
+        GGA/GST, ephemerides sent after the observations) — waits for :meth:`settle`, which the
+        runtime calls once other stations' snapshots are out; the next feed settles first if
+        it was not called. The figures are the same bit for bit either way, only the order of
+        work within the second changes (tests/test_pipeline_settle.py)."""
         self.station = station
         self.estimator = StationEstimator(
-            settings, station=station, ephemerides_per_sat=ephemerides_per_sat
+            settings, station=station, ephemerides_per_sat=ephemerides_per_sat, defer_fit=defer
         )
-        self.decoder = StreamDecoder(reference_time)
+        self._defer = defer
+        self._deferred: list[object] = []
+        # NmeaOther has no route here: checked and counted, never built
+        self.decoder = StreamDecoder(reference_time, emit_nmea_other=False)
         self.decoder.nmea_wanted = _FALLBACK_SENTENCES  # the sentences routed below
         self._position_source = ""
         self._last_t: GpsTime | None = None
@@ -100,13 +111,36 @@ class StationPipeline:
     # -- entry points ---------------------------------------------------------------------------
     def feed(self, data: bytes | bytearray | memoryview) -> list[PipelineOutput]:
         """Decode stream bytes (RTCM 3 and/or NMEA) and route them; ``b""`` ends the stream."""
-        return self.handle(self.decoder.feed(data))
+        return self._route(self.decoder.feed(data))
 
     def feed_frames(self, frames: Sequence[RtcmFrame | NmeaFrame]) -> list[PipelineOutput]:
         """Route frames already split and checked by the runtime's framer (the runtime's
         ``FrameConsumer`` protocol), decoded without re-framing; ``feed(b"")`` still ends the
         stream."""
-        return self.handle(self.decoder.feed_frames(frames))
+        return self._route(self.decoder.feed_frames(frames))
+
+    def unsettled(self) -> bool:
+        """Work deferred by ``defer`` is pending (see :meth:`settle`)."""
+        return bool(self._deferred) or self.estimator.unsettled()
+
+    def settle(self) -> list[PipelineOutput]:
+        """Do the deferred work (in the order it would have run undeferred) and return the
+        outputs it produces (fix reports of the deferred GGA/GST)."""
+        self.estimator.settle()
+        rest, self._deferred = self._deferred, []
+        return self.handle(rest) if rest else []
+
+    def _route(self, messages: Sequence[object]) -> list[PipelineOutput]:
+        if not self._defer:
+            return self.handle(messages)
+        k = len(messages)
+        while k and type(messages[k - 1]) is not ObsEpoch:
+            k -= 1
+        if k == 0 or k == len(messages):  # no epoch, or nothing after it: nothing to hold back
+            return self.handle(messages)
+        out = self.handle(messages[:k])
+        self._deferred = list(messages[k:])
+        return out
 
     def state_dict(self) -> dict[str, Any]:
         """The estimator's persistent state (see :meth:`StationEstimator.state_dict`)."""
@@ -116,8 +150,9 @@ class StationPipeline:
         self.estimator.load_state(dict(state))
 
     def handle(self, messages: Iterable[object]) -> list[PipelineOutput]:
-        """Route already-decoded messages; returns the snapshots and fix reports they produce."""
-        out: list[PipelineOutput] = []
+        """Route already-decoded messages; returns the snapshots and fix reports they produce
+        (after those of any deferred work, which comes first)."""
+        out: list[PipelineOutput] = self.settle() if self._deferred else []
         for msg in messages:
             res = self.handle_one(msg)
             if res is not None:

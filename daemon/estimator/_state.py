@@ -3,10 +3,11 @@
 Axes: ``NSTATE`` named rows × ``S`` satellite slots (``MAX_SAT_ID``). Each epoch works on a block
 of the ``d`` satellites of its layout, shape (``NROW``, d): the state rows of those satellites
 (gathered once when the layout changes, kept while it repeats, scattered back when it changes or
-the state is read), then the pair coefficients ``F1 … NOISE`` of the layout and the slip tests'
-floors and thresholds. Rows are quantities, so every quantity of the block is one contiguous row,
-and quantities that are processed together are neighbours (stacked (2, d) or (7, d) operations
-instead of one per quantity).
+the state is read), then the work row ``DT``, the pair coefficients ``F1 … NOISE`` of the layout
+and the slip tests' floors and thresholds. Rows are quantities, so every quantity of the block is
+one contiguous row, and quantities that are processed together are neighbours or a fixed number
+of rows apart (stacked (2, d), (3, d) or (7, d) views: one numpy call instead of one per
+quantity).
 Integer-valued rows (arc id, counts, ranks, lock indicators, flags) are exact in float64.
 "Unknown" is NaN (or −1 for ids/indicators), as in a fresh state.
 
@@ -42,26 +43,36 @@ COLUMNS = (
 )  # fmt: skip
 #: Row names of the state and of an epoch's block, in row order. The arc test's "previous sample"
 #: rows (rank, half-cycle flags, lock indicators, lock times) follow the order of the epoch's
-#: values they are compared with; the GF and MW rows pair up as (GF, MW) stacks; "gf_pred" is a
-#: work row (the epoch's GF prediction, next to "mw_mean": the two references of the jump tests).
+#: values they are compared with; the GF and MW rows pair up as (GF, MW) stacks (two rows at a
+#: fixed distance form one (2, d) view: "gf_rate", "mw_mean" what the jump tests' residuals
+#: update, "dt", "n" what divides those residuals). "gf_pred" … "gf0" are what the epoch's GF, MW,
+#: levelling sample, raw MP1, MP2 and K·GF are differenced with (one (6, d) subtraction), and
+#: "lev_mean", "mp1", "mp2" the running means updated as one (3, d) stack. "gf_pred" and "dt" are
+#: work rows (the epoch's GF prediction, time since the previous sample).
 ROWS = (
-    "arc", "n", "last_t",
+    "arc", "last_t",
     "rank", "half1", "half2", "lock1", "lock2", "locktime1", "locktime2",
     "gf_var", "mw_var",
-    "gf_pred", "mw_mean",
-    "gf_rate", "gf_level",
-    "lev_mean", "lev_sw", "gf0", "hatch", "ifl_prev", "mp1", "mp2",
+    "gf_level", "gf_rate",
+    "gf_pred", "mw_mean", "lev_mean", "mp1", "mp2", "gf0",
+    "lev_sw", "hatch", "ifl_prev",
+    "n",
+    "dt",  # (s) first row past the state: written each epoch, never stored per slot
     "f1", "f2",  # frequencies the coefficients below belong to (Hz)
     "k", "alpha", "beta", "gamma", "lwl", "l1m", "noise",  # SCIENCE.md §3 coefficients
     "gf_floor", "mw_floor",  # the jump tests' floors (m): GF per epoch, MW per layout
     "gf_low", "mw_thr",  # GF threshold's lower bound (m, per layout), MW threshold (per epoch)
 )  # fmt: skip
 NROW = len(ROWS)
-(ARC, N, LAST_T, RANK, HALF1, HALF2, LOCK1, LOCK2, LT1, LT2, GF_VAR, MW_VAR, GF_PRED, MW_MEAN,
- GF_RATE, GF_LEVEL, LEV_MEAN, LEV_SW, GF0, HATCH, IFL_PREV, MP1, MP2, F1, F2, K, ALPHA, BETA,
- GAMMA, LWL, L1M, NOISE, GF_FLOOR, MW_FLOOR, GF_LOW, MW_THR) = range(NROW)  # fmt: skip
-#: Rows stored per satellite slot (the rest of a block comes from the layout).
-NSTATE = F1
+(ARC, LAST_T, RANK, HALF1, HALF2, LOCK1, LOCK2, LT1, LT2, GF_VAR, MW_VAR, GF_LEVEL, GF_RATE,
+ GF_PRED, MW_MEAN, LEV_MEAN, MP1, MP2, GF0, LEV_SW, HATCH, IFL_PREV, N, DT, F1, F2, K, ALPHA,
+ BETA, GAMMA, LWL, L1M, NOISE, GF_FLOOR, MW_FLOOR, GF_LOW, MW_THR) = range(NROW)  # fmt: skip
+#: Rows stored per satellite slot (the rest of a block comes from the layout or is work space).
+NSTATE = DT
+_DIFFERENCED = (GF_PRED, MW_MEAN, LEV_MEAN, MP1, MP2, GF0)  # one (6, d) view, (3, d) inside
+assert tuple(range(GF_PRED, GF_PRED + 6)) == _DIFFERENCED
+assert GF_RATE < MW_MEAN  # (2, d) views in (GF, MW) order: (rate, mean) and (dt, n)
+assert N < DT
 #: State row of each checkpoint column.
 _COLUMN_ROWS = np.array([ROWS.index(c) for c in COLUMNS], np.intp)
 assert sorted({*_COLUMN_ROWS.tolist(), GF_PRED}) == list(range(NSTATE))

@@ -248,6 +248,10 @@ class SlotStd:
     row ``r`` of one (R, widest entry) float64 pool, which grows (rarely, by reallocation) when an
     epoch has more satellites: no numpy array or tuple per entry (~150 B of object overhead each,
     long-lived small blocks that fragment the heap).
+
+    While the same read-only satellite array is pushed slot after slot without NaN (the common
+    case), its three sums live in a dense (3, d) block (``_SumBlock``) updated in place, and are
+    written back into ``acc`` when anything else reads or changes it (``acc`` is a property).
     """
 
     def __init__(self, n_slots: int, window_s: float, slot_s: float) -> None:
@@ -256,13 +260,30 @@ class SlotStd:
         self.rows = max(2, round(window_s / slot_s))
         self._sats: list[npt.NDArray[np.intp]] = [_NO_SATS] * self.rows
         self._vals: F64 = np.zeros((self.rows, 0))
-        self.acc = np.zeros((3, n_slots))  # total, total_sq, count
+        self._acc = np.zeros((3, n_slots))  # total, total_sq, count
+        #: The sums of the satellites pushed last, while they repeat (None: all in ``_acc``).
+        self._blk: _SumBlock | None = None
         self.last_slot = -1
         self._since_exact = 0
         #: Flat indices into ``acc`` of the three rows of a read-only satellite array.
         self._flat: tuple[npt.NDArray[np.intp], npt.NDArray[np.intp]] | None = None
         #: The last NaN-filtered satellite subset: (the caller's array, finite mask, subset).
         self._subset: tuple[npt.NDArray[np.intp], bytes, npt.NDArray[np.intp]] | None = None
+
+    @property
+    def acc(self) -> F64:
+        """(3, ``n_slots``) total, total_sq and count per satellite slot (writing into it is
+        allowed)."""
+        return self._flush()
+
+    def _flush(self) -> F64:
+        """Write the block back into ``_acc`` and drop it (a write into ``acc`` would outdate it,
+        the next push of the same satellites gathers it again); returns ``_acc``."""
+        blk = self._blk
+        if blk is not None:
+            self._acc[:, blk.sats] = blk.sums
+            self._blk = None
+        return self._acc
 
     @property
     def total(self) -> F64:
@@ -296,6 +317,7 @@ class SlotStd:
         self._vals = vals
         self._sats = [s if s.shape[0] else _NO_SATS for s, _ in entries]
         self._subset = None
+        self._flush()
 
     def _inc(self, row: int) -> F64:
         """The increments (values, values²) that adding entry ``row`` added."""
@@ -353,18 +375,16 @@ class SlotStd:
     def push_std(self, t: float, sats: npt.NDArray[np.intp], value: F64, min_count: int) -> F64:
         """:meth:`push` then :meth:`std` of the same satellites, sharing their work."""
         assert sats.shape == value.shape, (sats.shape, value.shape)
-        blk = self._push(t, sats, value)
-        if blk is None:
+        self._push(t, sats, value)
+        blk = self._blk
+        if blk is None or blk.sats is not sats:
             return self.std(sats, min_count)
-        d = sats.shape[0]
-        return self._std(blk[:d], blk[d:], self.acc[2][sats], min_count)
+        return blk.std(min_count)
 
-    def _push(self, t: float, sats: npt.NDArray[np.intp], value: F64) -> F64 | None:
-        """Push; returns the sums and sums of squares of ``sats`` after it (flat, as
-        ``_increments``) when they came for free, else None."""
+    def _push(self, t: float, sats: npt.NDArray[np.intp], value: F64) -> None:
         slot = math.floor(t / self.slot_s)
         if slot <= self.last_slot:
-            return None
+            return
         first = self.last_slot + 1 if self.last_slot >= 0 else slot
         start = max(first, slot - self.rows + 1)
         row = slot % self.rows
@@ -381,29 +401,36 @@ class SlotStd:
             grown = np.zeros((self.rows, k))
             grown[:, : self._vals.shape[1]] = self._vals
             self._vals = grown
-        inc = self._increments(v)
-        blk: F64 | None = None
         if start == slot and self._sats[row] is s and not s.flags.writeable:
-            # The common case: the slot replaces the entry of the same satellites R slots ago
-            # (their counts lose one and gain one: unchanged).
-            fi = self._flat_index(s)
-            flat = self.acc.reshape(-1)
-            blk = flat[fi]
-            blk -= self._inc(row)
-            blk += inc
-            flat[fi] = blk
+            # The slot replaces the entry of the same satellites R slots ago (their counts lose
+            # one and gain one: unchanged): each sum loses what that entry added, gains this.
+            old = self._vals[row, :k]
+            blk = self._blk
+            if s is sats and blk is not None and blk.sats is s:  # the common case
+                blk.replace(old, v)
+            elif s is sats:
+                self._blk = blk = _SumBlock(s, self._flush()[:, s])
+                blk.replace(old, v)
+            else:
+                fi = self._flat_index(s)
+                flat = self.acc.reshape(-1)
+                sums = flat[fi]
+                sums -= self._increments(old)
+                sums += self._increments(v)
+                flat[fi] = sums
+                old[...] = v
         else:
             for n in range(start, slot + 1):
                 self._drop(n % self.rows)
+            inc = self._increments(v)
             self.acc[:2, s] += inc.reshape(2, -1)
-            self.acc[2, s] += 1.0
-        self._vals[row, :k] = v
+            self._acc[2, s] += 1.0
+            self._vals[row, :k] = v
         self._sats[row] = s if k else _NO_SATS
         if self._since_exact >= self.rows:
+            self._blk = None  # rebuilt below
             self._recompute()
             self._since_exact = 0
-            blk = None
-        return blk if s is sats else None
 
     def std(self, sats: npt.NDArray[np.intp], min_count: int) -> F64:
         """Population standard deviation over the window (NaN below ``min_count`` samples)."""
@@ -422,4 +449,55 @@ class SlotStd:
         out: F64 = np.sqrt(np.maximum(var, _ZERO, out=var), out=var)
         if any_short:
             out[short] = np.nan
+        return out
+
+
+class _SumBlock:
+    """The sums (total, total_sq, count) of one read-only satellite array as a dense (3, d)
+    block, with the work buffers of its updates. Copies and pickles rebuild the views."""
+
+    __slots__ = ("count", "min_count", "n_div", "q", "q_mean", "q_var", "sats", "short", "sq",
+                 "sums", "total", "total_sq")  # fmt: skip
+
+    def __init__(self, sats: npt.NDArray[np.intp], sums: F64) -> None:
+        self.sats = sats
+        self.sums = sums
+        self.total, self.total_sq, self.count = sums[0], sums[1], sums[2]
+        self.sq = np.empty(sats.shape[0])
+        self.q = np.empty((2, sats.shape[0]))
+        self.q_mean, self.q_var = self.q[0], self.q[1]
+        #: ``min_count`` the rows below were made for (the counts do not change in a block).
+        self.min_count = -1
+        self.short: npt.NDArray[np.bool_] | None = None
+        self.n_div = self.count
+
+    def __reduce__(self) -> tuple[type[_SumBlock], tuple[npt.NDArray[np.intp], F64]]:
+        return (_SumBlock, (self.sats, self.sums))
+
+    def replace(self, old: F64, new: F64) -> None:
+        """Replace the values ``old`` by ``new`` in the sums (``old`` is overwritten by ``new``):
+        the same operations as :meth:`SlotStd._push` on ``acc`` (sum − old + new)."""
+        self.total -= old
+        sq = np.multiply(old, old, out=self.sq)
+        self.total_sq -= sq
+        old[...] = new
+        self.total += new
+        np.multiply(new, new, out=sq)
+        self.total_sq += sq
+
+    def std(self, min_count: int) -> F64:
+        """:meth:`SlotStd.std` of the block's satellites (the same operations as ``_std``)."""
+        if min_count != self.min_count:
+            short = self.count < np.array(float(min_count))
+            any_short = min_count < 1 or np.count_nonzero(short)
+            self.short = short if any_short else None
+            self.n_div = np.maximum(self.count, _ONE) if any_short else self.count
+            self.min_count = min_count
+        np.divide(self.sums[:2], self.n_div, out=self.q)
+        mean, var = self.q_mean, self.q_var
+        mean *= mean
+        var -= mean
+        out: F64 = np.sqrt(np.maximum(var, _ZERO, out=var))
+        if self.short is not None:
+            out[self.short] = np.nan
         return out

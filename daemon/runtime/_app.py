@@ -143,6 +143,7 @@ def make_factory(
                 settings.estimator,
                 position_ecef_m=st.position_ecef_m if st is not None else None,
                 reference_time=utc_to_gps(now()) if live else None,
+                defer=True,  # the runtime settles in a background step (StepLane)
             )
 
         return StationBundle(

@@ -55,13 +55,25 @@ class StationCore(Protocol):
         estimator's state (counters are kept)."""
         ...
 
+    def unsettled(self) -> bool:
+        """Deferred work is pending (see :meth:`settle`)."""
+        ...
+
+    def settle(self) -> Sequence[object]:
+        """Do the work deferred from the last ``feed`` (the estimator's periodic receiver-bias
+        fit, the messages after the chunk's last epoch) and return the outputs it completes; the
+        next ``feed`` does it first when this was not called, so results never depend on it."""
+        ...
+
     def state_dict(self) -> dict[str, Any]: ...
 
     def load_state_dict(self, state: Mapping[str, Any], /) -> None: ...
 
 
 class FrameConsumer(Protocol):
-    """The estimator side: checked frames in, outputs out (the station pipeline)."""
+    """The estimator side: checked frames in, outputs out (the station pipeline). A consumer may
+    also have ``unsettled()`` and ``settle()`` (as :class:`StationCore`), which the core
+    forwards."""
 
     def feed_frames(self, frames: Sequence[Frame], /) -> Sequence[object]: ...
 
@@ -99,6 +111,7 @@ class FramingCore:
         self._done = DecoderCounts()  # counts of framers already ended
         self._consumer = consumer
         self._rebuild = rebuild
+        self._bind_settle()
         self._frames_total = 0  # every frame the framers returned (= their RTCM + NMEA counts)
 
     def feed(self, data: bytes, /) -> Sequence[object]:
@@ -120,6 +133,17 @@ class FramingCore:
     def counts(self) -> DecoderCounts:
         return _add(self._done, self._framer.statistics())
 
+    def _bind_settle(self) -> None:
+        c = self._consumer
+        self._unsettled: Callable[[], bool] | None = getattr(c, "unsettled", None)
+        self._settle: Callable[[], Sequence[object]] | None = getattr(c, "settle", None)
+
+    def unsettled(self) -> bool:
+        return self._unsettled is not None and self._unsettled()
+
+    def settle(self) -> Sequence[object]:
+        return () if self._settle is None else self._settle()
+
     def frames_total(self) -> int:
         return self._frames_total
 
@@ -128,6 +152,7 @@ class FramingCore:
         self._framer = Framer()
         if self._rebuild is not None:
             self._consumer = self._rebuild()
+            self._bind_settle()
 
     def state_dict(self) -> dict[str, Any]:
         return {} if self._consumer is None else self._consumer.state_dict()

@@ -400,6 +400,8 @@ class StationRunner:
                 item = await self.queue.get()
                 if item is _END or item is _BREAK:
                     self._step(None, None)
+                    if self.core.unsettled():
+                        self._settle()
                     if item is _END:
                         return
                 else:
@@ -418,6 +420,19 @@ class StationRunner:
                     finally:
                         if lane is not None:
                             lane.done()
+                    if self.core.unsettled():
+                        # The deferred part of the step (receiver-bias fit, messages after the
+                        # epoch) after every urgent step waiting: the snapshot just emitted does
+                        # not depend on it (StepLane, StationPipeline.settle).
+                        if lane is not None:
+                            await lane.turn(background=True)
+                        else:
+                            await asyncio.sleep(0)  # the outputs go out first
+                        try:
+                            self._settle()
+                        finally:
+                            if lane is not None:
+                                lane.done()
                     if delay > 0:  # replay pacing is planned idleness, not a stuck pipeline
                         self._progress = loop.time() + delay
                         await asyncio.sleep(delay)
@@ -448,6 +463,15 @@ class StationRunner:
             return 0.0
         self._failing_steps = 0
         return delay
+
+    def _settle(self) -> None:
+        """The deferred part of the last step (``StationCore.settle``), contained like a step."""
+        try:
+            self._handle(self.core.settle())
+        except UNCONTAINED_ERRORS:
+            raise
+        except Exception as exc:
+            self._pipeline_failed(exc)
 
     def _pipeline_failed(self, exc: Exception) -> None:
         self._pipeline_errors += 1

@@ -1,0 +1,124 @@
+"""StationPipeline(defer=True): the daemon's split of each step into the urgent part (bytes →
+snapshot) and the deferred part (``settle``: the receiver-bias fit and the messages after the
+epoch) changes the order of work only, never a figure.
+
+Input: the simulator's invented quiet-day stream (our own scenario, daemon/sim), one chunk per
+second, long enough for several receiver-bias fits (first after ``receiver_bias_min_arc_s``,
+then every ``receiver_bias_update_s``).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from ionwarden.daemon.estimator import FixStatus, StationPipeline, StationSnapshot
+from ionwarden.daemon.sim import Simulator, build_scenario, iter_stream
+from ionwarden.parsers import ObsEpoch
+
+from .test_estimator_fastpaths import _assert_same
+
+SECONDS = 260
+
+
+@pytest.fixture(scope="module")
+def chunks() -> tuple[list[bytes], object]:
+    sc = build_scenario("quiet-day", duration_s=float(SECONDS))
+    return [data for _, data in iter_stream(Simulator(sc), 0)], sc.start
+
+
+def _run(chunks: list[bytes], start: object, mode: str) -> tuple[list[object], StationPipeline]:
+    """Outputs in order: ``plain`` (defer off), ``settled`` (settle after every feed, as the
+    runtime does), ``lazy`` (never settled: each feed settles the previous chunk first)."""
+    pipe = StationPipeline("HARC", reference_time=start, defer=mode != "plain")  # type: ignore[arg-type]
+    out: list[object] = []
+    for data in chunks:
+        out += pipe.feed(data)
+        if mode == "settled":
+            out += pipe.settle()
+            assert not pipe.unsettled()
+    out += pipe.feed(b"")
+    out += pipe.settle()
+    return out, pipe
+
+
+def _same_state(a: object, b: object) -> bool:
+    """Nested state (dicts, lists, arrays, numbers) equal, NaN equal to NaN."""
+    if isinstance(a, dict):
+        return (
+            isinstance(b, dict) and a.keys() == b.keys() and all(_same_state(a[k], b[k]) for k in a)
+        )
+    if isinstance(a, (list, tuple)):
+        return (isinstance(b, (list, tuple)) and len(a) == len(b)
+                and all(_same_state(x, y) for x, y in zip(a, b, strict=True)))  # fmt: skip
+    if isinstance(a, np.ndarray) or isinstance(b, np.ndarray):
+        x, y = np.asarray(a), np.asarray(b)
+        return x.shape == y.shape and bool(np.array_equal(x, y, equal_nan=x.dtype.kind == "f"))
+    if isinstance(a, float) and isinstance(b, float) and np.isnan(a) and np.isnan(b):
+        return True
+    return a == b
+
+
+def _assert_same_outputs(a: list[object], b: list[object]) -> None:
+    assert [type(x) for x in a] == [type(x) for x in b]
+    for x, y in zip(a, b, strict=True):
+        if isinstance(x, StationSnapshot):
+            assert isinstance(y, StationSnapshot)
+            _assert_same(x, y)
+            assert x.counters == y.counters
+        else:
+            assert x == y
+
+
+def test_deferred_pipeline_gives_the_same_outputs_in_the_same_order(chunks):
+    """Deferring the receiver-bias fit and the post-epoch messages (settled at once, or only by
+    the next feed) gives the plain pipeline's snapshots bit for bit and its fix reports, in the
+    same order; the receiver bias was really fitted (finite) in the run."""
+    data, start = chunks
+    plain, p_plain = _run(data, start, "plain")
+    settled, p_settled = _run(data, start, "settled")
+    lazy, _ = _run(data, start, "lazy")
+    snaps = [x for x in plain if isinstance(x, StationSnapshot)]
+    assert len(snaps) >= SECONDS - 2
+    assert any(isinstance(x, FixStatus) for x in plain)
+    assert np.isfinite(snaps[-1].receiver_bias_tecu)  # fits ran (and were applied) in the run
+    _assert_same_outputs(plain, settled)
+    _assert_same_outputs(plain, lazy)
+    assert _same_state(p_plain.state_dict(), p_settled.state_dict())
+
+
+def test_deferred_pipeline_holds_back_only_what_follows_the_epoch(chunks):
+    """With defer on, a chunk's messages up to its last epoch are routed at once (the snapshot
+    comes out of feed) and the rest (here the GGA/GST after the observations) waits for settle,
+    which returns their fix report; without defer nothing is held back."""
+    data, start = chunks
+    pipe = StationPipeline("HARC", reference_time=start, defer=True)  # type: ignore[arg-type]
+    plain = StationPipeline("HARC", reference_time=start)  # type: ignore[arg-type]
+    for chunk in data[:5]:
+        out = pipe.feed(chunk)
+        assert [type(x) for x in out] == [StationSnapshot]
+        assert pipe.unsettled()
+        later = pipe.settle()
+        assert later  # fix reports of the GGA and the GST
+        assert all(type(x) is FixStatus for x in later)
+        assert not pipe.unsettled()
+        plain.feed(chunk)
+        assert not plain.unsettled()
+    msgs = pipe.decoder.feed(data[5])
+    assert any(type(m) is ObsEpoch for m in msgs)
+
+
+def test_state_dict_includes_a_deferred_receiver_bias_fit(chunks):
+    """A checkpoint taken between a step and its settle already contains the deferred fit
+    (state_dict settles the estimator first)."""
+    data, start = chunks
+    plain = StationPipeline("HARC", reference_time=start)  # type: ignore[arg-type]
+    pipe = StationPipeline("HARC", reference_time=start, defer=True)  # type: ignore[arg-type]
+    fitted = False
+    for chunk in data:
+        plain.feed(chunk)
+        pipe.feed(chunk)
+        fitted = fitted or pipe.estimator.unsettled()
+        assert _same_state(pipe.state_dict(), plain.state_dict())
+        pipe.settle()
+    assert fitted
