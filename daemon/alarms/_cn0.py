@@ -25,6 +25,15 @@ if TYPE_CHECKING:
 __all__ = ["BAND_NAMES", "N_BAND_KEYS", "Cn0Baseline", "Cn0Cells", "band_key", "band_label"]
 
 N_BAND_KEYS = 70
+# 0-d operands: numpy takes them faster than Python scalars, with the same results (each is
+# exact in the other operand's type).
+_ZERO = np.zeros((), np.float64)
+_INF = np.full((), np.inf)
+_ZERO_F32 = np.zeros((), np.float32)
+_INF_F32 = np.full((), np.inf, np.float32)
+_ONE = np.ones((), np.float64)
+_ONE_I64 = np.ones((), np.int64)
+_NO_DROP = np.full(N_BAND_KEYS, np.nan)
 _SYSTEMS = "GRECJSI"
 #: Human band names by (system letter, RINEX band digit) — RINEX 3.05 §5.1 Table 4–10 band numbers.
 BAND_NAMES: dict[str, str] = {
@@ -48,19 +57,75 @@ def band_label(key: int) -> str:
     return f"{_SYSTEMS[key // 10]}{key % 10}"
 
 
-@dataclass(frozen=True, slots=True)
+class _Layout:
+    """What depends only on the epoch's cell layout (satellite and signal of each cell)."""
+
+    __slots__ = ("all_known", "dtypes", "flat0", "key", "known", "sat", "sig")
+
+    def __init__(
+        self, sat: npt.NDArray[np.int16], sig: npt.NDArray[np.uint16], n_bins: int
+    ) -> None:
+        self.dtypes = (sat.dtype, sig.dtype)
+        self.sat = sat.tobytes()
+        self.sig = sig.tobytes()
+        self.key = band_key(sat, sig)
+        self.known = (self.key >= 0) & (self.key < N_BAND_KEYS)
+        self.all_known = bool(self.known.all())
+        self.flat0 = self.key * n_bins
+
+
+class _Bins:
+    """What depends only on the usable cells' flat indices (equal flat ⇒ equal band keys):
+    the bins seen and their cell counts (for learning), the cells per band and whether every
+    cell's bin is warm (for the drop). Counts only grow, so "all warm" once True stays True."""
+
+    __slots__ = ("all_warm", "flat", "judged", "min_cells", "n_band", "n_seen", "seen")
+
+    def __init__(self, flat: bytes) -> None:
+        self.flat = flat
+        self.all_warm = False
+        self.seen: npt.NDArray[np.intp] | None = None
+        self.n_seen: npt.NDArray[np.intp] | None = None
+        self.n_band: npt.NDArray[np.intp] | None = None
+        #: ``n_band >= min_cells`` for the ``min_cells`` last asked.
+        self.judged: npt.NDArray[np.bool_] | None = None
+        self.min_cells = -1
+
+
+@dataclass(slots=True)
 class Cn0Cells:
-    """The usable cells of one epoch: band key, flat (band, elevation bin) index, C/N0 (dB-Hz)."""
+    """The usable cells of one epoch: band key, flat (band, elevation bin) index, C/N0 (dB-Hz),
+    and what the baseline has cached for these flat indices (read-only for callers)."""
 
     key: npt.NDArray[np.intp]
     flat: npt.NDArray[np.intp]
     cn0: npt.NDArray[np.float64]
+    bins: _Bins
 
 
 class Cn0Baseline:
-    """Per-band, per-elevation-bin C/N0 baseline of one station (mutable state, pure methods)."""
+    """Per-band, per-elevation-bin C/N0 baseline of one station (mutable state, pure methods).
 
-    __slots__ = ("_count", "_last_t_s", "_mean", "bin_deg", "min_samples", "time_constant_s")
+    Per-epoch shortcuts (results bit for bit those of the general path; tests/test_alarms_fastpaths.py):
+    band keys are kept while the cell layout repeats; when every cell is usable no cell is
+    gathered; while the cells' bins repeat, the bins seen, their counts and the cells per band
+    are kept, and the warm test is skipped once every bin is warm.
+    """
+
+    __slots__ = (
+        "_bins",
+        "_count",
+        "_count_flat",
+        "_last_t_s",
+        "_layout",
+        "_mean",
+        "_mean_flat",
+        "_operands",
+        "_weight",
+        "bin_deg",
+        "min_samples",
+        "time_constant_s",
+    )
 
     def __init__(
         self, *, bin_deg: float = 5.0, time_constant_s: float = 3600.0, min_samples: int = 120
@@ -73,7 +138,18 @@ class Cn0Baseline:
         # exactly that epoch's mean; only warmed-up bins are ever read.
         self._mean = np.zeros((N_BAND_KEYS, n_bins))
         self._count = np.zeros((N_BAND_KEYS, n_bins), np.int64)
+        self._mean_flat = self._mean.reshape(-1)  # views: writes go to _mean / _count
+        self._count_flat = self._count.reshape(-1)
         self._last_t_s: float | None = None
+        self._layout: _Layout | None = None
+        self._bins: _Bins | None = None
+        # 0-d operands: bin width, last bin, min_samples; the time-constant weight and its dt.
+        self._operands = (
+            np.full((), bin_deg, np.float64),
+            np.full((), n_bins - 1, np.intp),
+            np.full((), min_samples, np.int64),
+        )
+        self._weight: tuple[float, npt.NDArray[np.float64]] = (math.nan, _ONE)
 
     def cells(
         self,
@@ -85,24 +161,41 @@ class Cn0Baseline:
         """The usable cells of one epoch (finite elevation ≥ 0, finite C/N0 > 0, a known band),
         indexed once for both :meth:`drop_db_cells` and :meth:`learn_cells`."""
         assert sat.shape == sig.shape == el_deg.shape == cn0_dbhz.shape
-        key = band_key(sat, sig)
-        # Comparisons with NaN are False (no warning): NaN and ±∞ fail one bound each.
-        ok = (
-            (el_deg >= 0.0)
-            & (el_deg < np.inf)
-            & (cn0_dbhz > 0.0)
-            & (cn0_dbhz < np.inf)
-            & (key >= 0)
-            & (key < N_BAND_KEYS)
-        )
-        key = key[ok]
         n_bins = self._mean.shape[1]
+        lay = self._layout
+        if (
+            lay is None
+            or lay.sat != sat.tobytes()
+            or lay.sig != sig.tobytes()
+            or lay.dtypes[0] is not sat.dtype
+            or lay.dtypes[1] is not sig.dtype
+        ):
+            lay = self._layout = _Layout(sat, sig, n_bins)
+        bin_deg, last_bin, _ = self._operands
+        # Comparisons with NaN are False (no warning): NaN and ±∞ fail one bound each.
+        ok = np.greater_equal(el_deg, _ZERO)
+        ok &= np.less(el_deg, _INF)
+        ok &= np.greater(cn0_dbhz, _ZERO_F32)
+        ok &= np.less(cn0_dbhz, _INF_F32)
+        if not lay.all_known:
+            ok &= lay.known
+        if np.count_nonzero(ok) == ok.shape[0]:  # every cell usable: nothing to gather
+            key, flat0 = lay.key, lay.flat0
+            q = np.divide(el_deg, bin_deg)
+            cn0 = cn0_dbhz.astype(np.float64)
+        else:
+            key, flat0 = lay.key[ok], lay.flat0[ok]
+            q = np.divide(el_deg[ok], bin_deg)
+            cn0 = cn0_dbhz[ok].astype(np.float64)
         # el ≥ 0 here, so truncation is the floor.
-        b = (el_deg[ok] / self.bin_deg).astype(np.intp)
-        np.minimum(b, n_bins - 1, out=b)
-        flat = key * n_bins
-        flat += b
-        return Cn0Cells(key=key, flat=flat, cn0=cn0_dbhz[ok].astype(np.float64))
+        b = q.astype(np.intp)
+        np.minimum(b, last_bin, out=b)
+        flat = np.add(flat0, b)
+        packed = flat.tobytes()
+        bins = self._bins
+        if bins is None or bins.flat != packed:
+            bins = self._bins = _Bins(packed)
+        return Cn0Cells(key=key, flat=flat, cn0=cn0, bins=bins)
 
     def drop_db(
         self,
@@ -119,15 +212,36 @@ class Cn0Baseline:
 
     def drop_db_cells(self, cells: Cn0Cells, *, min_cells: int = 3) -> npt.NDArray[np.float64]:
         """:meth:`drop_db` on cells from :meth:`cells`."""
-        out = np.full(N_BAND_KEYS, np.nan)
-        warm = self._count.reshape(-1)[cells.flat] >= self.min_samples
-        if not warm.any():
-            return out
-        key = cells.key[warm]
-        dev = self._mean.reshape(-1)[cells.flat[warm]] - cells.cn0[warm]
+        out = _NO_DROP.copy()
+        bins = cells.bins
+        key, flat, cn0 = cells.key, cells.flat, cells.cn0
+        if not bins.all_warm:
+            warm = np.greater_equal(self._count_flat.take(flat), self._operands[2])
+            n_warm = np.count_nonzero(warm)
+            if n_warm == 0:
+                return out
+            if n_warm < warm.shape[0]:
+                # Cells in cold bins weigh ±0: the sums of the warm cells only, in the same order
+                # (x + ±0 = x, and no partial sum is −0), without gathering the warm cells.
+                dev = self._mean_flat.take(flat)
+                dev -= cn0
+                dev *= warm
+                total = np.bincount(key, weights=dev, minlength=N_BAND_KEYS)
+                n_warm_band = np.bincount(key, weights=warm, minlength=N_BAND_KEYS)
+                np.divide(total, n_warm_band, out=out, where=n_warm_band >= min_cells)
+                return out
+            bins.all_warm = True
+        dev = self._mean_flat.take(flat)
+        dev -= cn0
         total = np.bincount(key, weights=dev, minlength=N_BAND_KEYS)
-        n = np.bincount(key, minlength=N_BAND_KEYS)
-        np.divide(total, n, out=out, where=n >= min_cells)
+        if bins.n_band is None:
+            bins.n_band = np.bincount(key, minlength=N_BAND_KEYS)
+        n = bins.n_band
+        judged = bins.judged
+        if judged is None or bins.min_cells != min_cells:
+            judged = bins.judged = n >= min_cells
+            bins.min_cells = min_cells
+        np.divide(total, n, out=out, where=judged)
         return out
 
     def learn(
@@ -148,20 +262,35 @@ class Cn0Baseline:
     ) -> None:
         """:meth:`learn` on cells from :meth:`cells`."""
         flat, cn0 = cells.flat, cells.cn0
-        if frozen is not None:
-            keep = ~frozen[cells.key]
-            flat, cn0 = flat[keep], cn0[keep]
         dt = 1.0 if self._last_t_s is None else min(max(t_s - self._last_t_s, 0.0), 3600.0)
         self._last_t_s = t_s
-        size = self._mean.size
-        n = np.bincount(flat, minlength=size)
-        s = np.bincount(flat, weights=cn0, minlength=size)
-        seen = n.nonzero()[0]
-        epoch_mean = s[seen] / n[seen]
-        mean = self._mean.reshape(-1)
-        count = self._count.reshape(-1)
-        c = count[seen]
-        alpha = np.maximum(1.0 / (c + 1.0), min(dt / self.time_constant_s, 1.0))
-        prev = mean[seen]
-        mean[seen] = prev + alpha * (epoch_mean - prev)
-        count[seen] = c + 1
+        if frozen is None:
+            bins = cells.bins
+            seen, n_seen = bins.seen, bins.n_seen
+            if seen is None or n_seen is None:
+                n = np.bincount(flat)
+                seen = bins.seen = n.nonzero()[0]
+                n_seen = bins.n_seen = n.take(seen)
+        else:
+            keep = ~frozen[cells.key]
+            flat, cn0 = flat[keep], cn0[keep]
+            n = np.bincount(flat)
+            seen = n.nonzero()[0]
+            n_seen = n.take(seen)
+        # Without minlength the sums stop at the largest bin seen: the same sums, less to clear.
+        s = np.bincount(flat, weights=cn0)
+        epoch_mean = s.take(seen) / n_seen
+        mean = self._mean_flat
+        count = self._count_flat
+        c = count.take(seen)
+        w = min(dt / self.time_constant_s, 1.0)
+        if self._weight[0] != w:
+            self._weight = (w, np.full((), w, np.float64))
+        alpha = np.maximum(np.divide(_ONE, np.add(c, _ONE)), self._weight[1])
+        prev = mean.take(seen)
+        # prev + alpha·(epoch_mean − prev), in place (the same operations in the same order).
+        epoch_mean -= prev
+        epoch_mean *= alpha
+        epoch_mean += prev
+        mean.put(seen, epoch_mean)
+        count.put(seen, np.add(c, _ONE_I64))

@@ -92,6 +92,22 @@ class StationAlarms:
         self._cn0 = Cn0Baseline(
             bin_deg=base.bin_deg, time_constant_s=base.time_constant_s, min_samples=base.min_samples
         )
+        #: The snapshot alarms in the order observe_snapshot feeds them (None: disabled).
+        self._snapshot_alarms: tuple[_Alarm | None, ...] = tuple(
+            self._alarms.get(kind)
+            for kind in (
+                AlarmKind.ROTI,
+                AlarmKind.ROT,
+                AlarmKind.VTEC,
+                AlarmKind.GRADIENT,
+                AlarmKind.DUAL_FREQUENCY_LOSS,
+            )
+        )
+        #: The CN0 alarm of each band key (None until the band is first evaluated).
+        self._cn0_by_key: list[_Alarm | None] = [None] * N_BAND_KEYS
+        #: No CN0 alarm is active or pending (nothing frozen; a value below raise_at changes
+        #: nothing but the alarm's value).
+        self._cn0_quiet = True
 
     def _add(self, key: str, kind: AlarmKind, band: str, cfg: ThresholdAlarm) -> _Alarm:
         alarm = _Alarm(
@@ -157,16 +173,11 @@ class StationAlarms:
         )
 
     def _maybe(
-        self,
-        kind: AlarmKind,
-        value: float,
-        time: GpsTime,
-        out: list[AlarmTransition],
-        t_s: float | None = None,
+        self, kind: AlarmKind, value: float, time: GpsTime, out: list[AlarmTransition]
     ) -> None:
         alarm = self._alarms.get(kind)  # a StrEnum member is its value as a key
         if alarm is not None:
-            self._step(alarm, value, time, out, t_s)
+            self._step(alarm, value, time, out)
 
     def observe_snapshot(self, snap: StationSnapshot) -> list[AlarmTransition]:
         """Evaluate the ionosphere and CN0 alarms on one epoch's snapshot."""
@@ -179,12 +190,17 @@ class StationAlarms:
             if s.roti_statistic == "median"
             else snap.roti_max_tecu_per_min
         )
-        maybe = self._maybe
-        maybe(AlarmKind.ROTI, roti, t, out, t_s)
-        maybe(AlarmKind.ROT, snap.rot_max_abs_tecu_per_min, t, out, t_s)
-        maybe(AlarmKind.VTEC, snap.vtec_tecu, t, out, t_s)
-        maybe(AlarmKind.GRADIENT, abs(snap.gradient_mm_per_km), t, out, t_s)
-        maybe(AlarmKind.DUAL_FREQUENCY_LOSS, 1.0 - snap.dual_freq_fraction, t, out, t_s)
+        values = (
+            roti,
+            snap.rot_max_abs_tecu_per_min,
+            snap.vtec_tecu,
+            abs(snap.gradient_mm_per_km),
+            1.0 - snap.dual_freq_fraction,
+        )
+        step = self._step
+        for alarm, value in zip(self._snapshot_alarms, values, strict=True):
+            if alarm is not None:
+                step(alarm, value, t, out, t_s)
         if s.cn0_drop.enabled and snap.cell_sat.size:
             self._observe_cn0(snap, out, t_s)
         return out
@@ -193,15 +209,34 @@ class StationAlarms:
         base = self._cn0
         cells = base.cells(snap.cell_sat, snap.cell_sig, snap.cell_el_deg, snap.cell_cn0_dbhz)
         drop = base.drop_db_cells(cells, min_cells=self._settings.cn0_baseline.min_cells)
-        # Bands evaluated this epoch (bounded: at most N_BAND_KEYS); this loop is per band.
-        for k in np.flatnonzero(np.isfinite(drop)).tolist():
-            key = self._cn0_keys.get(k)
-            if key is None:
+        # Bands evaluated this epoch (bounded: at most N_BAND_KEYS); the loops are per band.
+        evaluated = np.isfinite(drop).nonzero()[0]
+        keys: list[int] = evaluated.tolist()
+        values: list[float] = drop.take(evaluated).tolist()
+        by_key = self._cn0_by_key
+        alarms = [by_key[k] for k in keys]
+        if (
+            self._cn0_quiet
+            and (not values or max(values) < self._settings.cn0_drop.raise_at)
+            and all(alarms)  # every band known (truth test: no __eq__ call per alarm)
+        ):
+            # Shortcut: every CN0 machine is normal with no hold and no value reaches raise_at,
+            # so each step would only record the value (Debouncer.step: no crossing → no hold).
+            for alarm, value in zip(alarms, values, strict=True):
+                assert alarm is not None
+                alarm.value = value
+            base.learn_cells(cells, t_s)
+            return
+        for k, value in zip(keys, values, strict=True):
+            alarm = by_key[k]
+            if alarm is None:
                 label = band_label(k)
                 key = f"{AlarmKind.CN0_DROP.value}-{label.lower()}"
                 self._cn0_keys[k] = key
-                self._add(key, AlarmKind.CN0_DROP, label, self._settings.cn0_drop)
-            self._step(self._alarms[key], float(drop[k]), snap.time, out, t_s)
+                alarm = by_key[k] = self._add(
+                    key, AlarmKind.CN0_DROP, label, self._settings.cn0_drop
+                )
+            self._step(alarm, value, snap.time, out, t_s)
         frozen: npt.NDArray[np.bool_] | None = None
         for k, key in self._cn0_keys.items():  # per band
             m = self._alarms[key].machine
@@ -209,6 +244,7 @@ class StationAlarms:
                 if frozen is None:
                     frozen = np.zeros(N_BAND_KEYS, np.bool_)
                 frozen[k] = True
+        self._cn0_quiet = frozen is None
         base.learn_cells(cells, t_s, frozen=frozen)
 
     def observe_fix(self, fix: FixStatus, time: GpsTime | None = None) -> list[AlarmTransition]:

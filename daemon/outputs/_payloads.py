@@ -103,9 +103,31 @@ def _col(a: npt.NDArray[Any], digits: int) -> list[float | None]:
 _float_repr = float.__repr__
 
 
+#: 10^d for the decimals the payloads round to (exact doubles).
+_TEN_POW = tuple(10.0**d for d in range(10))
+#: Scaled values below this take the shortcut in _jnum: their product v·10^d is within
+#: 1e6·2⁻⁵³ ≈ 1.1e-10 of the exact one.
+_ROUND_FAST_LIMIT = 1e6
+#: The shortcut's margin to a rounding tie (far above that error).
+_ROUND_TIE_MARGIN = 0.4999999
+
+
 def _jnum(x: float, digits: int) -> str:
-    """``json.dumps(_num(x, digits))``."""
+    """``json.dumps(_num(x, digits))`` (0 ≤ ``digits`` < 10), mostly without the decimal string
+    round trip that ``round`` makes.
+
+    ``round(v, d)`` is the double nearest to k·10⁻ᵈ, k the integer nearest to the exact v·10ᵈ
+    (ties to even). When the float product y = v·10ᵈ is more than 0.4999999 from a tie, the
+    integer nearest to y is that k (y is within 1.1e-10 of the exact product), and k / 10ᵈ (k and
+    10ᵈ exact, the division correctly rounded) is that double; a zero keeps v's sign, as in
+    ``round``. Anything else (near a tie, large, NaN, ±∞) takes the general path."""
     v = float(x)
+    p = _TEN_POW[digits]
+    y = v * p
+    if -_ROUND_FAST_LIMIT < y < _ROUND_FAST_LIMIT:
+        k = math.floor(y + 0.5)
+        if -_ROUND_TIE_MARGIN < y - k < _ROUND_TIE_MARGIN:
+            return _float_repr(k / p if k else math.copysign(0.0, v))
     return _float_repr(round(v, digits)) if math.isfinite(v) else "null"
 
 
@@ -206,27 +228,32 @@ def _fixed_columns(r: npt.NDArray[np.float64]) -> list[str] | None:
         return None
     w = len(str(int(top) // 10**_FRAC_DIGITS))  # integer digits of the largest value
     nd = w + _FRAC_DIGITS
-    q = np.floor(k[:, None] / _POW[-nd - 1 :])  # q[:, j] = ⌊k / 10^p⌋, p = nd … 0
-    d = q[:, 1:] - 10.0 * q[:, :-1]  # digit at p = nd − 1 … 0
+    # Built transposed (one row per character position, one column per value) so that every
+    # step below writes contiguous rows; transposed back once at the end.
+    q = np.floor(k / _POW[-nd - 1 :, None])  # q[j] = ⌊k / 10^p⌋, p = nd … 0
+    d = q[1:] - 10.0 * q[:-1]  # digit at p = nd − 1 … 0
     d += _ZERO
     digits = d.astype(np.uint8)
-    q = q[:, 1:]
-    text = np.empty((m * n, nd + 3), np.uint8)  # sign, w digits, ".", decimals, ","
-    text[:, 0] = np.where(np.signbit(flat), _MINUS, _SPACE)
+    q = q[1:]
+    text = np.empty((nd + 3, m * n), np.uint8)  # sign, w digits, ".", decimals, ","
+    text[0] = np.where(np.signbit(flat), _MINUS, _SPACE)
     # Integer digits: a leading zero (nothing at or above it) is blank, the units digit never.
-    text[:, 1:w] = np.where(q[:, : w - 1] == 0.0, _SPACE, digits[:, : w - 1])
-    text[:, w] = digits[:, w - 1]
-    text[:, w + 1] = _DOT
+    text[1:w] = np.where(q[: w - 1] == 0.0, _SPACE, digits[: w - 1])
+    text[w] = digits[w - 1]
+    text[w + 1] = _DOT
     # Decimals: written while a non-zero digit is at or after them (k mod 10^(p+1) ≠ 0); the
     # first always.
-    keep = q[:, w - 1 : nd - 1] * _POW[-_FRAC_DIGITS - 1 : -1] != k[:, None]
-    keep[:, 0] = True
-    text[:, w + 2 : -1] = np.where(keep, digits[:, w:], _SPACE)
-    text[:, -1] = _COMMA
+    keep = q[w - 1 : nd - 1] * _POW[-_FRAC_DIGITS - 1 : -1, None] != k
+    keep[0] = True
+    text[w + 2 : -1] = np.where(keep, digits[w:], _SPACE)
+    text[-1] = _COMMA
     if not finite.all():
-        text[~finite] = np.frombuffer(b"null".rjust(nd + 2) + b",", np.uint8)
-    text[n - 1 :: n, -1] = _CLOSE  # end of each row
-    return text.tobytes().replace(b" ", b"").decode().split("]")[:m]
+        null = np.frombuffer(b"null".rjust(nd + 2) + b",", np.uint8)
+        text[:, ~finite] = null[:, None]
+    text[-1, n - 1 :: n] = _CLOSE  # end of each row
+    chars = text.T.ravel()  # value by value
+    packed: bytes = chars[chars != _SPACE].tobytes()
+    return packed.decode().split("]")[:m]
 
 
 @functools.lru_cache(maxsize=256)
