@@ -9,13 +9,15 @@
    1, as before pipelining), pipelined without and with the re-armed TCP_QUICKACK; then private
    brokers (tests/_mqtt_support.PrivateBroker) with the default and with ``set_tcp_nodelay true``.
 2. Frame received → summary PUBACK with the real estimator pipeline: the simulator's invented
-   quiet-day stream replayed as 20 stations, fed epoch by epoch through StationPipeline, alarms
-   and the publisher (shared broker). First with every station's frames arriving at the top of
-   the second and one task per station (as the daemon runs them), without and with the daemon's
-   StepLane (one estimate step per loop iteration), split into the wait behind other stations'
-   steps, the station's own estimation and snapshot → PUBACK; then a single loop feeding the
-   stations in turn, all at the top of the second and spread over it (latency from each frame's
-   scheduled arrival, so waiting behind the other stations counts).
+   quiet-day stream replayed as 20 stations, fed chunk by chunk (one second each) through each
+   station's FramingCore + StationPipeline built as the daemon builds them (``defer``: the
+   receiver-bias fit and the frames after the epoch wait for ``settle``), alarms and the
+   publisher (shared broker). First with every station's frames arriving at the top of the
+   second and one task per station (as the daemon runs them), without and with the daemon's
+   StepLane (one step per loop iteration, urgent steps before the deferred ``settle`` steps);
+   then a single loop feeding the stations in turn, all at the top of the second (settling after
+   the last station) and spread over it (latency from each frame's scheduled arrival, so waiting
+   behind the other stations counts).
 3. Exporter: the text exposition for 20 stations × 40 satellites, in-process and over real HTTP.
 
 Usage: .venv/bin/python bench/bench_outputs.py [--seconds 20] [--stations 20] [--sats 40]
@@ -50,7 +52,7 @@ from ionwarden.daemon.outputs import (
     _client,
     summary_payload,
 )
-from ionwarden.daemon.runtime import StepLane
+from ionwarden.daemon.runtime import FramingCore, StepLane
 from ionwarden.daemon.sim import Simulator, build_scenario, iter_stream
 from tests._mqtt_support import PrivateBroker
 from tests._outputs_support import T0, make_snapshot
@@ -159,18 +161,22 @@ async def bench_outputs_work(seconds: int, n_stations: int, n_sats: int) -> None
 
 def _replayed_stations(
     seconds: int, n_stations: int
-) -> tuple[list[bytes], list[StationPipeline], list[StationAlarms]]:
+) -> tuple[list[bytes], list[FramingCore], list[StationAlarms]]:
     """The simulator's invented quiet-day stream (one chunk per second) and ``n_stations``
     pipelines + alarm engines that have taken its first chunk (ephemerides, arc set-up: untimed)."""
     sc = build_scenario("quiet-day", duration_s=seconds + 1.0)
     chunks = [data for _, data in iter_stream(Simulator(sc), 0)]
     names = [f"ST{i:02d}" for i in range(n_stations)]
-    # defer=True as the daemon builds them: the receiver-bias fit and the messages after each
-    # epoch wait for settle(), run once the other stations' snapshots are out.
-    pipes = [StationPipeline(n, reference_time=sc.start, defer=True) for n in names]
+    # As the daemon builds them (runtime make_factory): the receiver-bias fit and the frames after
+    # each epoch wait for settle(), run once the other stations' snapshots are out.
+    pipes = [
+        FramingCore(consumer=StationPipeline(n, reference_time=sc.start, defer=True), defer=True)
+        for n in names
+    ]
     engines = [StationAlarms(n, AlarmSettings()) for n in names]
     for p in pipes:
         p.feed(chunks[0])
+        p.settle()
     return chunks, pipes, engines
 
 
@@ -291,8 +297,8 @@ async def bench_frames_synchronized(
         tg.create_task(pub.run(), name="daemon.output[mqtt]")
         await asyncio.wait_for(pub.wait_connected(), 10)
         tasks = [
-            tg.create_task(station(i), name=f"daemon.estimate[{p.station}]")
-            for i, p in enumerate(pipes)
+            tg.create_task(station(i), name=f"daemon.estimate[ST{i:02d}]")
+            for i in range(len(pipes))
         ]
         loop = asyncio.get_running_loop()
         start = loop.time()

@@ -122,3 +122,49 @@ def test_state_dict_includes_a_deferred_receiver_bias_fit(chunks):
         assert _same_state(pipe.state_dict(), plain.state_dict())
         pipe.settle()
     assert fitted
+
+
+@pytest.mark.parametrize("read_size", [None, 701])
+def test_deferring_framing_core_gives_the_same_outputs(chunks, read_size):
+    """FramingCore(defer=True) around StationPipeline(defer=True), as the daemon builds it: the
+    frames after each chunk's last epoch (its NMEA) wait for settle(); settled after every feed
+    (as the runtime does) or only by the next feed, the outputs equal the plain core's, bit for
+    bit and in order, whether reads hold one second each or cut epochs anywhere (701 bytes)."""
+    from ionwarden.daemon.runtime import FramingCore
+
+    data, start = chunks
+    if read_size is not None:
+        stream = b"".join(data)
+        data = [stream[i : i + read_size] for i in range(0, len(stream), read_size)]
+
+    def run(defer: bool, settle: bool) -> tuple[list[object], FramingCore]:
+        core = FramingCore(
+            consumer=StationPipeline("HARC", reference_time=start, defer=defer),  # type: ignore[arg-type]
+            defer=defer,
+        )
+        out: list[object] = []
+        for chunk in data:
+            out += core.feed(chunk)
+            if settle:
+                out += core.settle()
+                assert not core.unsettled()
+        out += core.end_stream()
+        out += core.settle()
+        return out, core
+
+    plain, p_core = run(False, False)
+    held = 0
+    for settle in (True, False):
+        out, core = run(True, settle)
+        _assert_same_outputs(plain, out)
+        assert core.frames_total() == p_core.frames_total()
+        assert core.counts() == p_core.counts()
+    core = FramingCore(
+        consumer=StationPipeline("HARC", reference_time=start, defer=True),  # type: ignore[arg-type]
+        defer=True,
+    )
+    for chunk in data[:40]:
+        core.feed(chunk)
+        held += bool(core._later)
+        core.settle()
+    assert held > 0  # frames were really held back

@@ -147,7 +147,7 @@ def make_factory(
             )
 
         return StationBundle(
-            core=FramingCore(consumer=pipeline(), rebuild=pipeline),
+            core=FramingCore(consumer=pipeline(), rebuild=pipeline, defer=True),
             produces_epochs=True,
             alarms=StationAlarms(cfg.name, settings.alarms),
         )

@@ -12,7 +12,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, Protocol
 
-from ionwarden.parsers._framer import Framer, FramerStatistics
+from ionwarden.parsers import MSM_TYPES
+from ionwarden.parsers._framer import Framer, FramerStatistics, RtcmFrame
 
 if TYPE_CHECKING:
     from collections.abc import Callable, Mapping, Sequence
@@ -94,11 +95,27 @@ def _add(a: DecoderCounts, s: FramerStatistics) -> DecoderCounts:
     )
 
 
+def _after_last_epoch(frames: Sequence[Frame]) -> int:
+    """Index just after the last frame that closes an observation epoch: an MSM whose
+    multiple-message bit (DF393, bit 54 of the message: RTCM 10403.3 §3.5.12, Table 3.5-78) is 0;
+    0 when none does."""
+    for k in range(len(frames) - 1, -1, -1):
+        f = frames[k]
+        if type(f) is RtcmFrame and f.msg_type in MSM_TYPES:
+            p = f.payload
+            if len(p) > 6 and not p[6] & 0x02:
+                return k + 1
+    return 0
+
+
 class FramingCore:
     """The framer, restarted on each new connection, plus an optional frame consumer.
 
     ``rebuild`` makes a fresh consumer for :meth:`reset`; without it a reset restarts the framer
-    only.
+    only. ``defer`` (with a consumer that settles, ``StationPipeline(defer=True)``): the frames
+    after a chunk's last epoch (typically its NMEA sentences) are decoded by :meth:`settle`
+    instead of :meth:`feed`, after the consumer's own deferred work, so a burst of stations
+    publishes its snapshots sooner; the order of everything the consumer sees is unchanged.
     """
 
     def __init__(
@@ -106,7 +123,10 @@ class FramingCore:
         consumer: FrameConsumer | None = None,
         *,
         rebuild: Callable[[], FrameConsumer] | None = None,
+        defer: bool = False,
     ):
+        self._defer = defer
+        self._later: list[Frame] = []  # frames held for settle()
         self._framer = Framer()
         self._done = DecoderCounts()  # counts of framers already ended
         self._consumer = consumer
@@ -117,8 +137,16 @@ class FramingCore:
     def feed(self, data: bytes, /) -> Sequence[object]:
         frames = self._framer.feed(data)
         self._frames_total += len(frames)
+        if self._later:
+            frames = self._later + frames
+            self._later = []
         if self._consumer is None or not frames:
             return ()
+        if self._defer:
+            k = _after_last_epoch(frames)
+            if 0 < k < len(frames):
+                self._later = frames[k:]
+                frames = frames[:k]
         return self._consumer.feed_frames(frames)
 
     def end_stream(self) -> Sequence[object]:
@@ -126,6 +154,9 @@ class FramingCore:
         self._frames_total += len(frames)
         self._done = _add(self._done, self._framer.statistics())
         self._framer = Framer()
+        if self._later:
+            frames = self._later + frames
+            self._later = []
         if self._consumer is None or not frames:
             return ()
         return self._consumer.feed_frames(frames)
@@ -139,10 +170,14 @@ class FramingCore:
         self._settle: Callable[[], Sequence[object]] | None = getattr(c, "settle", None)
 
     def unsettled(self) -> bool:
-        return self._unsettled is not None and self._unsettled()
+        return bool(self._later) or (self._unsettled is not None and self._unsettled())
 
     def settle(self) -> Sequence[object]:
-        return () if self._settle is None else self._settle()
+        out = list(self._settle()) if self._settle is not None else []
+        later, self._later = self._later, []
+        if later and self._consumer is not None:
+            out.extend(self._consumer.feed_frames(later))
+        return out
 
     def frames_total(self) -> int:
         return self._frames_total
@@ -150,6 +185,7 @@ class FramingCore:
     def reset(self) -> None:
         self._done = _add(self._done, self._framer.statistics())
         self._framer = Framer()
+        self._later = []
         if self._rebuild is not None:
             self._consumer = self._rebuild()
             self._bind_settle()
