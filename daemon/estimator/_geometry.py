@@ -6,7 +6,8 @@ recomputed from its orbit only when it is older than ``refresh_s`` (all satellit
 in one vectorised call) and in between extrapolated linearly from the per-slot cache (rates from
 the last two refreshes). While the satellites repeat and all of them were refreshed together,
 their cached rows and rates are kept as (4, m) arrays, so an epoch costs two operations plus the
-angle wraps.
+angle wraps; satellites without an orbit stay NaN rows of that cache as long as none of them has
+a GSV elevation to fall back to.
 """
 
 from __future__ import annotations
@@ -63,9 +64,9 @@ class Geometry:
         #: Whether the last :meth:`lookup` had orbit geometry for every satellite (no NaN, no
         #: GSV fallback).
         self.all_known = False
-        #: (sats, version, t_orbit, geo rows, rates) of the last satellites seen when all had
-        #: orbit geometry refreshed at one time (see the module doc).
-        self._same: tuple[Idx, int, float, F64, F64] | None = None
+        #: (sats, version, t_orbit, geo rows, rates, all_known, source) of the last satellites
+        #: seen when all were refreshed at one time and none fell back to GSV (module doc).
+        self._same: tuple[Idx, int, float, F64, F64, bool, str] | None = None
 
     # -- inputs ---------------------------------------------------------------------------------
     def set_receiver_position(self, ecef_m: npt.ArrayLike, source: str) -> None:
@@ -125,8 +126,8 @@ class Geometry:
                 geo = np.multiply(same[4], np.array(dt_s))
                 geo += same[3]
                 self._wrap(geo)
-                self.all_known = True
-                return geo, "ephemeris"
+                self.all_known = same[5]
+                return geo, same[6]
         dt = t_s - self.t_orbit.take(sats)
         orbits = self.rx_ecef is not None and self.has_ephemeris
         m = sats.shape[0]
@@ -141,8 +142,10 @@ class Geometry:
         have = ~np.isnan(el)
         source = "ephemeris"
         self.all_known = all_known = np.count_nonzero(have) == m
+        cacheable = orbits and m and not sats.flags.writeable
         if not (m and all_known):
-            gsv_ok = ~have & (np.abs(t_s - self.gsv_t[sats]) <= GSV_MAX_AGE_S)
+            gsv_t = self.gsv_t[sats]
+            gsv_ok = ~have & (np.abs(t_s - gsv_t) <= GSV_MAX_AGE_S)
             source = "ephemeris" if have.any() else "none"
             if gsv_ok.any():
                 g = sats[gsv_ok]
@@ -153,21 +156,23 @@ class Geometry:
                         self.lat_rad, self.lon_rad, az[gsv_ok], el[gsv_ok], self.shell_m
                     )
                 source = "gsv" if not have.any() else "ephemeris+gsv"
-        elif orbits and not sats.flags.writeable:
+                cacheable = False
+            elif cacheable:  # the NaN rows stay NaN until a GSV elevation (a new version) comes
+                cacheable = bool(np.isnan(gsv_t[~have]).all())
+        if cacheable:
             t_orbit = self.t_orbit[sats]
             if np.count_nonzero(t_orbit == t_orbit[0]) == m:
                 self._same = (sats, self.version, float(t_orbit[0]), self.geo[:, sats],
-                              self.rate[:, sats])  # fmt: skip
+                              self.rate[:, sats], all_known, source)  # fmt: skip
         self._wrap(geo)
         return geo, source
 
     @staticmethod
     def _wrap(geo: F64) -> None:
-        """Azimuth to [0, 2π), longitude to [−π, π), in place."""
-        geo[1] %= _TWO_PI_0D
+        """Azimuth to [0, 2π), longitude to [−π, π), in place (both rows' ``%`` in one call)."""
         lon = geo[3]
         lon += _PI_0D
-        lon %= _TWO_PI_0D
+        geo[1::2] %= _TWO_PI_0D
         lon -= _PI_0D
 
     def _rows(self, sats: Idx, t_s: float) -> F64:

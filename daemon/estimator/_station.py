@@ -16,6 +16,8 @@ import numpy.typing as npt
 
 from ionwarden.daemon.geo import DEFAULT_EARTH_RADIUS_M
 
+from ._snapshot import _fast_constructor
+
 __all__ = [
     "GPS_L1_M_PER_TECU",
     "SkyTerms",
@@ -28,6 +30,9 @@ F64 = npt.NDArray[np.float64]
 #: L1 group delay of 1 TECU: 40.3·10¹⁶/(1575.42 MHz)² = 0.16237 m (SCIENCE.md §2, IS-GPS-200 L1).
 GPS_L1_M_PER_TECU = 40.3e16 / 1575.42e6**2
 _ZERO = np.array(0.0)
+_NAN = np.array(np.nan)
+#: Elevation masks (rad) as 0-d arrays (a Python float operand costs a conversion per call).
+_MASKS: dict[float, npt.NDArray[np.float64]] = {}
 
 
 @dataclass(frozen=True, slots=True)
@@ -39,6 +44,9 @@ class StationFigures:
     gradient_tecu_per_km: float
     gradient_mm_per_km: float
     gradient_azimuth_deg: float
+
+
+_new_station_figures = _fast_constructor(StationFigures)
 
 
 def pierce_offsets_km(
@@ -63,8 +71,9 @@ class SkyTerms:
         self._one = np.array(1.0)
         self._pi = np.array(np.pi)
         self._two_pi = np.array(2.0 * np.pi)
-        self._lon = np.array(np.nan)  # station (rad)
-        self._lat = np.array(np.nan)
+        self._lon = math.nan  # station (rad)
+        self._lat = math.nan
+        self._lon_lat = np.full((2, 1), np.nan)  # the same as a column
         self._cos_lat = np.array(np.nan)
 
     def mapping(self, el_rad: F64) -> F64:
@@ -82,10 +91,11 @@ class SkyTerms:
         """East/north offsets (km) of the pierce points (rows lat, lon) into ``out`` (rows x,
         y)."""
         if not (self._lon == lon_rad and self._lat == lat_rad):
-            self._lon, self._lat = np.array(lon_rad), np.array(lat_rad)
+            self._lon, self._lat = lon_rad, lat_rad
+            self._lon_lat = np.array([[lon_rad], [lat_rad]])
             self._cos_lat = np.array(math.cos(lat_rad))
-        dlon = np.subtract(ipp_lat_lon[1], self._lon, out=out[0])
-        np.subtract(ipp_lat_lon[0], self._lat, out=out[1])
+        np.subtract(ipp_lat_lon[::-1], self._lon_lat, out=out)  # rows lon, lat
+        dlon = out[0]
         dlon += self._pi
         dlon %= self._two_pi
         dlon -= self._pi
@@ -105,47 +115,78 @@ def station_figures(
     m = el_rad.shape[0]
     assert pts.shape == (3, m), (pts.shape, m)
     assert rot.shape == roti.shape == (m,), (rot.shape, roti.shape, m)
-    known = None if el_known else np.isfinite(el_rad)
-    n_known = m if known is None else np.count_nonzero(known)
-    above = (el_rad >= np.array(mask_rad)) if n_known else np.ones(m, np.bool_)
+    mask = _MASKS.get(mask_rad)
+    if mask is None:
+        if len(_MASKS) >= 8:
+            _MASKS.clear()
+        _MASKS[mask_rad] = mask = np.array(mask_rad)
+    above = el_rad >= mask
     n_above = np.count_nonzero(above)
-    # sin(max(el, 0)) = max(sin el, 0) for el in [−90°, 90°]
-    w = np.maximum(sin_el, _ZERO)
-    w *= w
-    if known is not None and n_known < m:
-        w[~known] = 1.0
+    w = None  # weights of every satellite, if needed (else computed for the selected ones)
+    if not (n_above or el_known or np.count_nonzero(np.isfinite(el_rad))):
+        # No elevation known: every satellite counts, with weight 1.
+        above = np.ones(m, np.bool_)
+        n_above = m
+        w = np.ones(m)
+    elif not mask_rad >= 0.0:
+        # sin(max(el, 0)) = max(sin el, 0) for el in [−90°, 90°]
+        w = np.maximum(sin_el, _ZERO)
+        w *= w
+    # Else weights are read only above the mask (el in [0°, 90°]), where max(sin el, 0)² = sin²el
+    # (−0.0² = +0.0): squared after selecting.
 
-    use = above & np.isfinite(pts[2])
-    n_use = np.count_nonzero(use)
     vtec = pts[2]
-    wu, vu = (w, vtec) if n_use == m else (w[use], vtec[use])
+    if el_known:  # pierce points of known elevations are finite: x, y are
+        use = above & np.isfinite(vtec)
+        n_use = np.count_nonzero(use)
+        fit_is_use = True
+    else:
+        fin = np.isfinite(pts[::2])
+        np.logical_and(fin, above, out=fin)  # rows: x finite, VTEC finite (use); above the mask
+        use = fin[1]
+        n_use = np.count_nonzero(use)
+        fit_is_use = np.count_nonzero(fin) - n_use == n_above  # every x above the mask finite
+    # The weights of the VTEC mean are the plane fit's too unless an x is NaN. (Its VTEC stay a
+    # separate array: a dot product's rounding can depend on where its operands start.)
+    if n_use == m:
+        wu = np.multiply(sin_el, sin_el) if w is None else w
+        vu = vtec
+    else:
+        if w is None:
+            wu = sin_el[use]
+            wu *= wu
+        else:
+            wu = w[use]
+        vu = vtec[use]
     wu_sum = np.add.reduce(wu)  # wu.sum() without its Python wrapper
     vtec_st = float(wu @ vu / wu_sum) if n_use else math.nan
-    r = roti[above & np.isfinite(roti)] if n_above < m else roti[np.isfinite(roti)]
-    r.sort()  # a copy already
-    roti_max = float(r[-1]) if r.size else math.nan
-    roti_med = float(0.5 * (r[(r.size - 1) // 2] + r[r.size // 2])) if r.size else math.nan
+    roti_max, roti_med = _max_median(roti, above, n_above < m)
     rr = np.abs(rot[above] if n_above < m else rot)
     rot_max = float(np.fmax.reduce(rr)) if rr.size else math.nan  # NaN only if all are NaN
 
     g_t = g_mm = g_az = math.nan
-    if el_known:  # pierce points of known elevations are finite: x, y are
+    if fit_is_use:
         fit, n_fit = use, n_use
     else:
-        fit = use & np.isfinite(pts[0])
+        fit = use & fin[0]
         n_fit = np.count_nonzero(fit)
     if n_fit >= 4:
         if n_fit == m:
-            ge, gn = _plane_slopes(w, pts, wu_sum)
-        elif fit is use:  # the weights and their sum of the VTEC mean
-            ge, gn = _plane_slopes(wu, pts[:, fit], wu_sum)
+            ge, gn = _plane_slopes(wu, pts, wu_sum)
+        elif n_fit == n_use:  # fit is use: the weights and their sum of the VTEC mean
+            ge, gn = _plane_slopes(wu, pts[:, use], wu_sum)
         else:
-            ge, gn = _plane_slopes(w[fit], pts[:, fit])
+            if w is None:
+                wf = sin_el[fit]
+                wf *= wf
+            else:
+                wf = w[fit]
+            ge, gn = _plane_slopes(wf, pts[:, fit])
         if math.isfinite(ge):
             g_t = math.hypot(ge, gn)
             g_mm = g_t * GPS_L1_M_PER_TECU * 1000.0
             g_az = math.degrees(math.atan2(ge, gn)) % 360.0
-    return StationFigures(
+    return _new_station_figures(
         vtec_tecu=vtec_st,
         roti_max=roti_max,
         roti_median=roti_med,
@@ -154,6 +195,31 @@ def station_figures(
         gradient_mm_per_km=g_mm,
         gradient_azimuth_deg=g_az,
     )
+
+
+def _max_median(roti: F64, above: npt.NDArray[np.bool_], subset: bool) -> tuple[float, float]:
+    """Largest and median finite ``roti`` of the satellites ``above`` (all unless ``subset``).
+
+    Sorted before the non-finite values are dropped (NaN sorts last): the finite values come out
+    in the order the filter-then-sort of the general path gives (values equal as floats are equal
+    bit for bit, once no zero can be −0.0 beside +0.0); otherwise that general path runs.
+    """
+    if subset:
+        r = roti[above]
+        r.sort()
+    else:
+        r = np.sort(roti)
+    n = r.size
+    if n and not (math.isfinite(r.item(0)) and math.isfinite(r.item(n - 1))):
+        n = int(np.searchsorted(r, _NAN))
+        r = r[:n]
+        if n and not (r.item(0) > 0.0 and math.isfinite(r.item(n - 1))):
+            r = roti[above & np.isfinite(roti)] if subset else roti[np.isfinite(roti)]
+            r.sort()  # a copy already
+            n = r.size
+    if not n:
+        return math.nan, math.nan
+    return r.item(n - 1), 0.5 * (r.item((n - 1) // 2) + r.item(n // 2))
 
 
 def _plane_slopes(w: F64, xyv: F64, w_sum: np.float64 | None = None) -> tuple[float, float]:

@@ -36,6 +36,8 @@ NODE_STEP_S = 30.0
 #: Grid nodes kept (a little more than the two that bracket t, for jitter around a node).
 _KEEP_NODES = 4
 _NAN_ROW = np.full((1, 3), np.nan)
+#: (position, velocity, clock) of no satellite: what the state functions give an empty batch.
+_EMPTY_STATE = (np.empty((0, 3)), np.empty((0, 3)), np.empty(0))
 
 
 _HERMITE = hermite_matrix(NODE_STEP_S)
@@ -90,9 +92,9 @@ class OrbitNodes:
             t = j * NODE_STEP_S
             if gather_index is None:
                 node = kepler_state(kepler, t)
-            else:
-                pk, vk, ck = kepler_state(kepler, t)
-                pg, vg, cg = glonass_state(glonass, t)
+            else:  # an empty batch's state costs its ~40 numpy calls: skip it
+                pk, vk, ck = kepler_state(kepler, t) if len(kepler) else _EMPTY_STATE
+                pg, vg, cg = glonass_state(glonass, t) if len(glonass) else _EMPTY_STATE
                 node = (
                     np.concatenate((pk, pg, _NAN_ROW))[gather_index],
                     np.concatenate((vk, vg, _NAN_ROW))[gather_index],
