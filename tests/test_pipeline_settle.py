@@ -14,7 +14,8 @@ import pytest
 
 from ionwarden.daemon.estimator import FixStatus, StationPipeline, StationSnapshot
 from ionwarden.daemon.sim import Simulator, build_scenario, iter_stream
-from ionwarden.parsers import ObsEpoch
+from ionwarden.daemon.sim._constellation import build_constellation
+from ionwarden.parsers import KeplerEphemeris, ObsEpoch
 
 from .test_estimator_fastpaths import _assert_same
 
@@ -168,3 +169,45 @@ def test_deferring_framing_core_gives_the_same_outputs(chunks, read_size):
         held += bool(core._later)
         core.settle()
     assert held > 0  # frames were really held back
+
+
+@pytest.mark.parametrize("event", ["none", "new_ephemeris", "receiver_moved", "other_time"])
+def test_geometry_prefetch_changes_no_result(event):
+    """Geometry.prefetch (orbit rows evaluated in the deferred step for the next epoch's refresh)
+    leaves every looked-up row bit for bit and the ephemeris store's counters as without it,
+    also when a new ephemeris or a receiver position arrives in between or the epoch comes at
+    another time (the rows are then evaluated again). Invented constellation (daemon/sim)."""
+    from .test_estimator_station_shortcuts import RX, T0, _geometry
+
+    cons = build_constellation("GER", 7, T0 - 3600.0, T0 + 3600.0)
+    ephs = [e for s in cons.series.values() for group in s.ephemerides for e in group]
+    ephs = [e for e in ephs if not isinstance(e, KeplerEphemeris)
+            or abs(e.week * 604800.0 + e.toe_s - T0) < 7200.0]  # fmt: skip
+    late_sat = int(cons.sats[3])
+    base = [e for e in ephs if e.sat != late_sat]  # type: ignore[attr-defined]
+    late = [e for e in ephs if e.sat == late_sat]  # type: ignore[attr-defined]
+    fast, slow = _geometry(base), _geometry(base)
+    sats = np.asarray(cons.sats, np.intp)
+    sats.setflags(write=False)
+    used = tried = 0
+    for k in range(200):
+        t = T0 + k
+        if fast.refresh_due(sats, t):
+            tried += 1
+            fast.prefetch(sats, t + (0.5 if event == "other_time" else 0.0))
+            if event == "new_ephemeris" and late:
+                for g in (fast, slow):
+                    g.add_ephemeris(late[0], t)  # type: ignore[arg-type]
+                late = late[1:]
+            if event == "receiver_moved":
+                for g in (fast, slow):
+                    g.set_receiver_position(RX + np.array([0.0, 0.0, 50.0 * (k % 2)]), "gga")
+            used += fast._ahead is not None and fast._ahead[2] == fast._inputs()
+        a, sa = fast.lookup(sats, t)
+        b, sb = slow.lookup(sats, t)
+        assert sa == sb, k
+        assert a.tobytes() == b.tobytes(), k
+        assert fast.store.statistics() == slow.store.statistics(), k
+    assert tried >= 6
+    if event == "none":
+        assert used == tried

@@ -186,6 +186,8 @@ class StationEstimator:
         self._defer_fit = defer_fit
         #: The deferred receiver-bias fit: (positional, keyword) arguments of _update_receiver_bias.
         self._pending_fit: tuple[tuple[Any, ...], dict[str, Any]] | None = None
+        #: (satellites, time) of the next epoch's orbit refresh, to evaluate in :meth:`prefetch`.
+        self._ahead: tuple[Idx, float] | None = None
         self._bias_cache: tuple[EpochLayout, int, F64, F64, F64] | None = None
         #: Hatch constants of the sampling interval: (interval, window N, N and (N − 1)/N as
         #: 0-d arrays).
@@ -205,8 +207,17 @@ class StationEstimator:
 
     # -- inputs other than observations -----------------------------------------------------------
     def unsettled(self) -> bool:
-        """A receiver-bias fit waits for :meth:`settle` (``defer_fit``)."""
-        return self._pending_fit is not None
+        """A receiver-bias fit waits for :meth:`settle`, or the next epoch's orbit refresh could
+        be evaluated ahead by :meth:`prefetch` (``defer_fit``)."""
+        return self._pending_fit is not None or self._ahead is not None
+
+    def prefetch(self) -> None:
+        """Evaluate now the orbits the next epoch will refresh, if it comes at the expected time
+        with the same satellites (``defer_fit``; see ``Geometry.prefetch``: same results)."""
+        ahead, self._ahead = self._ahead, None
+        if ahead is not None:
+            with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+                self.geometry.prefetch(*ahead)
 
     def settle(self) -> None:
         """Run the deferred receiver-bias fit, if any (``defer_fit``)."""
@@ -247,6 +258,7 @@ class StationEstimator:
         """Process one epoch (time from the epoch) and return the station snapshot."""
         if self._pending_fit is not None:
             self.settle()
+        self._ahead = None  # not evaluated ahead: the lookup evaluates it
         n = epoch.sat.shape[0]
         assert epoch.sig.shape == epoch.pseudorange_m.shape == epoch.phase_cycles.shape == (n,)
         t = epoch.time.total_s
@@ -319,6 +331,8 @@ class StationEstimator:
                 self._pending_fit = ((t, figs), fit_kw)
             else:
                 self._update_receiver_bias(t, figs, **fit_kw)
+        if self._defer_fit and self.geometry.refresh_due(present, t + interval):
+            self._ahead = (present, t + interval)
 
         if lay.all_dual:
             slip, arc_id, switch = figs["new"], figs["arc"], figs["pair_switch"]

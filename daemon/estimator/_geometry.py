@@ -21,6 +21,7 @@ import numpy.typing as npt
 from ionwarden.daemon.geo import EphemerisStore, ecef_to_geodetic, pierce_point, satellite_geometry
 
 if TYPE_CHECKING:
+    from ionwarden.daemon.geo._ephstore import SelectionMark
     from ionwarden.parsers import GlonassEphemeris, KeplerEphemeris
 
 __all__ = ["Geometry"]
@@ -67,6 +68,13 @@ class Geometry:
         #: (sats, version, t_orbit, geo rows, rates, all_known, source) of the last satellites
         #: seen when all were refreshed at one time and none fell back to GSV (module doc).
         self._same: tuple[Idx, int, float, F64, F64, bool, str] | None = None
+        #: Bumped when the receiver position is set: with the store's generation, the inputs of
+        #: an orbit evaluation besides the satellites and the time.
+        self._rx_version = 0
+        #: Orbit rows computed ahead (:meth:`prefetch`): (sats, t, inputs, rows, store marks
+        #: before and after).
+        self._ahead: tuple[Idx, float, tuple[int, int], F64, SelectionMark, SelectionMark] | None
+        self._ahead = None
 
     # -- inputs ---------------------------------------------------------------------------------
     def set_receiver_position(self, ecef_m: npt.ArrayLike, source: str) -> None:
@@ -79,6 +87,7 @@ class Geometry:
         lat, lon, _ = ecef_to_geodetic(xyz)
         self.lat_rad, self.lon_rad = float(lat), float(lon)
         self.version += 1
+        self._rx_version += 1
         if moved:
             self.t_orbit.fill(np.nan)
 
@@ -118,6 +127,8 @@ class Geometry:
         than ``refresh_s`` or a satellite has no cached value yet (one vectorised call; the
         ephemeris store's selection cache then hits for the unchanged satellite list).
         """
+        if self._ahead is not None and not self.refresh_due(sats, t_s):
+            self._rows_unused()  # evaluated ahead for a refresh that does not come
         same = self._same
         if same is not None and same[0] is sats and same[1] == self.version:
             dt_s = t_s - same[2]
@@ -175,8 +186,53 @@ class Geometry:
         geo[1::2] %= _TWO_PI_0D
         lon -= _PI_0D
 
+    # -- orbit evaluation ahead of time ---------------------------------------------------------
+    def refresh_due(self, sats: Idx, t_s: float) -> bool:
+        """Whether :meth:`lookup` of ``sats`` at ``t_s`` would re-evaluate the orbits now."""
+        if self.rx_ecef is None or not self.has_ephemeris or not sats.shape[0]:
+            return False
+        same = self._same
+        if same is not None and same[0] is sats and same[1] == self.version:
+            return abs(t_s - same[2]) > self.refresh_s
+        dt = np.abs(t_s - self.t_orbit.take(sats))
+        return bool(np.count_nonzero(dt <= self.refresh_s) < sats.shape[0])
+
+    def prefetch(self, sats: Idx, t_s: float) -> None:
+        """Evaluate now the orbit rows a refresh of ``sats`` at ``t_s`` will need (the daemon
+        does this in a station's deferred step, so the second that refreshes does not pay for
+        it). Used only if nothing they depend on changed meanwhile (receiver position, stored
+        ephemerides); otherwise they are evaluated again then and the store's counters are set
+        back as if this never ran: the results are the same bit for bit either way."""
+        if self.rx_ecef is None or not self.has_ephemeris:
+            return
+        if self._ahead is not None:
+            self._rows_unused()
+        before = self.store.mark()
+        rows = self._evaluate(sats, t_s)
+        self._ahead = (sats, t_s, self._inputs(), rows, before, self.store.mark())
+
+    def _inputs(self) -> tuple[int, int]:
+        return (self._rx_version, self.store.generation)
+
     def _rows(self, sats: Idx, t_s: float) -> F64:
-        """(m, 4) rows (el, az, pierce lat, lon) from the orbits at ``t_s`` (NaN where none)."""
+        """(m, 4) rows (el, az, pierce lat, lon) from the orbits at ``t_s`` (NaN where none),
+        evaluated ahead by :meth:`prefetch` when still valid."""
+        ahead = self._ahead
+        if ahead is not None:
+            if ahead[0] is sats and ahead[1] == t_s and ahead[2] == self._inputs():
+                self._ahead = None
+                return ahead[3]
+            self._rows_unused()
+        return self._evaluate(sats, t_s)
+
+    def _rows_unused(self) -> None:
+        """Drop the rows evaluated ahead, taking back what evaluating them did to the store (no
+        selection ran since: every orbit evaluation comes through here first)."""
+        ahead, self._ahead = self._ahead, None
+        if ahead is not None:
+            self.store.take_back(ahead[4], ahead[5])
+
+    def _evaluate(self, sats: Idx, t_s: float) -> F64:
         assert self.rx_ecef is not None
         sg = satellite_geometry(t_s, self.rx_ecef, sats, self.store)
         ok = sg.valid

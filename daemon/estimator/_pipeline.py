@@ -125,7 +125,13 @@ class StationPipeline:
 
     def settle(self) -> list[PipelineOutput]:
         """Do the deferred work (in the order it would have run undeferred) and return the
-        outputs it produces (fix reports of the deferred GGA/GST)."""
+        outputs it produces (fix reports of the deferred GGA/GST); then evaluate the orbits the
+        next epoch will refresh, if it does (``StationEstimator.prefetch``)."""
+        out = self._settle_deferred()
+        self.estimator.prefetch()
+        return out
+
+    def _settle_deferred(self) -> list[PipelineOutput]:
         self.estimator.settle()
         rest, self._deferred = self._deferred, []
         return self.handle(rest) if rest else []
@@ -152,7 +158,7 @@ class StationPipeline:
     def handle(self, messages: Iterable[object]) -> list[PipelineOutput]:
         """Route already-decoded messages; returns the snapshots and fix reports they produce
         (after those of any deferred work, which comes first)."""
-        out: list[PipelineOutput] = self.settle() if self._deferred else []
+        out: list[PipelineOutput] = self._settle_deferred() if self._deferred else []
         for msg in messages:
             res = self.handle_one(msg)
             if res is not None:

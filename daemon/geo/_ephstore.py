@@ -25,7 +25,7 @@ import datetime as _dt
 import itertools
 import math
 from dataclasses import dataclass, field
-from typing import Any, TypeAlias
+from typing import Any, NamedTuple, TypeAlias
 
 import numpy as np
 import numpy.typing as npt
@@ -114,6 +114,14 @@ class _Entry:
     serial: int  # unique per stored ephemeris: keys the cached batches
 
 
+class SelectionMark(NamedTuple):
+    """:meth:`EphemerisStore.mark`: reject counts (as ``_REASONS``), rebuilds, selection cache."""
+
+    rejects: tuple[int, ...]
+    rebuilds: int
+    selections: dict[bytes, Any]
+
+
 #: Selections and batches kept for recently requested satellite sets (a satellite that drops out
 #: for an epoch and comes back should not cost two rebuilds).
 _CACHE_SIZE = 8
@@ -195,6 +203,25 @@ class EphemerisStore:
         self._counts["added"] += 1
         self._generation += 1
         return True
+
+    @property
+    def generation(self) -> int:
+        """Bumped whenever the stored ephemerides change (a selection made before is stale)."""
+        return self._generation
+
+    def mark(self) -> SelectionMark:
+        """What :meth:`select` changes (its counters, the selection cache), for :meth:`take_back`."""
+        return SelectionMark(
+            tuple(self._counts[r] for r in _REASONS), self._rebuilds, dict(self._selections)
+        )
+
+    def take_back(self, before: SelectionMark, after: SelectionMark) -> None:
+        """Undo the selections made between two marks (a speculative evaluation whose result was
+        not used): their counts, and the selection cache as it was; ephemerides added since stay."""
+        for k, name in enumerate(_REASONS):
+            self._counts[name] -= after.rejects[k] - before.rejects[k]
+        self._rebuilds -= after.rebuilds - before.rebuilds
+        self._selections = dict(before.selections)
 
     def statistics(self) -> EphemerisStoreStatistics:
         c = self._counts

@@ -173,10 +173,14 @@ class FramingCore:
         return bool(self._later) or (self._unsettled is not None and self._unsettled())
 
     def settle(self) -> Sequence[object]:
-        out = list(self._settle()) if self._settle is not None else []
+        # The held frames first (the consumer settles its own deferred part before routing
+        # them), then whatever the consumer still has to do (its look-ahead work last).
         later, self._later = self._later, []
-        if later and self._consumer is not None:
-            out.extend(self._consumer.feed_frames(later))
+        out = (
+            list(self._consumer.feed_frames(later)) if later and self._consumer is not None else []
+        )
+        if self._settle is not None:
+            out.extend(self._settle())
         return out
 
     def frames_total(self) -> int:
