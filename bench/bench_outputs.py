@@ -327,6 +327,16 @@ async def bench_frames_synchronized(
         f"p99={pct(wait, 0.99):.2f} ms; own estimation median={statistics.median(e):.2f} ms; "
         f"snapshot -> summary PUBACK p50={pct(out, 0.5):.2f} ms p99={pct(out, 0.99):.2f} ms"
     )
+    last: dict[float, float] = {}  # the second's last PUBACK (its 20th station)
+    for (arr, _, _, _), x in zip(rows, ms, strict=True):
+        last[arr] = max(last.get(arr, 0.0), x)
+    per_s = sorted(last.values())
+    first = min(last)
+    worst = sorted(((x, round(a - first)) for a, x in last.items()), reverse=True)[:3]
+    print(
+        f"  last station of each second: median={statistics.median(per_s):.2f} ms, slowest "
+        + ", ".join(f"{x:.1f} ms (s {k + 1})" for x, k in worst)
+    )
 
 
 def bench_exporter(n_stations: int, n_sats: int, repeats: int = 50) -> None:
