@@ -37,6 +37,7 @@ from ionwarden.parsers._stream import StreamDecoder
 
 from .conftest import REAL_DATA
 from .test_nmea import NMEA_FILES, candidates
+from .test_stream_nmea import _sentence
 
 _WANTED = (None, frozenset(), frozenset({"GGA", "GST"}), frozenset({"GGA", "GST", "GSV"}))
 
@@ -46,14 +47,6 @@ def _sim_bytes(seconds: float) -> tuple[list[bytes], object]:
     chunk per second."""
     sc = build_scenario("quiet-day", duration_s=seconds)
     return [d for _, d in iter_stream(Simulator(sc), 0)], sc.start
-
-
-def _sentence(body: bytes, start: bytes = b"$") -> bytes:
-    """NMEA 0183 §5.3: start character, body, "*", XOR of the body as two hex digits, CR LF."""
-    ck = 0
-    for b in body:
-        ck ^= b
-    return start + body + b"*%02X\r\n" % ck
 
 
 _GGA = _sentence(b"GPGGA,092725.00,4717.11399,N,00833.91590,E,1,08,1.01,499.6,M,48.0,M,,")

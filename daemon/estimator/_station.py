@@ -152,11 +152,7 @@ def station_figures(
         wu = np.multiply(sin_el, sin_el) if w is None else w
         vu = vtec
     else:
-        if w is None:
-            wu = sin_el[use]
-            wu *= wu
-        else:
-            wu = w[use]
+        wu = _squared_at(sin_el, use) if w is None else w[use]
         vu = vtec[use]
     wu_sum = np.add.reduce(wu)  # wu.sum() without its Python wrapper
     vtec_st = float(wu @ vu / wu_sum) if n_use else math.nan
@@ -176,11 +172,7 @@ def station_figures(
         elif n_fit == n_use:  # fit is use: the weights and their sum of the VTEC mean
             ge, gn = _plane_slopes(wu, pts[:, use], wu_sum)
         else:
-            if w is None:
-                wf = sin_el[fit]
-                wf *= wf
-            else:
-                wf = w[fit]
+            wf = _squared_at(sin_el, fit) if w is None else w[fit]
             ge, gn = _plane_slopes(wf, pts[:, fit])
         if math.isfinite(ge):
             g_t = math.hypot(ge, gn)
@@ -220,6 +212,13 @@ def _max_median(roti: F64, above: npt.NDArray[np.bool_], subset: bool) -> tuple[
     if not n:
         return math.nan, math.nan
     return r.item(n - 1), 0.5 * (r.item((n - 1) // 2) + r.item(n // 2))
+
+
+def _squared_at(x: F64, sel: npt.NDArray[np.bool_]) -> F64:
+    """x[sel]² (a new array)."""
+    out = x[sel]
+    out *= out
+    return out
 
 
 def _plane_slopes(w: F64, xyv: F64, w_sum: np.float64 | None = None) -> tuple[float, float]:
