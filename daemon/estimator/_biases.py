@@ -60,7 +60,7 @@ import numpy.typing as npt
 from ionwarden.parsers import SYSTEMS, sat_id, sat_name
 
 from ._pairs import C_MPS
-from ._rxbias import N_VTEC, ReceiverBias, match_ids
+from ._rxbias import N_VTEC, ReceiverBias, match_ids, same_ids
 
 if TYPE_CHECKING:
     from ionwarden.daemon.config import EstimatorSettings
@@ -241,7 +241,7 @@ class BiasModel:
         fit = self.sat_known[idx, rank]
         self.fit_all = bool(np.count_nonzero(fit) < _MIN_FIT)
         other = np.zeros(m, np.bool_) if self.fit_all else ~fit
-        n_sys = int(np.unique(group[~other]).shape[0])
+        n_sys = int(np.count_nonzero(np.bincount(group[~other])))  # distinct system groups
         if other.any():
             group = group.copy()
             s_o, r_o = idx[other], rank[other]
@@ -263,7 +263,7 @@ class BiasModel:
         if ok and other.any():
             self.comb_count *= math.exp(-self.update_s / self.memory_s)
             self.comb_count[s_o, r_o] += 1.0
-        redundant = m - N_VTEC - np.unique(group).shape[0] >= _ARC_CORR_MIN_DOF
+        redundant = m - N_VTEC - self.rx.last_n_groups >= _ARC_CORR_MIN_DOF  # groups of `group`
         if ok and arc is not None and arc_var is not None and redundant:
             # Only where the fit is good enough to apply the group's receiver bias: an arc's
             # offset is relative to the surface and bias it was fitted with.
@@ -287,21 +287,33 @@ class BiasModel:
         if self._pool.shape[1] < g_n:
             self._pool = np.pad(self._pool, ((0, 0), (0, g_n - self._pool.shape[1])))
         self._pool *= math.exp(-max(dt, 0.0) / self.memory_s)
-        sums = np.zeros(m)
-        cnt = np.zeros(m)
-        if self._nz_id.shape[0]:
-            found, rows = match_ids(self._nz_id, arc)
-            sums[found] = self._nz_sum[rows]
-            cnt[found] = self._nz_cnt[rows]
-            dn = n[found] - self._nz_n[rows]
+        if same_ids(self._nz_id, arc):
+            # the same arcs in the same order (the usual case): as below without the gathers
+            dn = n - self._nz_n
             step = dn > 0.0
             dn = np.where(step, dn, 1.0)
-            u = (level[found] - self._nz_lev[rows]) * n[found] / dn
+            u = (level - self._nz_lev) * n / dn
             v = np.where(step, u * u * dn, 0.0)
-            sums[found] += v
-            cnt[found] += step
-            np.add.at(self._pool[0], group[found], v * w[found])
-            np.add.at(self._pool[1], group[found], step.astype(np.float64))
+            sums = self._nz_sum + v
+            cnt = self._nz_cnt + step
+            np.add.at(self._pool[0], group, v * w)
+            np.add.at(self._pool[1], group, step.astype(np.float64))
+        else:
+            sums = np.zeros(m)
+            cnt = np.zeros(m)
+            if self._nz_id.shape[0]:
+                found, rows = match_ids(self._nz_id, arc)
+                sums[found] = self._nz_sum[rows]
+                cnt[found] = self._nz_cnt[rows]
+                dn = n[found] - self._nz_n[rows]
+                step = dn > 0.0
+                dn = np.where(step, dn, 1.0)
+                u = (level[found] - self._nz_lev[rows]) * n[found] / dn
+                v = np.where(step, u * u * dn, 0.0)
+                sums[found] += v
+                cnt[found] += step
+                np.add.at(self._pool[0], group[found], v * w[found])
+                np.add.at(self._pool[1], group[found], step.astype(np.float64))
         self._nz_id = np.asarray(arc, np.int64).copy()
         self._nz_n = np.asarray(n, np.float64).copy()
         self._nz_lev = np.asarray(level, np.float64).copy()
@@ -336,7 +348,9 @@ class BiasModel:
             self.comb_applied[s_g, r_g] = np.where(ready, self.rx.bias[grp], np.nan)
         self.version += 1
         sys_sig = sig[:n_sys]
-        self.ref_group = int(np.nanargmin(sys_sig)) if np.isfinite(sys_sig).any() else -1
+        finite = np.isfinite(sys_sig)
+        # np.nanargmin's pick (the first smallest σ; NaN means unknown)
+        self.ref_group = int(np.where(finite, sys_sig, np.inf).argmin()) if finite.any() else -1
 
     def state_dict(self) -> dict[str, Any]:
         """The receiver-bias normal equations (per-satellite groups by label, e.g. "R05:1C-2C")

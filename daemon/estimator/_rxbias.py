@@ -85,7 +85,7 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 
-__all__ = ["N_VTEC", "ReceiverBias", "match_ids"]
+__all__ = ["N_VTEC", "ReceiverBias", "match_ids", "same_ids"]
 
 F64 = npt.NDArray[np.float64]
 _PRIOR_SIGMA_TECU = 100.0
@@ -97,9 +97,16 @@ N_VTEC = 6
 _VTEC_RW = np.array([3.0, 3.0, 3.0, 0.25, 0.25, 0.25]) ** 2 / 3600.0
 #: Prior σ of the curvature coefficients a3…a5, TECU per (1000 km)² (see the module doc).
 _CURVATURE_SIGMA = 1.4
+_VTEC_COLS = np.arange(N_VTEC)
 #: Version of :meth:`ReceiverBias.state_dict` (1: reduced bias normal equations, plane model;
 #: 2: full normal equations of (coefficients, biases)).
 STATE_VERSION = 2
+
+
+def same_ids(known: npt.NDArray[np.int64], ids: npt.NDArray[np.int64]) -> bool:
+    """Whether ``ids`` are ``known``, in the same order: the usual case between two updates (no
+    arc opened or closed), where :func:`match_ids` would find every id at its own row."""
+    return known.shape == ids.shape and bool(np.array_equal(known, ids))
 
 
 def match_ids(
@@ -134,6 +141,8 @@ class ReceiverBias:
         self.vtec_coef = np.full(p, np.nan)
         self._x = np.zeros(p + g)  # last solution (coefficients, biases)
         self._sd_unit = np.full(g, np.nan)  # σ of each group for unit scatter
+        self.last_n_groups = 0  # groups in the last epoch given to :meth:`add_epoch`
+        self._prior = np.zeros(0)  # prior information of each parameter (see :meth:`_solve`)
         # Open arcs: id, Σ w·h of their observations so far (transformed like ``rhs``), the
         # levelling offset their y carried (see :meth:`add_epoch`), their own information block
         # (Σ w and cross terms, Σ w·y) and the prior variance of their levelling error (0: none).
@@ -177,6 +186,18 @@ class ReceiverBias:
             axis=1,
         )
 
+    @staticmethod
+    def _design_into(h: F64, mapping: F64, x_km: F64, y_km: F64) -> None:
+        """:meth:`_design` written into the first ``N_VTEC`` columns of ``h`` (same values)."""
+        x = x_km / 1000.0
+        y = y_km / 1000.0
+        h[:, 0] = mapping
+        np.multiply(mapping, x, out=h[:, 1])
+        np.multiply(mapping, y, out=h[:, 2])
+        np.multiply(h[:, 1], x, out=h[:, 3])
+        np.multiply(h[:, 1], y, out=h[:, 4])
+        np.multiply(h[:, 2], y, out=h[:, 5])
+
     def vtec_model(self, mapping: F64, x_km: F64, y_km: F64) -> F64:
         """Slant TEC of the last fitted epoch's VTEC surface at these pierce points (TECU)."""
         return np.asarray(self._design(mapping, x_km, y_km) @ self.vtec_coef, dtype=np.float64)
@@ -195,7 +216,8 @@ class ReceiverBias:
         p = N_VTEC
         q = _VTEC_RW * max(dt, 1e-3)
         col = self.normal[:, :p]
-        s = self.normal[:p, :p] + np.diag(1.0 / q)
+        s = self.normal[:p, :p].copy()
+        s.flat[:: p + 1] += 1.0 / q
         arc_p = self._arc_h[:, :p]
         try:
             k = np.linalg.solve(s, np.concatenate((col, arc_p)).T)  # (p, p+G+A)
@@ -252,21 +274,29 @@ class ReceiverBias:
             self._predict(max(t - self.last_t, 0.0))
         self.last_t = t
         p = N_VTEC
-        a = self._design(mapping, x_km, y_km)
-        groups, gi = np.unique(group, return_inverse=True)
-        cols = np.concatenate((np.arange(p), p + groups))
-        h = np.zeros((m, p + groups.shape[0]))
-        h[:, :p] = a
-        h[np.arange(m), p + gi] = 1.0
+        # the epoch's groups, sorted, and each satellite's rank among them (np.unique's, from a
+        # table over the group slots: groups are small non-negative ints)
+        mark = np.zeros(self.rhs.shape[0] - p, np.intp)
+        mark[group] = 1
+        rank = np.cumsum(mark)
+        groups = np.flatnonzero(mark)
+        n_grp = groups.shape[0]
+        cols = np.empty(p + n_grp, np.intp)
+        cols[:p] = _VTEC_COLS
+        cols[p:] = groups
+        cols[p:] += p
+        h = np.zeros((m, p + n_grp))
+        self._design_into(h, mapping, x_km, y_km)
+        h[np.arange(m), p - 1 + rank[group]] = 1.0
         hw = h * weight[:, None]
-        ix = np.ix_(cols, cols)
-        self.normal[ix] += hw.T @ h
+        self.normal[cols[:, None], cols] += hw.T @ h
         self.rhs[cols] += hw.T @ y
+        self.last_n_groups = n_grp
         if arc is not None and level is not None:
             var = np.zeros(m) if arc_var is None else np.asarray(arc_var, np.float64)
             assert arc.shape == level.shape == var.shape == (m,)
             self._relevel(arc, level, cols, hw)
-            self._arc_n[np.diag_indices(m)] += weight
+            self._arc_n.flat[:: m + 1] += weight
             self._arc_r += weight * y
             self._arc_var = np.where(np.isfinite(var) & (var > 0.0), var, 0.0)
         if not self._solve():
@@ -279,7 +309,7 @@ class ReceiverBias:
             re = self._arc_var > 0.0
             self.sq_res += float(np.sum(self.arc_offset[re] ** 2 / self._arc_var[re]))
         self.sq_res += float(np.sum(weight * res * res))
-        n_g = groups.shape[0] if n_epoch_groups is None else n_epoch_groups
+        n_g = n_grp if n_epoch_groups is None else n_epoch_groups
         self.dof += max(m - p - n_g, 0)
         self._scale_sigma()  # with this epoch's scatter, as a reload from a checkpoint gives
         self.vtec_coef = self._x[:p].copy()
@@ -291,6 +321,14 @@ class ReceiverBias:
         """Close the arcs absent from this epoch, re-level the open arcs' earlier observations
         and add this epoch's to their sums (rows re-ordered as ``arc``)."""
         m = arc.shape[0]
+        if same_ids(self._arc_id, arc):
+            # the same arcs in the same order (the usual case): no arc closes, rows unchanged
+            d = level - self._arc_lev
+            self.rhs += self._arc_h.T @ d
+            self._arc_r = self._arc_r + self._arc_n @ d
+            self._arc_h[:, cols] += hw
+            self._arc_lev = np.asarray(level, np.float64).copy()
+            return
         new_h = np.zeros((m, self.rhs.shape[0]))
         new_n = np.zeros((m, m))
         new_r = np.zeros(m)
@@ -347,37 +385,61 @@ class ReceiverBias:
     def _solve(self) -> bool:
         p = N_VTEC
         n_all = self.normal.shape[0]
-        diag = np.diag(self.normal)
-        used = diag > 0
+        used = self.normal.diagonal() > 0
         used[:p] = True
-        prior = np.full(n_all, 1.0 / _PRIOR_SIGMA_TECU**2)
-        prior[:p] = 1.0 / _PRIOR_VTEC_SIGMA**2
-        prior[3:p] = 1.0 / _CURVATURE_SIGMA**2
+        prior = self._prior
+        if prior.shape[0] != n_all:
+            prior = np.full(n_all, 1.0 / _PRIOR_SIGMA_TECU**2)
+            prior[:p] = 1.0 / _PRIOR_VTEC_SIGMA**2
+            prior[3:p] = 1.0 / _CURVATURE_SIGMA**2
+            self._prior = prior
         sel = np.flatnonzero(used)
+        n_sel = sel.shape[0]
         normal, rhs = self.normal, self.rhs
-        re = np.flatnonzero(self._arc_var > 0.0)
-        if re.shape[0]:  # eliminate the arcs' levelling errors (random effects)
-            h_a = self._arc_h[re]
-            m_a = self._arc_n[np.ix_(re, re)] + np.diag(1.0 / self._arc_var[re])
+        arc_var = self._arc_var
+        n_arc = arc_var.shape[0]
+        re = np.flatnonzero(arc_var > 0.0)
+        n_re = re.shape[0]
+        # Only the used parameters (``sel``) are solved for: the others are 0 with NaN variance.
+        n = normal[sel[:, None], sel]
+        if n_re:  # eliminate the arcs' levelling errors (random effects)
+            # M_a⁻¹ (h_a, r_a) for the used columns of h_a only (the solve is column by column)
+            if n_re == n_arc:  # all of them (the usual case): no row gather
+                h_a = self._arc_h
+                r_a = self._arc_r
+                m_a = self._arc_n.copy()
+                m_a.flat[:: n_re + 1] += 1.0 / arc_var
+            else:
+                h_a = self._arc_h[re]
+                r_a = self._arc_r[re]
+                m_a = self._arc_n[re[:, None], re]
+                m_a.flat[:: n_re + 1] += 1.0 / arc_var[re]
+            b = np.empty((n_re, n_sel + 1))
+            b[:, :n_sel] = h_a[:, sel]
+            b[:, n_sel] = r_a
             try:
-                sol = np.linalg.solve(m_a, np.column_stack((h_a, self._arc_r[re])))
+                sol = np.linalg.solve(m_a, b)
             except np.linalg.LinAlgError:
                 return False
-            normal = normal - h_a.T @ sol[:, :-1]
+            # Schur complement: the used block only; the two matrix-vector products (here and
+            # for arc_offset) keep all columns, as the general path's rounding depends on them
+            n -= b[:, :n_sel].T @ sol[:, :n_sel]
             rhs = rhs - h_a.T @ sol[:, -1]
-        n = normal[np.ix_(sel, sel)] + np.diag(prior[sel])
+        n.flat[:: n_sel + 1] += prior[sel]
         try:
             cov = np.linalg.inv(n)
         except np.linalg.LinAlgError:
             return False
         x = np.zeros(n_all)
         x[sel] = cov @ rhs[sel]
-        self.arc_offset = np.zeros(self._arc_id.shape[0])
-        if re.shape[0]:
-            self.arc_offset[re] = sol[:, -1] - sol[:, :-1] @ x
+        self.arc_offset = np.zeros(n_arc)
+        if n_re:
+            sol_x = np.zeros((n_re, n_all))  # M_a⁻¹ h_a, 0 in the unused columns (x is 0 there)
+            sol_x[:, sel] = sol[:, :n_sel]
+            self.arc_offset[re] = sol[:, -1] - sol_x @ x
         self._x = x
         var = np.full(n_all, np.nan)
-        var[sel] = np.diag(cov)
+        var[sel] = cov.diagonal()
         self.bias = x[p:].copy()
         self.bias[~used[p:]] = 0.0
         self._sd_unit = np.sqrt(var[p:])  # NaN for unused groups
