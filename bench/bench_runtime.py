@@ -68,8 +68,8 @@ def pipeline_only(data: bytes) -> None:
 
 
 def factory(cfg: StationConfig) -> StationBundle:
-    pipe = StationPipeline(cfg.name, EstimatorSettings())
-    return StationBundle(core=FramingCore(consumer=pipe), produces_epochs=True)
+    pipe = StationPipeline(cfg.name, EstimatorSettings(), defer=True)  # as make_factory builds it
+    return StationBundle(core=FramingCore(consumer=pipe, defer=True), produces_epochs=True)
 
 
 async def _receiver(data: bytes, writer: asyncio.StreamWriter, stop: asyncio.Event) -> None:
