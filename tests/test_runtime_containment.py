@@ -172,3 +172,39 @@ def test_station_summarises_suppressed_pipeline_errors_after_the_log_interval(
     failed = [r.getMessage() for r in caplog.records if "pipeline step failed" in r.getMessage()]
     assert len(failed) == 2  # epoch 1 logged, 2 suppressed, 4 logged 300 s later with the count
     assert "1 more like it in the last 300 s" in failed[1]
+
+
+def test_station_counts_a_decode_error_of_its_deferred_step_as_a_decode_error(
+    tmp_path: Path,
+) -> None:
+    """The deferred step (``settle``: it decodes the frames held back after an epoch) is contained
+    like the step itself: a ParseError there counts as a decode error, not a pipeline failure,
+    and the station runs on."""
+    from ionwarden.daemon.errors import ParseError
+
+    class DeferringCore(StandInCore):
+        def __init__(self) -> None:
+            super().__init__()
+            self.pending = False
+            self.settled = 0
+
+        def feed_frames(self, frames: Any) -> list[object]:
+            self.pending = True
+            return super().feed_frames(frames)
+
+        def unsettled(self) -> bool:
+            return self.pending
+
+        def settle(self) -> list[object]:
+            self.pending = False
+            self.settled += 1
+            if self.settled == 2:
+                raise ParseError("bad sentence in the held-back frames", message_id="NMEA")
+            return []
+
+    core = DeferringCore()
+    runner = run_virtual(_run_station(_cfg("st1", _capture(tmp_path, "a", 5)), core))
+    st = runner.statistics()
+    assert _seqs(core) == [0, 1, 2, 3, 4]
+    assert core.settled == 5
+    assert (st.decode_errors_total, st.pipeline_errors_total) == (1, 0)

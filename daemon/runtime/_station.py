@@ -48,7 +48,7 @@ from ._stall import StallDetector, StallKind, StallLimits
 
 if TYPE_CHECKING:
     import random
-    from collections.abc import Awaitable, Callable, Iterator
+    from collections.abc import Awaitable, Callable, Iterator, Sequence
 
     from ionwarden.daemon.ingest import SourceSpec, Transport
 
@@ -446,9 +446,20 @@ class StationRunner:
     def _step(self, chunk: bytes | None, arrived: float | None) -> float:
         """Feed one chunk (``None``: the stream broke or ended) and emit the outputs, containing
         any failure (module docstring); return the replay pacing delay (s)."""
+        return self._contained(
+            self.core.end_stream if chunk is None else lambda: self.core.feed(chunk), arrived
+        )
+
+    def _settle(self) -> None:
+        """The deferred part of the last step (``StationCore.settle``: it decodes the frames held
+        back, so its decode errors count as such), contained like a step."""
+        self._contained(self.core.settle, None)
+
+    def _contained(self, work: Callable[[], Sequence[object]], arrived: float | None) -> float:
+        """Run ``work`` (decode and estimate) and emit its outputs, containing any failure."""
         try:
             try:
-                outputs = self.core.end_stream() if chunk is None else self.core.feed(chunk)
+                outputs = work()
             except TOLERATED_DECODE_ERRORS as exc:
                 self._decode_errors += 1
                 self._log_limited(
@@ -463,15 +474,6 @@ class StationRunner:
             return 0.0
         self._failing_steps = 0
         return delay
-
-    def _settle(self) -> None:
-        """The deferred part of the last step (``StationCore.settle``), contained like a step."""
-        try:
-            self._handle(self.core.settle())
-        except UNCONTAINED_ERRORS:
-            raise
-        except Exception as exc:
-            self._pipeline_failed(exc)
 
     def _pipeline_failed(self, exc: Exception) -> None:
         self._pipeline_errors += 1
