@@ -21,7 +21,7 @@ Rows 0–1 plus rows 2–3 give the rough range and the rate; the formulas are t
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, fields
 from typing import TYPE_CHECKING, Final
 
 import numpy as np
@@ -58,10 +58,43 @@ _SAT_ROWS: Final = frozenset({"DF397", "DF398", "DF399"})
 #: Most epochs of one layout decoded together (bounds the temporaries: ~30 kB per epoch of 120
 #: cells).
 _MAX_BATCH: Final = 64
+#: Elements (epochs × ``_NROWS`` × cells) of one batch of several epochs at most: the layout's
+#: per-element arrays are repeated for each epoch of the batch (``_tiles``, ~32 bytes per
+#: element), so that every operation runs on arrays of one shape (numpy's plain loops; mixing a
+#: layout row broadcast over epochs with a cast goes through its buffered iterator, which copies
+#: the broadcast operand epoch by epoch). A batch holds at least one epoch.
+_MAX_BATCH_ELEMENTS: Final = 8192
+#: Repeated layouts kept, by (layout, epochs); cleared when full. Several epochs per feed come
+#: from replayed files and large reads, which use one or two batch sizes per layout.
+_MAX_TILES: Final = 8
 _BE32: Final = np.dtype(">u4")
 #: "No invalid code" in 32 bits: a value no ≤ 24-bit field takes.
 _NO_INVALID: Final = 1 << 30
-_STEP: Final = np.arange(_MAX_BATCH, dtype=np.intp)
+#: Epoch j's first byte in the messages of a batch laid end to end is j × (bytes per epoch).
+_STEP: Final = np.arange(_MAX_BATCH, dtype=np.intp).reshape(1, _MAX_BATCH, 1)
+
+# Hot-path construction (one ObsEpoch per epoch): the frozen dataclass's generated ``__init__``
+# stores each field with ``object.__setattr__(self, name, value)`` (a lookup by name every time)
+# and then calls ``__post_init__``, which returns at once for ``_validate=False``; these store
+# the same values through the slot descriptors directly, as ``_framer`` does for its frames.
+# Same type, same fields, equal values: tests/test_decode_speed_epoch.py.
+_NEW = object.__new__
+_EPOCH_SLOTS: Final = {f.name: vars(ObsEpoch)[f.name].__set__ for f in fields(ObsEpoch)}
+_SET_TIME = _EPOCH_SLOTS["time"]
+_SET_STATION = _EPOCH_SLOTS["station_id"]
+_SET_SAT = _EPOCH_SLOTS["sat"]
+_SET_SIG = _EPOCH_SLOTS["sig"]
+_SET_PR = _EPOCH_SLOTS["pseudorange_m"]
+_SET_PHASE = _EPOCH_SLOTS["phase_cycles"]
+_SET_RATE = _EPOCH_SLOTS["range_rate_mps"]
+_SET_CN0 = _EPOCH_SLOTS["cn0_dbhz"]
+_SET_LOCK_S = _EPOCH_SLOTS["lock_time_s"]
+_SET_LOCK_IND = _EPOCH_SLOTS["lock_indicator"]
+_SET_HALF = _EPOCH_SLOTS["half_cycle"]
+_SET_LLI = _EPOCH_SLOTS["lli"]
+_SET_FREQ = _EPOCH_SLOTS["freq_hz"]
+_SET_SOURCES = _EPOCH_SLOTS["sources"]
+_SET_VALIDATE = _EPOCH_SLOTS["_validate"]
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -243,8 +276,9 @@ def decode_epochs(
             if len(_LAYOUTS) >= _MAX_EPOCH_LAYOUTS:
                 _LAYOUTS.clear()
             lay = _LAYOUTS[key] = _build(epochs[members[0]][0])
-        for at in range(0, len(members), _MAX_BATCH):
-            part = members[at : at + _MAX_BATCH]
+        batch = min(_MAX_BATCH, max(1, _MAX_BATCH_ELEMENTS // max(1, _NROWS * lay.n)))
+        for at in range(0, len(members), batch):
+            part = members[at : at + batch]
             _decode_group(lay, [epochs[k] for k in part], out, part)
         duplicates += lay.duplicates * len(members)
     return out, duplicates
@@ -274,6 +308,51 @@ def _glo_columns(lay: _EpochLayout, heads: Sequence[MsmHead]) -> tuple[_F64, _F6
     return f, mult
 
 
+@dataclass(frozen=True, slots=True, eq=False)
+class _Tiles:
+    """A layout's per-element arrays for a batch of k epochs, ordered (row, epoch, cell): each
+    row's values repeated for every epoch, the byte positions moved on by the epoch's offset
+    into the messages laid end to end."""
+
+    bytepos: _IDX
+    lsh: npt.NDArray[np.uint32]
+    rsh: npt.NDArray[np.int32]
+    mask: npt.NDArray[np.int32]
+    invalid: npt.NDArray[np.int32]
+    scale: _F64
+    #: (pseudorange, phase) multipliers, (2, k, n); GLONASS FDMA layouts fill theirs per batch.
+    mult: _F64
+
+
+_TILES: dict[tuple[_EpochLayout, int], _Tiles] = {}
+
+
+def _tiles(lay: _EpochLayout, k: int) -> _Tiles:
+    hit = _TILES.get((lay, k))
+    if hit is not None:
+        return hit
+    n = lay.n
+
+    # Private to this module, never handed out; left writeable all the same, because ``take``
+    # copies an index array that is not (numpy asks for a well-behaved, writeable one).
+    def rep(a: npt.NDArray[np.generic], rows: int = _NROWS) -> npt.NDArray[np.generic]:
+        return np.repeat(a.reshape(rows, 1, n), k, axis=1).ravel()
+
+    pos = (lay.bytepos.reshape(_NROWS, 1, n) + _STEP[:, :k] * lay.nbytes).ravel()
+    if len(_TILES) >= _MAX_TILES:
+        _TILES.clear()
+    hit = _TILES[lay, k] = _Tiles(
+        bytepos=pos,
+        lsh=rep(lay.lsh),  # type: ignore[arg-type]
+        rsh=rep(lay.rsh),  # type: ignore[arg-type]
+        mask=rep(lay.mask),  # type: ignore[arg-type]
+        invalid=rep(lay.invalid),  # type: ignore[arg-type]
+        scale=rep(lay.scale),  # type: ignore[arg-type]
+        mult=rep(lay.mult, 2).reshape(2, k, n),  # type: ignore[arg-type]
+    )
+    return hit
+
+
 def _decode_group(
     lay: _EpochLayout,
     epochs: list[tuple[Sequence[MsmHead], GpsTime, int]],
@@ -287,55 +366,59 @@ def _decode_group(
     # (32-bit words: every field is ≤ 24 bits and starts ≤ 7 bits into its first byte.)
     buf = b"".join([h.payload for heads, _, _ in epochs for h in heads] + [_PAD])
     words = np.ndarray((len(buf) - 3,), _BE32, buf, 0, (1,))
-    pos = lay.bytepos if k == 1 else np.add.outer(_STEP[:k] * lay.nbytes, lay.bytepos)
-    left = np.left_shift(words.take(pos), lay.lsh, dtype=np.uint32)
-    raw = left.view(np.int32) >> lay.rsh
-    raw &= lay.mask
-    val = raw * lay.scale
-    val[raw == lay.invalid] = np.nan
-    v = val.reshape(k, _NROWS, n)
-    r = raw.reshape(k, _NROWS, n)
+    # Elements in (row, epoch, cell) order: a row of every epoch is one contiguous block.
+    t: _EpochLayout | _Tiles = lay if k == 1 else _tiles(lay, k)
+    left = np.left_shift(words.take(t.bytepos), t.lsh, dtype=np.uint32)
+    raw = left.view(np.int32) >> t.rsh
+    raw &= t.mask
+    val = raw * t.scale
+    val[raw == t.invalid] = np.nan
+    v = val.reshape(_NROWS, k, n)
+    r = raw.reshape(_NROWS, k, n)
 
     # §3.5.12.3–4: rough + fine values. Rows 0–1 plus rows 2–3 give the rough range (ms) and
     # the phase-range rate (m/s); fine pseudorange and phase range (rows 4–5) plus the rough
     # range, times c/1000 and f/1000, give metres and cycles.
-    rough_rate = v[:, 0:2] + v[:, 2:4]
-    ranges = v[:, 4:6] + rough_rate[:, 0:1]
+    rough_rate = v[0:2] + v[2:4]
+    ranges = v[4:6] + rough_rate[0]
     freq = [lay.freq_hz] * k
     if lay.glo_pos.shape[0]:
         per_epoch = [_glo_columns(lay, heads) for heads, _, _ in epochs]
         if k == 1:
-            freq[0], mult = per_epoch[0]  # (2, n) broadcast over the one epoch: same products
+            freq[0], mult = per_epoch[0]
+            mult = mult.reshape(2, 1, n)  # (2, n) over the one epoch: the same products
         else:
-            mult = np.empty((k, 2, n))
+            mult = np.empty((2, k, n))
             for j, (f, m) in enumerate(per_epoch):
-                mult[j] = m
+                mult[:, j] = m
                 freq[j] = f
         ranges *= mult
     else:
-        ranges *= lay.mult
-    cn0 = v[:, 6].astype(np.float32)
-    lock_raw = r[:, 7]
+        ranges *= lay.mult.reshape(2, 1, n) if k == 1 else t.mult
+    cn0 = v[6].astype(np.float32)
+    lock_raw = r[7]
     lock_s = lay.lock_table.take(
         lock_raw if lay.lock_offset is None else lock_raw + lay.lock_offset
     )
     lock_ind = lock_raw.astype(np.int16)
-    half = r[:, 8].astype(np.bool_)
+    half = r[8].astype(np.bool_)
+    sat, sig, lli, sources = lay.sat, lay.sig, lay.lli, lay.sources
     for j, (_, time, station) in enumerate(epochs):
-        out[where[j]] = ObsEpoch(
-            time=time,
-            station_id=station,
-            sat=lay.sat,
-            sig=lay.sig,
-            pseudorange_m=ranges[j, 0],
-            phase_cycles=ranges[j, 1],
-            range_rate_mps=rough_rate[j, 1],
-            cn0_dbhz=cn0[j],
-            lock_time_s=lock_s[j],
-            lock_indicator=lock_ind[j],
-            half_cycle=half[j],
-            lli=lay.lli,
-            freq_hz=freq[j],
-            sources=lay.sources,
-            _validate=False,
-        )
+        # ObsEpoch(time=…, station_id=…, …, _validate=False), field by field (see _EPOCH_SLOTS)
+        epoch = _NEW(ObsEpoch)
+        _SET_TIME(epoch, time)
+        _SET_STATION(epoch, station)
+        _SET_SAT(epoch, sat)
+        _SET_SIG(epoch, sig)
+        _SET_PR(epoch, ranges[0, j])
+        _SET_PHASE(epoch, ranges[1, j])
+        _SET_RATE(epoch, rough_rate[1, j])
+        _SET_CN0(epoch, cn0[j])
+        _SET_LOCK_S(epoch, lock_s[j])
+        _SET_LOCK_IND(epoch, lock_ind[j])
+        _SET_HALF(epoch, half[j])
+        _SET_LLI(epoch, lli)
+        _SET_FREQ(epoch, freq[j])
+        _SET_SOURCES(epoch, sources)
+        _SET_VALIDATE(epoch, False)
+        out[where[j]] = epoch

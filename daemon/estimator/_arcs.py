@@ -28,6 +28,7 @@ from dataclasses import dataclass
 import numpy as np
 import numpy.typing as npt
 
+from ._npfast import count_nonzero as _count_nonzero
 from ._state import (
     ARC,
     DT,
@@ -59,6 +60,8 @@ __all__ = ["ArcBlock", "ArcState", "SlipThresholds"]
 F64 = npt.NDArray[np.float64]
 Idx = npt.NDArray[np.intp]
 Bool = npt.NDArray[np.bool_]
+# Ufuncs on the per-epoch paths take ``out`` positionally (a keyword costs ~250 instructions;
+# not np.maximum: deprecated there).
 
 #: Reasons, as bits of the per-satellite ``reason`` array (for counters and diagnostics).
 REASON_FIRST = 1
@@ -116,10 +119,11 @@ class ArcBlock:
     caller wants differenced too (read back from ``diff[2:]``).
     """
 
-    __slots__ = ("absres", "d", "diff", "div", "dt", "g", "jump", "last_t", "level",
-                 "level_step", "low_thr", "mw_floor", "mw_thr", "mw_var", "n", "n_ref", "pred",
-                 "prev", "prev_id", "prev_lock", "rate", "ref", "res", "res_gf", "scr", "scr_dt",
-                 "scr_flags", "scr_id", "scr_lock", "sq", "upd", "var", "x")  # fmt: skip
+    __slots__ = ("absres", "cur", "cur_id", "cur_lock", "d", "diff", "div", "dt", "g", "jump",
+                 "last_t", "level", "level_step", "low_thr", "mw_floor", "mw_thr", "mw_var", "n",
+                 "n_ref", "pred", "prev", "prev_id", "prev_lock", "prod", "rate", "ref", "res",
+                 "res_gf", "scr", "scr_dt", "scr_flags", "scr_id", "scr_lock", "sq", "upd", "var",
+                 "x")  # fmt: skip
 
     def __init__(self, g: F64, n_ref: int = 2) -> None:
         d = g.shape[1]
@@ -140,8 +144,14 @@ class ArcBlock:
         self.var = g[GF_VAR : MW_VAR + 1]
         self.mw_var, self.mw_thr, self.mw_floor = g[MW_VAR], g[MW_THR], g[MW_FLOOR]
         self.low_thr = g[GF_LOW : MW_THR + 1]  # (GF bound, MW threshold)
-        self.absres, self.sq, self.x = (np.empty((2, d)) for _ in range(3))
-        self.level_step = np.empty(d)
+        self.absres = np.empty((2, d))
+        # The residuals times their weights (one product, see ``ArcState._weights``): the
+        # scatters' (GF, MW), the (GF rate, MW mean) updates' and the GF level's (row 2, 0).
+        self.prod = np.empty((3, 2, d))
+        self.sq, self.x, self.level_step = self.prod[0], self.prod[1], self.prod[2, 0]
+        #: The caller's ``cur`` (7, d) the views below were made of (None: not yet).
+        self.cur: F64 | None = None
+        self.cur_id = self.cur_lock = self.absres  # placeholders, set with ``cur``
         self.jump = np.empty((2, d), np.bool_)
         # Screen flags: pair rank or half-cycle flag changed, lock indicator or time went
         # down (7 rows), previous sample recent enough (1 row).
@@ -162,11 +172,13 @@ class ArcState:
         # Constants as 0-d arrays (a Python float operand costs a conversion per numpy call).
         self._gf_k = np.array(th.gf_k_sigma)
         self._mw_k = np.array(th.mw_k_sigma)
-        self._w = np.array(th.ema_weight)
         self._keep_w = np.array(1.0 - th.ema_weight)
-        self._level_w = np.array(th.level_weight)
-        #: Weights of the (GF, MW) residuals in the (GF rate, MW mean) updates: (b, 1).
-        self._upd_w = np.array([[th.rate_weight], [1.0]])
+        #: Weights of the (GF, MW) residuals, as one (3, 2, 1) operand: in the scatters (w, w),
+        #: the (GF rate, MW mean) updates (b, 1) and the GF level (level weight; the MW product
+        #: of that row is not used).
+        self._weights = np.array(
+            [[[th.ema_weight]] * 2, [[th.rate_weight], [1.0]], [[th.level_weight]] * 2]
+        )
         self._floor_per_s = np.array(th.gf_floor_m_per_s)
         self._floor = np.array(th.gf_floor_m)
         #: The GF floor's lower bound holds (see :meth:`detect`).
@@ -209,45 +221,47 @@ class ArcState:
         assert gf_mw.shape == (b.n_ref, d), gf_mw.shape
         assert el_rad.shape == (d,), el_rad.shape
         assert cur.shape == (7, d), cur.shape
-        dt = np.subtract(t, b.last_t, out=b.dt)
+        dt = np.subtract(t, b.last_t, b.dt)
         gap = self._gap
         if gap[0] != gap_s:
             self._gap = gap = (gap_s, np.array(gap_s))
         # Cheap screen, a superset of the hard reasons below (computed exactly only if it fires):
         # no previous sample or a gap, another pair, a half-cycle flag that changed, a lock
         # indicator or lock time that went down, RINEX loss of lock.
-        np.not_equal(cur[0:3], b.prev_id, out=b.scr_id)
-        np.less(cur[3:7], b.prev_lock, out=b.scr_lock)
-        np.less_equal(dt, gap[1], out=b.scr_dt)
+        if cur is not b.cur:
+            b.cur, b.cur_id, b.cur_lock = cur, cur[0:3], cur[3:7]
+        np.not_equal(b.cur_id, b.prev_id, b.scr_id)
+        np.less(b.cur_lock, b.prev_lock, b.scr_lock)
+        np.less_equal(dt, gap[1], b.scr_dt)
         screen = (
-            np.count_nonzero(b.scr_flags)
-            or np.count_nonzero(b.scr_dt) != d
-            or (lli_lost is not None and np.count_nonzero(lli_lost))
+            _count_nonzero(b.scr_flags)
+            or _count_nonzero(b.scr_dt) != d
+            or (lli_lost is not None and _count_nonzero(lli_lost))
         )
         n = b.n
         tracked = None
         if all_tracked is None or not all_tracked:
             tracked = n >= 2
-            all_tracked = np.count_nonzero(tracked) == d
+            all_tracked = _count_nonzero(tracked) == d
         # Jump tests (they count only where the arc continues so far), as (GF, MW) stacks.
         pred = b.pred
         if tracked is None or all_tracked:
-            np.multiply(b.rate, dt, out=pred)
+            np.multiply(b.rate, dt, pred)
         else:
             np.multiply(np.where(tracked, b.rate, 0.0), dt, out=pred)
         pred += b.level
-        np.subtract(gf_mw, b.ref, out=b.diff)
+        np.subtract(gf_mw, b.ref, b.diff)
         res = b.res  # GF − prediction, MW − mean of the arc
-        abs_res = np.abs(res, out=b.absres)
+        abs_res = np.abs(res, b.absres)
         # Thresholds max(k·σ, floor): MW exactly; GF first by its lower bound a (the floor
         # (a + b·dt)·e(el) is at least a: dt > 0, b ≥ 0, e ≥ 1), exactly only where a residual
         # exceeds that bound (rare: GF residuals are millimetres, a is 15 mm).
-        mw_thr = np.sqrt(b.mw_var, out=b.mw_thr)
+        mw_thr = np.sqrt(b.mw_var, b.mw_thr)
         mw_thr *= self._mw_k
         np.maximum(mw_thr, b.mw_floor, out=mw_thr)
-        jump = np.greater(abs_res, b.low_thr, out=b.jump)  # GF jump (bound only), MW jump
-        any_jump = np.count_nonzero(jump)
-        if not self._gf_bound or (any_jump and np.count_nonzero(jump[0])):
+        jump = np.greater(abs_res, b.low_thr, b.jump)  # GF jump (bound only), MW jump
+        any_jump = _count_nonzero(jump)
+        if not self._gf_bound or (any_jump and _count_nonzero(jump[0])):
             gf_thr = np.sqrt(g[GF_VAR])
             gf_thr *= self._gf_k
             # GF floor (a + b·dt)·e(el), e(el) = 1 + 2·exp(−el/15°), 2 where el is unknown
@@ -263,22 +277,22 @@ class ArcState:
             floor *= el_factor
             np.maximum(gf_thr, floor, out=gf_thr)
             np.greater(abs_res[0], gf_thr, out=jump[0])
-            any_jump = np.count_nonzero(jump)
+            any_jump = _count_nonzero(jump)
         if not screen and not any_jump and all_tracked:
             # The common case: every arc continues and learns from its residuals, in place:
             # scatters, then GF rate += rate_weight·res_GF/dt and MW mean += res_MW/(n + 1) as
             # one stack, GF level = prediction + level_weight·res_GF.
+            np.multiply(res, self._weights, b.prod)  # w·res, (b, 1)·res, level weight·res
             var = b.var
             var *= self._keep_w
-            sq = np.multiply(res, self._w, out=b.sq)
+            sq = b.sq
             sq *= res
             var += sq
-            x = np.multiply(res, self._upd_w, out=b.x)
+            x = b.x
             n += _ONE
             x /= b.div
             b.upd += x
-            step = np.multiply(self._level_w, b.res_gf, out=b.level_step)
-            np.add(pred, step, out=b.level)
+            np.add(pred, b.level_step, b.level)
             b.last_t.fill(t)
             b.prev[...] = cur
             return no_new, None
@@ -313,7 +327,7 @@ class ArcState:
                 lli |= lli_lost
             hard = first | gap | pair | lli | lock_drop
             new |= hard
-        all_ok = np.count_nonzero(new) == 0
+        all_ok = _count_nonzero(new) == 0
         reason: npt.NDArray[np.int64] | None = None
         if not all_ok:
             if not screen:
@@ -350,7 +364,7 @@ class ArcState:
         g[MW_MEAN] = _sel(all_ok, ok, g[MW_MEAN] + mw_res / n_new, mw_m)
         g[N] = n_new
         if not all_ok:
-            k = int(np.count_nonzero(new))
+            k = int(_count_nonzero(new))
             g[ARC, new] = self.next_arc + np.arange(k)
             self.next_arc += k
         g[LAST_T] = t

@@ -67,7 +67,7 @@ if TYPE_CHECKING:
 
     from ._pairs import PairTable
 
-__all__ = ["APPLY_SIGMA_TECU", "COMB_MIN_SAMPLES", "BiasModel"]
+__all__ = ["APPLY_SIGMA_TECU", "COMB_MIN_SAMPLES", "MIN_FIT", "BiasModel"]
 
 F64 = npt.NDArray[np.float64]
 Idx = npt.NDArray[np.intp]
@@ -75,7 +75,8 @@ Idx = npt.NDArray[np.intp]
 APPLY_SIGMA_TECU = 3.0
 #: Samples (one per receiver-bias update) before a satellite's combined bias is applied.
 COMB_MIN_SAMPLES = 8.0
-_MIN_FIT = 5
+#: Satellites an update needs to fit anything (fewer: :meth:`BiasModel.no_fit`).
+MIN_FIT = 5
 #: Arc length (samples) at which an observation's levelling error halves its combined-bias weight.
 _COMB_ARC_SAMPLES = 300.0
 #: Prior per-sample variance of the levelling samples at unit weight (TECU², zenith): about 10 TECU
@@ -231,15 +232,14 @@ class BiasModel:
         m = y.shape[0]
         for a in (idx, rank, group, mapping, x_km, y_km, weight):
             assert a.shape == (m,), (a.shape, m)
-        if m < _MIN_FIT:
-            if self._corr_flat.shape[0]:  # no arc in the fit: no levelling correction
-                self.set_arc_corrections(_NO_IDX, _NO_VAL, _NO_ARC)
+        if m < MIN_FIT:
+            self.no_fit()
             return
         dt = t - self.last_t if math.isfinite(self.last_t) else 0.0
         self.last_t = t
         self.fitted = True
         fit = self.sat_known[idx, rank]
-        self.fit_all = bool(np.count_nonzero(fit) < _MIN_FIT)
+        self.fit_all = bool(np.count_nonzero(fit) < MIN_FIT)
         other = np.zeros(m, np.bool_) if self.fit_all else ~fit
         n_sys = int(np.count_nonzero(np.bincount(group[~other])))  # distinct system groups
         if other.any():
@@ -274,6 +274,12 @@ class BiasModel:
         elif self._corr_flat.shape[0]:
             self.set_arc_corrections(_NO_IDX, _NO_VAL, _NO_ARC)
         self._refresh()
+
+    def no_fit(self) -> None:
+        """:meth:`update` with fewer than ``MIN_FIT`` satellites (nothing to fit; the update stays
+        due): no arc in the fit, so no levelling correction."""
+        if self._corr_flat.shape[0]:
+            self.set_arc_corrections(_NO_IDX, _NO_VAL, _NO_ARC)
 
     def _arc_var(
         self, dt: float, *, arc: npt.NDArray[np.int64], level: F64, n: F64, group: Idx,

@@ -7,8 +7,8 @@ present) rarely changes; everything that depends only on that — the pair chose
 (the first configured pair whose two signals both have code, phase and frequency), the cell
 indices of its two signals, the pair labels, and the per-satellite pair constants of SCIENCE.md §3
 (K, α, β, γ, λ_WL, L1 metres per TECU, noise factor) folded into one coefficient matrix — is
-computed when the layout changes (key: the bytes of ``sat``, ``sig``, ``freq_hz`` and the usable
-mask) and reused otherwise.
+computed when the layout changes (keys: the bytes of ``sat``, ``sig`` and ``freq_hz``, and of the
+usable mask) and reused otherwise.
 
 Linear combinations per satellite (rows of :attr:`EpochLayout.comb`, over the measurement rows
 L1, L2, P1, P2 in metres): GF = L1 − L2; MW = (f1·L1 − f2·L2)/(f1 − f2) − (f1·P1 + f2·P2)/(f1 + f2);
@@ -50,7 +50,9 @@ _ZERO = np.array(0.0)
 class EpochLayout:
     """Everything about one epoch that depends only on its layout (see module doc)."""
 
-    key: bytes
+    ids: bytes  # the bytes of sat, sig and freq_hz
+    usable: bytes  # the bytes of the usable mask
+    freq_finite: bool  # every freq_hz is finite
     n_unusable: int
     present: Idx  # (m,) satellite ids present, sorted
     sat16: npt.NDArray[np.int16]  # (m,) the same as int16, read-only (goes into snapshots)
@@ -64,6 +66,7 @@ class EpochLayout:
     i12_2: Idx  # (2, d) the same as rows band 1, band 2
     labels: tuple[str, ...]  # (m,) pair label ("" single-frequency)
     cell_pos: Idx  # (n,) position of each cell's satellite in ``present`` (m: out of range)
+    cells_in_range: bool  # no cell is out of range (every cell_pos < m)
     bias_flat: Idx  # (d,) flat index sat·W + rank into the (S, W) bias tables
     group: Idx  # (d,) receiver-bias group (system, rank)
     wavelength_m: F64  # (2, d) c/f of band 1 and band 2
@@ -92,20 +95,27 @@ class CellRouter:
     def layout(self, epoch: ObsEpoch) -> EpochLayout:
         """The layout of ``epoch`` (the cached one when sat, sig, freq and usability repeat)."""
         pr = epoch.pseudorange_m
-        # Usable values: code > 0 and code, phase, frequency finite (their product is finite
-        # exactly when all three are: |values| < 1e9 · 1e9 · 1e10 never overflow).
-        ok = np.isfinite(pr * epoch.phase_cycles * epoch.freq_hz)
-        ok &= pr > _ZERO
-        key = b"".join((epoch.sat.tobytes(), epoch.sig.tobytes(), epoch.freq_hz.tobytes(),
-                        ok.tobytes()))  # fmt: skip
+        ids = b"".join((epoch.sat.tobytes(), epoch.sig.tobytes(), epoch.freq_hz.tobytes()))
         last = self._last
-        if last is not None and last.key == key:
-            return last
-        self._last = lay = self._build(epoch, ok, key)
+        same = last if last is not None and last.ids == ids else None
+        # Usable values: code > 0 and code, phase, frequency finite (their product is finite
+        # exactly when all three are: |values| < 1e9 · 1e9 · 1e10 never overflow). With the
+        # last layout's frequencies, all finite, the product of code and phase tells the same.
+        prod = pr * epoch.phase_cycles
+        if same is None or not same.freq_finite:
+            prod *= epoch.freq_hz
+        ok: npt.NDArray[np.bool_] = np.isfinite(prod)
+        ok &= pr > _ZERO
+        usable = ok.tobytes()
+        if same is not None and same.usable == usable:
+            return same
+        self._last = lay = self._build(epoch, ok, ids, usable)
         self.rebuilds += 1
         return lay
 
-    def _build(self, epoch: ObsEpoch, ok: npt.NDArray[np.bool_], key: bytes) -> EpochLayout:
+    def _build(
+        self, epoch: ObsEpoch, ok: npt.NDArray[np.bool_], ids: bytes, usable_key: bytes
+    ) -> EpochLayout:
         sat = epoch.sat.astype(np.intp)
         sig = epoch.sig.astype(np.intp)
         in_range = (sat >= 0) & (sat < MAX_SAT_ID) & (sig < N_SIG)
@@ -182,7 +192,9 @@ class CellRouter:
         for arr in (present, sat16, has, rank_all, idx, rank, i12, i12_2, cell_pos, no_lli, coefs):
             arr.setflags(write=False)
         return EpochLayout(
-            key=key,
+            ids=ids,
+            usable=usable_key,
+            freq_finite=bool(np.isfinite(epoch.freq_hz).all()),
             n_unusable=int(np.count_nonzero(in_range) - np.count_nonzero(usable)),
             present=present,
             sat16=sat16,
@@ -196,6 +208,7 @@ class CellRouter:
             i12_2=i12_2,
             labels=tuple(labels.tolist()),
             cell_pos=cell_pos,
+            cells_in_range=bool(np.count_nonzero(in_range) == sat.shape[0]),
             bias_flat=idx * width + rank,
             group=sysi[has] * width + rank,
             wavelength_m=C_MPS / f,

@@ -38,7 +38,7 @@ from ionwarden.daemon.config import EstimatorSettings
 from ionwarden.parsers import MAX_SAT_ID
 
 from ._arcs import REASON_NAMES, REASON_PAIR, ArcBlock, ArcState, SlipThresholds
-from ._biases import BiasModel
+from ._biases import MIN_FIT, BiasModel
 from ._cells import (
     GFT_ROW,
     IFC_ROW,
@@ -50,6 +50,8 @@ from ._cells import (
     EpochLayout,
 )
 from ._geometry import Geometry
+from ._npfast import count_nonzero as _count_nonzero
+from ._npfast import einsum as _einsum
 from ._pairs import PairTable, band_delays_s
 from ._persist import apply_rolling, checked_rolling, resume_allowed, rolling_state
 from ._snapshot import SatelliteFigures, StationSnapshot, new_satellite_figures, new_snapshot
@@ -92,10 +94,14 @@ STATE_VERSION = 2
 _INTERVAL_HISTORY = 9
 _LEV_FLOOR = np.array(0.1)  # sin(el) floor of the levelling weights
 _ZERO = np.array(0.0)
-#: Figures of :meth:`StationEstimator._dual` spread over every satellite present (NaN where
-#: single-frequency) in epochs with single-frequency satellites.
+#: The first figures of :meth:`StationEstimator._dual` (the others follow: "stec_raw", "lev",
+#: "b_sat", "n_arc", "arc", "new", "pair_switch"); these are spread over every satellite present
+#: (NaN where single-frequency) in epochs with single-frequency satellites.
 _SPREAD = ("stec", "rot", "roti", "iono_l1", "if_code", "if_phase", "hatch", "mp1", "mp2",
            "noise_factor", "relevel")  # fmt: skip
+#: The figures of :meth:`StationEstimator._dual`, in the order above (a tuple: no dict to build
+#: and read back each epoch).
+_Dual = tuple[npt.NDArray[Any], ...]
 
 
 class _Block:
@@ -192,6 +198,8 @@ class StationEstimator:
         #: Hatch constants of the sampling interval: (interval, window N, N and (N − 1)/N as
         #: 0-d arrays).
         self._hatch_consts: tuple[float, float, F64, F64] = (math.nan, 1.0, _ZERO, _ZERO)
+        #: (interval, the slip tests' gap max(max_gap_s, gap_samples · interval) in s).
+        self._gap = (math.nan, math.nan)
         self._last_epoch_t = -math.inf
         self._intervals = np.full(_INTERVAL_HISTORY, np.nan)
         self._interval = 1.0  # s, median of the recent epoch intervals
@@ -278,12 +286,13 @@ class StationEstimator:
         self._last_epoch_t = t
         self._n_epochs += 1
         self.counters["epochs"] += 1
-        # NaN marks "unknown" throughout: silence the invalid/0-division warnings it causes.
-        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-            snap = self._update(epoch, t, self._interval)
+        snap = self._update(epoch, t, self._interval)
         self._last = snap
         return snap
 
+    # NaN marks "unknown" throughout: silence the invalid/0-division warnings it causes (as a
+    # decorator: no errstate object to make and enter per epoch).
+    @np.errstate(invalid="ignore", divide="ignore", over="ignore")
     def _update(self, epoch: ObsEpoch, t: float, interval: float) -> StationSnapshot:
         lay = self.cells.layout(epoch)
         self.counters["cells_unusable"] += lay.n_unusable
@@ -298,24 +307,23 @@ class StationEstimator:
         sin_el = sin_all if lay.all_dual else sin_all[lay.has]
         figs = self._dual(epoch, lay, t=t, interval=interval, el=el, sin_el=sin_el,
                           el_known=el_known)  # fmt: skip
-
+        (stec, rot, roti, iono_l1, if_code, if_phase, hatch, mp1, mp2, noise, relevel,
+         stec_raw, lev, b_sat, n_arc, arc, new, pair_switch) = figs  # fmt: skip
         if not lay.all_dual:  # per-pair-satellite arrays over every satellite present
-            for name in _SPREAD:
-                full = np.full(m, np.nan)
-                full[lay.has] = figs[name]
-                figs[name] = full
+            full = np.full((len(_SPREAD), m), np.nan)
+            for row, fig in zip(full, figs[: len(_SPREAD)], strict=True):
+                row[lay.has] = fig
+            (stec, rot, roti, iono_l1, if_code, if_phase, hatch, mp1, mp2, noise,
+             relevel) = full  # fmt: skip
 
         mapping = self._sky.mapping(el_all)
-        stec = figs["stec"]
         # Rows x, y (km) of the pierce points and VTEC: the station figures' plane-fit input.
         pts = np.empty((3, m))
         self._sky.offsets(self.geometry.lat_rad, self.geometry.lon_rad, geo[2:4], pts[:2])
         vtec = np.divide(stec, mapping, out=pts[2])
         up = el_all > _ZERO
-        if np.count_nonzero(up) != m:
+        if _count_nonzero(up) != m:
             vtec[~up] = np.nan
-        rot = figs["rot"]
-        roti = figs["roti"]
         st = station_figures(
             el_rad=el_all, sin_el=sin_all, el_known=el_known, pts=pts, rot=rot, roti=roti,
             mask_rad=self._mask_rad,
@@ -325,50 +333,57 @@ class StationEstimator:
         bias_ref, sigma_ref = self.biases.reference()
         if self.biases.due(t):
             # It changes later epochs only (this one reports the bias it was corrected with).
-            fit_kw = {"lay": lay, "el_all": el_all, "sin_all": sin_all, "mapping": mapping,
-                      "x_km": pts[0], "y_km": pts[1]}  # fmt: skip
+            fit_kw = {"lay": lay, "stec_raw": stec_raw, "lev": lev, "b_sat": b_sat,
+                      "n_arc": n_arc, "arc": arc, "el_all": el_all, "sin_all": sin_all,
+                      "mapping": mapping, "x_km": pts[0], "y_km": pts[1]}  # fmt: skip
             if self._defer_fit:  # the arrays stay untouched until the next entry settles
-                self._pending_fit = ((t, figs), fit_kw)
+                self._pending_fit = ((t,), fit_kw)
             else:
-                self._update_receiver_bias(t, figs, **fit_kw)
+                self._update_receiver_bias(t, **fit_kw)
         if self._defer_fit and self.geometry.refresh_due(present, t + interval):
             self._ahead = (present, t + interval)
 
         if lay.all_dual:
-            slip, arc_id, switch = figs["new"], figs["arc"], figs["pair_switch"]
+            slip, arc_id, switch = new, arc, pair_switch
         else:
             slip = np.zeros(m, np.bool_)
-            slip[lay.has] = figs["new"]
+            slip[lay.has] = new
             arc_id = np.full(m, -1, np.int32)
-            arc_id[lay.has] = figs["arc"]
+            arc_id[lay.has] = arc
             switch = np.zeros(m, np.bool_)
-            switch[lay.has] = figs["pair_switch"]
-        # Degrees once for el, az, pierce lat, lon; a NaN slot after them for cells out of range.
-        deg = np.empty((4, m + 1))
-        np.degrees(geo, out=deg[:, :m])
-        deg[0, m] = np.nan
+            switch[lay.has] = pair_switch
+        # Degrees once for el, az, pierce lat, lon (rows of deg), and the elevation of each cell.
+        if lay.cells_in_range:  # every cell's satellite is present: a contiguous output
+            deg = np.degrees(geo)
+            cell_el = deg[0].take(lay.cell_pos)
+        else:  # a NaN slot after the satellites for the cells out of range (cell_pos = m)
+            deg_nan = np.empty((4, m + 1))
+            np.degrees(geo, out=deg_nan[:, :m])
+            deg_nan[0, m] = np.nan
+            cell_el = deg_nan.take(lay.cell_pos)  # row 0 (cell_pos ≤ m): the flat take
+            deg = deg_nan[:, :m]
         sats = new_satellite_figures(
             sat=lay.sat16,
             pair=lay.labels,
-            el_deg=deg[0, :m],
-            az_deg=deg[1, :m],
-            ipp_lat_deg=deg[2, :m],
-            ipp_lon_deg=deg[3, :m],
+            el_deg=deg[0],
+            az_deg=deg[1],
+            ipp_lat_deg=deg[2],
+            ipp_lon_deg=deg[3],
             stec_tecu=stec,
             vtec_tecu=vtec,
             rot_tecu_per_min=rot,
             roti_tecu_per_min=roti,
-            iono_l1_m=figs["iono_l1"],
-            if_code_m=figs["if_code"],
-            if_phase_m=figs["if_phase"],
-            if_code_smoothed_m=figs["hatch"],
+            iono_l1_m=iono_l1,
+            if_code_m=if_code,
+            if_phase_m=if_phase,
+            if_code_smoothed_m=hatch,
             slip=slip,
             arc_id=arc_id,
-            mp1_m=figs["mp1"],
-            mp2_m=figs["mp2"],
-            if_noise_factor=figs["noise_factor"],
+            mp1_m=mp1,
+            mp2_m=mp2,
+            if_noise_factor=noise,
             pair_switch=switch,
-            stec_relevel_tecu=figs["relevel"],
+            stec_relevel_tecu=relevel,
         )
         return new_snapshot(
             station=self.station,
@@ -387,7 +402,7 @@ class StationEstimator:
             satellites=sats,
             cell_sat=epoch.sat,
             cell_sig=epoch.sig,
-            cell_el_deg=deg.take(lay.cell_pos),  # row 0 (cell_pos ≤ m): the flat take
+            cell_el_deg=cell_el,
             cell_cn0_dbhz=epoch.cn0_dbhz,
             geometry_source=geo_source if m else "none",
             counters=self._counters(),
@@ -428,8 +443,9 @@ class StationEstimator:
     def _dual(
         self, epoch: ObsEpoch, lay: EpochLayout, *, t: float, interval: float, el: F64,
         sin_el: F64, el_known: bool,
-    ) -> dict[str, Any]:  # fmt: skip
-        """All dual-frequency figures of the ``d`` satellites ``lay.idx`` (arrays of length d).
+    ) -> _Dual:  # fmt: skip
+        """All dual-frequency figures of the ``d`` satellites ``lay.idx`` (arrays of length d), in
+        the order of ``_SPREAD`` and the names after it.
 
         They work on the layout's block ``g`` (rows: ``_state``). Cell values come as (2, d)
         arrays: row 0 band 1, row 1 band 2 of each pair; the linear combinations of SCIENCE.md
@@ -444,14 +460,18 @@ class StationEstimator:
         meas_l = epoch.phase_cycles.take(i12, out=blk.meas_l, mode="clip")
         meas_l *= lay.wavelength_m
         epoch.pseudorange_m.take(i12, out=blk.meas_p, mode="clip")
-        comb = np.einsum("kjd,jd->kd", lay.comb, blk.meas)  # (combinations, d)
+        comb = _einsum("kjd,jd->kd", lay.comb, blk.meas)  # (combinations, d)
         gf_tecu = comb[GFT_ROW]
         if_code = comb[IFC_ROW]
         if_phase = comb[IFP_ROW]
         lli_lost = None
-        if np.count_nonzero(epoch.lli):
+        if _count_nonzero(epoch.lli):
             lli_lost = np.logical_or.reduce(epoch.lli[i12] & 1, axis=0)
-        gap_s = max(self.settings.max_gap_s, self.settings.gap_samples * interval)
+        gap = self._gap
+        if gap[0] != interval:  # the slip tests' gap (s) at this sampling interval
+            self._gap = gap = (interval, max(self.settings.max_gap_s,
+                                             self.settings.gap_samples * interval))  # fmt: skip
+        gap_s = gap[1]
         # Half-cycle flags, lock indicators and lock times of both bands, in block-row order:
         # the three cell arrays as float rows, then one gather of both bands.
         c0, c1, c2 = blk.cell_rows
@@ -554,49 +574,37 @@ class StationEstimator:
             hatch = np.where(new, if_code, hatch)
         blk.hatch[...] = hatch
         blk.ifl_prev[...] = if_phase
-        return {
-            "stec": stec,
-            "stec_raw": stec_raw,
-            "relevel": relevel,
-            "lev": lev,
-            "b_sat": b_sat,
-            "n_arc": n_arc,
-            "rot": rot,
-            "roti": roti,
-            "iono_l1": stec * blk.l1m,
-            "if_code": if_code,
-            "if_phase": if_phase,
-            "hatch": hatch,
-            "mp1": comb[MP1_ROW],
-            "mp2": comb[MP2_ROW],
-            "noise_factor": blk.noise,
-            "arc": arc,
-            "new": new,
-            "pair_switch": pair_switch,
-        }
+        return (stec, rot, roti, stec * blk.l1m, if_code, if_phase, hatch, comb[MP1_ROW],
+                comb[MP2_ROW], blk.noise, relevel, stec_raw, lev, b_sat, n_arc, arc, new,
+                pair_switch)  # fmt: skip
 
     def _update_receiver_bias(
-        self, t: float, figs: dict[str, Any], *, lay: EpochLayout, el_all: F64, sin_all: F64,
-        mapping: F64, x_km: F64, y_km: F64,
+        self, t: float, *, lay: EpochLayout, stec_raw: F64, lev: F64, b_sat: F64, n_arc: F64,
+        arc: npt.NDArray[np.int32], el_all: F64, sin_all: F64, mapping: F64, x_km: F64, y_km: F64,
     ) -> None:  # fmt: skip
         """Feed the bias model (every ``receiver_bias_update_s``) with mature arcs above the
         mask, weighted by sin²el and down-weighted when the ionosphere is disturbed (ROTI)."""
-        has = lay.has
-        el = el_all[has]
+        if not lay.all_dual:  # the pair satellites' values (all of them when all have a pair)
+            has = lay.has
+            el_all, sin_all, mapping = el_all[has], sin_all[has], mapping[has]
+            x_km, y_km = x_km[has], y_km[has]
         use = (
-            (el >= self._mask_rad)
-            & (figs["n_arc"] * self._interval >= self.settings.receiver_bias_min_arc_s)
-            & ~np.isnan(x_km[has])
-            & ~np.isnan(figs["stec_raw"])
+            (el_all >= self._mask_rad)
+            & (n_arc * self._interval >= self.settings.receiver_bias_min_arc_s)
+            & ~np.isnan(x_km)
+            & ~np.isnan(stec_raw)
         )
+        if np.count_nonzero(use) < MIN_FIT:  # what the update does with them, without the gathers
+            self.biases.no_fit()
+            return
         roti_med = self._last_roti_median
         quiet = 1.0 / (1.0 + (roti_med / 0.25) ** 2) if math.isfinite(roti_med) else 1.0
-        y = figs["stec_raw"] - figs["b_sat"]
+        y = stec_raw - b_sat
         self.biases.update(
             t, y=y[use], idx=lay.idx[use], rank=lay.rank[use], group=lay.group[use],
-            mapping=mapping[has][use], x_km=x_km[has][use], y_km=y_km[has][use],
-            weight=quiet * sin_all[has][use] ** 2, arc_samples=figs["n_arc"][use],
-            arc=figs["arc"][use].astype(np.int64), level=figs["lev"][use],
+            mapping=mapping[use], x_km=x_km[use], y_km=y_km[use],
+            weight=quiet * sin_all[use] ** 2, arc_samples=n_arc[use],
+            arc=arc[use].astype(np.int64), level=lev[use],
         )  # fmt: skip
 
     def _restart_time(self) -> None:

@@ -27,6 +27,7 @@ __all__ = [
 ]
 
 F64 = npt.NDArray[np.float64]
+Idx = npt.NDArray[np.intp]
 #: L1 group delay of 1 TECU: 40.3·10¹⁶/(1575.42 MHz)² = 0.16237 m (SCIENCE.md §2, IS-GPS-200 L1).
 GPS_L1_M_PER_TECU = 40.3e16 / 1575.42e6**2
 _ZERO = np.array(0.0)
@@ -120,8 +121,11 @@ def station_figures(
         if len(_MASKS) >= 8:
             _MASKS.clear()
         _MASKS[mask_rad] = mask = np.array(mask_rad)
+    # Selections as index arrays (None: every satellite): a take costs a fraction of a boolean
+    # subscript and gives the same values in the same order; nonzero() counts them too.
     above = el_rad >= mask
-    n_above = np.count_nonzero(above)
+    nz = above.nonzero()[0]
+    n_above = nz.shape[0]
     w = None  # weights of every satellite, if needed (else computed for the selected ones)
     if not (n_above or el_known or np.count_nonzero(np.isfinite(el_rad))):
         # No elevation known: every satellite counts, with weight 1.
@@ -134,46 +138,62 @@ def station_figures(
         w *= w
     # Else weights are read only above the mask (el in [0°, 90°]), where max(sin el, 0)² = sin²el
     # (−0.0² = +0.0): squared after selecting.
+    i_above = None if n_above == m else nz
 
+    # ``use``: above the mask with a finite VTEC; ``wu``, ``vu``: their weights and VTEC, the
+    # VTEC a separate array (a dot product's rounding can depend on where its operands start,
+    # so it stays the one the general path uses: ``vtec[use]``, or ``vtec`` if all are used).
+    # The weights of the VTEC mean are the plane fit's too unless an x is NaN.
     vtec = pts[2]
     if el_known:  # pierce points of known elevations are finite: x, y are
-        use = above & np.isfinite(vtec)
-        n_use = np.count_nonzero(use)
+        # First as if every VTEC above the mask were finite (use = above): a finite weighted
+        # sum says they are, as each of its terms is finite (the weights are in [0, 1]: a NaN
+        # or infinite VTEC makes its term, and so the sum, NaN or infinite).
+        i_use, n_use = i_above, n_above
+        vu = vtec if i_above is None else vtec.take(i_above)
+        wu = _weights(sin_el, w, i_above)
+        wu_sum = np.add.reduce(wu)  # wu.sum() without its Python wrapper
+        dot = wu.dot(vu)  # ndarray.dot runs the BLAS call of ``@`` (tested)
+        if not math.isfinite(dot):
+            fin_u = np.isfinite(vu)
+            n_use = int(np.count_nonzero(fin_u))  # (the rare path)
+            if n_use < n_above:
+                i_use = fin_u.nonzero()[0] if i_above is None else i_above[fin_u]
+                vu = vu[fin_u]
+                wu = wu[fin_u]
+                wu_sum = np.add.reduce(wu)
+                dot = wu.dot(vu)
         fit_is_use = True
     else:
         fin = np.isfinite(pts[::2])
         np.logical_and(fin, above, out=fin)  # rows: x finite, VTEC finite (use); above the mask
         use = fin[1]
-        n_use = np.count_nonzero(use)
+        i_use = use.nonzero()[0]
+        n_use = i_use.shape[0]
         fit_is_use = np.count_nonzero(fin) - n_use == n_above  # every x above the mask finite
-    # The weights of the VTEC mean are the plane fit's too unless an x is NaN. (Its VTEC stay a
-    # separate array: a dot product's rounding can depend on where its operands start.)
-    if n_use == m:
-        wu = np.multiply(sin_el, sin_el) if w is None else w
-        vu = vtec
-    else:
-        wu = _squared_at(sin_el, use) if w is None else w[use]
-        vu = vtec[use]
-    wu_sum = np.add.reduce(wu)  # wu.sum() without its Python wrapper
-    vtec_st = float(wu @ vu / wu_sum) if n_use else math.nan
-    roti_max, roti_med = _max_median(roti, above, n_above < m)
-    rr = np.abs(rot[above] if n_above < m else rot)
-    rot_max = float(np.fmax.reduce(rr)) if rr.size else math.nan  # NaN only if all are NaN
+        if n_use == m:
+            i_use = None
+        vu = vtec if i_use is None else vtec.take(i_use)
+        wu = _weights(sin_el, w, i_use)
+        wu_sum = np.add.reduce(wu)
+        dot = wu.dot(vu)
+    vtec_st = float(dot / wu_sum) if n_use else math.nan
+    roti_max, roti_med = _max_median(roti, i_above)
+    rot_max = _max_abs(rot, i_above)
 
     g_t = g_mm = g_az = math.nan
     if fit_is_use:
-        fit, n_fit = use, n_use
+        i_fit, n_fit = i_use, n_use
     else:
-        fit = use & fin[0]
-        n_fit = np.count_nonzero(fit)
+        i_fit = (use & fin[0]).nonzero()[0]
+        n_fit = i_fit.shape[0]
     if n_fit >= 4:
-        if n_fit == m:
+        if i_fit is None:  # every satellite
             ge, gn = _plane_slopes(wu, pts, wu_sum)
         elif n_fit == n_use:  # fit is use: the weights and their sum of the VTEC mean
-            ge, gn = _plane_slopes(wu, pts[:, use], wu_sum)
+            ge, gn = _plane_slopes(wu, _columns(pts, i_fit), wu_sum, own=True)
         else:
-            wf = _squared_at(sin_el, fit) if w is None else w[fit]
-            ge, gn = _plane_slopes(wf, pts[:, fit])
+            ge, gn = _plane_slopes(_weights(sin_el, w, i_fit), _columns(pts, i_fit), own=True)
         if math.isfinite(ge):
             g_t = math.hypot(ge, gn)
             g_mm = g_t * GPS_L1_M_PER_TECU * 1000.0
@@ -189,24 +209,25 @@ def station_figures(
     )
 
 
-def _max_median(roti: F64, above: npt.NDArray[np.bool_], subset: bool) -> tuple[float, float]:
-    """Largest and median finite ``roti`` of the satellites ``above`` (all unless ``subset``).
+def _max_median(roti: F64, idx: Idx | None) -> tuple[float, float]:
+    """Largest and median finite ``roti`` of the satellites ``idx`` (all if None).
 
     Sorted before the non-finite values are dropped (NaN sorts last): the finite values come out
     in the order the filter-then-sort of the general path gives (values equal as floats are equal
     bit for bit, once no zero can be −0.0 beside +0.0); otherwise that general path runs.
     """
-    if subset:
-        r = roti[above]
-        r.sort()
-    else:
+    if idx is None:
         r = np.sort(roti)
+    else:
+        r = roti.take(idx)
+        r.sort()
     n = r.size
     if n and not (math.isfinite(r.item(0)) and math.isfinite(r.item(n - 1))):
         n = int(np.searchsorted(r, _NAN))
         r = r[:n]
         if n and not (r.item(0) > 0.0 and math.isfinite(r.item(n - 1))):
-            r = roti[above & np.isfinite(roti)] if subset else roti[np.isfinite(roti)]
+            r = roti if idx is None else roti.take(idx)  # the selection, in satellite order
+            r = r[np.isfinite(r)]
             r.sort()  # a copy already
             n = r.size
     if not n:
@@ -214,22 +235,59 @@ def _max_median(roti: F64, above: npt.NDArray[np.bool_], subset: bool) -> tuple[
     return r.item(n - 1), 0.5 * (r.item((n - 1) // 2) + r.item(n // 2))
 
 
-def _squared_at(x: F64, sel: npt.NDArray[np.bool_]) -> F64:
-    """x[sel]² (a new array)."""
-    out = x[sel]
+def _max_abs(rot: F64, idx: Idx | None) -> float:
+    """Largest |rot| of the satellites ``idx`` (all if None), NaN ignored (NaN if all are): the
+    value of ``np.fmax.reduce(np.abs(…))``, read off the sorted values (NaN sorts last) as the
+    larger magnitude of the smallest and the largest (a maximum is exact; abs() of a Python
+    float leaves no −0.0, as np.abs does not)."""
+    r = np.sort(rot) if idx is None else rot.take(idx)
+    if idx is not None:
+        r.sort()
+    n = r.size
+    if not n:
+        return math.nan
+    top = r.item(n - 1)
+    if math.isnan(top):  # the largest value is the one before the first NaN
+        n = int(np.searchsorted(r, _NAN))
+        if not n:
+            return math.nan
+        top = r.item(n - 1)
+    return max(abs(r.item(0)), abs(top))
+
+
+def _weights(sin_el: F64, w: F64 | None, idx: Idx | None) -> F64:
+    """The weights ``w`` (sin²el if None) of the satellites ``idx`` (all if None): a new array
+    unless ``w`` is given and ``idx`` is None."""
+    if w is not None:
+        return w if idx is None else w.take(idx)
+    if idx is None:
+        return np.multiply(sin_el, sin_el)
+    out = sin_el.take(idx)
     out *= out
     return out
 
 
-def _plane_slopes(w: F64, xyv: F64, w_sum: np.float64 | None = None) -> tuple[float, float]:
+def _columns(xyv: F64, idx: Idx) -> F64:
+    """``xyv[:, idx]``, a new array in NumPy's memory order for it (Fortran: a (k, 3) block
+    seen transposed; the BLAS calls of the plane fit, and so their rounding, depend on it)."""
+    out: F64 = np.asfortranarray(xyv.take(idx, axis=1))
+    return out
+
+
+def _plane_slopes(
+    w: F64, xyv: F64, w_sum: np.float64 | None = None, *, own: bool = False
+) -> tuple[float, float]:
     """Slopes (∂v/∂x, ∂v/∂y) of the weighted least-squares plane v = c + gx·x + gy·y through
-    the points ``xyv`` (rows x, y, v) with weights ``w`` (``w_sum``: their sum, if known).
+    the points ``xyv`` (rows x, y, v) with weights ``w`` (``w_sum``: their sum, if known;
+    ``own``: ``xyv`` is a scratch copy, centred in place).
 
     Centred on the weighted means, the normal equations reduce to 2 × 2, solved in closed form;
     NaN when the points lie (nearly) on one line.
     """
-    c = xyv - (xyv @ w / (np.add.reduce(w) if w_sum is None else w_sum))[:, None]
-    (sxx, sxy, sxv), (_, syy, syv), _ = ((c * w) @ c.T).tolist()
+    mean = xyv.dot(w)  # ndarray.dot: the BLAS calls of ``@`` (tested)
+    mean /= np.add.reduce(w) if w_sum is None else w_sum
+    c = np.subtract(xyv, mean[:, None], out=xyv if own else None)
+    (sxx, sxy, sxv), (_, syy, syv), _ = (c * w).dot(c.T).tolist()
     det = sxx * syy - sxy * sxy
     if not det > 1e-9 * sxx * syy:
         return math.nan, math.nan

@@ -11,9 +11,16 @@ import math
 import numpy as np
 import numpy.typing as npt
 
+from ._npfast import count_nonzero as _count_nonzero
+
 __all__ = ["LagRing", "SlotStd"]
 
 F64 = npt.NDArray[np.float64]
+# Ufuncs on the per-epoch paths take ``out`` positionally (a keyword costs ~250 instructions;
+# not np.maximum: deprecated there).
+
+#: Columns of a satellite array in a ring: indices, or a slice when they are consecutive.
+_Cols = npt.NDArray[np.intp] | slice
 _ZERO = np.array(0.0)
 _ONE = np.array(1.0)
 #: The satellites of an empty ring entry (shared, read-only).
@@ -47,6 +54,8 @@ class LagRing:
         self.arc_t0 = np.full(n_slots, np.nan)
         #: Latest arc start pushed (s): rows at or after it belong to every satellite's arc.
         self.t0_max = -math.inf
+        #: (sampling interval, tolerance, rows back) of :meth:`_lag_row` (NaN: none yet).
+        self._steps: tuple[float, float, int] = (math.nan, 0.0, 0)
         self._alloc(rows if rows is not None else self._rows_needed(1.0))
 
     def _rows_needed(self, interval_s: float) -> int:
@@ -72,7 +81,7 @@ class LagRing:
         #: The read-only (satellites, arc ids) of the last :meth:`lag_push` (None: unknown).
         self._last_push: tuple[npt.NDArray[np.intp], npt.NDArray[np.int32]] | None = None
         #: The columns of the last read-only satellite array: (satellites, columns).
-        self._cols_of: tuple[npt.NDArray[np.intp], npt.NDArray[np.intp]] | None = None
+        self._cols_of: tuple[npt.NDArray[np.intp], _Cols] | None = None
 
     @property
     def value(self) -> npt.NDArray[np.float32]:
@@ -116,13 +125,14 @@ class LagRing:
         self._forget()
         self.head = old - 1
 
-    def _cols(self, sats: npt.NDArray[np.intp]) -> npt.NDArray[np.intp]:
-        """Columns of ``sats`` (unique), adding columns for satellites not seen before."""
+    def _cols(self, sats: npt.NDArray[np.intp]) -> _Cols:
+        """Columns of ``sats`` (unique), adding columns for satellites not seen before; a slice
+        when they are consecutive (known for a read-only ``sats``: a view, not a gather)."""
         memo = self._cols_of
         if memo is not None and memo[0] is sats:
             return memo[1]
         cols = self._col[sats]
-        if np.count_nonzero(cols < 0):
+        if _count_nonzero(cols < 0):
             new = sats[cols < 0]
             first = len(self._slots)
             self._col[new] = np.arange(first, first + new.shape[0])
@@ -134,7 +144,12 @@ class LagRing:
                 self._data = grown
             cols = self._col[sats]
         if not sats.flags.writeable:
-            self._cols_of = (sats, cols)
+            n = cols.shape[0]
+            if n and cols[-1] - cols[0] == n - 1 and _count_nonzero(np.diff(cols) == 1) == n - 1:
+                self._cols_of = (sats, slice(int(cols[0]), int(cols[0]) + n))
+            else:
+                self._cols_of = (sats, cols)
+            return self._cols_of[1]
         return cols
 
     def push(
@@ -142,19 +157,19 @@ class LagRing:
     ) -> None:
         assert sats.shape == value.shape == arc.shape, (sats.shape, value.shape, arc.shape)
         started = self.last_arc[sats] != arc
-        self._push(
-            t, sats, value, arc, started=started, any_started=bool(np.count_nonzero(started))
-        )
+        self._push(t, sats, value, arc, started=started, any_started=bool(_count_nonzero(started)))
         self._last_push = None
 
     def _push(
         self, t: float, sats: npt.NDArray[np.intp], value: F64, arc: npt.NDArray[np.int32], *,
-        started: npt.NDArray[np.bool_] | None, any_started: bool,
+        started: npt.NDArray[np.bool_] | None, any_started: bool, cols: _Cols | None = None,
     ) -> None:  # fmt: skip
+        """Write the next row (``cols``: ``_cols(sats)`` when the caller has them)."""
         self.head = row = (self.head + 1) % self.t.shape[0]
         self.t[row] = t
         self._full = None
-        cols = self._cols(sats)
+        if cols is None:
+            cols = self._cols(sats)
         data = self._data[row]
         if sats.flags.writeable:
             data.fill(np.nan)
@@ -162,7 +177,10 @@ class LagRing:
         elif self._row_sats[row] is not sats:
             data.fill(np.nan)
             self._row_sats[row] = sats
-        data.put(cols, value)  # put casts to float32 faster than item assignment
+        if type(cols) is slice:
+            data[cols] = value
+        else:
+            data.put(cols, value)  # put casts to float32 faster than item assignment
         if any_started:
             assert started is not None
             self.arc_t0[sats[started]] = t
@@ -181,36 +199,46 @@ class LagRing:
             any_started = False  # the same read-only arrays as before: last_arc[sats] == arc
         else:
             started = self.last_arc[sats] != arc
-            any_started = bool(np.count_nonzero(started))
-        k = self._lag_row(t, interval_s)
+            any_started = bool(_count_nonzero(started))
+        k, t_k = self._lag_row(t, interval_s)
+        cols = None
         if k < 0:
-            v, t_k = np.full(sats.shape, np.nan), math.nan
+            v = np.full(sats.shape, np.nan)
         else:
-            t_k = float(self.t[k])
             cols = self._cols(sats)  # first: it may widen ``_data``
-            v = self._data[k].take(cols).astype(np.float64)
+            v = self._data[k][cols].astype(np.float64)
             if any_started or not t_k >= self.t0_max:
                 other = ~(self.arc_t0[sats] <= t_k)
                 if started is not None:
                     other |= started
                 v[other] = np.nan
-        self._push(t, sats, value, arc, started=started, any_started=any_started)
+        self._push(t, sats, value, arc, started=started, any_started=any_started, cols=cols)
         self._last_push = None if sats.flags.writeable or arc.flags.writeable else (sats, arc)
         return v, t_k
 
-    def _lag_row(self, t: float, interval_s: float) -> int:
-        """Row of the stored epoch nearest ``t − lag_s`` within half an interval (−1: none)."""
+    def _lag_row(self, t: float, interval_s: float) -> tuple[int, float]:
+        """Row of the stored epoch nearest ``t − lag_s`` within half an interval, and its time
+        ((−1, NaN): none)."""
         target = t - self.lag_s
-        tol = 0.5 * interval_s + 1e-3
-        k = (self.head + 1 - round(self.lag_s / interval_s)) % self.t.shape[0]
-        if not abs(float(self.t[k]) - target) <= tol:
+        steps = self._steps
+        if steps[0] != interval_s:  # the tolerance and the rows back, per sampling interval
+            self._steps = steps = (
+                interval_s,
+                0.5 * interval_s + 1e-3,
+                round(self.lag_s / interval_s),
+            )
+        tol = steps[1]
+        k = (self.head + 1 - steps[2]) % self.t.shape[0]
+        t_k = float(self.t[k])
+        if not abs(t_k - target) <= tol:
             err = np.abs(self.t - target)
             if not np.isfinite(err).any():
-                return -1
+                return -1, math.nan
             k = int(np.nanargmin(err))
             if err[k] > tol:
-                return -1
-        return k
+                return -1, math.nan
+            t_k = float(self.t[k])
+        return k, t_k
 
     def lagged(
         self, t: float, sats: npt.NDArray[np.intp], arc: npt.NDArray[np.int32], interval_s: float
@@ -219,12 +247,11 @@ class LagRing:
         NaN where the satellite had no value then or was in another arc (``arc``: the current
         arc ids, before this epoch's push); also that epoch's time (NaN if none). The row where
         regular sampling puts it is tried first."""
-        k = self._lag_row(t, interval_s)
+        k, t_k = self._lag_row(t, interval_s)
         if k < 0:
             return np.full(sats.shape, np.nan), math.nan
-        t_k = float(self.t[k])
         cols = self._cols(sats)  # first: it may widen ``_data``
-        v = self._data[k].take(cols).astype(np.float64)
+        v = self._data[k][cols].astype(np.float64)
         other = (self.last_arc.take(sats) != arc) | ~(self.arc_t0.take(sats) <= t_k)
         v[other] = np.nan
         return v, t_k
@@ -347,7 +374,10 @@ class SlotStd:
 
     def _recompute(self) -> None:
         sats = np.concatenate(self._sats)
-        vals = np.concatenate([v for _, v in self.entries])
+        # The entries' values in row order, as ``entries`` holds them: the first len(_sats[r])
+        # of each pool row (one boolean gather, not one view per entry).
+        n = np.fromiter((e.shape[0] for e in self._sats), np.intp, self.rows)
+        vals = self._vals[np.arange(self._vals.shape[1]) < n[:, None]]
         self.acc[0] = np.bincount(sats, vals, self.n_slots)
         self.acc[1] = np.bincount(sats, vals * vals, self.n_slots)
         self.acc[2] = np.bincount(sats, minlength=self.n_slots)
@@ -391,7 +421,7 @@ class SlotStd:
         self._since_exact += slot - first + 1
         self.last_slot = slot
         nan = np.isnan(value)
-        if np.count_nonzero(nan):
+        if _count_nonzero(nan):
             fin = ~nan
             s, v = self._finite_subset(sats, fin), value[fin]
         else:
@@ -419,6 +449,20 @@ class SlotStd:
                 sums += self._increments(v)
                 flat[fi] = sums
                 old[...] = v
+        elif (
+            start == slot
+            and s is sats
+            and k
+            and self._sats[row] is _NO_SATS
+            and not s.flags.writeable
+        ):
+            # The slot fills an empty entry (the window is filling, or slots were skipped): the
+            # sums gain this entry, in the block as in ``acc`` below (sum + value, count + 1).
+            blk = self._blk
+            if blk is None or blk.sats is not s:
+                self._blk = blk = _SumBlock(s, self._flush()[:, s])
+            blk.add(v)
+            self._vals[row, :k] = v
         else:
             for n in range(start, slot + 1):
                 self._drop(n % self.rows)
@@ -440,7 +484,7 @@ class SlotStd:
     def _std(total: F64, total_sq: F64, n: F64, min_count: int) -> F64:
         """:meth:`std` from the sums of the satellites."""
         short = n < np.array(float(min_count))
-        any_short = min_count < 1 or np.count_nonzero(short)
+        any_short = min_count < 1 or _count_nonzero(short)
         n_safe = np.maximum(n, _ONE) if any_short else n
         mean = total / n_safe
         var = total_sq / n_safe
@@ -456,17 +500,19 @@ class _SumBlock:
     """The sums (total, total_sq, count) of one read-only satellite array as a dense (3, d)
     block, with the work buffers of its updates. Copies and pickles rebuild the views."""
 
-    __slots__ = ("count", "min_count", "n_div", "q", "q_mean", "q_var", "sats", "short", "sq",
-                 "sums", "total", "total_sq")  # fmt: skip
+    __slots__ = ("count", "min_count", "n_div", "pair", "q", "q_mean", "q_var", "sats", "short",
+                 "sq", "sums", "total", "total_sq")  # fmt: skip
 
     def __init__(self, sats: npt.NDArray[np.intp], sums: F64) -> None:
         self.sats = sats
         self.sums = sums
         self.total, self.total_sq, self.count = sums[0], sums[1], sums[2]
+        self.pair = sums[:2]  # total, total_sq
         self.sq = np.empty(sats.shape[0])
         self.q = np.empty((2, sats.shape[0]))
         self.q_mean, self.q_var = self.q[0], self.q[1]
-        #: ``min_count`` the rows below were made for (the counts do not change in a block).
+        #: ``min_count`` the rows below were made for (−1: redo them; the counts change only in
+        #: :meth:`add`, and only up).
         self.min_count = -1
         self.short: npt.NDArray[np.bool_] | None = None
         self.n_div = self.count
@@ -478,22 +524,33 @@ class _SumBlock:
         """Replace the values ``old`` by ``new`` in the sums (``old`` is overwritten by ``new``):
         the same operations as :meth:`SlotStd._push` on ``acc`` (sum − old + new)."""
         self.total -= old
-        sq = np.multiply(old, old, out=self.sq)
+        sq = np.multiply(old, old, self.sq)
         self.total_sq -= sq
         old[...] = new
         self.total += new
-        np.multiply(new, new, out=sq)
+        np.multiply(new, new, sq)
         self.total_sq += sq
+
+    def add(self, new: F64) -> None:
+        """Add the values ``new`` to the sums: the same operations as :meth:`SlotStd._push` on
+        ``acc`` (sum + value, count + 1). The counts grow: :meth:`std` redoes its rows unless no
+        count was short (none becomes short, and ``n_div`` is then ``count`` itself)."""
+        self.total += new
+        sq = np.multiply(new, new, self.sq)
+        self.total_sq += sq
+        self.count += _ONE
+        if self.short is not None:
+            self.min_count = -1
 
     def std(self, min_count: int) -> F64:
         """:meth:`SlotStd.std` of the block's satellites (the same operations as ``_std``)."""
         if min_count != self.min_count:
             short = self.count < np.array(float(min_count))
-            any_short = min_count < 1 or np.count_nonzero(short)
+            any_short = min_count < 1 or _count_nonzero(short)
             self.short = short if any_short else None
             self.n_div = np.maximum(self.count, _ONE) if any_short else self.count
             self.min_count = min_count
-        np.divide(self.sums[:2], self.n_div, out=self.q)
+        np.divide(self.pair, self.n_div, self.q)
         mean, var = self.q_mean, self.q_var
         mean *= mean
         var -= mean
