@@ -21,6 +21,8 @@
 3. Exporter: the text exposition for 20 stations × 40 satellites, in-process and over real HTTP.
 
 Usage: .venv/bin/python bench/bench_outputs.py [--seconds 20] [--stations 20] [--sats 40]
+       .venv/bin/python bench/bench_outputs.py --shards 2 [--seconds 30]  (only 2., stations split
+       over processes that burst together: the latencies of all pooled)
 Targets (issue 8): publish-ack p99 ≤ 10 ms; scrape ≤ 50 ms. The machine may be shared: figures are
 under contention.
 """
@@ -30,6 +32,7 @@ from __future__ import annotations
 import argparse
 import asyncio
 import functools
+import multiprocessing
 import os
 import statistics
 import sys
@@ -259,12 +262,21 @@ async def bench_frames(
 
 
 async def bench_frames_synchronized(
-    seconds: int, n_stations: int, *, host: str, port: int, use_lane: bool = True
-) -> None:
+    seconds: int,
+    n_stations: int,
+    *,
+    host: str,
+    port: int,
+    use_lane: bool = True,
+    start_wall_s: float | None = None,
+    label: str = "",
+) -> list[float]:
     """Frames of every station arrive together at the top of each second (receivers align epochs
     to the GPS second); as in the daemon, each station's estimate step is its own task. Splits the
     frame → summary PUBACK latency into the wait behind other stations' steps (queueing), the
-    station's own estimation, and snapshot → PUBACK (alarms, formatting, queueing, the MQTT path)."""
+    station's own estimation, and snapshot → PUBACK (alarms, formatting, queueing, the MQTT path).
+    ``start_wall_s``: the wall-clock time (``time.time()``) of the first burst, so that shards in
+    several processes burst together. Returns the latencies (ms)."""
     chunks, pipes, engines = _replayed_stations(seconds, n_stations)
     settings = MqttSettings(host=host, port=port, topic_prefix=f"iwbench/{os.getpid()}")
     # per summary: (frame arrival, station step start, snapshot out)
@@ -322,6 +334,8 @@ async def bench_frames_synchronized(
         ]
         loop = asyncio.get_running_loop()
         start = loop.time()
+        if start_wall_s is not None:
+            start += max(0.0, start_wall_s - time.time())
         for s, chunk in enumerate(chunks[1:]):
             await asyncio.sleep(max(0.0, start + s - loop.time()))
             arrived = time.perf_counter()
@@ -337,8 +351,8 @@ async def bench_frames_synchronized(
     out = [(ack - snap) * 1e3 for _, _, snap, ack in rows]
     e = [x * 1e3 for x in est]
     print(
-        f"Frames -> summary PUBACK [{n_stations} stations x 1 Hz x {len(chunks) - 1} s, epochs all "
-        f"at the top of the second, one task per station, "
+        f"Frames -> summary PUBACK [{label}{n_stations} stations x 1 Hz x {len(chunks) - 1} s, "
+        f"epochs all at the top of the second, one task per station, "
         f"{'StepLane' if use_lane else 'no lane'}, real estimator]: n={len(ms)} "
         f"p50={pct(ms, 0.5):.2f} ms p99={pct(ms, 0.99):.2f} ms"
     )
@@ -356,6 +370,38 @@ async def bench_frames_synchronized(
     print(
         f"  last station of each second: median={statistics.median(per_s):.2f} ms, slowest "
         + ", ".join(f"{x:.1f} ms (s {k + 1})" for x, k in worst)
+    )
+    return ms
+
+
+def _shard(args: tuple[int, int, str, int, float, int]) -> list[float]:
+    seconds, n_stations, host, port, start_wall_s, k = args
+    return asyncio.run(
+        bench_frames_synchronized(
+            seconds, n_stations, host=host, port=port, start_wall_s=start_wall_s,
+            label=f"shard {k}: ",
+        )
+    )  # fmt: skip
+
+
+def bench_frames_sharded(
+    seconds: int, n_stations: int, shards: int, *, host: str, port: int
+) -> None:
+    """The synchronised burst with the stations split over ``shards`` processes (each its own
+    event loop, lane and MQTT connection), every shard bursting at the same wall-clock second:
+    whether more cores alone bring the frame → PUBACK latency down (DEVELOPERS.md, "Scaling
+    further"). The latencies of all shards are pooled."""
+    per = [n_stations // shards + (k < n_stations % shards) for k in range(shards)]
+    start_wall_s = time.time() + 15.0  # after every shard has built its scenario
+    ctx = multiprocessing.get_context("spawn")
+    with ctx.Pool(shards) as pool:
+        parts = pool.map(
+            _shard, [(seconds, n, host, port, start_wall_s, k) for k, n in enumerate(per)]
+        )
+    ms = [x for part in parts for x in part]
+    print(
+        f"Frames -> summary PUBACK [{n_stations} stations in {shards} processes ({per}), bursts "
+        f"aligned, pooled]: n={len(ms)} p50={pct(ms, 0.5):.2f} ms p99={pct(ms, 0.99):.2f} ms"
     )
 
 
@@ -401,10 +447,17 @@ def main() -> None:
     ap.add_argument("--seconds", type=int, default=20)
     ap.add_argument("--stations", type=int, default=20)
     ap.add_argument("--sats", type=int, default=40)
+    ap.add_argument(
+        "--shards", type=int, default=0,
+        help="only the synchronised frame bench, the stations split over this many processes",
+    )  # fmt: skip
     args = ap.parse_args()
     print(f"load average {os.getloadavg()[0]:.2f} on {os.cpu_count()} CPUs (shared machine)")
     host = os.environ.get("IONWARDEN_TEST_MQTT_HOST", "127.0.0.1")
     port = int(os.environ.get("IONWARDEN_TEST_MQTT_PORT", "1883"))
+    if args.shards:
+        bench_frames_sharded(args.seconds, args.stations, args.shards, host=host, port=port)
+        return
     asyncio.run(bench_outputs_work(max(args.seconds, 30), args.stations, args.sats))
     run = functools.partial(bench_mqtt, args.seconds, args.stations, args.sats)
     shared = f"shared broker {host}:{port}"
