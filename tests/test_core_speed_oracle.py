@@ -95,7 +95,8 @@ class _Oracle(StationEstimator):
             fit_kw = {"lay": lay, "el_all": el_all, "sin_all": sin_all, "mapping": mapping,
                       "x_km": pts[0], "y_km": pts[1]}  # fmt: skip
             if self._defer_fit:  # the arrays stay untouched until the next entry settles
-                self._pending_fit = ((t, figs), fit_kw)
+                # (the estimator's deferred form: time, keyword arguments)
+                self._pending_fit = (t, {"figs": figs, **fit_kw})
             else:
                 self._update_receiver_bias(t, figs, **fit_kw)
         if self._defer_fit and self.geometry.refresh_due(present, t + interval):

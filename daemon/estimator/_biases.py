@@ -293,33 +293,26 @@ class BiasModel:
         if self._pool.shape[1] < g_n:
             self._pool = np.pad(self._pool, ((0, 0), (0, g_n - self._pool.shape[1])))
         self._pool *= math.exp(-max(dt, 0.0) / self.memory_s)
+        sums = np.zeros(m)
+        cnt = np.zeros(m)
+        found: npt.NDArray[np.bool_] | slice | None = None
+        rows: Idx | slice | None = None
         if same_ids(self._nz_id, arc):
-            # the same arcs in the same order (the usual case): as below without the gathers
-            dn = n - self._nz_n
+            found = rows = slice(None)  # the same arcs in the same order (the usual case): views
+        elif self._nz_id.shape[0]:
+            found, rows = match_ids(self._nz_id, arc)
+        if found is not None and rows is not None:
+            sums[found] = self._nz_sum[rows]
+            cnt[found] = self._nz_cnt[rows]
+            dn = n[found] - self._nz_n[rows]
             step = dn > 0.0
             dn = np.where(step, dn, 1.0)
-            u = (level - self._nz_lev) * n / dn
+            u = (level[found] - self._nz_lev[rows]) * n[found] / dn
             v = np.where(step, u * u * dn, 0.0)
-            sums = self._nz_sum + v
-            cnt = self._nz_cnt + step
-            np.add.at(self._pool[0], group, v * w)
-            np.add.at(self._pool[1], group, step.astype(np.float64))
-        else:
-            sums = np.zeros(m)
-            cnt = np.zeros(m)
-            if self._nz_id.shape[0]:
-                found, rows = match_ids(self._nz_id, arc)
-                sums[found] = self._nz_sum[rows]
-                cnt[found] = self._nz_cnt[rows]
-                dn = n[found] - self._nz_n[rows]
-                step = dn > 0.0
-                dn = np.where(step, dn, 1.0)
-                u = (level[found] - self._nz_lev[rows]) * n[found] / dn
-                v = np.where(step, u * u * dn, 0.0)
-                sums[found] += v
-                cnt[found] += step
-                np.add.at(self._pool[0], group[found], v * w[found])
-                np.add.at(self._pool[1], group[found], step.astype(np.float64))
+            sums[found] += v
+            cnt[found] += step
+            np.add.at(self._pool[0], group[found], v * w[found])
+            np.add.at(self._pool[1], group[found], step.astype(np.float64))
         self._nz_id = np.asarray(arc, np.int64).copy()
         self._nz_n = np.asarray(n, np.float64).copy()
         self._nz_lev = np.asarray(level, np.float64).copy()

@@ -190,8 +190,8 @@ class StationEstimator:
         self.biases = BiasModel(self.pairs, cfg, S)
         self.cells = CellRouter(self.pairs)
         self._defer_fit = defer_fit
-        #: The deferred receiver-bias fit: (positional, keyword) arguments of _update_receiver_bias.
-        self._pending_fit: tuple[tuple[Any, ...], dict[str, Any]] | None = None
+        #: The deferred receiver-bias fit: (epoch time, keyword arguments of _update_receiver_bias).
+        self._pending_fit: tuple[float, dict[str, Any]] | None = None
         #: (satellites, time) of the next epoch's orbit refresh, to evaluate in :meth:`prefetch`.
         self._ahead: tuple[Idx, float] | None = None
         self._bias_cache: tuple[EpochLayout, int, F64, F64, F64] | None = None
@@ -232,7 +232,7 @@ class StationEstimator:
         pending, self._pending_fit = self._pending_fit, None
         if pending is not None:
             with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-                self._update_receiver_bias(*pending[0], **pending[1])
+                self._update_receiver_bias(pending[0], **pending[1])
 
     def add_ephemeris(self, eph: KeplerEphemeris | GlonassEphemeris) -> None:
         """Use a broadcast ephemeris for geometry and its group delays for the satellite bias."""
@@ -337,7 +337,7 @@ class StationEstimator:
                       "n_arc": n_arc, "arc": arc, "el_all": el_all, "sin_all": sin_all,
                       "mapping": mapping, "x_km": pts[0], "y_km": pts[1]}  # fmt: skip
             if self._defer_fit:  # the arrays stay untouched until the next entry settles
-                self._pending_fit = ((t,), fit_kw)
+                self._pending_fit = (t, fit_kw)
             else:
                 self._update_receiver_bias(t, **fit_kw)
         if self._defer_fit and self.geometry.refresh_due(present, t + interval):
