@@ -13,7 +13,7 @@ from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, Protocol
 
 from ionwarden.parsers import MSM_TYPES
-from ionwarden.parsers._framer import Framer, FramerStatistics, RtcmFrame
+from ionwarden.parsers._framer import MAX_INCOMPLETE_FRAME, Framer, FramerStatistics, RtcmFrame
 
 if TYPE_CHECKING:
     from collections.abc import Callable, Mapping, Sequence
@@ -21,6 +21,10 @@ if TYPE_CHECKING:
     from ionwarden.parsers._framer import Frame
 
 __all__ = ["DecoderCounts", "FrameConsumer", "FramingCore", "StationCore"]
+
+_RTCM_MAX_FRAME = MAX_INCOMPLETE_FRAME  # RTCM 10403.3 Table 4-1: at most 3 + 1023 + 3 bytes
+_SENTENCE_START = frozenset(b"$!")  # NMEA 0183 §5.3: a sentence starts with "$" or "!"
+_CUT_TRIES = 16  # 0xD3 bytes _tail_cut looks at, at most (a flood of them is junk: no cut)
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -108,6 +112,41 @@ def _after_last_epoch(frames: Sequence[Frame]) -> int:
     return 0
 
 
+def _tail_cut(data: bytes) -> int:
+    """Where the bytes of ``data`` that can hold no RTCM 3 frame start (``len(data)``: nowhere).
+
+    An RTCM 3 frame starts with the preamble 0xD3 (RTCM 10403.3 §4, Table 4-1), and NMEA 0183
+    sentences are printable 7-bit ASCII (NMEA 0183 §5.1, §5.3), so past the chunk's last 0xD3 only
+    sentences and junk remain. Any cut past it is safe (``FramingCore.feed`` checks the rest);
+    this one aims at the end of the frame that 0xD3 is in: of the 0xD3 from there back whose
+    10-bit length (reserved bits zero) ends a frame past it within the chunk, the nearest one
+    followed by a sentence's ``$``/``!`` (a 0xD3 in a payload or CRC rarely is), else the nearest.
+    """
+    n = len(data)
+    last = j = data.rfind(0xD3)
+    lo = max(0, last - _RTCM_MAX_FRAME + 1)  # the start of a frame holding ``last``, at the most
+    cut = n
+    for _ in range(_CUT_TRIES):
+        if j < lo:
+            break
+        if j + 3 <= n and not data[j + 1] & 0xFC:
+            end = j + 6 + (((data[j + 1] & 0x03) << 8) | data[j + 2])
+            if last < end <= n:
+                if end == n or data[end] in _SENTENCE_START:
+                    return end
+                if cut == n:
+                    cut = end
+        j = data.rfind(0xD3, lo, j)
+    return cut
+
+
+def _frame_end(frame: Frame) -> int:
+    """Stream offset just after ``frame``: RTCM 3 adds 3 header and 3 CRC bytes to the message."""
+    if isinstance(frame, RtcmFrame):
+        return frame.offset + len(frame.payload) + 6
+    return frame.offset + len(frame.raw)
+
+
 class FramingCore:
     """The framer, restarted on each new connection, plus an optional frame consumer.
 
@@ -116,6 +155,16 @@ class FramingCore:
     after a chunk's last epoch (typically its NMEA sentences) are decoded by :meth:`settle`
     instead of :meth:`feed`, after the consumer's own deferred work, so a burst of stations
     publishes its snapshots sooner; the order of everything the consumer sees is unchanged.
+
+    With ``defer`` the bytes of such a chunk past its last 0xD3 and the RTCM frame holding it
+    (:func:`_tail_cut`) are not even framed by :meth:`feed` but by :meth:`settle` (or the next
+    ``feed``, ``end_stream``, ``reset``), when the framed part already holds the chunk's epoch and
+    the framer holds no 0xD3 waiting for more bytes: those bytes then hold no RTCM 3 frame, hence
+    no epoch, and all their frames would have been held for :meth:`settle` anyway. The framer
+    gives the same frames for any cutting of the stream, so the frames the consumer gets, in
+    which calls, and the counters once settled are those of framing the whole chunk at once;
+    between ``feed`` and ``settle``, :meth:`counts` and :meth:`frames_total` lag by the held
+    bytes' frames (``feed`` still counts at least the epoch's frame).
     """
 
     def __init__(
@@ -127,36 +176,68 @@ class FramingCore:
     ):
         self._defer = defer
         self._later: list[Frame] = []  # frames held for settle()
+        self._tail = b""  # bytes held for settle(), not framed yet (no 0xD3 in them)
         self._framer = Framer()
+        self._fed = 0  # bytes given to this framer: the stream offset of the next byte
         self._done = DecoderCounts()  # counts of framers already ended
         self._consumer = consumer
         self._rebuild = rebuild
         self._bind_settle()
         self._frames_total = 0  # every frame the framers returned (= their RTCM + NMEA counts)
 
-    def feed(self, data: bytes, /) -> Sequence[object]:
+    def _frame(self, data: bytes) -> list[Frame]:
+        """Frame ``data`` (``b""`` ends the stream), counted."""
         frames = self._framer.feed(data)
+        self._fed += len(data)
         self._frames_total += len(frames)
-        if self._later:
-            frames = self._later + frames
-            self._later = []
-        if self._consumer is None or not frames:
+        return frames
+
+    def _held(self) -> list[Frame]:
+        """Take the held frames, then the frames of the held bytes, in stream order."""
+        frames, self._later = self._later, []
+        tail, self._tail = self._tail, b""
+        if tail:
+            frames += self._frame(tail)
+        return frames
+
+    def feed(self, data: bytes, /) -> Sequence[object]:
+        frames = self._held() if self._later or self._tail else []
+        consumer = self._consumer
+        n = len(data)
+        cut = _tail_cut(data) if self._defer and consumer is not None else n
+        k = -1  # index after the last epoch of ``frames``; -1: not looked for yet
+        if cut < n:
+            start = self._fed
+            head = self._frame(data[:cut])
+            frames += head
+            k = _after_last_epoch(frames)
+            # The held frames and bytes hold no epoch, so k > 0 means one in ``head``. The
+            # framer holds the bytes after its last frame at most: if they and the rest of the
+            # chunk have no 0xD3, the rest frames into sentences only, all after the epoch.
+            rest = _frame_end(head[-1]) - start if k and head else -1
+            if rest >= 0 and data.find(0xD3, rest, cut) < 0:
+                self._tail = data[cut:]
+            else:
+                frames += self._frame(data[cut:])
+                k = -1
+        else:
+            frames += self._frame(data)
+        if consumer is None or not frames:
             return ()
         if self._defer:
-            k = _after_last_epoch(frames)
+            if k < 0:
+                k = _after_last_epoch(frames)
             if 0 < k < len(frames):
                 self._later = frames[k:]
                 frames = frames[:k]
-        return self._consumer.feed_frames(frames)
+        return consumer.feed_frames(frames)
 
     def end_stream(self) -> Sequence[object]:
-        frames = self._framer.feed(b"")
-        self._frames_total += len(frames)
+        frames = self._held()
+        frames += self._frame(b"")
         self._done = _add(self._done, self._framer.statistics())
         self._framer = Framer()
-        if self._later:
-            frames = self._later + frames
-            self._later = []
+        self._fed = 0
         if self._consumer is None or not frames:
             return ()
         return self._consumer.feed_frames(frames)
@@ -170,12 +251,16 @@ class FramingCore:
         self._settle: Callable[[], Sequence[object]] | None = getattr(c, "settle", None)
 
     def unsettled(self) -> bool:
-        return bool(self._later) or (self._unsettled is not None and self._unsettled())
+        return (
+            bool(self._later)
+            or bool(self._tail)
+            or (self._unsettled is not None and self._unsettled())
+        )
 
     def settle(self) -> Sequence[object]:
         # The held frames first (the consumer settles its own deferred part before routing
         # them), then whatever the consumer still has to do (its look-ahead work last).
-        later, self._later = self._later, []
+        later = self._held()
         out = (
             list(self._consumer.feed_frames(later)) if later and self._consumer is not None else []
         )
@@ -187,9 +272,10 @@ class FramingCore:
         return self._frames_total
 
     def reset(self) -> None:
+        self._held()  # framed and counted as feed would have, then dropped (as held frames are)
         self._done = _add(self._done, self._framer.statistics())
         self._framer = Framer()
-        self._later = []
+        self._fed = 0
         if self._rebuild is not None:
             self._consumer = self._rebuild()
             self._bind_settle()
