@@ -137,6 +137,8 @@ class _Layout:
     glo_fdma: bool
     #: Per-cell ``GLO_NO_CHANNEL`` (read-only), the channel column of non-GLONASS messages.
     no_channel: npt.NDArray[np.int8]
+    #: Per satellite: its GLONASS slot (``sat_ids`` − 100, read-only), for the channel table.
+    glo_slots: npt.NDArray[np.intp]
 
 
 _LAYOUTS: dict[tuple[int, int, int, int], _Layout] = {}
@@ -209,7 +211,8 @@ def _layout(
     sig = system.signals[cell_sig]
     freq = frequencies_hz(sat, sig)
     no_channel = np.full(len(cells), GLO_NO_CHANNEL, np.int8)
-    for arr in (sat_ids, sat, sig, freq, cell_sat, no_channel):
+    glo_slots = sat_ids.astype(np.intp) - 100
+    for arr in (sat_ids, sat, sig, freq, cell_sat, no_channel, glo_slots):
         arr.setflags(write=False)  # shared by every message with this layout
     return _Layout(
         nbytes=(pos + 7) // 8,
@@ -228,6 +231,7 @@ def _layout(
         freq_hz=freq,
         glo_fdma=system.letter == "R",
         no_channel=no_channel,
+        glo_slots=glo_slots,
     )
 
 
@@ -328,7 +332,7 @@ def learn_glo_channels(h: MsmHead, table: npt.NDArray[np.int8]) -> None:
     own DF419 where known, else the table's (e.g. taught by a 1020 ephemeris).
     """
     lay = h.layout
-    slots = lay.sat_ids.astype(np.intp) - 100
+    slots = lay.glo_slots  # lay.sat_ids.astype(np.intp) - 100, worked out once per layout
     if h.msm_level in (5, 7):
         ext = _fields(h.payload, lay, lay.seg["EXT"])
         known = ext <= _GLO_EXT_MAX  # DF419 0…13 ↔ channel −7…+6

@@ -265,6 +265,17 @@ def decode_epochs(
     measured columns are new for each call (an epoch's
     columns may be views of one block allocated for the epochs decoded together).
     """
+    if len(epochs) == 1:  # the daemon's usual feed: one epoch (same steps, no grouping)
+        heads = epochs[0][0]
+        key1 = tuple([(h.layout, len(h.payload)) for h in heads])
+        lay = _LAYOUTS.get(key1)
+        if lay is None:
+            if len(_LAYOUTS) >= _MAX_EPOCH_LAYOUTS:
+                _LAYOUTS.clear()
+            lay = _LAYOUTS[key1] = _build(heads)
+        one: list[ObsEpoch] = [None]  # type: ignore[list-item]
+        _decode_one(lay, epochs[0], one)
+        return one, lay.duplicates
     groups: dict[tuple[tuple[object, int], ...], list[int]] = {}
     for k, (heads, _, _) in enumerate(epochs):
         groups.setdefault(tuple([(h.layout, len(h.payload)) for h in heads]), []).append(k)
@@ -422,3 +433,50 @@ def _decode_group(
         _SET_SOURCES(epoch, sources)
         _SET_VALIDATE(epoch, False)
         out[where[j]] = epoch
+
+
+def _decode_one(
+    lay: _EpochLayout, epoch: tuple[Sequence[MsmHead], GpsTime, int], out: list[ObsEpoch]
+) -> None:
+    """``_decode_group`` of one epoch (k = 1), operation for operation on 2-D (row, cell) arrays
+    instead of 3-D (row, 1, cell) ones: the same values, without the per-epoch views of the
+    columns (tests/test_decode_fixed_single.py compares both)."""
+    heads, time, station = epoch
+    n = lay.n
+    buf = b"".join([h.payload for h in heads] + [_PAD])
+    words = np.ndarray((len(buf) - 3,), _BE32, buf, 0, (1,))
+    left = np.left_shift(words.take(lay.bytepos), lay.lsh, dtype=np.uint32)
+    raw = left.view(np.int32) >> lay.rsh
+    raw &= lay.mask
+    val = raw * lay.scale
+    val[raw == lay.invalid] = np.nan
+    v = val.reshape(_NROWS, n)
+    r = raw.reshape(_NROWS, n)
+    rough_rate = v[0:2] + v[2:4]
+    ranges = v[4:6] + rough_rate[0]
+    if lay.glo_pos.shape[0]:
+        freq, mult = _glo_columns(lay, heads)
+    else:
+        freq, mult = lay.freq_hz, lay.mult
+    ranges *= mult
+    lock_raw = r[7]
+    epoch_out = _NEW(ObsEpoch)
+    _SET_TIME(epoch_out, time)
+    _SET_STATION(epoch_out, station)
+    _SET_SAT(epoch_out, lay.sat)
+    _SET_SIG(epoch_out, lay.sig)
+    _SET_PR(epoch_out, ranges[0])
+    _SET_PHASE(epoch_out, ranges[1])
+    _SET_RATE(epoch_out, rough_rate[1])
+    _SET_CN0(epoch_out, v[6].astype(np.float32))
+    _SET_LOCK_S(
+        epoch_out,
+        lay.lock_table.take(lock_raw if lay.lock_offset is None else lock_raw + lay.lock_offset),
+    )
+    _SET_LOCK_IND(epoch_out, lock_raw.astype(np.int16))
+    _SET_HALF(epoch_out, r[8].astype(np.bool_))
+    _SET_LLI(epoch_out, lay.lli)
+    _SET_FREQ(epoch_out, freq)
+    _SET_SOURCES(epoch_out, lay.sources)
+    _SET_VALIDATE(epoch_out, False)
+    out[0] = epoch_out

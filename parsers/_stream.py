@@ -39,7 +39,7 @@ from ._ephemeris import GlonassEphemeris, KeplerEphemeris
 from ._epoch import ObsEpoch
 from ._errors import ParseError
 from ._framer import Frame, Framer, FramerStatistics, NmeaFrame, RtcmFrame
-from ._gnsstime import BDS_GPS_OFFSET_S, GpsTime, utc_to_gps
+from ._gnsstime import BDS_GPS_OFFSET_S, SECONDS_PER_WEEK, GpsTime, utc_to_gps
 from ._msm import (
     MSM_TYPES,
     MsmHead,
@@ -338,11 +338,16 @@ class StreamDecoder:
             self._raw[t] = self._raw.get(t, 0) + 1
             out.append(RawRtcm(msg_type=t, payload=frame.payload, offset=frame.offset))
             return
-        try:
-            msg = decoder(frame.payload)
-        except ParseError as exc:
-            self._count_error(t, exc, frame.offset)
-            return
+        # A repeated message: ``_decode_misc``'s cache hit (same key, same object), looked up
+        # here without the two calls to get there (tests/test_decode_fixed_single.py).
+        ref = self._ref
+        msg = self._misc_cache.get((frame.payload, ref.week if ref is not None else -1))
+        if msg is None:
+            try:
+                msg = decoder(frame.payload)
+            except ParseError as exc:
+                self._count_error(t, exc, frame.offset)
+                return
         self._decoded[t] = self._decoded.get(t, 0) + 1
         self._learn(msg, out)
         out.append(msg)
@@ -371,11 +376,7 @@ class StreamDecoder:
 
     def _learn(self, msg: Message, out: list[Message]) -> None:
         """Channel table and reference time from ephemerides."""
-        if isinstance(msg, GlonassEphemeris):
-            slot = msg.sat - 100
-            if 0 < slot < self._glo_channels.shape[0] and -7 <= msg.channel <= 6:
-                self._glo_channels[slot] = msg.channel
-        elif isinstance(msg, KeplerEphemeris):
+        if isinstance(msg, KeplerEphemeris):  # the commonest (GPS, Galileo, BeiDou, QZSS)
             known = self._eph_refs.get(id(msg))
             if known is not None and known[0] is msg:  # held there: the id is still this object's
                 ref = known[1]
@@ -394,11 +395,20 @@ class StreamDecoder:
                 self._set_reference(ref, source, out)
             else:
                 self._check_clock(msg.sat, ref, source, out)
+        elif isinstance(msg, GlonassEphemeris):
+            slot = msg.sat - 100
+            if 0 < slot < self._glo_channels.shape[0] and -7 <= msg.channel <= 6:
+                self._glo_channels[slot] = msg.channel
 
     def _check_clock(self, sat: int, ref: GpsTime, source: str, out: list[Message]) -> None:
         """Replace a reference (e.g. a Pi's unsynchronised clock) that two ephemerides contradict."""
-        assert self._ref is not None
-        if abs(ref - self._ref) <= _CLOCK_DISAGREEMENT_S:
+        cur = self._ref
+        assert cur is not None
+        # abs(ref - cur), GpsTime.__sub__'s expression inlined (the same float operations)
+        if (
+            abs((ref.week - cur.week) * SECONDS_PER_WEEK + (ref.tow_s - cur.tow_s))
+            <= _CLOCK_DISAGREEMENT_S
+        ):
             self._clock_votes.clear()
             return
         agree = [r for s, r in self._clock_votes if s != sat and abs(r - ref) < _EPH_AGREE_S]
