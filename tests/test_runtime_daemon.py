@@ -460,6 +460,78 @@ def test_daemon_checkpoints_periodically_while_running(tmp_path: Path) -> None:
     run_virtual(main(), real_poll_s=0.02)
 
 
+def test_status_tick_waits_for_the_stations_urgent_steps() -> None:
+    """The 1 Hz status tick (a snapshot of every station for the exporter and the health
+    message) is a background step of the daemon's StepLane: while urgent steps hold the lane (a
+    burst of epochs at the top of the second) it waits, then runs."""
+    ticks: list[float] = []
+
+    async def main() -> None:
+        from ionwarden.daemon.outputs import DaemonSnapshot
+
+        def snapshot(_d: Daemon) -> DaemonSnapshot:
+            ticks.append(asyncio.get_running_loop().time())
+            return DaemonSnapshot()
+
+        async with Fleet(1) as fleet:
+            opts = DaemonOptions(
+                stations=(_station("a", fleet.ports()[0]),),
+                summary_interval_s=0,
+                status_interval_s=1,
+            )
+            daemon = Daemon(opts, factory=_factory({}), build_snapshot=snapshot)
+            async with asyncio.TaskGroup() as tg:
+                tg.create_task(daemon.run(), name="test.daemon")
+                await daemon.ready.wait()
+                await asyncio.sleep(2.5)
+                assert len(ticks) >= 2  # ticking (the first snapshot is the one at start)
+                lane = daemon._lane
+                await lane.turn()  # an urgent step that holds the lane for 3 s
+                held = len(ticks)
+                await asyncio.sleep(3)
+                assert len(ticks) == held  # no tick while the urgent step runs
+                lane.done()
+                await asyncio.sleep(1.5)
+                assert len(ticks) > held  # the tick that waited, then the next ones
+                daemon.request_stop()
+
+    run_virtual(main(), real_poll_s=0.02)
+
+
+def test_daemon_keeps_running_when_a_checkpoint_cannot_be_written(
+    tmp_path: Path, caplog: pytest.LogCaptureFixture
+) -> None:
+    """A state directory that cannot be written (here a file stands where it should be) costs
+    the checkpoints, logged per station, never the daemon: periodic saves and the one at stop."""
+    state = tmp_path / "state"
+    state.write_text("not a directory")
+    result: list[int] = []
+
+    async def main() -> None:
+        async with Fleet(1) as fleet:
+            opts = DaemonOptions(
+                stations=(_station("a", fleet.ports()[0]),),
+                state_dir=state,
+                checkpoint_interval_s=10,
+                summary_interval_s=0,
+                status_interval_s=5,
+            )
+            daemon = Daemon(opts, factory=_factory({}))
+            async with asyncio.TaskGroup() as tg:
+                run = tg.create_task(daemon.run(), name="test.daemon")
+                await daemon.ready.wait()
+                await asyncio.sleep(25)  # two periodic attempts
+                daemon.request_stop()
+                result.append(await run)
+
+    with caplog.at_level("ERROR", logger="ionwarden.daemon.runtime"):
+        run_virtual(main(), real_poll_s=0.02)
+    assert result == [0]
+    failures = [r for r in caplog.records if "checkpoint not written" in r.getMessage()]
+    assert len(failures) >= 3  # two periodic saves and the one at stop
+    assert state.read_text() == "not a directory"
+
+
 def test_daemon_publishes_retained_alarm_states_for_stations_started_by_a_reload(
     tmp_path: Path,
 ) -> None:
