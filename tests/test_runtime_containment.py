@@ -208,3 +208,41 @@ def test_station_counts_a_decode_error_of_its_deferred_step_as_a_decode_error(
     assert _seqs(core) == [0, 1, 2, 3, 4]
     assert core.settled == 5
     assert (st.decode_errors_total, st.pipeline_errors_total) == (1, 0)
+
+
+def test_station_settles_its_outputs_deferred_work_after_each_step(tmp_path: Path) -> None:
+    """``also_settle`` (the alarms' deferred baseline learning) gets a background step after
+    every step that left it pending, even when the core itself has nothing to settle, and after
+    that step's outputs were emitted; every epoch's work is done exactly once."""
+    events: list[str] = []
+
+    class Learning:  # as StationAlarms: observe_snapshot defers, settling what was pending
+        def __init__(self) -> None:
+            self.pending = False
+
+        def observe(self, item: object) -> None:
+            if not isinstance(item, tuple):  # source events go to the emit callback too
+                return
+            if self.pending:
+                events.append("learn in observe")
+            self.pending = True
+
+        def unsettled(self) -> bool:
+            return self.pending
+
+        def settle(self) -> None:
+            assert self.pending
+            self.pending = False
+            events.append("learn in settle")
+
+    also = Learning()
+
+    async def main() -> None:
+        cfg = _cfg("st1", _capture(tmp_path, "a", 5))  # one epoch per step
+        runner = StationRunner(cfg, StandInCore(), emit=also.observe, also_settle=also)
+        async with asyncio.TaskGroup() as tg:
+            tg.create_task(runner.ingest_loop(), name="daemon.ingest[st1]")
+            tg.create_task(runner.estimate_loop(), name="daemon.estimate[st1]")
+
+    run_virtual(main())
+    assert events == ["learn in settle"] * 5

@@ -79,7 +79,17 @@ class _Bins:
     the bins seen and their cell counts (for learning), the cells per band and whether every
     cell's bin is warm (for the drop). Counts only grow, so "all warm" once True stays True."""
 
-    __slots__ = ("all_warm", "flat", "judged", "min_cells", "n_band", "n_seen", "seen")
+    __slots__ = (
+        "all_warm",
+        "bands",
+        "bands_min_cells",
+        "flat",
+        "judged",
+        "min_cells",
+        "n_band",
+        "n_seen",
+        "seen",
+    )
 
     def __init__(self, flat: bytes) -> None:
         self.flat = flat
@@ -90,6 +100,9 @@ class _Bins:
         #: ``n_band >= min_cells`` for the ``min_cells`` last asked.
         self.judged: npt.NDArray[np.bool_] | None = None
         self.min_cells = -1
+        #: The judged band keys (ascending) and their cell counts, for ``bands_min_cells``.
+        self.bands: tuple[list[int], list[int]] | None = None
+        self.bands_min_cells = -1
 
 
 @dataclass(slots=True)
@@ -243,6 +256,44 @@ class Cn0Baseline:
             bins.min_cells = min_cells
         np.divide(total, n, out=out, where=judged)
         return out
+
+    def drop_db_bands(
+        self, cells: Cn0Cells, *, min_cells: int = 3
+    ) -> tuple[list[int], list[float]]:
+        """The bands judged this epoch and their drops: the keys ``k`` (ascending) where
+        ``drop_db_cells(cells, min_cells=min_cells)[k]`` is finite, and those values, bit for bit.
+
+        Shortcut once every cell's bin is warm (tests/test_alarms_fixed_settle.py): the judged
+        bands and their cell counts are kept with the bins, and each band's mean is one Python
+        division of the same sum by the same count (IEEE division, as numpy's), so no 70-band
+        array is filled, tested and gathered."""
+        bins = cells.bins
+        if not bins.all_warm:
+            drop = self.drop_db_cells(cells, min_cells=min_cells)
+            evaluated = np.isfinite(drop).nonzero()[0]
+            return evaluated.tolist(), drop.take(evaluated).tolist()
+        bands = bins.bands
+        if bands is None or bins.bands_min_cells != min_cells:
+            n = bins.n_band
+            if n is None:
+                n = bins.n_band = np.bincount(cells.key, minlength=N_BAND_KEYS)
+            # A band without cells is never judged (0/0 is NaN in drop_db_cells).
+            judged = (n >= max(min_cells, 1)).nonzero()[0]
+            bands = bins.bands = (judged.tolist(), n.take(judged).tolist())
+            bins.bands_min_cells = min_cells
+        keys, counts = bands
+        if not keys:
+            return [], []
+        dev = self._mean_flat.take(cells.flat)
+        dev -= cells.cn0
+        # Without minlength the sums stop at the largest band key seen: the same sums.
+        total: list[float] = np.bincount(cells.key, weights=dev).tolist()
+        values = [total[k] / c for k, c in zip(keys, counts, strict=True)]
+        for v in values:
+            if not math.isfinite(v):  # only with absurd inputs: keep the finite ones
+                kept = [(k, x) for k, x in zip(keys, values, strict=True) if math.isfinite(x)]
+                return [k for k, _ in kept], [x for _, x in kept]
+        return keys[:], values
 
     def learn(
         self,

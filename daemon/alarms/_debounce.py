@@ -16,7 +16,7 @@ __all__ = ["Debouncer"]
 class Debouncer:
     """Hysteresis + minimum durations over a scalar series; ``step`` returns True on a change."""
 
-    __slots__ = ("_held_since", "active", "clear_after_s", "clear_at", "raise_after_s", "raise_at")
+    __slots__ = ("active", "clear_after_s", "clear_at", "held_since", "raise_after_s", "raise_at")
 
     def __init__(
         self, *, raise_at: float, clear_at: float, raise_after_s: float, clear_after_s: float
@@ -28,27 +28,29 @@ class Debouncer:
         self.raise_after_s = raise_after_s
         self.clear_after_s = clear_after_s
         self.active = False
-        self._held_since: float | None = None
+        #: When the change being held began (``t_s``), None when none is (read-only for callers:
+        #: the alarm engine reads it to skip a step that would change nothing).
+        self.held_since: float | None = None
 
     @property
     def pending(self) -> bool:
         """A change is being held (it happens if the condition lasts its hold time)."""
-        return self._held_since is not None
+        return self.held_since is not None
 
     def step(self, value: float, t_s: float) -> bool:
         """Feed one value observed at ``t_s`` (seconds, any monotonic base); True if state flipped."""
         if math.isnan(value):
-            self._held_since = None
+            self.held_since = None
             return False
         crossing = value < self.clear_at if self.active else value >= self.raise_at
         if not crossing:
-            self._held_since = None
+            self.held_since = None
             return False
-        if self._held_since is None or t_s < self._held_since:
-            self._held_since = t_s
+        if self.held_since is None or t_s < self.held_since:
+            self.held_since = t_s
         hold = self.clear_after_s if self.active else self.raise_after_s
-        if t_s - self._held_since >= hold:
+        if t_s - self.held_since >= hold:
             self.active = not self.active
-            self._held_since = None
+            self.held_since = None
             return True
         return False

@@ -3,6 +3,12 @@
 Pure and clock-free (STYLE rule 22): every ``observe_*`` call carries its own time — the epoch's
 GPS time for data alarms, the caller's wall time (as GPS time) for the stream-stall alarm — and
 returns the transitions it caused, in order. The caller logs, publishes and exports them.
+
+Deferred learning: folding an epoch's C/N0 cells into the baseline does not change that epoch's
+evaluation, so :meth:`StationAlarms.observe_snapshot` leaves it pending and :meth:`StationAlarms.settle`
+does it (the runtime calls it once the other stations' urgent work is out). The next
+``observe_snapshot`` settles anything still pending first, so results never depend on whether or
+when ``settle`` ran.
 """
 
 from __future__ import annotations
@@ -24,6 +30,8 @@ if TYPE_CHECKING:
     from ionwarden.daemon.config import AlarmSettings, ThresholdAlarm
     from ionwarden.daemon.estimator import FixStatus, StationSnapshot
     from ionwarden.parsers import GpsTime
+
+    from ._cn0 import Cn0Cells
 
 __all__ = ["UNITS", "StationAlarms"]
 
@@ -108,6 +116,22 @@ class StationAlarms:
         #: No CN0 alarm is active or pending (nothing frozen; a value below raise_at changes
         #: nothing but the alarm's value).
         self._cn0_quiet = True
+        #: The last snapshot's baseline learning, not yet done: (cells, t_s, frozen bands).
+        self._unlearned: tuple[Cn0Cells, float, npt.NDArray[np.bool_] | None] | None = None
+
+    def unsettled(self) -> bool:
+        """Learning is pending: :meth:`settle` has work to do."""
+        return self._unlearned is not None
+
+    def settle(self) -> None:
+        """Do the deferred part of the last :meth:`observe_snapshot`: fold its C/N0 cells into
+        the baseline (a no-op when nothing is pending). Call it after the urgent work of every
+        station; skipping it only moves the work into the next ``observe_snapshot``."""
+        pending = self._unlearned
+        if pending is not None:
+            self._unlearned = None
+            cells, t_s, frozen = pending
+            self._cn0.learn_cells(cells, t_s, frozen=frozen)
 
     def _add(self, key: str, kind: AlarmKind, band: str, cfg: ThresholdAlarm) -> _Alarm:
         alarm = _Alarm(
@@ -180,7 +204,10 @@ class StationAlarms:
             self._step(alarm, value, time, out)
 
     def observe_snapshot(self, snap: StationSnapshot) -> list[AlarmTransition]:
-        """Evaluate the ionosphere and CN0 alarms on one epoch's snapshot."""
+        """Evaluate the ionosphere and CN0 alarms on one epoch's snapshot (its baseline learning
+        is left pending for :meth:`settle`; anything still pending is settled first)."""
+        if self._unlearned is not None:
+            self.settle()
         out: list[AlarmTransition] = []
         t = snap.time
         t_s = t.total_s
@@ -199,8 +226,15 @@ class StationAlarms:
         )
         step = self._step
         for alarm, value in zip(self._snapshot_alarms, values, strict=True):
-            if alarm is not None:
+            if alarm is None:
+                continue
+            m = alarm.machine
+            if m.active or m.held_since is not None or value >= m.raise_at:
                 step(alarm, value, t, out, t_s)
+            else:
+                # Shortcut: normal, no hold, below raise_at (or NaN): Debouncer.step would change
+                # nothing (no crossing: the hold stays None, no flip); only the value is kept.
+                alarm.value = value
         if s.cn0_drop.enabled and snap.cell_sat.size:
             self._observe_cn0(snap, out, t_s)
         return out
@@ -208,11 +242,8 @@ class StationAlarms:
     def _observe_cn0(self, snap: StationSnapshot, out: list[AlarmTransition], t_s: float) -> None:
         base = self._cn0
         cells = base.cells(snap.cell_sat, snap.cell_sig, snap.cell_el_deg, snap.cell_cn0_dbhz)
-        drop = base.drop_db_cells(cells, min_cells=self._settings.cn0_baseline.min_cells)
         # Bands evaluated this epoch (bounded: at most N_BAND_KEYS); the loops are per band.
-        evaluated = np.isfinite(drop).nonzero()[0]
-        keys: list[int] = evaluated.tolist()
-        values: list[float] = drop.take(evaluated).tolist()
+        keys, values = base.drop_db_bands(cells, min_cells=self._settings.cn0_baseline.min_cells)
         by_key = self._cn0_by_key
         alarms = [by_key[k] for k in keys]
         if (
@@ -225,7 +256,7 @@ class StationAlarms:
             for alarm, value in zip(alarms, values, strict=True):
                 assert alarm is not None
                 alarm.value = value
-            base.learn_cells(cells, t_s)
+            self._unlearned = (cells, t_s, None)
             return
         for k, value in zip(keys, values, strict=True):
             alarm = by_key[k]
@@ -245,7 +276,7 @@ class StationAlarms:
                     frozen = np.zeros(N_BAND_KEYS, np.bool_)
                 frozen[k] = True
         self._cn0_quiet = frozen is None
-        base.learn_cells(cells, t_s, frozen=frozen)
+        self._unlearned = (cells, t_s, frozen)
 
     def observe_fix(self, fix: FixStatus, time: GpsTime | None = None) -> list[AlarmTransition]:
         """Evaluate the NMEA fix alarms; ``time`` is used when the fix carries none."""

@@ -254,8 +254,10 @@ class MqttPublisher:
 
     def publish_transitions_nowait(self, transitions: Iterable[AlarmTransition]) -> None:
         """Queue each transition on the event stream and as the alarm's new retained state."""
-        now = self._clock()
+        now: dt.datetime | None = None
         for tr in transitions:
+            if now is None:  # read once, and only when there is a transition (most epochs: none)
+                now = self._clock()
             self._put(
                 self._tree.events(tr.station),
                 fmt.alarm_event_payload(tr),

@@ -29,7 +29,7 @@ import asyncio
 import enum
 import logging
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Protocol
 
 from ionwarden.daemon.errors import ParseError, TransportError
 from ionwarden.daemon.estimator import FixStatus, StationSnapshot
@@ -45,6 +45,15 @@ from ._backoff import backoff_delays
 from ._pacer import ReplayPacer
 from ._queues import BoundedQueue, Overflow, QueueStatistics
 from ._stall import StallDetector, StallKind, StallLimits
+
+
+class Settles(Protocol):
+    """Deferred work that waits for a background step (``StationAlarms``: its learning)."""
+
+    def unsettled(self) -> bool: ...
+
+    def settle(self) -> None: ...
+
 
 if TYPE_CHECKING:
     import random
@@ -189,9 +198,13 @@ class StationRunner:
         on_finished: Callable[[], None] | None = None,
         on_latency: Callable[[str, float], None] | None = None,
         lane: StepLane | None = None,
+        also_settle: Settles | None = None,
     ):
         self._on_latency = on_latency
         self._lane = lane
+        #: More deferred work of the station's outputs (its alarms' baseline learning), settled
+        #: in the same background step as the core's.
+        self._also = also_settle
         self._on_finished = on_finished
         self.config = config
         self.core = core
@@ -400,7 +413,7 @@ class StationRunner:
                 item = await self.queue.get()
                 if item is _END or item is _BREAK:
                     self._step(None, None)
-                    if self.core.unsettled():
+                    if self._unsettled():
                         self._settle()
                     if item is _END:
                         return
@@ -420,7 +433,7 @@ class StationRunner:
                     finally:
                         if lane is not None:
                             lane.done()
-                    if self.core.unsettled():
+                    if self._unsettled():
                         # The deferred part of the step (receiver-bias fit, messages after the
                         # epoch) after every urgent step waiting: the snapshot just emitted does
                         # not depend on it (StepLane, StationPipeline.settle).
@@ -450,10 +463,21 @@ class StationRunner:
             self.core.end_stream if chunk is None else lambda: self.core.feed(chunk), arrived
         )
 
+    def _unsettled(self) -> bool:
+        return self.core.unsettled() or (self._also is not None and self._also.unsettled())
+
     def _settle(self) -> None:
         """The deferred part of the last step (``StationCore.settle``: it decodes the frames held
-        back, so its decode errors count as such), contained like a step."""
+        back, so its decode errors count as such), then that of the outputs (``also_settle``,
+        after the outputs the core's settle emits), contained like a step."""
         self._contained(self.core.settle, None)
+        if self._also is not None and self._also.unsettled():
+            self._contained(self._settle_also, None)
+
+    def _settle_also(self) -> Sequence[object]:
+        assert self._also is not None
+        self._also.settle()
+        return ()
 
     def _contained(self, work: Callable[[], Sequence[object]], arrived: float | None) -> float:
         """Run ``work`` (decode and estimate) and emit its outputs, containing any failure."""

@@ -220,6 +220,7 @@ class Daemon:
             on_finished=self._wake.set,
             on_latency=self._exporter.observe_epoch_latency if self._exporter is not None else None,
             lane=self._lane,
+            also_settle=bundle.alarms,
         )
         running = _Running(runner=runner, bundle=bundle)
         self._stations[cfg.name] = running
