@@ -119,11 +119,11 @@ class ArcBlock:
     caller wants differenced too (read back from ``diff[2:]``).
     """
 
-    __slots__ = ("absres", "cur", "cur_id", "cur_lock", "d", "diff", "div", "dt", "g", "jump",
-                 "last_t", "level", "level_step", "low_thr", "mw_floor", "mw_thr", "mw_var", "n",
-                 "n_ref", "pred", "prev", "prev_id", "prev_lock", "prod", "rate", "ref", "res",
-                 "res_gf", "scr", "scr_dt", "scr_flags", "scr_id", "scr_lock", "sq", "upd", "var",
-                 "x")  # fmt: skip
+    __slots__ = ("absres", "cur", "cur_id", "cur_lock", "d", "diff", "dt", "g", "jump", "last_t",
+                 "level", "level_step", "low_thr", "mw_floor", "mw_mean", "mw_thr", "mw_var", "n",
+                 "n_ref", "pred", "prev", "prev_id", "prev_lock", "rate", "ref", "res", "res_gf",
+                 "res_mw", "scr", "scr_dt", "scr_flags", "scr_id", "scr_lock", "sq", "var",
+                 "x_mw", "x_rate")  # fmt: skip
 
     def __init__(self, g: F64, n_ref: int = 2) -> None:
         d = g.shape[1]
@@ -138,17 +138,16 @@ class ArcBlock:
         self.ref = g[GF_PRED : GF_PRED + n_ref]  # GF prediction, MW mean, the caller's rows
         self.diff = np.empty((n_ref, d))
         self.res = self.diff[:2]  # residuals: GF − prediction, MW − mean of the arc
-        self.res_gf = self.diff[0]
-        self.upd = g[GF_RATE : MW_MEAN + 1 : MW_MEAN - GF_RATE]  # (GF rate, MW mean)
-        self.div = g[DT : N - 1 : N - DT]  # (dt, n)
+        self.res_gf, self.res_mw = self.diff[0], self.diff[1]
+        self.mw_mean = g[MW_MEAN]
         self.var = g[GF_VAR : MW_VAR + 1]
         self.mw_var, self.mw_thr, self.mw_floor = g[MW_VAR], g[MW_THR], g[MW_FLOOR]
         self.low_thr = g[GF_LOW : MW_THR + 1]  # (GF bound, MW threshold)
         self.absres = np.empty((2, d))
-        # The residuals times their weights (one product, see ``ArcState._weights``): the
-        # scatters' (GF, MW), the (GF rate, MW mean) updates' and the GF level's (row 2, 0).
-        self.prod = np.empty((3, 2, d))
-        self.sq, self.x, self.level_step = self.prod[0], self.prod[1], self.prod[2, 0]
+        # The residuals times their weights: the scatters' (GF, MW), the GF rate and MW mean
+        # updates', the GF level's.
+        self.sq = np.empty((2, d))
+        self.x_rate, self.x_mw, self.level_step = np.empty(d), np.empty(d), np.empty(d)
         #: The caller's ``cur`` (7, d) the views below were made of (None: not yet).
         self.cur: F64 | None = None
         self.cur_id = self.cur_lock = self.absres  # placeholders, set with ``cur``
@@ -173,12 +172,10 @@ class ArcState:
         self._gf_k = np.array(th.gf_k_sigma)
         self._mw_k = np.array(th.mw_k_sigma)
         self._keep_w = np.array(1.0 - th.ema_weight)
-        #: Weights of the (GF, MW) residuals, as one (3, 2, 1) operand: in the scatters (w, w),
-        #: the (GF rate, MW mean) updates (b, 1) and the GF level (level weight; the MW product
-        #: of that row is not used).
-        self._weights = np.array(
-            [[[th.ema_weight]] * 2, [[th.rate_weight], [1.0]], [[th.level_weight]] * 2]
-        )
+        #: Weights of the residuals: in the scatters, the GF rate update and the GF level.
+        self._ema_w = np.array(th.ema_weight)
+        self._rate_w = np.array(th.rate_weight)
+        self._level_w = np.array(th.level_weight)
         self._floor_per_s = np.array(th.gf_floor_m_per_s)
         self._floor = np.array(th.gf_floor_m)
         #: The GF floor's lower bound holds (see :meth:`detect`).
@@ -281,17 +278,19 @@ class ArcState:
         if not screen and not any_jump and all_tracked:
             # The common case: every arc continues and learns from its residuals, in place:
             # scatters, then GF rate += rate_weight·res_GF/dt and MW mean += res_MW/(n + 1) as
-            # one stack, GF level = prediction + level_weight·res_GF.
-            np.multiply(res, self._weights, b.prod)  # w·res, (b, 1)·res, level weight·res
+            # 1-d rows, GF level = prediction + level_weight·res_GF. (One (2, d) operation on
+            # broadcast or strided rows costs more than two on 1-d rows: NumPy's iterator.)
+            sq = np.multiply(res, self._ema_w, b.sq)  # w·res
             var = b.var
             var *= self._keep_w
-            sq = b.sq
             sq *= res
             var += sq
-            x = b.x
             n += _ONE
-            x /= b.div
-            b.upd += x
+            x = np.multiply(b.res_gf, self._rate_w, b.x_rate)
+            x /= b.dt
+            b.rate += x
+            b.mw_mean += np.divide(b.res_mw, n, b.x_mw)  # (1·res_MW)/n: the same bits
+            np.multiply(b.res_gf, self._level_w, b.level_step)
             np.add(pred, b.level_step, b.level)
             b.last_t.fill(t)
             b.prev[...] = cur

@@ -52,6 +52,8 @@ from ._cells import (
 from ._geometry import Geometry
 from ._npfast import count_nonzero as _count_nonzero
 from ._npfast import einsum as _einsum
+from ._npfast import quiet_enter as _quiet_enter
+from ._npfast import quiet_exit as _quiet_exit
 from ._pairs import PairTable, band_delays_s
 from ._persist import apply_rolling, checked_rolling, resume_allowed, rolling_state
 from ._snapshot import SatelliteFigures, StationSnapshot, new_satellite_figures, new_snapshot
@@ -94,6 +96,8 @@ STATE_VERSION = 2
 _INTERVAL_HISTORY = 9
 _LEV_FLOOR = np.array(0.1)  # sin(el) floor of the levelling weights
 _ZERO = np.array(0.0)
+# Ufuncs on the per-epoch path take ``out`` positionally (a keyword costs ~250 instructions;
+# not np.maximum: deprecated there).
 #: The first figures of :meth:`StationEstimator._dual` (the others follow: "stec_raw", "lev",
 #: "b_sat", "n_arc", "arc", "new", "pair_switch"); these are spread over every satellite present
 #: (NaN where single-frequency) in epochs with single-frequency satellites.
@@ -113,10 +117,10 @@ class _Block:
     buffers are written each epoch before they are read.
     """
 
-    __slots__ = ("arc", "arcs", "cell_rows", "cells", "cur", "cur_flags", "g", "gf0", "hatch",
-                 "ifl_prev", "l1m", "lay", "lev", "lev_sw", "means", "meas", "meas_l", "meas_p",
-                 "mp_mean", "n", "n_min", "noise", "prev", "rel", "step", "step_lev", "step_mp",
-                 "w")  # fmt: skip
+    __slots__ = ("arc", "arcs", "cell_pos", "cell_rows", "cells", "cur", "cur_flags", "g", "gf0",
+                 "hatch", "i12", "i12_2", "ifl_prev", "l1m", "lay", "lev", "lev_sw", "means",
+                 "meas", "meas_l", "meas_p", "mp_mean", "n", "n_min", "noise", "prev", "rel",
+                 "step", "step_lev", "step_mp", "w")  # fmt: skip
 
     def __init__(
         self, lay: EpochLayout, g: F64, cur: F64, arc: npt.NDArray[np.int32], n_min: float
@@ -146,6 +150,10 @@ class _Block:
         self.step_lev, self.step_mp = self.step[0], self.step[1:]
         self.rel = diff[GF0 - GF_PRED]  # K·GF relative to the arc's first
         self.prev = np.empty(d)  # Hatch: the previous smoothed code carried to this epoch
+        # Private writeable copies of the layout's read-only index arrays for ``take`` (it copies
+        # a read-only index array on each call, ~1 µs); never written, never handed out.
+        self.i12_2, self.i12 = lay.i12_2.copy(), lay.i12.copy()
+        self.cell_pos = lay.cell_pos.copy()
 
     def __reduce__(self) -> tuple[Any, ...]:
         return (_Block, (self.lay, self.g, self.cur, self.arc, self.n_min))
@@ -286,13 +294,16 @@ class StationEstimator:
         self._last_epoch_t = t
         self._n_epochs += 1
         self.counters["epochs"] += 1
-        snap = self._update(epoch, t, self._interval)
+        # NaN marks "unknown" throughout: silence the invalid/0-division warnings it causes
+        # (np.errstate(invalid="ignore", divide="ignore", over="ignore"), its state made once).
+        token = _quiet_enter()
+        try:
+            snap = self._update(epoch, t, self._interval)
+        finally:
+            _quiet_exit(token)
         self._last = snap
         return snap
 
-    # NaN marks "unknown" throughout: silence the invalid/0-division warnings it causes (as a
-    # decorator: no errstate object to make and enter per epoch).
-    @np.errstate(invalid="ignore", divide="ignore", over="ignore")
     def _update(self, epoch: ObsEpoch, t: float, interval: float) -> StationSnapshot:
         lay = self.cells.layout(epoch)
         self.counters["cells_unusable"] += lay.n_unusable
@@ -320,7 +331,7 @@ class StationEstimator:
         # Rows x, y (km) of the pierce points and VTEC: the station figures' plane-fit input.
         pts = np.empty((3, m))
         self._sky.offsets(self.geometry.lat_rad, self.geometry.lon_rad, geo[2:4], pts[:2])
-        vtec = np.divide(stec, mapping, out=pts[2])
+        vtec = np.divide(stec, mapping, pts[2])
         up = el_all > _ZERO
         if _count_nonzero(up) != m:
             vtec[~up] = np.nan
@@ -353,14 +364,16 @@ class StationEstimator:
             switch = np.zeros(m, np.bool_)
             switch[lay.has] = pair_switch
         # Degrees once for el, az, pierce lat, lon (rows of deg), and the elevation of each cell.
+        blk = self._blk  # the block of ``lay`` (_dual made it): its writeable ``cell_pos``
+        assert blk is not None
         if lay.cells_in_range:  # every cell's satellite is present: a contiguous output
             deg = np.degrees(geo)
-            cell_el = deg[0].take(lay.cell_pos)
+            cell_el = deg[0].take(blk.cell_pos)
         else:  # a NaN slot after the satellites for the cells out of range (cell_pos = m)
             deg_nan = np.empty((4, m + 1))
             np.degrees(geo, out=deg_nan[:, :m])
             deg_nan[0, m] = np.nan
-            cell_el = deg_nan.take(lay.cell_pos)  # row 0 (cell_pos ≤ m): the flat take
+            cell_el = deg_nan.take(blk.cell_pos)  # row 0 (cell_pos ≤ m): the flat take
             deg = deg_nan[:, :m]
         sats = new_satellite_figures(
             sat=lay.sat16,
@@ -455,7 +468,7 @@ class StationEstimator:
         blk = self._block(lay)
         g = blk.g
         idx = lay.idx
-        i12 = lay.i12_2
+        i12 = blk.i12_2
         d = idx.shape[0]
         meas_l = epoch.phase_cycles.take(i12, out=blk.meas_l, mode="clip")
         meas_l *= lay.wavelength_m
@@ -479,7 +492,7 @@ class StationEstimator:
         c1[...] = epoch.lock_indicator
         c2[...] = epoch.lock_time_s
         cur = blk.cur
-        blk.cells.take(lay.i12, axis=1, out=blk.cur_flags, mode="clip")
+        blk.cells.take(blk.i12, axis=1, out=blk.cur_flags, mode="clip")
         if math.isnan(blk.n_min):
             blk.n_min = float(g[N].min()) if d else math.inf
         t_arr = np.array(t)
@@ -547,7 +560,7 @@ class StationEstimator:
         # ROT over the lag, from the arc-relative levelled phase; ROTI over the window.
         lagged, t_lag = self.rot_ring.lag_push(t, idx, rel, arc, interval)
         if math.isfinite(t_lag):
-            rot = np.subtract(rel, lagged, out=lagged)
+            rot = np.subtract(rel, lagged, lagged)
             rot *= 60.0 / (t - t_lag)
         else:
             rot = lagged
@@ -560,7 +573,7 @@ class StationEstimator:
             self._hatch_consts = hc = (interval, window, np.array(window),
                                        np.array((window - 1.0) / window))  # fmt: skip
         window = hc[1]
-        prev = np.add(blk.hatch, if_phase, out=blk.prev)
+        prev = np.add(blk.hatch, if_phase, blk.prev)
         prev -= blk.ifl_prev
         if not any_new and blk.n_min >= window:  # every arc longer than the window: N fixed
             hatch = if_code / hc[2]

@@ -83,9 +83,9 @@ class SkyTerms:
         s *= self._r
         s /= self._r_shell
         s *= s
-        np.subtract(self._one, s, out=s)
-        np.sqrt(s, out=s)
-        out: F64 = np.divide(self._one, s, out=s)
+        np.subtract(self._one, s, s)  # ``out`` positional: a keyword costs a parse per call
+        np.sqrt(s, s)
+        out: F64 = np.divide(self._one, s, s)
         return out
 
     def offsets(self, lat_rad: float, lon_rad: float, ipp_lat_lon: F64, out: F64) -> None:
@@ -95,7 +95,7 @@ class SkyTerms:
             self._lon, self._lat = lon_rad, lat_rad
             self._lon_lat = np.array([[lon_rad], [lat_rad]])
             self._cos_lat = np.array(math.cos(lat_rad))
-        np.subtract(ipp_lat_lon[::-1], self._lon_lat, out=out)  # rows lon, lat
+        np.subtract(ipp_lat_lon[::-1], self._lon_lat, out)  # rows lon, lat
         dlon = out[0]
         dlon += self._pi
         dlon %= self._two_pi
@@ -286,7 +286,7 @@ def _plane_slopes(
     """
     mean = xyv.dot(w)  # ndarray.dot: the BLAS calls of ``@`` (tested)
     mean /= np.add.reduce(w) if w_sum is None else w_sum
-    c = np.subtract(xyv, mean[:, None], out=xyv if own else None)
+    c = np.subtract(xyv, mean[:, None], xyv) if own else np.subtract(xyv, mean[:, None])
     (sxx, sxy, sxv), (_, syy, syv), _ = (c * w).dot(c.T).tolist()
     det = sxx * syy - sxy * sxy
     if not det > 1e-9 * sxx * syy:
