@@ -163,18 +163,18 @@ def test_cn0_baseline_public_calls_equal_general_path():
         assert _bits(fast._mean) == _bits(ref.mean)
 
 
-def _interference_run(n_epochs: int):
+def _interference_run(n_epochs: int, *, seed: int = 5, roti_storm: bool = True):
     """Invented snapshots: 8 GPS satellites, L2 C/N0 down 12 dB from epoch 60 to 120, one
     satellite's elevation unknown now and then, the satellite set changing every 50 epochs, ROTI
-    (median 0.64 TECU/min) above its raise level from epoch 30 to 150."""
-    rng = np.random.default_rng(5)
+    (median 0.64 TECU/min) above its raise level from epoch 30 to 150 (``roti_storm``)."""
+    rng = np.random.default_rng(seed)
     for i in range(n_epochs):
         n = 8 if (i // 50) % 2 == 0 else 7
         snap = make_snapshot(
             t=T0 + float(i),
             n=n,
             cn0_l2_offset_db=12.0 if 60 <= i < 120 else 0.0,
-            roti=0.8 if 30 <= i < 150 else 0.1,
+            roti=0.8 if roti_storm and 30 <= i < 150 else 0.1,
         )
         cn0 = snap.cell_cn0_dbhz + rng.normal(0.0, 0.3, snap.cell_cn0_dbhz.shape).astype(np.float32)
         el = snap.cell_el_deg + 0.01 * i

@@ -26,6 +26,7 @@ from ionwarden.daemon.alarms._cn0 import N_BAND_KEYS
 from ionwarden.daemon.config import AlarmSettings, Cn0BaselineSettings, ThresholdAlarm
 from ionwarden.parsers import signal_code
 from tests._outputs_support import T0, make_snapshot
+from tests.test_alarms_fastpaths import _interference_run
 
 
 def _bits(a: np.ndarray) -> bytes:
@@ -97,21 +98,6 @@ def test_cn0_baseline_drop_db_bands_skip_a_non_finite_band():
     assert _bits(np.array(values)) == _bits(drop[[2]])
 
 
-def _interference_run(n_epochs: int):
-    """Invented snapshots: 8 GPS satellites (7 every other 50 epochs), L2 C/N0 down 12 dB from
-    epoch 60 to 120, noise, an unknown elevation now and then."""
-    rng = np.random.default_rng(7)
-    for i in range(n_epochs):
-        n = 8 if (i // 50) % 2 == 0 else 7
-        snap = make_snapshot(t=T0 + float(i), n=n, cn0_l2_offset_db=12.0 if 60 <= i < 120 else 0.0)
-        cn0 = snap.cell_cn0_dbhz + rng.normal(0.0, 0.3, snap.cell_cn0_dbhz.shape).astype(np.float32)
-        el = snap.cell_el_deg + 0.01 * i
-        if i % 17 == 0:
-            el = el.copy()
-            el[0] = np.nan
-        yield dataclasses.replace(snap, cell_cn0_dbhz=cn0, cell_el_deg=el)
-
-
 _SETTINGS = AlarmSettings(
     cn0_baseline=Cn0BaselineSettings(bin_deg=5.0, time_constant_s=120.0, min_samples=10),
     cn0_drop=ThresholdAlarm(raise_at=6.0, clear_at=3.0, raise_after_s=5.0, clear_after_s=10.0),
@@ -132,7 +118,7 @@ def test_station_alarms_deferred_learning_equals_eager_order():
         bin_deg=b.bin_deg, time_constant_s=b.time_constant_s, min_samples=b.min_samples
     )
     kinds = []
-    for snap in _interference_run(200):
+    for snap in _interference_run(200, seed=7, roti_storm=False):
         kinds += [(x.alarm, x.state.value) for x in eng.observe_snapshot(snap)]
         assert eng.unsettled()
         cells = ref.cells(snap.cell_sat, snap.cell_sig, snap.cell_el_deg, snap.cell_cn0_dbhz)
@@ -160,7 +146,7 @@ def test_station_alarms_results_do_not_depend_on_settle():
     always = StationAlarms("ALPHA", _SETTINGS)
     never = StationAlarms("ALPHA", _SETTINGS)
     sometimes = StationAlarms("ALPHA", _SETTINGS)
-    for snap in _interference_run(200):
+    for snap in _interference_run(200, seed=7, roti_storm=False):
         runs = [e.observe_snapshot(snap) for e in (always, never, sometimes)]
         always.settle()
         for _ in range(int(rng.integers(0, 3))):

@@ -436,19 +436,24 @@ def test_daemon_raises_the_stream_stall_alarm_for_a_silent_station() -> None:
     assert stall.state is AlarmState.ACTIVE
 
 
+def _checkpointing(port: int, state: Path) -> DaemonOptions:
+    """One station "a" on ``port``, checkpoints to ``state`` every 10 s."""
+    return DaemonOptions(
+        stations=(_station("a", port),),
+        state_dir=state,
+        checkpoint_interval_s=10,
+        summary_interval_s=0,
+        status_interval_s=5,
+    )
+
+
 def test_daemon_checkpoints_periodically_while_running(tmp_path: Path) -> None:
     """Daemon writes each station's checkpoint every checkpoint_interval_s, not only at stop."""
     state = tmp_path / "state"
 
     async def main() -> None:
         async with Fleet(1) as fleet:
-            opts = DaemonOptions(
-                stations=(_station("a", fleet.ports()[0]),),
-                state_dir=state,
-                checkpoint_interval_s=10,
-                summary_interval_s=0,
-                status_interval_s=5,
-            )
+            opts = _checkpointing(fleet.ports()[0], state)
             daemon = Daemon(opts, factory=_factory({}))
             async with asyncio.TaskGroup() as tg:
                 tg.create_task(daemon.run(), name="test.daemon")
@@ -509,13 +514,7 @@ def test_daemon_keeps_running_when_a_checkpoint_cannot_be_written(
 
     async def main() -> None:
         async with Fleet(1) as fleet:
-            opts = DaemonOptions(
-                stations=(_station("a", fleet.ports()[0]),),
-                state_dir=state,
-                checkpoint_interval_s=10,
-                summary_interval_s=0,
-                status_interval_s=5,
-            )
+            opts = _checkpointing(fleet.ports()[0], state)
             daemon = Daemon(opts, factory=_factory({}))
             async with asyncio.TaskGroup() as tg:
                 run = tg.create_task(daemon.run(), name="test.daemon")
