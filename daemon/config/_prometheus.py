@@ -17,13 +17,17 @@ class PrometheusSettings(Section):
     per_satellite: bool = Field(
         default=True, description="Export per-satellite series (turn off for big deployments)."
     )
-    #: Upper bucket bounds (s) of the epoch processing latency histogram.
+    #: Upper bucket bounds (s) of the epoch processing latency histogram (finer from 10 to 50 ms,
+    #: where a daemon of many stations whose epochs arrive together lands: bench/bench_e2e.py).
     latency_buckets_s: tuple[float, ...] = (
         0.001,
         0.0025,
         0.005,
         0.01,
+        0.015,
+        0.02,
         0.025,
+        0.035,
         0.05,
         0.1,
         0.25,
