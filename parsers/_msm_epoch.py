@@ -250,6 +250,21 @@ def _build(heads: Sequence[MsmHead]) -> _EpochLayout:
     )
 
 
+def _layout_key(heads: Sequence[MsmHead]) -> tuple[tuple[object, int], ...]:
+    """What fixes an epoch's layout: each message's layout and payload length, in order."""
+    return tuple([(h.layout, len(h.payload)) for h in heads])
+
+
+def _layout_of(key: tuple[tuple[object, int], ...], heads: Sequence[MsmHead]) -> _EpochLayout:
+    """The epoch layout of ``key`` (``_layout_key(heads)``), built from ``heads`` on a miss."""
+    lay = _LAYOUTS.get(key)
+    if lay is None:
+        if len(_LAYOUTS) >= _MAX_EPOCH_LAYOUTS:
+            _LAYOUTS.clear()
+        lay = _LAYOUTS[key] = _build(heads)
+    return lay
+
+
 def decode_epochs(
     epochs: Sequence[tuple[Sequence[MsmHead], GpsTime, int]],
 ) -> tuple[list[ObsEpoch], int]:
@@ -267,26 +282,15 @@ def decode_epochs(
     """
     if len(epochs) == 1:  # the daemon's usual feed: one epoch (same steps, no grouping)
         heads = epochs[0][0]
-        key1 = tuple([(h.layout, len(h.payload)) for h in heads])
-        lay = _LAYOUTS.get(key1)
-        if lay is None:
-            if len(_LAYOUTS) >= _MAX_EPOCH_LAYOUTS:
-                _LAYOUTS.clear()
-            lay = _LAYOUTS[key1] = _build(heads)
-        one: list[ObsEpoch] = [None]  # type: ignore[list-item]
-        _decode_one(lay, epochs[0], one)
-        return one, lay.duplicates
+        lay = _layout_of(_layout_key(heads), heads)
+        return [_decode_one(lay, epochs[0])], lay.duplicates
     groups: dict[tuple[tuple[object, int], ...], list[int]] = {}
     for k, (heads, _, _) in enumerate(epochs):
-        groups.setdefault(tuple([(h.layout, len(h.payload)) for h in heads]), []).append(k)
+        groups.setdefault(_layout_key(heads), []).append(k)
     out: list[ObsEpoch] = [None] * len(epochs)  # type: ignore[list-item]
     duplicates = 0
     for key, members in groups.items():
-        lay = _LAYOUTS.get(key)
-        if lay is None:
-            if len(_LAYOUTS) >= _MAX_EPOCH_LAYOUTS:
-                _LAYOUTS.clear()
-            lay = _LAYOUTS[key] = _build(epochs[members[0]][0])
+        lay = _layout_of(key, epochs[members[0]][0])
         batch = min(_MAX_BATCH, max(1, _MAX_BATCH_ELEMENTS // max(1, _NROWS * lay.n)))
         for at in range(0, len(members), batch):
             part = members[at : at + batch]
@@ -413,31 +417,41 @@ def _decode_group(
     )
     lock_ind = lock_raw.astype(np.int16)
     half = r[8].astype(np.bool_)
-    sat, sig, lli, sources = lay.sat, lay.sig, lay.lli, lay.sources
     for j, (_, time, station) in enumerate(epochs):
-        # ObsEpoch(time=…, station_id=…, …, _validate=False), field by field (see _EPOCH_SLOTS)
-        epoch = _NEW(ObsEpoch)
-        _SET_TIME(epoch, time)
-        _SET_STATION(epoch, station)
-        _SET_SAT(epoch, sat)
-        _SET_SIG(epoch, sig)
-        _SET_PR(epoch, ranges[0, j])
-        _SET_PHASE(epoch, ranges[1, j])
-        _SET_RATE(epoch, rough_rate[1, j])
-        _SET_CN0(epoch, cn0[j])
-        _SET_LOCK_S(epoch, lock_s[j])
-        _SET_LOCK_IND(epoch, lock_ind[j])
-        _SET_HALF(epoch, half[j])
-        _SET_LLI(epoch, lli)
-        _SET_FREQ(epoch, freq[j])
-        _SET_SOURCES(epoch, sources)
-        _SET_VALIDATE(epoch, False)
-        out[where[j]] = epoch
+        out[where[j]] = _epoch(
+            lay, time=time, station=station, pr=ranges[0, j], phase=ranges[1, j],
+            rate=rough_rate[1, j], cn0=cn0[j], lock_s=lock_s[j], lock_ind=lock_ind[j],
+            half=half[j], freq=freq[j],
+        )  # fmt: skip
 
 
-def _decode_one(
-    lay: _EpochLayout, epoch: tuple[Sequence[MsmHead], GpsTime, int], out: list[ObsEpoch]
-) -> None:
+def _epoch(
+    lay: _EpochLayout, *, time: GpsTime, station: int, pr: _F64, phase: _F64, rate: _F64,
+    cn0: npt.NDArray[np.float32], lock_s: npt.NDArray[np.float32],
+    lock_ind: npt.NDArray[np.int16], half: npt.NDArray[np.bool_], freq: _F64,
+) -> ObsEpoch:  # fmt: skip
+    """``ObsEpoch(time=…, station_id=…, …, _validate=False)`` field by field (see
+    ``_EPOCH_SLOTS``), with the layout's shared read-only columns."""
+    epoch = _NEW(ObsEpoch)
+    _SET_TIME(epoch, time)
+    _SET_STATION(epoch, station)
+    _SET_SAT(epoch, lay.sat)
+    _SET_SIG(epoch, lay.sig)
+    _SET_PR(epoch, pr)
+    _SET_PHASE(epoch, phase)
+    _SET_RATE(epoch, rate)
+    _SET_CN0(epoch, cn0)
+    _SET_LOCK_S(epoch, lock_s)
+    _SET_LOCK_IND(epoch, lock_ind)
+    _SET_HALF(epoch, half)
+    _SET_LLI(epoch, lay.lli)
+    _SET_FREQ(epoch, freq)
+    _SET_SOURCES(epoch, lay.sources)
+    _SET_VALIDATE(epoch, False)
+    return epoch
+
+
+def _decode_one(lay: _EpochLayout, epoch: tuple[Sequence[MsmHead], GpsTime, int]) -> ObsEpoch:
     """``_decode_group`` of one epoch (k = 1), operation for operation on 2-D (row, cell) arrays
     instead of 3-D (row, 1, cell) ones: the same values, without the per-epoch views of the
     columns (tests/test_decode_fixed_single.py compares both)."""
@@ -460,23 +474,11 @@ def _decode_one(
         freq, mult = lay.freq_hz, lay.mult
     ranges *= mult
     lock_raw = r[7]
-    epoch_out = _NEW(ObsEpoch)
-    _SET_TIME(epoch_out, time)
-    _SET_STATION(epoch_out, station)
-    _SET_SAT(epoch_out, lay.sat)
-    _SET_SIG(epoch_out, lay.sig)
-    _SET_PR(epoch_out, ranges[0])
-    _SET_PHASE(epoch_out, ranges[1])
-    _SET_RATE(epoch_out, rough_rate[1])
-    _SET_CN0(epoch_out, v[6].astype(np.float32))
-    _SET_LOCK_S(
-        epoch_out,
-        lay.lock_table.take(lock_raw if lay.lock_offset is None else lock_raw + lay.lock_offset),
+    lock_s = lay.lock_table.take(
+        lock_raw if lay.lock_offset is None else lock_raw + lay.lock_offset
     )
-    _SET_LOCK_IND(epoch_out, lock_raw.astype(np.int16))
-    _SET_HALF(epoch_out, r[8].astype(np.bool_))
-    _SET_LLI(epoch_out, lay.lli)
-    _SET_FREQ(epoch_out, freq)
-    _SET_SOURCES(epoch_out, lay.sources)
-    _SET_VALIDATE(epoch_out, False)
-    out[0] = epoch_out
+    return _epoch(
+        lay, time=time, station=station, pr=ranges[0], phase=ranges[1], rate=rough_rate[1],
+        cn0=v[6].astype(np.float32), lock_s=lock_s, lock_ind=lock_raw.astype(np.int16),
+        half=r[8].astype(np.bool_), freq=freq,
+    )  # fmt: skip

@@ -66,8 +66,10 @@ def test_single_epoch_decode_equals_group_decode(monkeypatch, source):
     frames, ref = _SOURCES[source]()
     fast = [m for m in _frame_by_frame(frames, ref) if isinstance(m, ObsEpoch)]
 
-    def general(lay, epoch, out):  # type: ignore[no-untyped-def]
+    def general(lay, epoch):  # type: ignore[no-untyped-def]
+        out = [None]
         _msm_epoch._decode_group(lay, [epoch], out, [0])
+        return out[0]
 
     monkeypatch.setattr(_msm_epoch, "_decode_one", general)
     slow = [m for m in _frame_by_frame(frames, ref) if isinstance(m, ObsEpoch)]
