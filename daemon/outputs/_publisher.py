@@ -176,6 +176,8 @@ class MqttPublisher:
         self._drained.clear()
         if self._live is not None:
             self._fill()
+            if len(self._inflight) > 1:
+                return  # the pump already sleeps until an older message's deadline
         self._wake.set()
 
     def _set_station_state(self, station: str, state: str) -> None:
@@ -487,7 +489,11 @@ class MqttPublisher:
 
     def _on_ack(self) -> None:
         self._settle()
-        self._wake.set()  # the window has room again
+        self._fill()  # the window has room again
+        # The pump sleeps until the oldest message's deadline (a stale, earlier one is only a
+        # spurious wake-up): it needs waking only to see the buffer drained.
+        if not self._inflight:
+            self._wake.set()
 
     async def _session(self, client: QuickAckClient) -> None:
         online = OutboundMessage(
@@ -548,7 +554,8 @@ class MqttPublisher:
                     async with asyncio.timeout_at(deadline):
                         await wake.wait()
                 except TimeoutError:
-                    if not inflight[0][1].done() and loop.time() >= deadline:
+                    # acknowledgements settle without waking the pump: the head may have moved on
+                    if inflight and not inflight[0][1].done() and loop.time() >= inflight[0][2]:
                         raise aiomqtt.MqttError(
                             f"no acknowledgement within {self._s.timeout_s:g} s"
                         ) from None
