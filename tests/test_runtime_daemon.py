@@ -4,6 +4,7 @@ notifications on a real AF_UNIX datagram socket, SIGHUP reload, SIGTERM stop, ch
 from __future__ import annotations
 
 import asyncio
+import datetime as dt
 import os
 import random
 import signal
@@ -337,7 +338,7 @@ def test_daemon_feeds_the_exporter_real_scrape() -> None:
                 opts,
                 factory=_factory({}),
                 exporter=exporter,
-                build_snapshot=lambda d: build_daemon_snapshot(d, None, 0.0),
+                build_snapshot=lambda d, stats: build_daemon_snapshot(d, None, 0.0, stats),
             )
             async with asyncio.TaskGroup() as tg:
                 tg.create_task(daemon.run(), name="test.daemon")
@@ -474,7 +475,7 @@ def test_status_tick_waits_for_the_stations_urgent_steps() -> None:
     async def main() -> None:
         from ionwarden.daemon.outputs import DaemonSnapshot
 
-        def snapshot(_d: Daemon) -> DaemonSnapshot:
+        def snapshot(_d: Daemon, _stats: object) -> DaemonSnapshot:
             ticks.append(asyncio.get_running_loop().time())
             return DaemonSnapshot()
 
@@ -499,6 +500,57 @@ def test_status_tick_waits_for_the_stations_urgent_steps() -> None:
                 await asyncio.sleep(1.5)
                 assert len(ticks) > held  # the tick that waited, then the next ones
                 daemon.request_stop()
+
+    run_virtual(main(), real_poll_s=0.02)
+
+
+def test_status_tick_takes_each_stations_statistics_once(monkeypatch: pytest.MonkeyPatch) -> None:
+    """A status tick (exporter snapshot, stall alarms, status line, summary lines) reads every
+    station's statistics once and hands the same records to the snapshot builder: building them
+    (several frozen records a station) was done three times a tick."""
+    from ionwarden.daemon.runtime._station import StationRunner
+
+    calls: list[str] = []
+    handed: list[tuple[object, ...]] = []
+    original = StationRunner.statistics
+
+    def counted(self: StationRunner) -> Any:
+        calls.append(self.name)
+        return original(self)
+
+    monkeypatch.setattr(StationRunner, "statistics", counted)
+
+    async def main() -> None:
+        from ionwarden.daemon.outputs import DaemonSnapshot
+
+        def snapshot(_d: Daemon, stats: object) -> DaemonSnapshot:
+            handed.append(tuple(stats))  # type: ignore[call-overload]
+            return DaemonSnapshot()
+
+        async with Fleet(2) as fleet:
+            opts = DaemonOptions(
+                stations=tuple(_station(n, p) for n, p in zip("ab", fleet.ports(), strict=True)),
+                summary_interval_s=1,
+                status_interval_s=1,
+            )
+            daemon = Daemon(
+                opts,
+                factory=_factory({}),
+                build_snapshot=snapshot,
+                summary=lambda _line: None,
+                utc_now=lambda: dt.datetime(2026, 12, 3, tzinfo=dt.UTC),
+            )
+            async with asyncio.TaskGroup() as tg:
+                tg.create_task(daemon.run(), name="test.daemon")
+                await daemon.ready.wait()
+                calls.clear()
+                handed.clear()
+                await asyncio.sleep(5.5)
+                ticks, n_calls = list(handed), len(calls)
+                daemon.request_stop()
+        assert len(ticks) >= 4
+        assert n_calls == 2 * len(ticks)  # one per station per tick
+        assert all(tuple(st.station for st in h) == ("a", "b") for h in ticks)
 
     run_virtual(main(), real_poll_s=0.02)
 

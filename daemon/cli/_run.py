@@ -121,7 +121,7 @@ async def _serve(
         notifier=SdNotifier(),
         exporter=exporter,
         publisher=publisher,
-        build_snapshot=lambda d: build_daemon_snapshot(d, publisher, started),
+        build_snapshot=lambda d, stats: build_daemon_snapshot(d, publisher, started, stats),
         summary=_print_line if options.summary_interval_s else None,
         reload=reload if path is not None else None,
         utc_now=lambda: dt.datetime.now(dt.UTC),

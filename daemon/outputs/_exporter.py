@@ -18,7 +18,7 @@ import contextlib
 import math
 import threading
 import time
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 from prometheus_client import Histogram
@@ -298,6 +298,9 @@ class Exporter:
             buckets=settings.latency_buckets_s,
             registry=registry,
         )
+        #: Each station's child of ``_latency`` (``labels()`` takes a lock and builds a key on
+        #: every call; the child is the same object each time: children are never removed).
+        self._latency_of: dict[str, Any] = {}
         self._scraper = Scraper(registry, self._collector)
         self._server: WSGIServer | None = None
         self._thread: threading.Thread | None = None
@@ -321,7 +324,10 @@ class Exporter:
         return self._scraper.exposition(accept)
 
     def observe_epoch_latency(self, station: str, seconds: float) -> None:
-        self._latency.labels(station=station).observe(seconds)
+        child = self._latency_of.get(station)
+        if child is None:
+            child = self._latency_of[station] = self._latency.labels(station=station)
+        child.observe(seconds)
 
     def start(self) -> None:
         if self._server is not None:

@@ -33,12 +33,13 @@ from ._station import StationConfig
 from ._supervisor import DaemonOptions, StationBundle
 
 if TYPE_CHECKING:
-    from collections.abc import Callable, Mapping
+    from collections.abc import Callable, Mapping, Sequence
 
     from ionwarden.daemon.alarms import AlarmStatus
     from ionwarden.daemon.config import Settings, StationSettings
     from ionwarden.daemon.outputs import MqttPublisher
 
+    from ._station import StationStatistics
     from ._supervisor import Daemon
 
 __all__ = ["build_daemon_snapshot", "make_factory", "ntrip_password", "options_from_settings"]
@@ -156,13 +157,17 @@ def make_factory(
 
 
 def build_daemon_snapshot(
-    daemon: Daemon, publisher: MqttPublisher | None, started_s: float
+    daemon: Daemon,
+    publisher: MqttPublisher | None,
+    started_s: float,
+    stats: Sequence[StationStatistics] | None = None,
 ) -> DaemonSnapshot:
-    """What the exporter serves, from every stage's ``statistics()``."""
+    """What the exporter serves, from every stage's ``statistics()`` (the stations' own:
+    ``stats`` when the caller took them already, else ``daemon.statistics()``)."""
     stations = []
     queues = []
     alarms: list[AlarmStatus] = []
-    for st in daemon.statistics():
+    for st in daemon.statistics() if stats is None else stats:
         d = st.decoder
         stations.append(
             StationFigures(

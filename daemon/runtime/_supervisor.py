@@ -43,7 +43,7 @@ from ._summary import format_status, format_summary
 
 if TYPE_CHECKING:
     import datetime as dt
-    from collections.abc import Callable
+    from collections.abc import Callable, Sequence
     from pathlib import Path
 
     from ionwarden.daemon.alarms import StationAlarms
@@ -122,7 +122,8 @@ class Daemon:
         notifier: SdNotifier | None = None,  # owned: closed when run() returns
         exporter: Exporter | None = None,
         publisher: MqttPublisher | None = None,
-        build_snapshot: Callable[[Daemon], DaemonSnapshot] | None = None,
+        build_snapshot: Callable[[Daemon, Sequence[StationStatistics]], DaemonSnapshot]
+        | None = None,
         summary: Callable[[str], None] | None = None,
         reload: Callable[[], DaemonOptions] | None = None,
         wall_clock: Callable[[], float] = time.time,
@@ -291,18 +292,23 @@ class Daemon:
         self.notifier.notify("READY=1", f"STATUS={format_status(self.statistics())}")
 
     # -- housekeeping loops --------------------------------------------------------------------------
-    def _publish_status(self) -> DaemonSnapshot | None:
+    def _publish_status(
+        self, stats: Sequence[StationStatistics] | None = None
+    ) -> DaemonSnapshot | None:
         """Serve a fresh snapshot to the exporter and evaluate the stall alarms; return the
-        snapshot (``None`` without a snapshot builder) for the health message of the same tick."""
-        snap = self._build_snapshot(self) if self._build_snapshot is not None else None
+        snapshot (``None`` without a snapshot builder) for the health message of the same tick.
+        ``stats``: :meth:`statistics` of this instant, when the caller already has them (each
+        station's costs a few frozen records: taken once per tick, not once per use)."""
+        if stats is None:
+            stats = self.statistics()
+        snap = self._build_snapshot(self, stats) if self._build_snapshot is not None else None
         if self._exporter is not None and snap is not None:
             self._exporter.update(snap)
         if self._utc_now is not None:
             now_gps = utc_to_gps(self._utc_now())
             loop_now = asyncio.get_running_loop().time()
-            for running in self._stations.values():
+            for running, st in zip(self._stations.values(), stats, strict=True):
                 alarms = running.bundle.alarms
-                st = running.runner.statistics()
                 if alarms is None or st.state is StationState.FINISHED:
                     continue
                 since = st.last_epoch_monotonic_s
@@ -330,7 +336,7 @@ class Daemon:
             try:
                 now = loop.time()
                 stats = self.statistics()
-                snap = self._publish_status()
+                snap = self._publish_status(stats)
                 status = format_status(stats)
                 if status != last_status:
                     self.notifier.notify(f"STATUS={status}")
@@ -356,15 +362,15 @@ class Daemon:
                     and opts.summary_interval_s
                     and now - last_summary >= opts.summary_interval_s
                 ):
-                    self.print_summary(now)
+                    self.print_summary(now, stats)
                     last_summary = now
             finally:
                 lane.done()
 
-    def print_summary(self, now: float) -> None:
+    def print_summary(self, now: float, stats: Sequence[StationStatistics] | None = None) -> None:
         if self._summary is None:
             return
-        for s in self.statistics():
+        for s in self.statistics() if stats is None else stats:
             prev = self.stats_history.get(s.station)
             rate = None
             if prev is not None and now > prev[0]:
@@ -422,8 +428,9 @@ class Daemon:
                 await asyncio.gather(*(r.runner.started.wait() for r in self._stations.values()))
                 if self._publisher is not None:
                     await self._publisher.wait_ready()
-                self._publish_status()
-                self.notifier.notify("READY=1", f"STATUS={format_status(self.statistics())}")
+                stats = self.statistics()
+                self._publish_status(stats)
+                self.notifier.notify("READY=1", f"STATUS={format_status(stats)}")
                 self.ready.set()
                 log.info("ready: %d station(s)", len(self._stations))
                 housekeeping = [tg.create_task(self._status_loop(), name="daemon.status[all]")]
