@@ -246,7 +246,8 @@ async def _runtime(lib: Any, n: int, secs: int) -> int:
         DaemonOptions(stations=stations, summary_interval_s=0, exit_when_sources_end=False),
         factory=lambda _cfg: StationBundle(core=_ReadyMadeCore(snap), produces_epochs=True),
         exporter=exporter,
-        build_snapshot=lambda d, stats: build_daemon_snapshot(d, None, started, stats),
+        # (*stats: code from before the builder was handed the tick's statistics takes one arg)
+        build_snapshot=lambda d, *stats: build_daemon_snapshot(d, None, started, *stats),
     )
     async with asyncio.TaskGroup() as tg:
         tg.create_task(daemon.run(), name="bench.daemon")
