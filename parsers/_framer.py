@@ -380,10 +380,29 @@ class Framer:
             self._skip(1)  # resync by one byte, never by the claimed length
             return None
         starts.append(p)
+        # _accept of each good frame in order, inlined for messages (what a receiver sends): the
+        # same payloads, frames, counters and scan position; keep-alives and 1-byte messages go
+        # through _accept itself. The scan resumes at the first bad CRC and rejects it there.
+        counts, by_type, base = self._counts, self._by_type, self._base
+        taken = 0
         for k, crc in enumerate(crcs):
             if crc != 0:
-                break  # the scan resumes at this frame and rejects it there
-            self._accept(starts[k], starts[k + 1], frames)
+                break
+            a, b = starts[k], starts[k + 1]
+            if b - a < 8:  # message length 0 or 1
+                self._accept(a, b, frames)
+                continue
+            payload = bytes(buf[a + 3 : b - 3])
+            msg_type = (payload[0] << 4) | (payload[1] >> 4)
+            by_type[msg_type] = by_type.get(msg_type, 0) + 1
+            frame = _NEW(RtcmFrame)
+            _SET_TYPE(frame, msg_type)
+            _SET_PAYLOAD(frame, payload)
+            _SET_RTCM_OFFSET(frame, base + a)
+            frames.append(frame)
+            taken += 1
+            self._pos = b
+        counts[0] += taken
         return None
 
     def _accept(self, i: int, end: int, frames: list[Frame]) -> None:

@@ -41,11 +41,11 @@ LEAP_SECONDS: tuple[tuple[_dt.datetime, int], ...] = (
 
 def leap_seconds_at(utc: _dt.datetime) -> int:
     """GPS − UTC (s) in force at ``utc`` (13 before 2006; our data starts later)."""
-    value = 13
-    for start, leap in LEAP_SECONDS:
+    # The table is in date order: the newest entry in force is the first one from the end.
+    for start, leap in reversed(LEAP_SECONDS):
         if utc >= start:
-            value = leap
-    return value
+            return leap
+    return 13
 
 
 @dataclass(frozen=True, slots=True, order=True)
@@ -91,11 +91,15 @@ class GpsTime:
         return gps_to_utc(self)
 
 
+#: ``timedelta(seconds=leap)`` of every GPS − UTC value of the table (immutable: made once).
+_LEAP_DELTAS = {leap: _dt.timedelta(seconds=leap) for leap in (13, *dict(LEAP_SECONDS).values())}
+
+
 def gps_to_utc(t: GpsTime) -> _dt.datetime:
     """UTC of a GPS time, using the leap-second table."""
     approx = GPS_EPOCH + _dt.timedelta(seconds=t.total_s)
-    leap = leap_seconds_at(approx - _dt.timedelta(seconds=leap_seconds_at(approx)))
-    return approx - _dt.timedelta(seconds=leap)
+    leap = leap_seconds_at(approx - _LEAP_DELTAS[leap_seconds_at(approx)])
+    return approx - _LEAP_DELTAS[leap]
 
 
 def utc_to_gps(utc: _dt.datetime) -> GpsTime:

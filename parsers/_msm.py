@@ -39,6 +39,7 @@ __all__ = [
     "GLO_CHANNEL_TABLE_SIZE",
     "MSM_TYPES",
     "MsmHead",
+    "MsmMemo",
     "MsmMessage",
     "decode_msm",
     "is_msm",
@@ -277,10 +278,20 @@ class MsmHead:
         self.glo_channels: npt.NDArray[np.int8] | None = None
 
 
-def parse_msm_head(payload: bytes) -> MsmHead:
+#: What :func:`parse_msm_head` remembers of a stream's last message of each MSM type: the shift,
+#: width mask and value of its header bits 73 up to the end of the cell mask (DF394, DF395, DF396),
+#: its system, MSM level and layout.
+MsmMemo = dict[int, tuple[int, int, int, MsmSystem, int, _Layout]]
+
+
+def parse_msm_head(payload: bytes, memo: MsmMemo | None = None) -> MsmHead:
     """Check one MSM4–7 message (``payload`` without preamble, length and CRC) and read its header.
 
     Raises :class:`ParseError` for a message that is not MSM4–7 or is shorter than its masks say.
+    ``memo`` (one per stream, empty at first): a receiver sends the same masks in every message
+    of a type, epoch after epoch; when this message's masks are those of the stream's last one of
+    its type, their layout is taken from there without working them out (the same layout, checks
+    and errors).
     """
     nbytes = len(payload)
     if nbytes < 22:
@@ -290,6 +301,17 @@ def parse_msm_head(payload: bytes) -> MsmHead:
     if nbytes < 30:
         head <<= 8 * (30 - nbytes)
     msg_type = head >> 228
+    if memo is not None:
+        last = memo.get(msg_type)
+        # Bits 73 to the cell mask's end: DF394 and DF395 (which fix its width), then DF396.
+        if last is not None and (head >> last[0]) & last[1] == last[2]:
+            known = last[5]
+            if nbytes < known.nbytes:
+                raise ParseError(
+                    f"MSM payload has {nbytes} bytes, its masks need {known.nbytes}",
+                    message_id=msg_type,
+                )
+            return MsmHead(payload, head, last[3], last[4], known)
     found = _MSM_SYSTEM.get(msg_type)
     if found is None:
         raise ParseError("not an MSM4-7 message", message_id=msg_type)
@@ -309,6 +331,9 @@ def parse_msm_head(payload: bytes) -> MsmHead:
         lay = _LAYOUTS[key] = _layout(
             system, level, satmask=satmask, sigmask=sigmask, cellmask=cellmask, nsig=nsig
         )
+    if memo is not None:
+        shift, width = 71 - nsat * nsig, (1 << (96 + nsat * nsig)) - 1
+        memo[msg_type] = (shift, width, (head >> shift) & width, system, level, lay)
     if nbytes < lay.nbytes:
         raise ParseError(
             f"MSM payload has {nbytes} bytes, its masks need {lay.nbytes}", message_id=msg_type

@@ -18,7 +18,10 @@ if TYPE_CHECKING:
     from ._msm import MsmHead, MsmMessage
 
 __all__ = [
+    "BDS_OFFSET_MS",
+    "DAY_MS",
     "LEAP_NOW_S",
+    "WEEK_MS",
     "circular_gap_ms",
     "gps_ms_of_day",
     "leap_at",
@@ -26,10 +29,10 @@ __all__ = [
     "resolve_epoch",
 ]
 
-_DAY_MS: Final = 86_400_000
-_WEEK_MS: Final = 604_800_000
+DAY_MS: Final = 86_400_000
+WEEK_MS: Final = 604_800_000
 _GLO_UTC_OFFSET_MS: Final = 10_800_000  # GLONASS time = UTC(SU) + 3 h (GLONASS ICD §3.3.3)
-_BDS_OFFSET_MS: Final = round(BDS_GPS_OFFSET_S * 1000)  # BDT = GPST − 14 s
+BDS_OFFSET_MS: Final = round(BDS_GPS_OFFSET_S * 1000)  # BDT = GPST − 14 s
 _GLO_DAY_UNKNOWN: Final = 7  # DF416: 7 = day of week unknown
 #: GPS − UTC today (IERS Bulletin C: 18 s since 2017-01-01), used only to group messages before
 #: any reference time is known; each epoch is resolved with the leap second of its own date.
@@ -44,24 +47,24 @@ def msm_gps_tow_ms(msg: MsmMessage | MsmHead, leap_s: int) -> int | None:
     if msg.system == "R":
         if msg.glonass_day == _GLO_DAY_UNKNOWN:
             return None
-        glo_ms = msg.glonass_day * _DAY_MS + msg.epoch_ms
-        return (glo_ms - _GLO_UTC_OFFSET_MS + leap_s * 1000) % _WEEK_MS
+        glo_ms = msg.glonass_day * DAY_MS + msg.epoch_ms
+        return (glo_ms - _GLO_UTC_OFFSET_MS + leap_s * 1000) % WEEK_MS
     if msg.system == "C":
-        return (msg.epoch_ms + _BDS_OFFSET_MS) % _WEEK_MS
-    return msg.epoch_ms % _WEEK_MS
+        return (msg.epoch_ms + BDS_OFFSET_MS) % WEEK_MS
+    return msg.epoch_ms % WEEK_MS
 
 
 def gps_ms_of_day(msg: MsmMessage | MsmHead, leap_s: int) -> int:
     """GPS ms of day of an MSM epoch (defined even when the GLONASS day is unknown)."""
     if msg.system == "R":
-        return (msg.epoch_ms - _GLO_UTC_OFFSET_MS + leap_s * 1000) % _DAY_MS
+        return (msg.epoch_ms - _GLO_UTC_OFFSET_MS + leap_s * 1000) % DAY_MS
     tow = msm_gps_tow_ms(msg, leap_s)
     assert tow is not None
-    return tow % _DAY_MS
+    return tow % DAY_MS
 
 
 def _at(week: int, tow_ms: int) -> GpsTime:
-    week_shift, tow_ms = divmod(tow_ms, _WEEK_MS)
+    week_shift, tow_ms = divmod(tow_ms, WEEK_MS)
     return GpsTime(week + week_shift, tow_ms / 1000.0)
 
 
@@ -81,13 +84,13 @@ def resolve_epoch(msg: MsmMessage | MsmHead, ref: GpsTime) -> GpsTime:
     ref_ms = round(ref.tow_s * 1000.0)
     tow = msm_gps_tow_ms(msg, leap)
     if tow is not None:
-        delta = (tow - ref_ms + _WEEK_MS // 2) % _WEEK_MS - _WEEK_MS // 2
+        delta = (tow - ref_ms + WEEK_MS // 2) % WEEK_MS - WEEK_MS // 2
     else:
         sod = gps_ms_of_day(msg, leap)
-        delta = (sod - ref_ms + _DAY_MS // 2) % _DAY_MS - _DAY_MS // 2
+        delta = (sod - ref_ms + DAY_MS // 2) % DAY_MS - DAY_MS // 2
     return _at(ref.week, ref_ms + delta)
 
 
 def circular_gap_ms(a: int, b: int) -> int:
-    d = abs(a - b) % _DAY_MS
-    return min(d, _DAY_MS - d)
+    d = abs(a - b) % DAY_MS
+    return min(d, DAY_MS - d)

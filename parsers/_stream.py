@@ -43,6 +43,7 @@ from ._gnsstime import BDS_GPS_OFFSET_S, SECONDS_PER_WEEK, GpsTime, utc_to_gps
 from ._msm import (
     MSM_TYPES,
     MsmHead,
+    MsmMemo,
     MsmMessage,
     decode_msm,
     learn_glo_channels,
@@ -50,7 +51,15 @@ from ._msm import (
     parse_msm_head,
 )
 from ._msm_epoch import decode_epochs
-from ._msm_time import LEAP_NOW_S, circular_gap_ms, gps_ms_of_day, leap_at, resolve_epoch
+from ._msm_time import (
+    BDS_OFFSET_MS,
+    DAY_MS,
+    LEAP_NOW_S,
+    WEEK_MS,
+    gps_ms_of_day,
+    leap_at,
+    resolve_epoch,
+)
 from ._nmea import (
     GsvAssembler,
     GsvPart,
@@ -255,6 +264,8 @@ class StreamDecoder:
         #: known, because the epoch times need the date.
         self.nmea_wanted: frozenset[str] | None = None
         self._misc_cache: dict[tuple[bytes, int], Message] = {}
+        #: This stream's last masks and layout of each MSM type (see ``parse_msm_head``).
+        self._msm_memo: MsmMemo = {}
         #: id → (Kepler ephemeris of the cache, its GPS time of ephemeris): a repeated ephemeris
         #: is the cache's same object, so ``_learn`` reuses its time (cleared with the cache).
         self._eph_refs: dict[int, tuple[KeplerEphemeris, GpsTime]] = {}
@@ -324,7 +335,7 @@ class StreamDecoder:
         t = frame.msg_type
         if t in MSM_TYPES:
             try:
-                head = parse_msm_head(frame.payload)
+                head = parse_msm_head(frame.payload, self._msm_memo)
             except ParseError as exc:
                 self._count_error(t, exc, frame.offset)
                 return
@@ -438,17 +449,21 @@ class StreamDecoder:
         return leap
 
     def _on_msm(self, msg: MsmHead, out: list[Message]) -> None:
-        if msg.system == "R":  # only GLONASS times need the leap seconds
+        system = msg.system
+        if system == "R":  # only GLONASS times need the leap seconds
             learn_glo_channels(msg, self._glo_channels)
             sod = gps_ms_of_day(msg, self._leap())
-        else:
-            sod = gps_ms_of_day(msg, LEAP_NOW_S)
+        elif system == "C":  # gps_ms_of_day's BeiDou case, inlined (BDT = GPST - 14 s)
+            sod = (msg.epoch_ms + BDS_OFFSET_MS) % WEEK_MS % DAY_MS
+        else:  # ... and its GPS-aligned time of week case
+            sod = msg.epoch_ms % WEEK_MS % DAY_MS
         ep = self._open
-        if ep is not None and (
-            ep.station != msg.station_id or circular_gap_ms(ep.sod, sod) > SAME_EPOCH_TOLERANCE_MS
-        ):
-            self._close_open(out)
-            ep = None
+        if ep is not None:
+            # circular_gap_ms(ep.sod, sod), inlined
+            gap = abs(ep.sod - sod) % DAY_MS
+            if ep.station != msg.station_id or min(gap, DAY_MS - gap) > SAME_EPOCH_TOLERANCE_MS:
+                self._close_open(out)
+                ep = None
         if ep is None:
             self._open = _Epoch(msg, sod)
         else:

@@ -57,6 +57,8 @@ _FIX_SENTENCES = frozenset({"GGA", "GST"})
 #: (the decoder adds RMC/ZDA itself while it still needs the date).
 _FALLBACK_SENTENCES = _FIX_SENTENCES | {"GSV"}
 _SOURCE_RANK = {"config": 3, "rtcm": 2, "rinex": 2, "gga": 1, "": 0}
+_DAY_BEFORE = _dt.timedelta(days=-1)
+_DAY_AFTER = _dt.timedelta(days=1)
 
 
 class StationPipeline:
@@ -246,11 +248,14 @@ class StationPipeline:
             return None
         ref = self._last_t.to_utc()
         cand = _dt.datetime.combine(ref.date(), tod, tzinfo=_dt.UTC)
-        # the nearest calendar day to the last epoch (midnight rollover either way)
-        best = min(
-            (cand + _dt.timedelta(days=d) for d in (-1, 0, 1)),
-            key=lambda c: abs((c - ref).total_seconds()),
-        )
+        # the nearest calendar day to the last epoch (midnight rollover either way); the first
+        # of equally near ones, as min() over the day before, the day and the day after
+        best = cand + _DAY_BEFORE
+        gap = abs((best - ref).total_seconds())
+        for c in (cand, cand + _DAY_AFTER):
+            g = abs((c - ref).total_seconds())
+            if g < gap:
+                best, gap = c, g
         return utc_to_gps(best)
 
     def set_position(self, ecef: npt.ArrayLike, source: str) -> None:
