@@ -8,7 +8,9 @@ present) rarely changes; everything that depends only on that — the pair chose
 indices of its two signals, the pair labels, and the per-satellite pair constants of SCIENCE.md §3
 (K, α, β, γ, λ_WL, L1 metres per TECU, noise factor) folded into one coefficient matrix — is
 computed when the layout changes (keys: the bytes of ``sat``, ``sig`` and ``freq_hz``, and of the
-usable mask) and reused otherwise.
+usable mask) and reused otherwise; the last few layouts are kept, so one that comes back after a
+blip is the same object (state kept per layout by identity, in the rings and the geometry, carries
+on).
 
 Linear combinations per satellite (rows of :attr:`EpochLayout.comb`, over the measurement rows
 L1, L2, P1, P2 in metres): GF = L1 − L2; MW = (f1·L1 − f2·L2)/(f1 − f2) − (f1·P1 + f2·P2)/(f1 + f2);
@@ -44,6 +46,8 @@ N_SIG = 10 * 32  # packed signal codes are band*32 + attribute, bands 0–9
 COMB_NAMES = ("gf", "mw", "lev_x", "mp1", "mp2", "gf_tecu", "if_code", "if_phase")
 (GF_ROW, MW_ROW, LEVX_ROW, MP1_ROW, MP2_ROW, GFT_ROW, IFC_ROW, IFP_ROW) = range(len(COMB_NAMES))
 _ZERO = np.array(0.0)
+#: Layouts remembered by :class:`CellRouter` (~20 KiB each at 40 satellites); a blip needs two.
+_RECENT = 4
 
 
 @dataclass(slots=True, eq=False, kw_only=True)
@@ -90,7 +94,15 @@ class CellRouter:
         self._c1 = self._sig_slot[pairs.sig1]
         self._c2 = self._sig_slot[pairs.sig2]
         self._last: EpochLayout | None = None
+        #: Recent layouts by (ids, usable), oldest first: a layout that comes back after a blip
+        #: (a cell unusable for an epoch or two) is the same object again, so the per-layout
+        #: state of the rings and the geometry (kept by identity) carries on. Setting ``_last``
+        #: to None forgets them too (the next layout is built afresh).
+        self._recent: dict[tuple[bytes, bytes], EpochLayout] = {}
+        #: Times the layout changed (a new one built, or a recent one recalled); ``built``:
+        #: layouts built.
         self.rebuilds = 0
+        self.built = 0
 
     def layout(self, epoch: ObsEpoch) -> EpochLayout:
         """The layout of ``epoch`` (the cached one when sat, sig, freq and usability repeat)."""
@@ -109,7 +121,17 @@ class CellRouter:
         usable = ok.tobytes()
         if same is not None and same.usable == usable:
             return same
-        self._last = lay = self._build(epoch, ok, ids, usable)
+        if last is None:
+            self._recent.clear()
+        key = (ids, usable)
+        lay = self._recent.get(key)
+        if lay is None:  # (a layout is a function of its key: the same one, built again)
+            lay = self._build(epoch, ok, ids, usable)
+            self.built += 1
+            if len(self._recent) >= _RECENT:
+                del self._recent[next(iter(self._recent))]
+            self._recent[key] = lay
+        self._last = lay
         self.rebuilds += 1
         return lay
 

@@ -96,6 +96,7 @@ STATE_VERSION = 2
 _INTERVAL_HISTORY = 9
 _LEV_FLOOR = np.array(0.1)  # sin(el) floor of the levelling weights
 _ZERO = np.array(0.0)
+_ONE = np.array(1.0)
 # Ufuncs on the per-epoch path take ``out`` positionally (a keyword costs ~250 instructions;
 # not np.maximum: deprecated there).
 #: The first figures of :meth:`StationEstimator._dual` (the others follow: "stec_raw", "lev",
@@ -578,10 +579,12 @@ class StationEstimator:
         if not any_new and blk.n_min >= window:  # every arc longer than the window: N fixed
             hatch = if_code / hc[2]
             prev *= hc[3]
-        else:
-            n_h = np.minimum(n_arc, window)
+        else:  # (the 0-d window and one: no Python float to convert per call)
+            n_h = np.minimum(n_arc, hc[2])
             hatch = if_code / n_h
-            prev *= (n_h - 1.0) / n_h
+            q = np.subtract(n_h, _ONE)
+            q /= n_h  # (N − 1)/N
+            prev *= q
         hatch += prev
         if any_new:
             hatch = np.where(new, if_code, hatch)

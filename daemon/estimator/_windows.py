@@ -4,6 +4,8 @@ Axes: ``R`` ring rows (epochs or time slots), ``S`` satellite slots (``MAX_SAT_I
 "no value". Both classes are pure: time comes in as an argument.
 """
 
+# size: ~630 lines: both per-epoch rings (LagRing; SlotStd with its _SumBlock) and their shortcuts
+# stay together, each beside the general path it must equal bit for bit (STYLE rule 1).
 from __future__ import annotations
 
 import math
@@ -23,6 +25,8 @@ F64 = npt.NDArray[np.float64]
 _Cols = npt.NDArray[np.intp] | slice
 _ZERO = np.array(0.0)
 _ONE = np.array(1.0)
+#: ``min_count`` values of :meth:`SlotStd.std` as 0-d arrays (see ``_min_count_0d``).
+_MIN_COUNTS: dict[int, F64] = {}
 #: The satellites of an empty ring entry (shared, read-only).
 _NO_SATS = np.zeros(0, np.intp)
 _NO_SATS.setflags(write=False)
@@ -65,6 +69,9 @@ class LagRing:
     def _alloc(self, rows: int) -> None:
         """An empty ring of ``rows`` rows (no value, no column)."""
         self.t = np.full(rows, np.nan)
+        #: A lower bound of the times in ``t`` (+inf: none): no row is within the tolerance of
+        #: a lag target further than that before it (the ring is filling), no search needed.
+        self._t_low = math.inf
         self._col = np.full(self.n_slots, -1, np.intp)
         self._slots: list[int] = []  # the slot of each column
         self._data = np.full((rows, 0), np.nan, np.float32)
@@ -104,6 +111,7 @@ class LagRing:
             self._data = np.ascontiguousarray(full[:, slots])
             self._full = None
         self._forget()
+        self._t_low = _lowest(self.t)
         t0 = self.arc_t0[~np.isnan(self.arc_t0)]
         self.t0_max = float(t0.max()) if t0.size else -math.inf
 
@@ -122,6 +130,7 @@ class LagRing:
         data = np.full((need, self._data.shape[1]), np.nan, np.float32)
         t[:old], data[:old] = self.t[order], self._data[order]
         self.t, self._data, self._full = t, data, None
+        self._t_low = _lowest(t)
         self._forget()
         self.head = old - 1
 
@@ -167,6 +176,7 @@ class LagRing:
         """Write the next row (``cols``: ``_cols(sats)`` when the caller has them)."""
         self.head = row = (self.head + 1) % self.t.shape[0]
         self.t[row] = t
+        self._t_low = min(self._t_low, t)
         self._full = None
         if cols is None:
             cols = self._cols(sats)
@@ -231,6 +241,8 @@ class LagRing:
         k = (self.head + 1 - steps[2]) % self.t.shape[0]
         t_k = float(self.t[k])
         if not abs(t_k - target) <= tol:
+            if self._t_low - target > tol:  # so is every row's |t − target|: the ring is filling
+                return -1, math.nan
             err = np.abs(self.t - target)
             if not np.isfinite(err).any():
                 return -1, math.nan
@@ -255,6 +267,22 @@ class LagRing:
         other = (self.last_arc.take(sats) != arc) | ~(self.arc_t0.take(sats) <= t_k)
         v[other] = np.nan
         return v, t_k
+
+
+def _min_count_0d(min_count: int) -> F64:
+    """``min_count`` as a 0-d float array (made once per value)."""
+    arr = _MIN_COUNTS.get(min_count)
+    if arr is None:
+        if len(_MIN_COUNTS) >= 8:
+            _MIN_COUNTS.clear()
+        _MIN_COUNTS[min_count] = arr = np.array(float(min_count))
+    return arr
+
+
+def _lowest(t: F64) -> float:
+    """The smallest non-NaN value of ``t`` (+inf: none)."""
+    known = t[~np.isnan(t)]
+    return float(known.min()) if known.size else math.inf
 
 
 class SlotStd:
@@ -294,6 +322,11 @@ class SlotStd:
         self._since_exact = 0
         #: Flat indices into ``acc`` of the three rows of a read-only satellite array.
         self._flat: tuple[npt.NDArray[np.intp], npt.NDArray[np.intp]] | None = None
+        #: Flat indices into ``acc`` of all three rows of the last few read-only satellite
+        #: arrays (the entry dropped and the one added are often of two layouts), newest last.
+        self._flat3: list[tuple[npt.NDArray[np.intp], npt.NDArray[np.intp]]] = []
+        #: Work buffers of ``_increments3`` by length.
+        self._inc3: dict[int, F64] = {}
         #: The last NaN-filtered satellite subset: (the caller's array, finite mask, subset).
         self._subset: tuple[npt.NDArray[np.intp], bytes, npt.NDArray[np.intp]] | None = None
 
@@ -346,10 +379,6 @@ class SlotStd:
         self._subset = None
         self._flush()
 
-    def _inc(self, row: int) -> F64:
-        """The increments (values, values²) that adding entry ``row`` added."""
-        return self._increments(self._vals[row, : self._sats[row].shape[0]])
-
     @staticmethod
     def _increments(vals: F64) -> F64:
         k = vals.shape[0]
@@ -365,11 +394,41 @@ class SlotStd:
             self._flat = flat = (sats, fi)
         return flat[1]
 
+    def _flat3_index(self, sats: npt.NDArray[np.intp]) -> npt.NDArray[np.intp]:
+        """Flat indices into ``acc`` of the total, total_sq and count of ``sats`` (as
+        ``_increments3`` orders them), kept for the last few read-only arrays."""
+        for known, fi in self._flat3:
+            if known is sats:
+                return fi
+        n = self.n_slots
+        fi = np.concatenate((sats, sats + n, sats + 2 * n))
+        if not sats.flags.writeable:
+            if len(self._flat3) >= 4:
+                del self._flat3[0]
+            self._flat3.append((sats, fi))
+        return fi
+
+    def _increments3(self, vals: F64) -> F64:
+        """What adding the values ``vals`` adds to total, total_sq and count: (values,
+        values², ones), in a work buffer per length (its ones written once; valid until the
+        next call)."""
+        k = vals.shape[0]
+        inc = self._inc3.get(k)
+        if inc is None:
+            if len(self._inc3) >= 8:
+                self._inc3.clear()
+            self._inc3[k] = inc = np.ones(3 * k)
+        inc[:k] = vals
+        np.multiply(vals, vals, out=inc[k : 2 * k])
+        return inc
+
     def _drop(self, row: int) -> None:
+        # One gather, subtraction and scatter of the three rows (the same element operations
+        # as row by row: total − v, total_sq − v², count − 1).
         sats = self._sats[row]
         if sats.size:
-            self.acc[:2, sats] -= self._inc(row).reshape(2, -1)
-            self.acc[2, sats] -= 1.0
+            flat = self.acc.reshape(-1)
+            flat[self._flat3_index(sats)] -= self._increments3(self._vals[row, : sats.shape[0]])
             self._sats[row] = _NO_SATS
 
     def _recompute(self) -> None:
@@ -421,7 +480,19 @@ class SlotStd:
         self._since_exact += slot - first + 1
         self.last_slot = slot
         nan = np.isnan(value)
-        if _count_nonzero(nan):
+        n_nan = _count_nonzero(nan)
+        if n_nan == value.shape[0]:
+            # No value (the ROT lag is still filling): the entries of the slots up to this one
+            # are emptied, and nothing is added (the general path below adds nothing either).
+            for n in range(start, slot + 1):
+                self._drop(n % self.rows)
+            self._sats[row] = _NO_SATS
+            if self._since_exact >= self.rows:
+                self._blk = None  # rebuilt below
+                self._recompute()
+                self._since_exact = 0
+            return
+        if n_nan:
             fin = ~nan
             s, v = self._finite_subset(sats, fin), value[fin]
         else:
@@ -466,9 +537,8 @@ class SlotStd:
         else:
             for n in range(start, slot + 1):
                 self._drop(n % self.rows)
-            inc = self._increments(v)
-            self.acc[:2, s] += inc.reshape(2, -1)
-            self._acc[2, s] += 1.0
+            flat = self.acc.reshape(-1)
+            flat[self._flat3_index(s)] += self._increments3(v)  # total, total_sq, count
             self._vals[row, :k] = v
         self._sats[row] = s if k else _NO_SATS
         if self._since_exact >= self.rows:
@@ -478,12 +548,14 @@ class SlotStd:
 
     def std(self, sats: npt.NDArray[np.intp], min_count: int) -> F64:
         """Population standard deviation over the window (NaN below ``min_count`` samples)."""
-        return self._std(self.total[sats], self.total_sq[sats], self.count[sats], min_count)
+        sums = self.acc.reshape(-1).take(self._flat3_index(sats))  # the three rows, one gather
+        k = sats.shape[0]
+        return self._std(sums[:k], sums[k : 2 * k], sums[2 * k :], min_count)
 
     @staticmethod
     def _std(total: F64, total_sq: F64, n: F64, min_count: int) -> F64:
         """:meth:`std` from the sums of the satellites."""
-        short = n < np.array(float(min_count))
+        short = n < _min_count_0d(min_count)
         any_short = min_count < 1 or _count_nonzero(short)
         n_safe = np.maximum(n, _ONE) if any_short else n
         mean = total / n_safe
@@ -545,7 +617,7 @@ class _SumBlock:
     def std(self, min_count: int) -> F64:
         """:meth:`SlotStd.std` of the block's satellites (the same operations as ``_std``)."""
         if min_count != self.min_count:
-            short = self.count < np.array(float(min_count))
+            short = self.count < _min_count_0d(min_count)
             any_short = min_count < 1 or _count_nonzero(short)
             self.short = short if any_short else None
             self.n_div = np.maximum(self.count, _ONE) if any_short else self.count
