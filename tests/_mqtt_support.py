@@ -145,3 +145,38 @@ def schema_of(topic: str) -> str:
         "satellites": "satellites",
         "events": "alarm-event",
     }[leaf]
+
+
+#: MQTT v5 CONNACK: session present 0, reason code 0 (success), no properties (MQTT 5.0 §3.2).
+CONNACK_V5 = b"\x20\x03\x00\x00\x00"
+
+
+class ScriptedBroker:
+    """A scripted MQTT peer on a free loopback port, for the cases a real broker will not play
+    (never acknowledging, acknowledging late): subclasses write ``_serve`` (one connection)."""
+
+    def __init__(self) -> None:
+        self.writers: list[asyncio.StreamWriter] = []
+        self.server: asyncio.Server | None = None
+
+    async def _serve(self, reader: asyncio.StreamReader, writer: asyncio.StreamWriter) -> None:
+        raise NotImplementedError
+
+    async def _accepted(self, reader: asyncio.StreamReader, writer: asyncio.StreamWriter) -> None:
+        self.writers.append(writer)
+        await self._serve(reader, writer)
+
+    async def __aenter__(self) -> ScriptedBroker:
+        self.server = await asyncio.start_server(self._accepted, "127.0.0.1", 0)
+        return self
+
+    async def __aexit__(self, *exc: object) -> None:
+        assert self.server is not None
+        self.server.close()
+        for w in self.writers:
+            w.close()
+
+    @property
+    def port(self) -> int:
+        assert self.server is not None
+        return int(self.server.sockets[0].getsockname()[1])

@@ -18,7 +18,15 @@ from paho.mqtt.properties import Properties
 
 from ionwarden.daemon.config import MqttSettings
 from ionwarden.daemon.outputs import MqttPublisher, Topic, _client
-from tests._mqtt_support import BROKER_HOST, BROKER_PORT, need, port_open, unique_prefix
+from tests._mqtt_support import (
+    BROKER_HOST,
+    BROKER_PORT,
+    CONNACK_V5,
+    ScriptedBroker,
+    need,
+    port_open,
+    unique_prefix,
+)
 
 pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
 
@@ -285,10 +293,7 @@ def test_lean_publishes_through_mosquitto_arrive_with_retain_and_expiry():
 
 
 # -- the publisher's deadline -------------------------------------------------------------------
-CONNACK_V5 = b"\x20\x03\x00\x00\x00"  # MQTT 5.0 §3.2: session present 0, success, no properties
-
-
-class _FirstAckOnly:
+class _FirstAckOnly(ScriptedBroker):
     """A scripted broker: answers CONNECT, acknowledges the "online" status, acknowledges the
     next QoS 1 PUBLISH (A) only when the one after it (B) has arrived, and B never. Records when
     each PUBLISH arrived."""
@@ -334,21 +339,6 @@ class _FirstAckOnly:
             mult *= 128
             if not b & 0x80:
                 return value, used
-
-    async def __aenter__(self) -> _FirstAckOnly:
-        self.server = await asyncio.start_server(self._serve, "127.0.0.1", 0)
-        return self
-
-    async def __aexit__(self, *exc: object) -> None:
-        assert self.server is not None
-        self.server.close()
-        for w in self.writers:
-            w.close()
-
-    @property
-    def port(self) -> int:
-        assert self.server is not None
-        return int(self.server.sockets[0].getsockname()[1])
 
 
 def test_missing_puback_ends_the_session_at_its_own_deadline_not_an_earlier_ones():

@@ -15,41 +15,19 @@ from ionwarden.daemon.outputs import MqttPublisher
 from ionwarden.daemon.runtime import StationConfig, run_virtual
 from ionwarden.daemon.runtime._supervisor import Daemon, DaemonOptions, StationBundle
 
+from ._mqtt_support import CONNACK_V5, ScriptedBroker
 from ._runtime_support import StandInCore, rtcm_frame
 
-#: MQTT v5 CONNACK: session present 0, reason code 0 (success), no properties (MQTT 5.0 §3.2).
-CONNACK_V5 = b"\x20\x03\x00\x00\x00"
 
-
-class WedgedBroker:
+class WedgedBroker(ScriptedBroker):
     """Accepts the connection, answers CONNECT, then never acknowledges anything."""
 
-    def __init__(self) -> None:
-        self.writers: list[asyncio.StreamWriter] = []
-        self.server: asyncio.Server | None = None
-
     async def _serve(self, reader: asyncio.StreamReader, writer: asyncio.StreamWriter) -> None:
-        self.writers.append(writer)
         await reader.read(4096)  # the CONNECT packet
         writer.write(CONNACK_V5)
         await writer.drain()
         while await reader.read(4096):  # PUBLISH, PINGREQ…: swallowed, never answered
             pass
-
-    async def __aenter__(self) -> WedgedBroker:
-        self.server = await asyncio.start_server(self._serve, "127.0.0.1", 0)
-        return self
-
-    async def __aexit__(self, *exc: object) -> None:
-        assert self.server is not None
-        self.server.close()
-        for w in self.writers:
-            w.close()
-
-    @property
-    def port(self) -> int:
-        assert self.server is not None
-        return int(self.server.sockets[0].getsockname()[1])
 
 
 def test_daemon_stops_within_the_budget_when_the_broker_never_acknowledges(tmp_path: Path) -> None:
