@@ -247,8 +247,13 @@ class StationEstimator:
         """Use a broadcast ephemeris for geometry and its group delays for the satellite bias."""
         if self._pending_fit is not None:
             self.settle()
-        if not 0 <= eph.sat < MAX_SAT_ID or self._last_eph.get(eph.sat) == eph:
-            return  # receivers repeat the same set every few seconds
+        if not 0 <= eph.sat < MAX_SAT_ID:
+            return
+        last = self._last_eph.get(eph.sat)
+        # Receivers repeat the same set every few seconds; the decoder hands a repeat on as the
+        # same object (its payload cache), so identity settles most before the field comparison.
+        if last is eph or last == eph:
+            return
         self._last_eph[eph.sat] = eph
         t = self._last_epoch_t if math.isfinite(self._last_epoch_t) else None
         self.geometry.add_ephemeris(eph, t)
