@@ -137,7 +137,7 @@ def test_new_status_builds_a_real_alarm_status():
         "clear_at": 3.0,
         "since": None,
     }
-    built = _engine._new_status(*fields.values())
+    built = _engine._new_status(**fields)
     assert type(built) is AlarmStatus
     assert built == AlarmStatus(**fields)
     assert repr(built) == repr(AlarmStatus(**fields))

@@ -2,7 +2,7 @@
 
 Oracles (STYLE rule 23): ``np.errstate`` itself for ``_npfast.quiet_enter``/``quiet_exit``; the
 dataclass's own ``__init__`` (``cls(**values)``) and the slot-descriptor constructor for
-``_snapshot._fast_constructor``; the layout's own index arrays for the block's private copies,
+``daemon._records.fast_constructor``; the layout's own index arrays for the block's private copies,
 and an estimator run through the general ``np.errstate`` decorator for the whole update. Inputs:
 our invented scenario (tests/_estimator_synth.py) and arbitrary field values.
 """
@@ -18,11 +18,11 @@ from typing import Any
 import numpy as np
 import pytest
 
+from ionwarden.daemon._records import fast_constructor
 from ionwarden.daemon.estimator import StationEstimator, StationSnapshot
 from ionwarden.daemon.estimator._npfast import quiet_enter, quiet_exit
 from ionwarden.daemon.estimator._snapshot import (
     SatelliteFigures,
-    _fast_constructor,
     new_satellite_figures,
     new_snapshot,
 )
@@ -110,7 +110,7 @@ def test_fast_constructor_falls_back_to_descriptors_without_class_assignment() -
         b: float
 
     Odd.__slots__ = ("b", "a", "c")  # type: ignore[misc]  # the twin gets another layout
-    build = _fast_constructor(Odd)
+    build = fast_constructor(Odd)
     assert build.__name__ == "set_Odd"
     got = build(a=1.0, b=2.0)
     assert type(got) is Odd

@@ -6,15 +6,15 @@ Per-satellite figures are a structure of arrays over the ``m`` satellites that h
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field, fields
-from typing import TYPE_CHECKING, Any, TypeVar
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 import numpy as np
 import numpy.typing as npt
 
-if TYPE_CHECKING:
-    from collections.abc import Callable
+from ionwarden.daemon._records import fast_constructor
 
+if TYPE_CHECKING:
     from ionwarden.parsers import GpsTime
 
 __all__ = [
@@ -26,7 +26,6 @@ __all__ = [
 ]
 
 F64 = npt.NDArray[np.float64]
-_T = TypeVar("_T")
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -116,35 +115,6 @@ class FixStatus:
     sigma_alt_m: float = float("nan")
 
 
-def _fast_constructor(cls: type[_T]) -> Callable[..., _T]:
-    """A constructor of the frozen slots dataclass ``cls`` taking every field by keyword: the
-    same object as ``cls(**values)``, without the frozen ``__init__``'s ``object.__setattr__``
-    per field (the estimator builds three per epoch). Generated like the dataclass's own
-    ``__init__``: the fields are stored into an instance of a plain twin class with the same
-    slots (plain attribute stores), whose ``__class__`` is then set to ``cls`` (Python allows it
-    between classes of the same slot layout); where that is refused, each slot is set through
-    its descriptor instead."""
-    names = [f.name for f in fields(cls)]  # type: ignore[arg-type]  # a dataclass
-    twin = type(f"_{cls.__name__}Slots", (), {"__slots__": cls.__slots__})  # type: ignore[attr-defined]
-    env: dict[str, Any] = {"_new": object.__new__, "_cls": cls, "_twin": twin}
-    env.update({f"_set_{n}": getattr(cls, n).__set__ for n in names})
-    args = ", ".join(names)
-    stores = "\n".join(f"    o.{n} = {n}" for n in names)
-    sets = "\n".join(f"    _set_{n}(o, {n})" for n in names)
-    src = (
-        f"def new_{cls.__name__}(*, {args}):\n    o = _twin()\n{stores}\n    o.__class__ = _cls\n"
-        f"    return o\n\n"
-        f"def set_{cls.__name__}(*, {args}):\n    o = _new(_cls)\n{sets}\n    return o\n"
-    )
-    exec(src, env)  # noqa: S102 - source built from the dataclass's own field names
-    build: Callable[..., _T] = env[f"new_{cls.__name__}"]
-    try:
-        build(**dict.fromkeys(names))
-    except TypeError:  # no __class__ assignment between the two (another Python)
-        build = env[f"set_{cls.__name__}"]
-    return build
-
-
 #: ``SatelliteFigures(**values)`` / ``StationSnapshot(**values)`` with every field given (faster).
-new_satellite_figures = _fast_constructor(SatelliteFigures)
-new_snapshot = _fast_constructor(StationSnapshot)
+new_satellite_figures = fast_constructor(SatelliteFigures)
+new_snapshot = fast_constructor(StationSnapshot)

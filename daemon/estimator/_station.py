@@ -14,9 +14,8 @@ from dataclasses import dataclass
 import numpy as np
 import numpy.typing as npt
 
+from ionwarden.daemon._records import fast_constructor
 from ionwarden.daemon.geo import DEFAULT_EARTH_RADIUS_M
-
-from ._snapshot import _fast_constructor
 
 __all__ = [
     "GPS_L1_M_PER_TECU",
@@ -47,7 +46,7 @@ class StationFigures:
     gradient_azimuth_deg: float
 
 
-_new_station_figures = _fast_constructor(StationFigures)
+_new_station_figures = fast_constructor(StationFigures)
 
 
 def pierce_offsets_km(

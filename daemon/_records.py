@@ -1,0 +1,45 @@
+"""Cheaper construction of the frozen slots dataclasses built on per-epoch and per-tick paths.
+
+No ionwarden imports: the estimator's snapshots and the alarm engine's statuses both use it, and
+neither package may import the other here (alarms → estimator → outputs → alarms would cycle).
+"""
+
+from __future__ import annotations
+
+from dataclasses import fields
+from typing import TYPE_CHECKING, Any, TypeVar
+
+if TYPE_CHECKING:
+    from collections.abc import Callable
+
+__all__ = ["fast_constructor"]
+
+_T = TypeVar("_T")
+
+
+def fast_constructor(cls: type[_T]) -> Callable[..., _T]:
+    """A constructor of the frozen slots dataclass ``cls`` taking every field by keyword: the
+    same object as ``cls(**values)``, without the frozen ``__init__``'s ``object.__setattr__``
+    per field (about 5x cheaper). Generated like the dataclass's own ``__init__``: the fields are
+    stored into an instance of a plain twin class with the same slots (plain attribute stores),
+    whose ``__class__`` is then set to ``cls`` (Python allows it between classes of the same slot
+    layout); where that is refused, each slot is set through its descriptor instead."""
+    names = [f.name for f in fields(cls)]  # type: ignore[arg-type]  # a dataclass
+    twin = type(f"_{cls.__name__}Slots", (), {"__slots__": cls.__slots__})  # type: ignore[attr-defined]
+    env: dict[str, Any] = {"_new": object.__new__, "_cls": cls, "_twin": twin}
+    env.update({f"_set_{n}": getattr(cls, n).__set__ for n in names})
+    args = ", ".join(names)
+    stores = "\n".join(f"    o.{n} = {n}" for n in names)
+    sets = "\n".join(f"    _set_{n}(o, {n})" for n in names)
+    src = (
+        f"def new_{cls.__name__}(*, {args}):\n    o = _twin()\n{stores}\n    o.__class__ = _cls\n"
+        f"    return o\n\n"
+        f"def set_{cls.__name__}(*, {args}):\n    o = _new(_cls)\n{sets}\n    return o\n"
+    )
+    exec(src, env)  # noqa: S102 - source built from the dataclass's own field names
+    build: Callable[..., _T] = env[f"new_{cls.__name__}"]
+    try:
+        build(**dict.fromkeys(names))
+    except TypeError:  # no __class__ assignment between the two (another Python)
+        build = env[f"set_{cls.__name__}"]
+    return build
