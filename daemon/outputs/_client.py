@@ -79,12 +79,22 @@ def _publish_head(topic: str, retain: bool, props: bytes) -> tuple[bytes, bytes,
     return first, len(name).to_bytes(2, "big") + name, 2 + len(name) + 2 + len(props)
 
 
+def _publish_packet(
+    head: tuple[bytes, bytes, int], props: bytes, payload: bytes, mid: int
+) -> bytes:
+    """The QoS 1 PUBLISH of ``payload`` with packet identifier ``mid``, from its unchanging parts
+    (:func:`_publish_head` of the same ``props``). Raises ``ValueError`` past MQTT's size limit."""
+    first, name, fixed = head
+    remaining = fixed + len(payload)
+    if remaining > _MAX_REMAINING:
+        raise ValueError("Payload too large.")
+    return b"".join((first, _varint(remaining), name, mid.to_bytes(2, "big"), props, payload))
+
+
 def encode_publish_qos1(topic: str, payload: bytes, retain: bool, props: bytes, mid: int) -> bytes:
     """One QoS 1 PUBLISH packet (MQTT 5.0 §3.3): ``props`` are the packed properties with their
     length (``b"\\x00"`` for none), ``mid`` the packet identifier (1-65535)."""
-    first, name, fixed = _publish_head(topic, retain, props)
-    return b"".join((first, _varint(fixed + len(payload)), name, mid.to_bytes(2, "big"), props,
-                     payload))  # fmt: skip
+    return _publish_packet(_publish_head(topic, retain, props), props, payload, mid)
 
 
 class _LeanPaho(mqtt.Client):
@@ -280,12 +290,8 @@ class QuickAckClient(aiomqtt.Client):
         head = heads.get(key)
         if head is None:
             heads[key] = head = _publish_head(topic, retain, props)
-        first, name, fixed = head
-        remaining = fixed + len(payload)
-        if remaining > _MAX_REMAINING:
-            raise ValueError("Payload too large.")
         mid = client._mid_generate()
-        packet = b"".join((first, _varint(remaining), name, mid.to_bytes(2, "big"), props, payload))
+        packet = _publish_packet(head, props, payload, mid)
         ack: asyncio.Future[None] = self._loop.create_future()
         if self._iw_acks is None:
             self._iw_acks = {}
