@@ -29,6 +29,14 @@ class _OldSlotStd(SlotStd):
     """SlotStd with the general path of before the cuts (our own previous code): row-wise
     drops and adds, three gathers for the std, the same arithmetic for all-NaN epochs."""
 
+    @staticmethod
+    def _increments(vals: np.ndarray) -> np.ndarray:
+        k = vals.shape[0]
+        inc = np.empty(2 * k)
+        inc[:k] = vals
+        np.multiply(vals, vals, out=inc[k:])
+        return inc
+
     def _drop(self, row: int) -> None:
         sats = self._sats[row]
         if sats.size:

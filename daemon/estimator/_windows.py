@@ -320,8 +320,6 @@ class SlotStd:
         self._blk: _SumBlock | None = None
         self.last_slot = -1
         self._since_exact = 0
-        #: Flat indices into ``acc`` of the three rows of a read-only satellite array.
-        self._flat: tuple[npt.NDArray[np.intp], npt.NDArray[np.intp]] | None = None
         #: Flat indices into ``acc`` of all three rows of the last few read-only satellite
         #: arrays (the entry dropped and the one added are often of two layouts), newest last.
         self._flat3: list[tuple[npt.NDArray[np.intp], npt.NDArray[np.intp]]] = []
@@ -378,21 +376,6 @@ class SlotStd:
         self._sats = [s if s.shape[0] else _NO_SATS for s, _ in entries]
         self._subset = None
         self._flush()
-
-    @staticmethod
-    def _increments(vals: F64) -> F64:
-        k = vals.shape[0]
-        inc = np.empty(2 * k)
-        inc[:k] = vals
-        np.multiply(vals, vals, out=inc[k:])
-        return inc
-
-    def _flat_index(self, sats: npt.NDArray[np.intp]) -> npt.NDArray[np.intp]:
-        flat = self._flat
-        if flat is None or flat[0] is not sats:
-            fi = np.concatenate((sats, sats + self.n_slots))  # total, total_sq
-            self._flat = flat = (sats, fi)
-        return flat[1]
 
     def _flat3_index(self, sats: npt.NDArray[np.intp]) -> npt.NDArray[np.intp]:
         """Flat indices into ``acc`` of the total, total_sq and count of ``sats`` (as
@@ -513,11 +496,11 @@ class SlotStd:
                 self._blk = blk = _SumBlock(s, self._flush()[:, s])
                 blk.replace(old, v)
             else:
-                fi = self._flat_index(s)
+                fi = self._flat3_index(s)[: 2 * k]  # total, total_sq (counts unchanged)
                 flat = self.acc.reshape(-1)
                 sums = flat[fi]
-                sums -= self._increments(old)
-                sums += self._increments(v)
+                sums -= self._increments3(old)[: 2 * k]
+                sums += self._increments3(v)[: 2 * k]  # (the buffer: each used before the next)
                 flat[fi] = sums
                 old[...] = v
         elif (
