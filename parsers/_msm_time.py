@@ -22,7 +22,6 @@ __all__ = [
     "DAY_MS",
     "LEAP_NOW_S",
     "WEEK_MS",
-    "circular_gap_ms",
     "gps_ms_of_day",
     "leap_at",
     "msm_gps_tow_ms",
@@ -89,8 +88,3 @@ def resolve_epoch(msg: MsmMessage | MsmHead, ref: GpsTime) -> GpsTime:
         sod = gps_ms_of_day(msg, leap)
         delta = (sod - ref_ms + DAY_MS // 2) % DAY_MS - DAY_MS // 2
     return _at(ref.week, ref_ms + delta)
-
-
-def circular_gap_ms(a: int, b: int) -> int:
-    d = abs(a - b) % DAY_MS
-    return min(d, DAY_MS - d)

@@ -36,7 +36,7 @@ from ionwarden.parsers._gnsstime import (
     utc_to_gps,
 )
 from ionwarden.parsers._msm import MSM_TYPES, MsmHead, MsmMemo, parse_msm_head
-from ionwarden.parsers._msm_time import LEAP_NOW_S, circular_gap_ms, gps_ms_of_day
+from ionwarden.parsers._msm_time import DAY_MS, LEAP_NOW_S, gps_ms_of_day
 from ionwarden.parsers._stream import SAME_EPOCH_TOLERANCE_MS, StreamDecoder, _Epoch
 
 from .conftest import REAL_DATA
@@ -238,6 +238,13 @@ def test_stream_decoder_with_memo_equals_without(source):
 
 
 # --- epoch grouping: GPS ms of day and gap inline ------------------------------------------------
+
+
+def circular_gap_ms(a: int, b: int) -> int:
+    """The previous ``_msm_time.circular_gap_ms`` (our own previous code; the decoder now inlines
+    it)."""
+    d = abs(a - b) % DAY_MS
+    return min(d, DAY_MS - d)
 
 
 class _PreviousOnMsm(StreamDecoder):
