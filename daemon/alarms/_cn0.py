@@ -34,14 +34,6 @@ _INF_F32 = np.full((), np.inf, np.float32)
 _ONE = np.ones((), np.float64)
 _ONE_I64 = np.ones((), np.int64)
 _NO_DROP = np.full(N_BAND_KEYS, np.nan)
-_F64 = np.dtype(np.float64)
-_F32 = np.dtype(np.float32)
-#: Bit patterns (as unsigned integers) past the usable ones: 0 ≤ el < ∞ is below +∞'s bits (−0.0
-#: excepted: its sign bit puts it above); 0 < cn0 < ∞ is, minus one, below +∞'s bits minus one
-#: (0 wraps to the top). IEEE 754 binary64 / binary32 layouts (common practice).
-_EL_BITS_END = np.full((), 0x7FF0_0000_0000_0000, np.uint64)
-_CN0_BITS_END = np.full((), 0x7F80_0000 - 1, np.uint32)
-_ONE_U32 = np.ones((), np.uint32)
 _SYSTEMS = "GRECJSI"
 #: Human band names by (system letter, RINEX band digit) — RINEX 3.05 §5.1 Table 4–10 band numbers.
 BAND_NAMES: dict[str, str] = {
@@ -128,8 +120,8 @@ class Cn0Baseline:
     """Per-band, per-elevation-bin C/N0 baseline of one station (mutable state, pure methods).
 
     Per-epoch shortcuts (results bit for bit those of the general path; tests/test_alarms_fastpaths.py):
-    band keys are kept while the cell layout repeats; "every cell usable" is first tried on the
-    bit patterns (tests/test_emit_lean_alarms.py); when every cell is usable no cell is gathered; while the cells' bins repeat, the bins seen, their counts and the cells per band
+    band keys are kept while the cell layout repeats; when every cell is usable no cell is
+    gathered; while the cells' bins repeat, the bins seen, their counts and the cells per band
     are kept, and the warm test is skipped once every bin is warm.
     """
 
@@ -193,25 +185,14 @@ class Cn0Baseline:
         ):
             lay = self._layout = _Layout(sat, sig, n_bins)
         bin_deg, last_bin, _ = self._operands
-        n = el_deg.shape[0]
-        # Every cell usable, tested on the bit patterns (two comparisons instead of four, and no
-        # NaN test: a NaN's bits are above +∞'s): passing it implies the general test passes;
-        # failing it (an unusable cell, or an elevation of −0.0) leaves the general test.
-        everywhere = False
-        if lay.all_known and el_deg.dtype is _F64 and cn0_dbhz.dtype is _F32:
-            fast = np.less(el_deg.view(np.uint64), _EL_BITS_END)
-            fast &= np.less(np.subtract(cn0_dbhz.view(np.uint32), _ONE_U32), _CN0_BITS_END)
-            everywhere = np.count_nonzero(fast) == n
-        if not everywhere:
-            # Comparisons with NaN are False (no warning): NaN and ±∞ fail one bound each.
-            ok = np.greater_equal(el_deg, _ZERO)
-            ok &= np.less(el_deg, _INF)
-            ok &= np.greater(cn0_dbhz, _ZERO_F32)
-            ok &= np.less(cn0_dbhz, _INF_F32)
-            if not lay.all_known:
-                ok &= lay.known
-            everywhere = np.count_nonzero(ok) == n
-        if everywhere:  # every cell usable: nothing to gather
+        # Comparisons with NaN are False (no warning): NaN and ±∞ fail one bound each.
+        ok = np.greater_equal(el_deg, _ZERO)
+        ok &= np.less(el_deg, _INF)
+        ok &= np.greater(cn0_dbhz, _ZERO_F32)
+        ok &= np.less(cn0_dbhz, _INF_F32)
+        if not lay.all_known:
+            ok &= lay.known
+        if np.count_nonzero(ok) == ok.shape[0]:  # every cell usable: nothing to gather
             key, flat0 = lay.key, lay.flat0
             q = np.divide(el_deg, bin_deg)
             cn0 = cn0_dbhz.astype(np.float64)
