@@ -21,25 +21,26 @@ the payload. This is frame *sent* → summary *delivered to a subscriber*: a sup
 frame received → PUBACK (it adds the loopback hop into the daemon and the broker → subscriber hop).
 
 Printed: latency p50/p99/max; the last station of each second (median, worst) and the k-th summary
-of a second; the daemon's CPU time per wall second over the timed window (``/proc/<pid>/stat``
-utime + stime, all threads) and its RSS; what other load cost it (``/proc/<pid>/task/*/schedstat``:
-time on a CPU and time runnable but waiting for one, overall and in the 0.4 s after each burst, with
-the main thread's involuntary context switches, so that the contention on a shared machine can be
-read off the figures); the daemon's own ``ionwarden_estimator_epoch_processing_seconds`` histogram
-(bytes read → snapshot; coarse buckets) over the same epochs, from two scrapes of /metrics; its MQTT
-and queue drop counters; the warnings in its log. ``--scrape-every S`` also scrapes /metrics every
-S seconds at a burst's instant (a Prometheus scrape landing on the burst: the worst case). The
-daemon is stopped with SIGTERM (its exit status is printed) and the temp files are removed.
+of a second; the daemon's CPU time per wall second over the timed window (``/proc/<pid>/stat`` utime
++ stime, all threads, its worker processes included with ``--workers N``) and its RSS; what other
+load cost it (``/proc/<pid>/task/*/schedstat``: time on a CPU and time runnable but waiting for one,
+overall and in the 0.4 s after each burst, with the main thread's involuntary context switches, so
+that the contention on a shared machine can be read off the figures); the daemon's own
+``ionwarden_estimator_epoch_processing_seconds`` histogram (bytes read → snapshot; coarse buckets)
+over the same epochs, from two scrapes of /metrics; its MQTT and queue drop counters; the warnings
+in its log. ``--scrape-every S`` also scrapes /metrics every S seconds at a burst's instant (a
+Prometheus scrape landing on the burst: the worst case). The daemon is stopped with SIGTERM (its
+exit status is printed) and the temp files are removed.
 
 Usage: .venv/bin/python bench/bench_e2e.py [--seconds 60] [--stations 20] [--stagger]
-           [--scrape-every S] [--keep-log]
+           [--scrape-every S] [--keep-log] [--series CSV] [--workers N]
 The daemon is the installed ``.venv/bin/ionwarden`` and inherits this process's environment, so
 ``PYTHONPATH=DIR`` with ``DIR/ionwarden/{daemon,parsers}`` (e.g. ``git archive HEAD daemon parsers``
 unpacked there) measures that code instead of the work tree. Exit status: 0, 1 on a set-up failure
 (daemon, broker, connections: a plain message), 2 when summaries were missing.
-Target (issue 8): frame received → MQTT publish acknowledged p99 ≤ 10 ms at 20 stations × 1 Hz.
-The machine may be shared (2 cores): figures are under contention; the bench itself, the broker and
-the daemon share those cores.
+Target (issue 8): frame received → MQTT publish acknowledged p99 ≤ 10 ms at 20 stations × 1 Hz. The
+machine may be shared (2 cores): figures are under contention; the bench itself, the broker and the
+daemon share those cores.
 """
 
 from __future__ import annotations
@@ -119,6 +120,7 @@ def write_config(
     prefix: str,
     prom_port: int,
     state_dir: Path,
+    workers: int = 1,
 ) -> None:
     text = "".join(
         f'[[stations]]\nname = "{n}"\nsource = "tcp://127.0.0.1:{p}"\n\n'
@@ -128,7 +130,7 @@ def write_config(
         f'[mqtt]\nenabled = true\nhost = "{mqtt_host}"\nport = {mqtt_port}\n'
         f'topic_prefix = "{prefix}"\n\n'
         f'[prometheus]\nenabled = true\naddress = "127.0.0.1"\nport = {prom_port}\n\n'
-        f'[runtime]\nstate_dir = "{state_dir}"\n'
+        f'[runtime]\nstate_dir = "{state_dir}"\nworkers = {workers}\n'
     )
     path.write_text(text)
 
@@ -157,40 +159,66 @@ class DaemonProcess:
                 f"the daemon exited early with status {self.proc.returncode}:\n{self.log_tail()}"
             )
 
-    def cpu_s(self) -> float:
-        """utime + stime of every thread (/proc/<pid>/stat fields 14, 15; proc(5))."""
-        stat = Path(f"/proc/{self.pid}/stat").read_text()
-        fields = stat[stat.rindex(")") + 2 :].split()  # after "pid (comm) "
-        return (int(fields[11]) + int(fields[12])) / self._tick
-
-    def threads(self) -> dict[int, tuple[str, float, float]]:
-        """Per thread: (name, time on a CPU s, time waiting on a run queue s), from
-        /proc/<pid>/task/<tid>/schedstat (ns; proc(5), Documentation/scheduler/sched-stats). The
-        wait is what other load on the machine costs the daemon."""
-        out = {}
+    def workers(self) -> list[int]:
+        """The worker processes' pids (``[runtime] workers`` > 1; /proc/<pid>/task/*/children)."""
+        out: list[int] = []
         for task in Path(f"/proc/{self.pid}/task").iterdir():
             with contextlib.suppress(OSError, ValueError):
-                run_ns, wait_ns, _ = (task / "schedstat").read_text().split()
-                name = (task / "comm").read_text().strip()
-                out[int(task.name)] = (name, int(run_ns) / 1e9, int(wait_ns) / 1e9)
+                out += [int(x) for x in (task / "children").read_text().split()]
+        return sorted(out)
+
+    def loops(self) -> list[int]:
+        """The processes whose event loops run the stations: the workers, else the daemon."""
+        return self.workers() or [self.pid]
+
+    def cpu_s(self) -> float:
+        """utime + stime of every thread of the daemon and its workers (/proc/<pid>/stat fields
+        14, 15; proc(5))."""
+        total = 0
+        for pid in {self.pid, *self.workers()}:
+            with contextlib.suppress(OSError):
+                stat = Path(f"/proc/{pid}/stat").read_text()
+                fields = stat[stat.rindex(")") + 2 :].split()  # after "pid (comm) "
+                total += int(fields[11]) + int(fields[12])
+        return total / self._tick
+
+    def threads(self) -> dict[int, tuple[str, float, float]]:
+        """Per thread of the daemon and its workers: (name, time on a CPU s, time waiting on a run
+        queue s), from /proc/<pid>/task/<tid>/schedstat (ns; proc(5),
+        Documentation/scheduler/sched-stats). The wait is what other load costs the daemon."""
+        out = {}
+        for pid in {self.pid, *self.workers()}:
+            with contextlib.suppress(OSError):
+                for task in Path(f"/proc/{pid}/task").iterdir():
+                    with contextlib.suppress(OSError, ValueError):
+                        run_ns, wait_ns, _ = (task / "schedstat").read_text().split()
+                        name = (task / "comm").read_text().strip()
+                        out[int(task.name)] = (name, int(run_ns) / 1e9, int(wait_ns) / 1e9)
         return out
 
-    def main_schedstat(self) -> tuple[float, float, int]:
-        """The main thread's (event loop's) time on a CPU and waiting on a run queue (s), and its
-        involuntary context switches (preemptions: by other load, or by the broker it wakes)."""
-        run_ns, wait_ns, _ = Path(f"/proc/{self.pid}/schedstat").read_text().split()
-        status = Path(f"/proc/{self.pid}/task/{self.pid}/status").read_text()
-        m = re.search(r"^nonvoluntary_ctxt_switches:\s*(\d+)", status, re.M)
-        return int(run_ns) / 1e9, int(wait_ns) / 1e9, int(m.group(1)) if m else 0
+    def main_schedstat(self) -> dict[int, tuple[float, float, int]]:
+        """Per station event loop (each worker's main thread, else the daemon's): time on a CPU
+        and waiting on a run queue (s), and involuntary context switches (preemptions: by other
+        load, or by the broker it wakes)."""
+        out = {}
+        for pid in self.loops():
+            with contextlib.suppress(OSError, ValueError):
+                run_ns, wait_ns, _ = Path(f"/proc/{pid}/schedstat").read_text().split()
+                status = Path(f"/proc/{pid}/task/{pid}/status").read_text()
+                m = re.search(r"^nonvoluntary_ctxt_switches:\s*(\d+)", status, re.M)
+                out[pid] = (int(run_ns) / 1e9, int(wait_ns) / 1e9, int(m.group(1)) if m else 0)
+        return out
 
     def memory_mib(self) -> tuple[float, float]:
-        """(VmRSS, VmHWM) in MiB (proc(5))."""
-        got = {}
-        for line in Path(f"/proc/{self.pid}/status").read_text().splitlines():
-            key, _, value = line.partition(":")
-            if key in ("VmRSS", "VmHWM"):
-                got[key] = int(value.split()[0]) / 1024
-        return got.get("VmRSS", float("nan")), got.get("VmHWM", float("nan"))
+        """(VmRSS, VmHWM) in MiB of the daemon and its workers together (proc(5))."""
+        got = {"VmRSS": 0.0, "VmHWM": 0.0}
+        for pid in {self.pid, *self.workers()}:
+            with contextlib.suppress(OSError):
+                for line in Path(f"/proc/{pid}/status").read_text().splitlines():
+                    key, _, value = line.partition(":")
+                    if key in got:
+                        got[key] += int(value.split()[0]) / 1024
+        return got["VmRSS"] or float("nan"), got["VmHWM"] or float("nan")
 
     def log_tail(self, lines: int = 30) -> str:
         if not self._log.closed:
@@ -415,6 +443,7 @@ async def run(args: argparse.Namespace, tmp: Path) -> int:
         prefix=prefix,
         prom_port=prom_port,
         state_dir=tmp / "state",
+        workers=args.workers,
     )
     check = await asyncio.create_subprocess_exec(
         str(DAEMON), "config", "check", str(cfg),
@@ -542,7 +571,13 @@ async def _timed(
             # the daemon's main thread over the 0.4 s after the burst: on a CPU / waiting for one
             await asyncio.sleep(max(0.0, start + s + 0.4 - loop.time()))
             sched1 = daemon.main_schedstat()
-            bursts[s] = (sched1[0] - sched0[0], sched1[1] - sched0[1], sched1[2] - sched0[2])
+            # the busiest event loop of the burst (with workers, the burst's critical path)
+            d = [
+                (b[0] - a[0], b[1] - a[1], b[2] - a[2])
+                for pid, a in sched0.items()
+                if (b := sched1.get(pid)) is not None
+            ] or [(0.0, 0.0, 0)]
+            bursts[s] = (max(x[0] for x in d), max(x[1] for x in d), sum(x[2] for x in d))
         daemon.check_alive()
         if receivers.buffered() > 1 << 20:
             raise BenchError("the daemon stopped reading (1 MiB waiting in the send buffers)")
@@ -572,6 +607,12 @@ async def _timed(
     ]
     ms = [x for _, _, x in rows]
     missing = len(sent) - len(rows)
+    if args.series is not None:
+        with args.series.open("w", encoding="utf-8") as out:
+            out.write("second,station,latency_ms,burst_on_cpu_ms\n")
+            for s, i, x in sorted(rows):
+                on_cpu = bursts[s][0] * 1e3 if s in bursts else float("nan")
+                out.write(f"{s},{i},{x:.3f},{on_cpu:.3f}\n")
     mode = "stations spread evenly over the second" if args.stagger else "all at the same instant"
     print(
         f"\nReal daemon, {n} stations x 1 Hz x {len(timed)} s, chunks {mode}; "
@@ -608,7 +649,8 @@ async def _timed(
             preempted = [b[2] for b in bursts.values()]
             net = [last[s] - bursts[s][1] * 1e3 for s in last if s in bursts]
             print(
-                f"  daemon main thread in the 0.4 s after each burst: on a CPU median "
+                f"  {'busiest worker' if args.workers > 1 else 'daemon'} main thread in the 0.4 s "
+                f"after each burst: on a CPU median "
                 f"{statistics.median(run):.1f} ms (max {max(run):.1f}), waiting for a CPU median "
                 f"{statistics.median(wait):.1f} ms (max {max(wait):.1f}), preempted median "
                 f"{statistics.median(preempted):.0f} times; last station minus that wait: median "
@@ -651,13 +693,18 @@ async def _timed(
         f"core; {dcpu / max(1, len(sent)) * 1e3:.2f} ms per station-epoch incl. all overheads), "
         f"over {dw:.1f} s; RSS {rss:.0f} MiB (peak {hwm:.0f} MiB)"
     )
-    main = [(thr1[t][1] - v[1], thr1[t][2] - v[2]) for t, v in thr0.items() if t == daemon.pid]
-    rest = [(thr1[t][1] - v[1], v[0]) for t, v in thr0.items() if t != daemon.pid and t in thr1]
+    loops = set(daemon.loops())
+    mains = [
+        (thr1[t][1] - v[1], thr1[t][2] - v[2]) for t, v in thr0.items() if t in loops and t in thr1
+    ]
+    main = [(sum(x[0] for x in mains), sum(x[1] for x in mains))] if mains else []
+    rest = [(thr1[t][1] - v[1], v[0]) for t, v in thr0.items() if t not in loops and t in thr1]
     if main:
         run_s, wait_s = main[0]
         others = ", ".join(f"{name} {r / dw * 1e3:.1f}" for r, name in rest if r > 0) or "none"
         print(
-            f"  daemon main thread (event loop): on a CPU {run_s / dw * 1e3:.0f} ms/s, waiting "
+            f"  station event loop(s) ({len(loops)} main threads): on a CPU "
+            f"{run_s / dw * 1e3:.0f} ms/s, waiting "
             f"for a CPU (run queue, other load) {wait_s / dw * 1e3:.0f} ms/s; other threads "
             f"(ms/s): {others}"
         )
@@ -701,7 +748,16 @@ def main() -> None:
         "--daemon-nice", type=int, default=0, metavar="N",
         help="renice the daemon's main thread (an experiment; negative values need root)",
     )  # fmt: skip
+    ap.add_argument(
+        "--workers", type=int, default=1, metavar="N",
+        help="[runtime] workers of the daemon (default 1: one process)",
+    )  # fmt: skip
     ap.add_argument("--keep-log", action="store_true", help="keep the daemon's log (temp dir)")
+    ap.add_argument(
+        "--series", type=Path, metavar="CSV",
+        help="also write every latency as CSV rows: second, station index, latency ms, and the "
+        "main thread's on-CPU ms in that burst (to see which seconds make the p99)",
+    )  # fmt: skip
     args = ap.parse_args()
     if args.seconds < 1 or args.stations < 1:
         ap.error("--seconds and --stations must be at least 1")

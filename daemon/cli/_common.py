@@ -17,7 +17,14 @@ if TYPE_CHECKING:
 
     from ionwarden.daemon.config import Settings
 
-__all__ = ["SAFETY_LINE", "apply_logging_settings", "configure_logging", "die", "load_or_die"]
+__all__ = [
+    "SAFETY_LINE",
+    "apply_logging_settings",
+    "configure_logging",
+    "die",
+    "load_or_die",
+    "tag_worker_logs",
+]
 
 SAFETY_LINE = (
     "Safety: ionwarden is a monitoring aid, not a certified integrity monitor; follow local survey "
@@ -25,8 +32,14 @@ SAFETY_LINE = (
 )
 
 
+_TEXT_FORMAT = "%(asctime)s %(levelname)-7s {tag}%(name)s: %(message)s"
+
+
 class _JsonFormatter(logging.Formatter):
-    """One JSON object per line for log shippers: time (UTC ISO 8601), level, logger, message."""
+    """One JSON object per line for log shippers: time (UTC ISO 8601), level, logger, message
+    (and ``worker``, the index of a worker process of ``[runtime] workers`` > 1)."""
+
+    worker: int | None = None
 
     def format(self, record: logging.LogRecord) -> str:
         out: dict[str, Any] = {
@@ -36,6 +49,8 @@ class _JsonFormatter(logging.Formatter):
             "logger": record.name,
             "message": record.getMessage(),
         }
+        if self.worker is not None:
+            out["worker"] = self.worker
         if record.exc_info:
             out["exception"] = self.formatException(record.exc_info)
         return json.dumps(out, ensure_ascii=False)
@@ -47,10 +62,20 @@ def configure_logging(level: str, fmt: str) -> None:
     if fmt == "json":
         handler.setFormatter(_JsonFormatter())
     else:
-        handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)-7s %(name)s: %(message)s"))
+        handler.setFormatter(logging.Formatter(_TEXT_FORMAT.format(tag="")))
     root = logging.getLogger()
     root.handlers[:] = [handler]
     root.setLevel(level.upper())
+
+
+def tag_worker_logs(index: int) -> None:
+    """Mark this process's log lines as worker ``index``'s (``[runtime] workers`` > 1): text
+    lines get ``[worker N]`` before the logger name, JSON objects a ``worker`` field."""
+    for handler in logging.getLogger().handlers:
+        if isinstance(handler.formatter, _JsonFormatter):
+            handler.formatter.worker = index
+        else:
+            handler.setFormatter(logging.Formatter(_TEXT_FORMAT.format(tag=f"[worker {index}] ")))
 
 
 def die(message: str, code: int = 2) -> int:

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import argparse
 import asyncio
 import datetime as dt
 import sys
@@ -15,8 +16,6 @@ from ionwarden.daemon.errors import ConfigError, OutputError
 from ._common import SAFETY_LINE, apply_logging_settings, config_path, die, load_or_die
 
 if TYPE_CHECKING:
-    import argparse
-
     from ionwarden.daemon.config import Settings
 
 __all__ = ["add_parser", "demo_capture", "run"]
@@ -47,6 +46,8 @@ def add_parser(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None
         metavar="SECONDS",
         help="seconds between summary lines (0 = none; default: [runtime] summary_interval_s)",
     )
+    # a worker process of [runtime] workers > 1: the descriptor of its link to the main process
+    p.add_argument("--worker-link", type=int, default=None, help=argparse.SUPPRESS)
 
 
 def demo_capture() -> Path | None:
@@ -129,6 +130,19 @@ async def _serve(
     return await daemon.run()
 
 
+async def _main(settings: Settings, path: Path | None, args: argparse.Namespace) -> int:
+    """One process, the main process of several workers, or one of those workers."""
+    from ._workers import serve_pool, serve_worker, worker_count  # noqa: PLC0415
+
+    if args.worker_link is not None:
+        if path is None:
+            raise ConfigError("--worker-link", "a worker needs --config")
+        return await serve_worker(settings, path, args.worker_link, args.summary_every)
+    if path is not None and worker_count(settings, path) > 1:
+        return await serve_pool(settings, path, args)
+    return await _serve(settings, path, args.summary_every, demo=path is None)
+
+
 def run(args: argparse.Namespace) -> int:
     path = config_path(args)
     settings = load_or_die(path)
@@ -151,7 +165,7 @@ def run(args: argparse.Namespace) -> int:
     elif not settings.stations:
         return die(f"run: {path}: no [[stations]] configured")
     try:
-        return asyncio.run(_serve(settings, path, args.summary_every, demo=path is None))
+        return asyncio.run(_main(settings, path, args))
     except ConfigError as exc:
         return die(f"config: {exc}")
     except OutputError as exc:

@@ -37,3 +37,9 @@ class RuntimeSettings(Section):
     summary_interval_s: float = Field(default=10.0, ge=0.0)
     #: Graceful-stop budget after SIGTERM (s): outputs are flushed within it.
     stop_timeout_s: float = Field(default=4.0, gt=0.0, le=30.0)
+    #: Processes that share the stations (each runs its stations' ingest, estimator, alarms and
+    #: MQTT connection; the main process serves the exporter, the health message and systemd).
+    #: 1 = one process. Epochs that arrive together (receivers align them to the GPS second) are
+    #: then processed in parallel: use it with many stations on a multi-core machine, leaving a
+    #: core for the broker when it runs on the same host. Takes effect at start (not on SIGHUP).
+    workers: int = Field(default=1, ge=1, le=64)

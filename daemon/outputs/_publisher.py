@@ -92,6 +92,10 @@ class MqttPublisher:
     shutdown; cancelling the task also says "offline" (bounded by ``GOODBYE_TIMEOUT_S``).
     ``clock`` (UTC now) and ``monotonic`` are injectable for tests; ``rng`` seeds the backoff
     jitter; ``on_published(msg, queued_to_ack_s)`` is called after each acknowledgement.
+
+    ``daemon_status=False`` is a worker's publisher (``[runtime] workers`` > 1): it publishes its
+    stations' topics only. The daemon's status (and its last will) and the health message belong
+    to the main process's publisher, which sees every worker.
     """
 
     def __init__(
@@ -102,8 +106,10 @@ class MqttPublisher:
         monotonic: Callable[[], float] = time.monotonic,
         rng: random.Random | None = None,
         on_published: Callable[[OutboundMessage, float], None] | None = None,
+        daemon_status: bool = True,
     ) -> None:
         self._s = settings
+        self._daemon_status = daemon_status
         self._tree = TopicTree(settings.topic_prefix)
         self._password = resolve_password(settings)
         self._tls = tls_context(settings)
@@ -295,7 +301,10 @@ class MqttPublisher:
     def publish_health_nowait(self, daemon: DaemonSnapshot) -> None:
         """Queue the daemon health message (retained, expires after ``epoch_expiry_s``).
 
-        Rate-limited to one per ``health_interval_s``: call it on every status tick."""
+        Rate-limited to one per ``health_interval_s``: call it on every status tick. A worker's
+        publisher sends none (the main process's does, for every worker)."""
+        if not self._daemon_status:
+            return
         now = self._monotonic()
         if (
             self._last_health_s is not None
@@ -358,11 +367,15 @@ class MqttPublisher:
 
     def _client(self) -> QuickAckClient:
         s = self._s
-        will = aiomqtt.Will(
-            topic=self._tree.daemon_status().value,
-            payload=fmt.daemon_status_payload("offline", None, self._version),
-            qos=s.qos_status,
-            retain=True,
+        will = (
+            aiomqtt.Will(
+                topic=self._tree.daemon_status().value,
+                payload=fmt.daemon_status_payload("offline", None, self._version),
+                qos=s.qos_status,
+                retain=True,
+            )
+            if self._daemon_status
+            else None
         )
         return QuickAckClient(
             s.host,
@@ -507,8 +520,9 @@ class MqttPublisher:
         client.iw_on_lost = self._link_lost
         client.iw_on_ack = self._on_ack
         try:
-            await self._publish(client, online)
-            _raise_if_cancelled()
+            if self._daemon_status:
+                await self._publish(client, online)
+                _raise_if_cancelled()
             try:
                 self._live = client
                 await self._pump()
@@ -582,10 +596,11 @@ class MqttPublisher:
                 qos=self._s.qos_status,
                 retain=True,
             )
-        await client.publish(
-            self._tree.daemon_status().value,
-            fmt.daemon_status_payload("offline", now, self._version),
-            qos=self._s.qos_status,
-            retain=True,
-        )
+        if self._daemon_status:
+            await client.publish(
+                self._tree.daemon_status().value,
+                fmt.daemon_status_payload("offline", now, self._version),
+                qos=self._s.qos_status,
+                retain=True,
+            )
         log.info("MQTT: announced offline, disconnecting")

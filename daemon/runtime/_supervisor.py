@@ -29,7 +29,7 @@ import logging
 import signal
 import time
 from dataclasses import dataclass, field, replace
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, Protocol
 
 from ionwarden.daemon.estimator import FixStatus, StationSnapshot
 from ionwarden.daemon.outputs import GOODBYE_TIMEOUT_S
@@ -47,12 +47,12 @@ if TYPE_CHECKING:
     from pathlib import Path
 
     from ionwarden.daemon.alarms import StationAlarms
-    from ionwarden.daemon.outputs import DaemonSnapshot, Exporter, MqttPublisher
+    from ionwarden.daemon.outputs import DaemonSnapshot, MqttPublisher
 
     from ._core import StationCore
     from ._station import StationStatistics
 
-__all__ = ["Daemon", "DaemonOptions", "StationBundle"]
+__all__ = ["Daemon", "DaemonOptions", "SnapshotSink", "StationBundle"]
 
 log = logging.getLogger("ionwarden.daemon.runtime")
 
@@ -80,6 +80,16 @@ async def _cancel_and_wait(tasks: list[asyncio.Task[None]], grace_s: float) -> N
         task.cancel()
     if pending:
         await asyncio.wait(pending, timeout=grace_s)
+
+
+class SnapshotSink(Protocol):
+    """Where the daemon's snapshots and epoch latencies go: the Prometheus ``Exporter``, or in a
+    worker process (``[runtime] workers`` > 1) the link to the main process (``LinkSink``)."""
+
+    def start(self) -> None: ...
+    def close(self) -> None: ...
+    def update(self, snapshot: DaemonSnapshot) -> None: ...
+    def observe_epoch_latency(self, station: str, seconds: float) -> None: ...
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -120,7 +130,7 @@ class Daemon:
         *,
         factory: Callable[[StationConfig], StationBundle],
         notifier: SdNotifier | None = None,  # owned: closed when run() returns
-        exporter: Exporter | None = None,
+        exporter: SnapshotSink | None = None,
         publisher: MqttPublisher | None = None,
         build_snapshot: Callable[[Daemon, Sequence[StationStatistics]], DaemonSnapshot]
         | None = None,

@@ -1,0 +1,182 @@
+"""``ionwarden run`` with ``[runtime] workers`` > 1: the main process, and each worker's own run.
+
+The main process (``serve_pool``) is a ``runtime._pool.WorkerPool``: it starts each worker as
+``python -m ionwarden.daemon.cli [log options] run --config FILE --worker-link FD``, FD being the
+worker's end of a socket pair (``runtime/_link.py``). A worker (``serve_worker``) is the
+one-process daemon for the stations it is assigned over that link: its snapshots and epoch
+latencies go to the main process's exporter, its systemd notifications to the main process, and
+its MQTT connection publishes only its stations' topics (the main process's publishes the daemon's
+status, with the last will, and the health message).
+"""
+
+from __future__ import annotations
+
+import asyncio
+import datetime as dt
+import logging
+import socket
+import sys
+from dataclasses import replace
+from typing import TYPE_CHECKING
+
+from ionwarden.daemon.errors import ConfigError
+
+from ._common import tag_worker_logs
+
+if TYPE_CHECKING:
+    import argparse
+    from pathlib import Path
+
+    from ionwarden.daemon.config import MqttSettings, Settings
+    from ionwarden.daemon.runtime._supervisor import DaemonOptions
+
+__all__ = ["serve_pool", "serve_worker", "worker_count"]
+
+log = logging.getLogger("ionwarden.daemon.runtime.workers")
+
+
+def worker_count(settings: Settings, path: Path | None) -> int:
+    """Workers this run uses: ``[runtime] workers``, at most one per enabled station, and 1 when
+    there is no configuration file for the workers to read (the bundled demo)."""
+    enabled = sum(1 for st in settings.stations if st.enabled)
+    return 1 if path is None else max(1, min(settings.runtime.workers, enabled))
+
+
+def _worker_command(args: argparse.Namespace, path: Path) -> list[str]:
+    cmd = [sys.executable, "-m", "ionwarden.daemon.cli"]
+    if getattr(args, "log_level", None):
+        cmd += ["--log-level", args.log_level]
+    if getattr(args, "log_format", None):
+        cmd += ["--log-format", args.log_format]
+    cmd += ["run", "--config", str(path.resolve())]
+    if args.summary_every is not None:
+        cmd += ["--summary-every", f"{args.summary_every:g}"]
+    return cmd
+
+
+def _enabled_names(settings: Settings) -> tuple[str, ...]:
+    return tuple(st.name for st in settings.stations if st.enabled)
+
+
+async def serve_pool(settings: Settings, path: Path, args: argparse.Namespace) -> int:
+    """The main process: exporter, daemon status and health, systemd, and the workers."""
+    from prometheus_client import CollectorRegistry  # noqa: PLC0415
+
+    from ionwarden.daemon.config import load_settings  # noqa: PLC0415
+    from ionwarden.daemon.outputs import Exporter, MqttPublisher  # noqa: PLC0415
+    from ionwarden.daemon.runtime import SdNotifier  # noqa: PLC0415
+    from ionwarden.daemon.runtime._pool import WorkerPool  # noqa: PLC0415
+
+    loop = asyncio.get_running_loop()
+    exporter = (
+        Exporter(settings.prometheus, registry=CollectorRegistry(), monotonic=loop.time)
+        if settings.prometheus.enabled
+        else None
+    )
+    publisher = MqttPublisher(settings.mqtt, monotonic=loop.time) if settings.mqtt.enabled else None
+    base = _worker_command(args, path)
+    workers = worker_count(settings, path)
+
+    def reload() -> tuple[str, ...]:
+        fresh = load_settings(path)
+        if fresh.runtime.workers != settings.runtime.workers:
+            log.warning("reload: [runtime] workers changed; it takes effect at the next start")
+        return _enabled_names(fresh)
+
+    pool = WorkerPool(
+        _enabled_names(settings),
+        workers=workers,
+        command=lambda fd: [*base, "--worker-link", str(fd)],
+        exporter=exporter,
+        publisher=publisher,
+        notifier=SdNotifier(),
+        reload=reload,
+        started_s=loop.time(),
+        stop_timeout_s=settings.runtime.stop_timeout_s,
+    )
+    return await pool.run()
+
+
+def _worker_mqtt(settings: MqttSettings, index: int) -> MqttSettings:
+    """A worker's MQTT settings: a configured client id gets ``-w<index>`` (two connections with
+    one client id would take the session from each other, MQTT 5.0 §3.1.4)."""
+    if not settings.client_id:
+        return settings
+    return settings.model_copy(update={"client_id": f"{settings.client_id}-w{index}"})
+
+
+def _only(options: DaemonOptions, names: frozenset[str]) -> DaemonOptions:
+    return replace(options, stations=tuple(c for c in options.stations if c.name in names))
+
+
+async def serve_worker(settings: Settings, path: Path, fd: int, summary_every: float | None) -> int:
+    """One worker: the stations the main process assigns over the link ``fd``."""
+    from ionwarden.daemon.config import load_settings  # noqa: PLC0415
+    from ionwarden.daemon.outputs import MqttPublisher  # noqa: PLC0415
+    from ionwarden.daemon.runtime._app import (  # noqa: PLC0415
+        build_daemon_snapshot,
+        make_factory,
+        options_from_settings,
+    )
+    from ionwarden.daemon.runtime._link import (  # noqa: PLC0415
+        Assign,
+        Link,
+        LinkNotifier,
+        LinkSink,
+    )
+    from ionwarden.daemon.runtime._supervisor import Daemon  # noqa: PLC0415
+
+    loop = asyncio.get_running_loop()
+    link = await Link.open(socket.socket(fileno=fd))
+    first = await link.receive()
+    if not isinstance(first, Assign):
+        raise ConfigError("--worker-link", "no station assignment from the main process")
+    index = first.worker
+    tag_worker_logs(index)
+    names = {"now": frozenset(first.stations)}
+    options = _only(options_from_settings(settings), names["now"])
+    if summary_every is not None:
+        options = replace(options, summary_interval_s=summary_every)
+    log.info("stations %s", ", ".join(c.name for c in options.stations) or "none")
+    publisher = (
+        MqttPublisher(_worker_mqtt(settings.mqtt, index), monotonic=loop.time, daemon_status=False)
+        if settings.mqtt.enabled
+        else None
+    )
+    started = loop.time()
+    current = {"factory": make_factory(settings)}
+
+    def reload() -> DaemonOptions:
+        fresh = load_settings(path)
+        current["factory"] = make_factory(fresh)
+        new = _only(options_from_settings(fresh), names["now"])
+        return replace(new, summary_interval_s=options.summary_interval_s)
+
+    daemon = Daemon(
+        options,
+        factory=lambda cfg: current["factory"](cfg),  # noqa: PLW0108 - late-bound on reload
+        notifier=LinkNotifier(link),
+        exporter=LinkSink(link),
+        publisher=publisher,
+        build_snapshot=lambda d, stats: build_daemon_snapshot(d, publisher, started, stats),
+        summary=(lambda line: print(line, flush=True)) if options.summary_interval_s else None,
+        reload=reload,
+        utc_now=lambda: dt.datetime.now(dt.UTC),
+    )
+
+    async def listen() -> None:
+        while (message := await link.receive()) is not None:
+            if isinstance(message, Assign):
+                names["now"] = frozenset(message.stations)
+                daemon.request_reload()
+        log.error("worker: the main process is gone; stopping")
+        daemon.request_stop()
+
+    listener = asyncio.create_task(listen(), name="daemon.link[main]")
+    try:
+        return await daemon.run()
+    finally:
+        listener.cancel()
+        await asyncio.gather(listener, return_exceptions=True)
+        await link.drain()
+        link.close()
