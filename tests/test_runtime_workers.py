@@ -13,9 +13,11 @@ from __future__ import annotations
 
 import asyncio
 import contextlib
+import datetime as dt
 import json
 import math
 import os
+import pickle
 import re
 import signal
 import socket
@@ -27,11 +29,29 @@ from pathlib import Path
 import aiomqtt
 import numpy as np
 import pytest
+from prometheus_client import CollectorRegistry
 
-from ionwarden.daemon.config import EstimatorSettings
+from ionwarden.daemon.alarms import StationAlarms
+from ionwarden.daemon.config import AlarmSettings, EstimatorSettings, PrometheusSettings
 from ionwarden.daemon.estimator import StationPipeline, StationSnapshot
-from ionwarden.daemon.outputs import DaemonSnapshot, MqttStatistics, StationFigures
-from ionwarden.daemon.runtime._link import Assign, Link, Notify, Report
+from ionwarden.daemon.outputs import (
+    DaemonSnapshot,
+    Exporter,
+    IngestFigures,
+    MqttStatistics,
+    QueueFigures,
+    StationFigures,
+    health_payload,
+)
+from ionwarden.daemon.runtime._link import (
+    REPORT_SATELLITE_FIELDS,
+    Assign,
+    Link,
+    Notify,
+    Report,
+    _dumps,
+    report_view,
+)
 from ionwarden.daemon.runtime._pool import (
     assign_stations,
     merge_mqtt,
@@ -171,6 +191,64 @@ def test_link_carries_reports_notifications_and_assignments_intact() -> None:
     assert got[3] is None  # end of file: the peer closed
 
 
+def _daemon_snapshot(snap: StationSnapshot) -> DaemonSnapshot:
+    alarms = StationAlarms("LNK", AlarmSettings())
+    alarms.observe_snapshot(snap)
+    return DaemonSnapshot(
+        stations=(
+            StationFigures(
+                station="LNK",
+                snapshot=snap,
+                ingest=IngestFigures(bytes_total=1234, frames_total=56, connected=True),
+                last_epoch_monotonic_s=99.5,
+                epochs_total=120,
+            ),
+            StationFigures(station="NOEPOCH"),
+        ),
+        alarms=alarms.statuses(),
+        queues=(
+            QueueFigures(
+                stage="estimate", station="LNK", depth=0, capacity=256, peak=3, dropped_total=0
+            ),
+        ),
+        mqtt=_mqtt(True, 1),
+        started_monotonic_s=10.0,
+    )
+
+
+@pytest.mark.parametrize("per_satellite", [True, False])
+def test_a_report_serves_the_same_exporter_page_and_health_as_the_full_snapshot(
+    per_satellite: bool,
+) -> None:
+    """A report carries a slim view (only the exporter's per-satellite columns), pickled our own
+    way: the main process's exporter page and health message are byte for byte those the
+    one-process daemon serves from the full snapshot (equal to the one-process path)."""
+    full = _daemon_snapshot(_real_snapshot())
+    sent = pickle.loads(_dumps(Report(report_view(full, per_satellite=per_satellite))))
+    assert isinstance(sent, Report)
+
+    def page(snap: DaemonSnapshot) -> bytes:
+        exporter = Exporter(
+            PrometheusSettings(port=0, per_satellite=per_satellite),
+            registry=CollectorRegistry(),
+            monotonic=lambda: 100.0,
+        )
+        exporter.update(snap)
+        return exporter.exposition()[0]
+
+    assert page(sent.snapshot) == page(full)
+    now = dt.datetime(2026, 12, 3, 8, 0, tzinfo=dt.UTC)
+    assert health_payload(sent.snapshot, now, 100.0) == health_payload(full, now, 100.0)
+    assert len(sent.snapshot.alarms) == len(full.alarms)
+    assert all(_same(a, b) for a, b in zip(sent.snapshot.alarms, full.alarms, strict=True))
+    figs = sent.snapshot.stations[0].snapshot.satellites
+    if per_satellite:  # the exporter's columns, intact
+        for name in REPORT_SATELLITE_FIELDS:
+            assert _same(getattr(figs, name), getattr(full.stations[0].snapshot.satellites, name))
+    else:
+        assert figs.sat.size == 0
+
+
 # -- the real daemon with two workers ---------------------------------------------------------------
 def _children(pid: int) -> set[int]:
     out: set[int] = set()
@@ -271,6 +349,7 @@ def test_two_workers_serve_every_station_restart_reload_and_stop(tmp_path: Path)
         feeder = asyncio.create_task(rx.feed(stop_feed))
         summaries: dict[str, int] = dict.fromkeys(names, 0)
         retained: dict[str, dict[str, object]] = {}
+        history: list[tuple[str, object]] = []  # (station, state) of every status message
         out: dict[str, object] = {}
         async with aiomqtt.Client(BROKER_HOST, BROKER_PORT, timeout=10) as sub:
             await sub.subscribe(f"{prefix}/#", qos=1)
@@ -287,6 +366,8 @@ def test_two_workers_serve_every_station_restart_reload_and_stop(tmp_path: Path)
                         summaries[topic.split("/")[-2]] += 1
                     elif leaf in ("status", "health"):
                         retained[topic] = json.loads(payload)
+                        if leaf == "status":
+                            history.append((topic.split("/")[-2], retained[topic]["state"]))
 
             listener = asyncio.create_task(listen())
             env = dict(os.environ, NOTIFY_SOCKET=str(notify_path), WATCHDOG_USEC="2000000")
@@ -343,6 +424,7 @@ def test_two_workers_serve_every_station_restart_reload_and_stop(tmp_path: Path)
                     await listener
                 await rx.close()
         out["retained"] = retained
+        out["history"] = history
         out["summaries"] = summaries
         return out
 
@@ -369,6 +451,15 @@ def test_two_workers_serve_every_station_restart_reload_and_stop(tmp_path: Path)
     assert len(health["stations"]) == len(names)
     assert out["restarted"], text
     assert "exited with status -9; restarting" in text
+    # the killed worker's two stations: "offline" (said by the main process), then "online" again
+    history = out["history"]
+    assert isinstance(history, list)
+    revived = {
+        n
+        for n in names
+        if any(h == (n, "offline") and (n, "online") in history[i:] for i, h in enumerate(history))
+    }
+    assert len(revived) == 2, history
     retained = out["retained"]
     assert isinstance(retained, dict)
     assert retained[f"{prefix}/_daemon/status"]["state"] == "offline"

@@ -29,7 +29,9 @@ def add_parser(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None
         "and publish to MQTT and Prometheus. Without --config, replays the bundled demo capture "
         "accelerated, with MQTT and the exporter off, printing a summary line per station. "
         "Under systemd (Type=notify) it reports readiness, health and watchdog pings; SIGHUP "
-        "reloads the config, SIGTERM stops gracefully.",
+        "reloads the config, SIGTERM stops gracefully. With [runtime] workers = N > 1, N worker "
+        "processes share the stations (for many stations on a multi-core machine); this process "
+        "then serves the exporter, the daemon's MQTT status and health, and systemd for all.",
         epilog=SAFETY_LINE,
     )
     p.add_argument("--config", help="TOML configuration file")

@@ -156,7 +156,7 @@ async def serve_worker(settings: Settings, path: Path, fd: int, summary_every: f
         options,
         factory=lambda cfg: current["factory"](cfg),  # noqa: PLW0108 - late-bound on reload
         notifier=LinkNotifier(link),
-        exporter=LinkSink(link),
+        exporter=LinkSink(link, per_satellite=settings.prometheus.per_satellite),
         publisher=publisher,
         build_snapshot=lambda d, stats: build_daemon_snapshot(d, publisher, started, stats),
         summary=(lambda line: print(line, flush=True)) if options.summary_interval_s else None,

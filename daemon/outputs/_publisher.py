@@ -201,6 +201,18 @@ class MqttPublisher:
             alarm_class=True,
         )
 
+    def announce_station_nowait(self, station: str, state: str, last_epoch: GpsTime | None) -> None:
+        """Queue a station's retained status on another process's behalf: the main process of
+        ``[runtime] workers`` > 1 says "offline" for the stations of a worker that died without
+        its goodbye (a worker's connection has no last will; the daemon's has)."""
+        self._put(
+            self._tree.station_status(station),
+            fmt.station_status_payload(station, state, self._clock(), last_epoch),
+            qos=self._s.qos_status,
+            retain=True,
+            alarm_class=True,
+        )
+
     def _station_topics(self, station: str) -> tuple[Topic, Topic]:
         """The summary and satellites topics of a station (validated once, then cached)."""
         topics = self._topics.get(station)

@@ -23,19 +23,33 @@ from __future__ import annotations
 
 import asyncio
 import contextlib
+import dataclasses
+import io
 import pickle
 import struct
 from dataclasses import dataclass
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
 
 from ._notify import SdNotifier
 
 if TYPE_CHECKING:
     import socket
 
+    from ionwarden.daemon.estimator import StationSnapshot
     from ionwarden.daemon.outputs import DaemonSnapshot
 
-__all__ = ["MAX_MESSAGE_BYTES", "Assign", "Link", "LinkNotifier", "LinkSink", "Notify", "Report"]
+__all__ = [
+    "MAX_MESSAGE_BYTES",
+    "Assign",
+    "Link",
+    "LinkNotifier",
+    "LinkSink",
+    "Notify",
+    "Report",
+    "report_view",
+]
 
 _HEADER = struct.Struct(">I")
 #: Largest message accepted (a snapshot of 100 stations × 100 satellites is ~2 MB); past it the
@@ -67,6 +81,93 @@ class Report:
     latencies: tuple[tuple[str, float], ...] = ()
 
 
+#: The per-satellite columns the exporter serves (``outputs/_exporter.py``), with the satellite ids.
+#: A report carries only these: a station's full snapshot has ~25 arrays, and pickling arrays one by
+#: one is most of a report's cost. ``tests/test_runtime_workers.py`` checks that the exporter's page
+#: and the health message are the same from this view as from the full snapshot.
+REPORT_SATELLITE_FIELDS = frozenset(
+    {"sat", "stec_tecu", "rot_tecu_per_min", "roti_tecu_per_min", "el_deg"}
+)
+_EMPTY_F64 = np.zeros(0)
+_EMPTY_CELLS: dict[str, Any] = {
+    "cell_sat": np.zeros(0, np.int16),
+    "cell_sig": np.zeros(0, np.uint16),
+    "cell_el_deg": _EMPTY_F64,
+    "cell_cn0_dbhz": np.zeros(0, np.float32),
+}
+
+
+def _slim(snap: StationSnapshot, per_satellite: bool) -> StationSnapshot:
+    figs = snap.satellites
+    dropped: dict[str, Any] = {}
+    for f in dataclasses.fields(figs):
+        if per_satellite and f.name in REPORT_SATELLITE_FIELDS:
+            continue
+        value = getattr(figs, f.name)
+        if isinstance(value, np.ndarray):
+            dropped[f.name] = value[:0] if value.dtype != np.float64 else _EMPTY_F64
+        elif isinstance(value, tuple):
+            dropped[f.name] = ()
+    return dataclasses.replace(
+        snap, satellites=dataclasses.replace(figs, **dropped), **_EMPTY_CELLS
+    )
+
+
+def report_view(snapshot: DaemonSnapshot, *, per_satellite: bool = True) -> DaemonSnapshot:
+    """What a worker sends of its snapshot: every station figure, counter and alarm; of each
+    station's per-satellite arrays only the exporter's columns (none with ``per_satellite`` off)."""
+    return dataclasses.replace(
+        snapshot,
+        stations=tuple(
+            st
+            if st.snapshot is None
+            else dataclasses.replace(st, snapshot=_slim(st.snapshot, per_satellite))
+            for st in snapshot.stations
+        ),
+    )
+
+
+#: Field names of each frozen slots dataclass pickled so far (``False``: not one of those).
+_FIELDS: dict[type, tuple[str, ...] | bool] = {}
+
+
+def _rebuild(cls: type, values: tuple[Any, ...]) -> object:
+    """Unpickle a frozen slots dataclass from its field values (what ``_Pickler`` wrote)."""
+    obj: object = object.__new__(cls)
+    for name, value in zip(_field_names(cls), values, strict=True):
+        object.__setattr__(obj, name, value)
+    return obj
+
+
+def _field_names(cls: type) -> tuple[str, ...]:
+    names = _FIELDS.get(cls)
+    if not isinstance(names, tuple):
+        names = _FIELDS[cls] = tuple(f.name for f in dataclasses.fields(cls))
+    return names
+
+
+class _Pickler(pickle.Pickler):
+    """Pickles our frozen slots dataclasses as (class, field values): the standard way calls
+    ``dataclasses.fields()`` per object (a generated ``__getstate__``), which was 70% of a report's
+    cost (~140 records per 10 stations)."""
+
+    def reducer_override(self, obj: Any) -> Any:
+        cls = type(obj)
+        names = _FIELDS.get(cls)
+        if names is None:
+            slotted = dataclasses.is_dataclass(cls) and "__slots__" in cls.__dict__
+            names = _FIELDS[cls] = _field_names(cls) if slotted else False
+        if names is False:
+            return NotImplemented
+        return _rebuild, (cls, tuple([getattr(obj, n) for n in names]))  # type: ignore[union-attr]
+
+
+def _dumps(message: object) -> bytes:
+    buf = io.BytesIO()
+    _Pickler(buf, protocol=5).dump(message)
+    return buf.getvalue()
+
+
 class LinkError(Exception):
     """The link carried something that is not a message of ours (never expected)."""
 
@@ -87,7 +188,7 @@ class Link:
         """Queue ``message`` (never blocks; a closed link drops it: the peer is gone)."""
         if self._writer.is_closing():
             return
-        data = pickle.dumps(message, protocol=5)
+        data = _dumps(message)
         self._writer.write(_HEADER.pack(len(data)) + data)
 
     async def receive(self) -> Assign | Notify | Report | None:
@@ -133,8 +234,9 @@ class LinkSink:
     """A worker's exporter: snapshots and epoch latencies go to the main process, which serves
     them (one exporter, one port, whatever the number of workers)."""
 
-    def __init__(self, link: Link) -> None:
+    def __init__(self, link: Link, *, per_satellite: bool = True) -> None:
         self._link = link
+        self._per_satellite = per_satellite
         self._latencies: list[tuple[str, float]] = []
 
     def start(self) -> None:
@@ -147,5 +249,6 @@ class LinkSink:
         self._latencies.append((station, seconds))
 
     def update(self, snapshot: DaemonSnapshot) -> None:
-        self._link.send(Report(snapshot, tuple(self._latencies)))
+        view = report_view(snapshot, per_satellite=self._per_satellite)
+        self._link.send(Report(view, tuple(self._latencies)))
         self._latencies.clear()

@@ -275,7 +275,7 @@ class WorkerPool:
                 log.info("ready: %d station(s) in %d workers", len(self._order), len(self._workers))
                 tick = tg.create_task(self._status_loop(), name="daemon.status[all]")
                 await self._wait_for_stop()
-                await self._shutdown([tick, *watchers], mqtt_task)
+                await self._shutdown(tick, watchers, mqtt_task)
         finally:
             if self._exporter is not None:
                 self._exporter.close()
@@ -340,6 +340,7 @@ class WorkerPool:
                 log.info("worker %d: every source of %s ended", w.index, ", ".join(w.stations))
                 self._wake.set()
                 return
+            self._announce_offline(w)
             if loop.time() - t0 >= RESTART_RESET_AFTER_S:
                 delays = backoff_delays(initial_s=RESTART_INITIAL_S, cap_s=RESTART_CAP_S)
             delay = next(delays)
@@ -396,6 +397,17 @@ class WorkerPool:
         self._wake.set()
         return rc
 
+    def _announce_offline(self, w: _Worker) -> None:
+        """A worker died without its goodbye: its stations' retained status says "offline" until
+        the restarted worker's first epochs (consumers must not read a dead station as live)."""
+        if self._publisher is None:
+            return
+        figures = {f.station: f for f in w.report.stations} if w.report is not None else {}
+        for station in w.stations:
+            f = figures.get(station)
+            last = f.snapshot.time if f is not None and f.snapshot is not None else None
+            self._publisher.announce_station_nowait(station, "offline", last)
+
     def _on_notify(self, w: _Worker, fields: Sequence[str]) -> None:
         for f in fields:
             if f == "READY=1":
@@ -444,11 +456,16 @@ class WorkerPool:
                     last_wd = now
 
     async def _shutdown(
-        self, tasks: list[asyncio.Task[None]], mqtt_task: asyncio.Task[None] | None
+        self,
+        tick: asyncio.Task[None],
+        watchers: list[asyncio.Task[None]],
+        mqtt_task: asyncio.Task[None] | None,
     ) -> None:
         loop = asyncio.get_running_loop()
         deadline = loop.time() + self._stop_timeout_s + GOODBYE_TIMEOUT_S
         self._stop.set()  # no worker is restarted from now on
+        tick.cancel()  # no STATUS= after STOPPING=1
+        await asyncio.wait([tick], timeout=1.0)
         self.notifier.notify("STOPPING=1", "STATUS=stopping")
         log.info("stopping %d workers", len(self._workers))
         procs = [w.proc for w in self._workers if w.proc is not None]
@@ -466,9 +483,9 @@ class WorkerPool:
                         proc.kill()
             if pending:
                 await asyncio.wait(pending, timeout=1.0)
-        for task in tasks:
+        for task in watchers:
             task.cancel()
-        await asyncio.wait(tasks, timeout=1.0)
+        await asyncio.wait(watchers, timeout=1.0)
         if self._publisher is not None and mqtt_task is not None:
             self._publisher.stop()  # the daemon's "offline"
             done, _pending = await asyncio.wait(
