@@ -58,6 +58,7 @@ from ionwarden.daemon.runtime._pool import (
     merge_snapshots,
     worker_environment,
 )
+from ionwarden.daemon.runtime._supervisor import tick_delay_s
 from ionwarden.daemon.sim import Simulator, build_scenario, iter_stream
 
 from ._mqtt_support import BROKER_HOST, BROKER_PORT, need, port_open, unique_prefix
@@ -517,3 +518,12 @@ def test_two_workers_replay_files_to_the_end_without_losing_an_epoch(tmp_path: P
     assert epochs(out2) == epochs(out1)
     assert set(epochs(out2)) == set(names)
     assert all(int(v) > 1000 for v in epochs(out2).values())  # demo.md: 1,200 epochs
+
+
+def test_status_tick_aims_midway_between_bursts() -> None:
+    """The tick lands half an interval after the latest epoch, never within a quarter interval."""
+    assert tick_delay_s(10.1, None, 1.0) == 1.0  # no epoch yet: a plain interval
+    assert tick_delay_s(10.1, 10.0, 1.0) == pytest.approx(0.4)
+    assert tick_delay_s(10.4, 10.0, 1.0) == pytest.approx(1.1)  # too close: the next midpoint
+    assert tick_delay_s(12.3, 10.0, 1.0) == pytest.approx(1.2)  # epochs stopped: same phase
+    assert tick_delay_s(10.0, 10.0, 2.0) == pytest.approx(1.0)

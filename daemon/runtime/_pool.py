@@ -31,7 +31,7 @@ import logging
 import os
 import signal
 import socket
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
 from ionwarden.daemon.outputs import GOODBYE_TIMEOUT_S, DaemonSnapshot, MqttStatistics
@@ -40,6 +40,7 @@ from ._backoff import backoff_delays
 from ._link import Assign, Link, LinkError, Notify, Report
 from ._notify import SdNotifier, watchdog_interval_s
 from ._summary import MAX_STATUS_CHARS
+from ._supervisor import tick_delay_s
 
 if TYPE_CHECKING:
     from collections.abc import Callable, Iterable, Mapping, Sequence
@@ -145,7 +146,6 @@ class _Worker:
     last_ping_s: float = 0.0
     ended: bool = False  # exited 0 by itself: every source ended
     restarts: int = 0
-    pids: list[int] = field(default_factory=list)
 
 
 class WorkerPool:
@@ -204,12 +204,6 @@ class WorkerPool:
     @property
     def assignment(self) -> tuple[tuple[str, ...], ...]:
         return tuple(w.stations for w in self._workers)
-
-    def worker_pids(self) -> list[int]:
-        """The running workers' process ids (for tests and status)."""
-        return [
-            w.proc.pid for w in self._workers if w.proc is not None and w.proc.returncode is None
-        ]
 
     def snapshot(self) -> DaemonSnapshot:
         """Every worker's last report, merged, with the main process's MQTT connection."""
@@ -372,7 +366,6 @@ class WorkerPool:
             child.close()
         link = await Link.open(parent)
         w.proc, w.link, w.ready, w.report = proc, link, False, None
-        w.pids.append(proc.pid)
         link.send(Assign(w.stations, w.index))
         try:
             while (message := await link.receive()) is not None:
@@ -431,10 +424,20 @@ class WorkerPool:
         wd = watchdog_interval_s()
         last_wd = loop.time()
         last_status = ""
+        last_epoch_s: float | None = None
         while True:
-            await asyncio.sleep(self._status_interval_s)
+            # midway between bursts, as the workers' own ticks (whose reports it serves)
+            await asyncio.sleep(tick_delay_s(loop.time(), last_epoch_s, self._status_interval_s))
             now = loop.time()
             snap = self._serve_snapshot()
+            last_epoch_s = max(
+                (
+                    s.last_epoch_monotonic_s
+                    for s in snap.stations
+                    if s.last_epoch_monotonic_s is not None
+                ),
+                default=None,
+            )
             if self._publisher is not None:
                 self._publisher.publish_health_nowait(snap)  # rate-limited by the publisher
             status = self.status()

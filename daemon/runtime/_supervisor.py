@@ -52,7 +52,7 @@ if TYPE_CHECKING:
     from ._core import StationCore
     from ._station import StationStatistics
 
-__all__ = ["Daemon", "DaemonOptions", "SnapshotSink", "StationBundle"]
+__all__ = ["Daemon", "DaemonOptions", "SnapshotSink", "StationBundle", "tick_delay_s"]
 
 log = logging.getLogger("ionwarden.daemon.runtime")
 
@@ -80,6 +80,22 @@ async def _cancel_and_wait(tasks: list[asyncio.Task[None]], grace_s: float) -> N
         task.cancel()
     if pending:
         await asyncio.wait(pending, timeout=grace_s)
+
+
+def tick_delay_s(now_s: float, last_epoch_s: float | None, interval_s: float) -> float:
+    """Seconds until the next status tick: midway between epoch bursts.
+
+    Receivers put out their epochs on the GPS second, so every station's urgent step comes at the
+    same phase of each interval. A tick that simply slept ``interval_s`` after the last one would
+    drift through that phase by its own duration each time and, for a few seconds in every few
+    hundred, hold a burst back behind its snapshot of every station (a background step that has
+    begun is not interrupted). So the tick aims at half an interval after the latest epoch's
+    arrival (``last_epoch_s``; None before the first: a plain interval), at least a quarter of an
+    interval from now."""
+    if last_epoch_s is None:
+        return interval_s
+    delay = (last_epoch_s + 0.5 * interval_s - now_s) % interval_s
+    return delay + interval_s if delay < 0.25 * interval_s else delay
 
 
 class SnapshotSink(Protocol):
@@ -336,9 +352,10 @@ class Daemon:
         opts = self.options
         last_wd = last_summary = loop.time()
         last_status = ""
+        last_epoch_s: float | None = None
         lane = self._lane
         while True:
-            await asyncio.sleep(opts.status_interval_s)
+            await asyncio.sleep(tick_delay_s(loop.time(), last_epoch_s, opts.status_interval_s))
             # A 1 Hz tick drifts through the second: as a background step it waits for the
             # urgent steps of a burst (every station's epoch at the top of the GPS second)
             # instead of delaying the stations behind it by its snapshot of every station.
@@ -346,6 +363,14 @@ class Daemon:
             try:
                 now = loop.time()
                 stats = self.statistics()
+                last_epoch_s = max(
+                    (
+                        s.last_epoch_monotonic_s
+                        for s in stats
+                        if s.last_epoch_monotonic_s is not None
+                    ),
+                    default=None,
+                )
                 snap = self._publish_status(stats)
                 status = format_status(stats)
                 if status != last_status:
