@@ -408,16 +408,16 @@ def test_mqtt_stall_transition_marks_station_stale():
 
 
 def test_mqtt_swallowed_cancellation_is_raised_again():
-    """_raise_if_cancelled re-raises when a cancellation was swallowed (asyncio.wait_for on
+    """raise_if_cancelled re-raises when a cancellation was swallowed (asyncio.wait_for on
     Python < 3.12, CPython gh-86296), so a cancelled publisher never keeps waiting."""
-    from ionwarden.daemon.outputs._publisher import _raise_if_cancelled
+    from ionwarden.daemon.outputs._client import raise_if_cancelled
 
     async def body():
         asyncio.current_task().cancel()
         # Swallow it, as wait_for does when the inner future completes at the same moment.
         with contextlib.suppress(asyncio.CancelledError):
             await asyncio.sleep(0)
-        _raise_if_cancelled()
+        raise_if_cancelled()
 
     async def main():
         task = asyncio.get_running_loop().create_task(body())

@@ -172,11 +172,13 @@ async def serve_worker(settings: Settings, path: Path, fd: int, summary_every: f
         log.error("worker: the main process is gone; stopping")
         daemon.request_stop()
 
-    listener = asyncio.create_task(listen(), name="daemon.link[main]")
     try:
-        return await daemon.run()
+        async with asyncio.TaskGroup() as tg:
+            listener = tg.create_task(listen(), name="daemon.link[main]")
+            try:
+                return await daemon.run()
+            finally:
+                listener.cancel()
     finally:
-        listener.cancel()
-        await asyncio.gather(listener, return_exceptions=True)
         await link.drain()
         link.close()

@@ -27,6 +27,7 @@ from __future__ import annotations
 
 import asyncio
 import contextlib
+import logging
 import socket
 from typing import TYPE_CHECKING, Any
 
@@ -35,11 +36,20 @@ import paho.mqtt.client as mqtt
 from paho.mqtt.properties import Properties
 
 if TYPE_CHECKING:
+    import ssl
     from collections.abc import Callable
 
     from paho.mqtt.enums import MQTTErrorCode
 
-__all__ = ["PackedOnce", "QuickAckClient", "encode_publish_qos1"]
+    from ionwarden.daemon.config import MqttSettings
+
+__all__ = [
+    "PackedOnce",
+    "QuickAckClient",
+    "encode_publish_qos1",
+    "new_client",
+    "raise_if_cancelled",
+]
 
 #: PUBLISH with QoS 1 (MQTT 5.0 §3.3.1.1: packet type 3, QoS bits 01; bit 0 is RETAIN).
 _PUBLISH_QOS1 = 0x32
@@ -339,3 +349,39 @@ class PackedOnce(Properties):
             # paho's __setattr__ accepts only property names
             object.__setattr__(self, "_packed", packed)
         return packed
+
+
+def raise_if_cancelled() -> None:
+    """Re-raise a cancellation that ``asyncio.wait_for`` swallowed.
+
+    aiomqtt 2.x waits for CONNACK and PUBACK with ``asyncio.wait_for``, which on Python < 3.12 can
+    drop a cancellation that arrives as the awaited future completes (CPython gh-86296); the task
+    then stays "cancelling" but runs on. Called after each such await, so shutdown never hangs.
+    """
+    task = asyncio.current_task()
+    if task is not None and task.cancelling():
+        raise asyncio.CancelledError
+
+
+def new_client(
+    s: MqttSettings, *, will: aiomqtt.Will | None, password: str | None, tls: ssl.SSLContext | None
+) -> QuickAckClient:
+    """A fresh MQTT v5 client for one connection attempt of the publisher."""
+    return QuickAckClient(
+        s.host,
+        s.port,
+        username=s.username or None,
+        password=password,
+        identifier=s.client_id or None,
+        protocol=aiomqtt.ProtocolVersion.V5,
+        will=will,
+        keepalive=s.keepalive_s,
+        timeout=s.timeout_s,
+        tls_context=tls,
+        # Small QoS 1 packets and their PUBACKs must not wait for Nagle + delayed ACK (~40 ms).
+        socket_options=((socket.IPPROTO_TCP, socket.TCP_NODELAY, 1),),
+        # Our window is the bound: paho's own in-flight limit must not hold messages back
+        # (a little room on top for the status messages sent outside the window).
+        max_inflight_messages=s.publish_window + 4,
+        logger=logging.getLogger("ionwarden.daemon.outputs.mqtt.client"),
+    )

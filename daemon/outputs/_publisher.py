@@ -18,7 +18,6 @@ import asyncio
 import contextlib
 import datetime as dt
 import logging
-import socket
 import time
 from collections import deque
 from importlib import metadata
@@ -32,7 +31,7 @@ from ionwarden.daemon.runtime import backoff_delays
 
 from . import _payloads as fmt
 from ._buffer import OutboundBuffer, OutboundMessage
-from ._client import PackedOnce, QuickAckClient
+from ._client import PackedOnce, QuickAckClient, new_client, raise_if_cancelled
 from ._credentials import resolve_password, tls_context
 from ._model import MqttStatistics
 from ._topics import Topic, TopicTree
@@ -58,18 +57,6 @@ log = logging.getLogger("ionwarden.daemon.outputs.mqtt")
 TRANSIENT_MQTT_ERRORS: tuple[type[BaseException], ...] = (aiomqtt.MqttError,)
 #: Time allowed for the goodbye messages ("offline") on shutdown.
 GOODBYE_TIMEOUT_S = 2.0
-
-
-def _raise_if_cancelled() -> None:
-    """Re-raise a cancellation that ``asyncio.wait_for`` swallowed.
-
-    aiomqtt 2.x waits for CONNACK and PUBACK with ``asyncio.wait_for``, which on Python < 3.12 can
-    drop a cancellation that arrives as the awaited future completes (CPython gh-86296); the task
-    then stays "cancelling" but runs on. Called after each such await, so shutdown never hangs.
-    """
-    task = asyncio.current_task()
-    if task is not None and task.cancelling():
-        raise asyncio.CancelledError
 
 
 def _utc_now() -> dt.datetime:
@@ -389,24 +376,7 @@ class MqttPublisher:
             if self._daemon_status
             else None
         )
-        return QuickAckClient(
-            s.host,
-            s.port,
-            username=s.username or None,
-            password=self._password,
-            identifier=s.client_id or None,
-            protocol=aiomqtt.ProtocolVersion.V5,
-            will=will,
-            keepalive=s.keepalive_s,
-            timeout=s.timeout_s,
-            tls_context=self._tls,
-            # Small QoS 1 packets and their PUBACKs must not wait for Nagle + delayed ACK (~40 ms).
-            socket_options=((socket.IPPROTO_TCP, socket.TCP_NODELAY, 1),),
-            # Our window is the bound: paho's own in-flight limit must not hold messages back
-            # (a little room on top for the status messages sent outside the window).
-            max_inflight_messages=s.publish_window + 4,
-            logger=logging.getLogger("ionwarden.daemon.outputs.mqtt.client"),
-        )
+        return new_client(s, will=will, password=self._password, tls=self._tls)
 
     async def run(self) -> None:
         """Connect, publish, reconnect with backoff until :meth:`stop` (or cancellation)."""
@@ -421,7 +391,7 @@ class MqttPublisher:
             while not self._stop.is_set():
                 try:
                     async with self._client() as client:
-                        _raise_if_cancelled()
+                        raise_if_cancelled()
                         self._set_connected(True)
                         self._connects += 1
                         self._ready.set()
@@ -534,7 +504,7 @@ class MqttPublisher:
         try:
             if self._daemon_status:
                 await self._publish(client, online)
-                _raise_if_cancelled()
+                raise_if_cancelled()
             try:
                 self._live = client
                 await self._pump()
@@ -585,7 +555,7 @@ class MqttPublisher:
                         raise aiomqtt.MqttError(
                             f"no acknowledgement within {self._s.timeout_s:g} s"
                         ) from None
-            _raise_if_cancelled()
+            raise_if_cancelled()
 
     def _abandon(self) -> None:
         """The session ends: forget the publishes in flight; their messages stay buffered and are

@@ -475,7 +475,8 @@ class WorkerPool:
         for proc in procs:
             with contextlib.suppress(ProcessLookupError):
                 proc.send_signal(signal.SIGTERM)
-        waits = [asyncio.ensure_future(p.wait()) for p in procs]
+        assert self._tg is not None
+        waits = [self._tg.create_task(p.wait(), name="daemon.worker[exit]") for p in procs]
         if waits:
             # each worker has its own stop_timeout_s (stations, MQTT flush, "offline")
             _done, pending = await asyncio.wait(waits, timeout=self._stop_timeout_s + 0.5)
