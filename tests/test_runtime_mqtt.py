@@ -9,9 +9,10 @@ from pathlib import Path
 
 import aiomqtt
 import pytest
+from prometheus_client import CollectorRegistry
 
-from ionwarden.daemon.config import load_settings
-from ionwarden.daemon.outputs import MqttPublisher
+from ionwarden.daemon.config import PrometheusSettings, load_settings
+from ionwarden.daemon.outputs import Exporter, MqttPublisher
 from ionwarden.daemon.runtime._app import make_factory, options_from_settings
 from ionwarden.daemon.runtime._supervisor import Daemon
 from tests._mqtt_support import BROKER_HOST, BROKER_PORT, need, port_open, unique_prefix
@@ -36,9 +37,12 @@ def test_daemon_publishes_every_epoch_and_flushes_before_stopping(tmp_path: Path
         runtime={"state_dir": str(tmp_path / "state"), "summary_interval_s": 0},
     )
 
-    async def main() -> tuple[int, list[dict[str, object]]]:
+    async def main() -> tuple[int, list[dict[str, object]], str]:
         loop = asyncio.get_running_loop()
         publisher = MqttPublisher(settings.mqtt, monotonic=loop.time)
+        exporter = Exporter(
+            PrometheusSettings(port=0), registry=CollectorRegistry(), monotonic=loop.time
+        )
         got: list[dict[str, object]] = []
         async with aiomqtt.Client(BROKER_HOST, BROKER_PORT) as sub:
             topic = publisher.topics.summary("harc").value
@@ -47,6 +51,7 @@ def test_daemon_publishes_every_epoch_and_flushes_before_stopping(tmp_path: Path
                 options_from_settings(settings, environ={}),
                 factory=make_factory(settings),
                 publisher=publisher,
+                exporter=exporter,
             )
             assert await daemon.run() == 0  # the replay ends, the daemon stops and flushes
             epochs = daemon.stopped_statistics["harc"].epochs_total
@@ -55,9 +60,12 @@ def test_daemon_publishes_every_epoch_and_flushes_before_stopping(tmp_path: Path
                     got.append(json.loads(bytes(msg.payload)))  # type: ignore[arg-type]
                     if len(got) >= epochs:
                         break
-        return epochs, got
+        return epochs, got, exporter.exposition()[0].decode()
 
-    epochs, got = asyncio.run(main())
+    epochs, got, page = asyncio.run(main())
     assert epochs > 50
     assert len(got) == epochs
     assert all(m["station"] == "harc" for m in got)
+    # every summary's frame → PUBACK latency observed once (the issue 8 latency, in the daemon)
+    count = f'ionwarden_mqtt_summary_delivery_seconds_count{{station="harc"}} {float(epochs)}'
+    assert count in page

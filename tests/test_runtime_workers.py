@@ -388,10 +388,18 @@ def test_two_workers_serve_every_station_restart_reload_and_stop(tmp_path: Path)
                 await until(lambda: all(summaries[n] >= 3 for n in names))
                 workers = _children(proc.pid)
                 out["workers"] = len(workers)
-                page = await asyncio.to_thread(_scrape, prom)
-                out["scraped"] = sorted(
-                    n for n in names if f'ionwarden_station_epochs_total{{station="{n}"}}' in page
-                )
+                page = ""
+
+                def served(what: str) -> list[str]:
+                    return sorted(n for n in names if f'{what}{{station="{n}"}}' in page)
+
+                async with asyncio.timeout(20):  # the workers report once a second
+                    while served("ionwarden_mqtt_summary_delivery_seconds_count") != names:
+                        await asyncio.sleep(0.5)
+                        page = await asyncio.to_thread(_scrape, prom)
+                out["scraped"] = served("ionwarden_station_epochs_total")
+                # frame → PUBACK, observed by the workers, served here
+                out["delivered"] = served("ionwarden_mqtt_summary_delivery_seconds_count")
                 health = f"{prefix}/_daemon/health"
                 await until(  # the first ones may come before every worker reported
                     lambda: health in retained and len(retained[health]["stations"]) == 4  # type: ignore[arg-type]
@@ -447,6 +455,7 @@ def test_two_workers_serve_every_station_restart_reload_and_stop(tmp_path: Path)
     assert notes[-2:] == ["STOPPING=1", "STATUS=stopping"]
     assert out["workers"] == 2, text
     assert out["scraped"] == names  # one exporter serves every worker's stations
+    assert out["delivered"] == names
     health = out["health"]
     assert isinstance(health, dict)
     assert len(health["stations"]) == len(names)

@@ -36,7 +36,9 @@ __all__ = ["OutboundBuffer", "OutboundMessage"]
 class OutboundMessage:
     """One publish: topic, payload bytes, QoS, retain flag, MQTT v5 expiry (None = never), the
     buffer class (``alarm_class``; ``bulk`` for low-priority epoch data), and when it was queued
-    (publisher's monotonic clock, s)."""
+    (publisher's monotonic clock, s). A summary also carries its ``station`` and ``origin_s``: when
+    the bytes that completed its epoch arrived (same clock; None when unknown), for the
+    frame → acknowledgement latency."""
 
     topic: Topic
     payload: bytes
@@ -46,6 +48,8 @@ class OutboundMessage:
     alarm_class: bool = False
     bulk: bool = False
     queued_s: float = 0.0
+    origin_s: float | None = None
+    station: str = ""
 
 
 class OutboundBuffer:

@@ -298,9 +298,18 @@ class Exporter:
             buckets=settings.latency_buckets_s,
             registry=registry,
         )
-        #: Each station's child of ``_latency`` (``labels()`` takes a lock and builds a key on
-        #: every call; the child is the same object each time: children are never removed).
+        self._delivery = Histogram(
+            f"{_NS}_mqtt_summary_delivery_seconds",
+            "Time from the bytes completing an epoch to the broker's acknowledgement of its "
+            "summary (s).",
+            labelnames=("station",),
+            buckets=settings.latency_buckets_s,
+            registry=registry,
+        )
+        #: Each station's child of ``_latency`` / ``_delivery`` (``labels()`` takes a lock and
+        #: builds a key on every call; the child is the same object each time: never removed).
         self._latency_of: dict[str, Any] = {}
+        self._delivery_of: dict[str, Any] = {}
         self._scraper = Scraper(registry, self._collector)
         self._server: WSGIServer | None = None
         self._thread: threading.Thread | None = None
@@ -327,6 +336,13 @@ class Exporter:
         child = self._latency_of.get(station)
         if child is None:
             child = self._latency_of[station] = self._latency.labels(station=station)
+        child.observe(seconds)
+
+    def observe_summary_delivery(self, station: str, seconds: float) -> None:
+        """Frame received → the broker's PUBACK of the epoch's summary (issue 8's latency)."""
+        child = self._delivery_of.get(station)
+        if child is None:
+            child = self._delivery_of[station] = self._delivery.labels(station=station)
         child.observe(seconds)
 
     def start(self) -> None:

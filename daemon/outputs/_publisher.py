@@ -133,6 +133,9 @@ class MqttPublisher:
         self._inflight: deque[tuple[OutboundMessage, asyncio.Future[None], float]] = deque()
         self._lost = False
         self._topics: dict[str, tuple[Topic, Topic]] = {}
+        #: Called with (station, seconds) when the broker acknowledges a summary that knows when
+        #: its epoch's bytes arrived: frame received → PUBACK (the daemon wires the exporter).
+        self.on_summary_delivered: Callable[[str, float], None] | None = None
 
     @property
     def topics(self) -> TopicTree:
@@ -150,6 +153,8 @@ class MqttPublisher:
         alarm_class: bool,
         expiry_s: int | None = None,
         bulk: bool = False,
+        origin_s: float | None = None,
+        station: str = "",
     ) -> None:
         msg = OutboundMessage(
             topic=topic,
@@ -160,6 +165,8 @@ class MqttPublisher:
             alarm_class=alarm_class,
             bulk=bulk,
             queued_s=self._monotonic(),
+            origin_s=origin_s,
+            station=station,
         )
         if not self._buffer.put_nowait(msg) and alarm_class:
             log.error(
@@ -208,8 +215,12 @@ class MqttPublisher:
             self._topics[station] = topics
         return topics
 
-    def publish_snapshot_nowait(self, snap: StationSnapshot) -> None:
-        """Queue the epoch summary (and the satellite figures when due) of one station."""
+    def publish_snapshot_nowait(
+        self, snap: StationSnapshot, arrived_s: float | None = None
+    ) -> None:
+        """Queue the epoch summary (and the satellite figures when due) of one station;
+        ``arrived_s``: when the bytes that completed the epoch arrived (monotonic, for
+        :attr:`on_summary_delivered`)."""
         station = snap.station
         self._last_epoch[station] = snap.time
         if self._station_state.get(station) != "online":
@@ -223,6 +234,8 @@ class MqttPublisher:
             retain=False,
             alarm_class=False,
             expiry_s=s.epoch_expiry_s,
+            origin_s=arrived_s,
+            station=station,
         )
         t = snap.time.total_s
         last = self._last_sats_s.get(station)
@@ -481,6 +494,8 @@ class MqttPublisher:
             self._published += 1
             if self._on_published is not None:
                 self._on_published(msg, self._monotonic() - msg.queued_s)
+            if msg.origin_s is not None and self.on_summary_delivered is not None:
+                self.on_summary_delivered(msg.station, self._monotonic() - msg.origin_s)
 
     def _on_ack(self) -> None:
         self._settle()

@@ -74,11 +74,12 @@ class Notify:
 
 @dataclass(frozen=True, slots=True)
 class Report:
-    """A worker's status tick: its snapshot, and ``(station, seconds)`` epoch latencies since the
-    last report."""
+    """A worker's status tick: its snapshot, and the ``(station, seconds)`` epoch latencies and
+    summary deliveries (frame → PUBACK) since the last report."""
 
     snapshot: DaemonSnapshot
     latencies: tuple[tuple[str, float], ...] = ()
+    deliveries: tuple[tuple[str, float], ...] = ()
 
 
 #: The per-satellite columns the exporter serves (``outputs/_exporter.py``), with the satellite ids.
@@ -238,6 +239,7 @@ class LinkSink:
         self._link = link
         self._per_satellite = per_satellite
         self._latencies: list[tuple[str, float]] = []
+        self._deliveries: list[tuple[str, float]] = []
 
     def start(self) -> None:
         pass
@@ -248,7 +250,11 @@ class LinkSink:
     def observe_epoch_latency(self, station: str, seconds: float) -> None:
         self._latencies.append((station, seconds))
 
+    def observe_summary_delivery(self, station: str, seconds: float) -> None:
+        self._deliveries.append((station, seconds))
+
     def update(self, snapshot: DaemonSnapshot) -> None:
         view = report_view(snapshot, per_satellite=self._per_satellite)
-        self._link.send(Report(view, tuple(self._latencies)))
+        self._link.send(Report(view, tuple(self._latencies), tuple(self._deliveries)))
         self._latencies.clear()
+        self._deliveries.clear()

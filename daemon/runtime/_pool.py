@@ -374,6 +374,8 @@ class WorkerPool:
                     if self._exporter is not None:
                         for station, seconds in message.latencies:
                             self._exporter.observe_epoch_latency(station, seconds)
+                        for station, seconds in message.deliveries:
+                            self._exporter.observe_summary_delivery(station, seconds)
                     self._serve_snapshot()
                 elif isinstance(message, Notify):
                     self._on_notify(w, message.fields)
@@ -404,6 +406,7 @@ class WorkerPool:
     def _on_notify(self, w: _Worker, fields: Sequence[str]) -> None:
         for f in fields:
             if f == "READY=1":
+                w.last_ping_s = asyncio.get_running_loop().time()  # alive: its pings start now
                 if not w.ready:
                     w.ready = True
                     self._wake.set()

@@ -250,6 +250,9 @@ class StationRunner:
         self._last_data: float | None = None
         self._last_epoch: float | None = None
         self._latest: StationSnapshot | None = None
+        #: When the bytes that completed the snapshot being emitted arrived (monotonic; None when
+        #: not from a read): the emit callback passes it on with the summary (frame → PUBACK).
+        self.epoch_arrived_s: float | None = None
         self._latest_fix: FixStatus | None = None
         self._progress = now
         self._pipeline_errors = self._pipeline_resets = self._failing_steps = 0
@@ -546,6 +549,7 @@ class StationRunner:
                 self._epochs += 1
                 self._last_epoch = now
                 self._latest = out
+                self.epoch_arrived_s = arrived
                 self._detector.saw_epoch(now)
                 if self._pacer is not None:
                     delay = max(delay, self._pacer.delay(out.time.total_s, now))

@@ -106,6 +106,7 @@ class SnapshotSink(Protocol):
     def close(self) -> None: ...
     def update(self, snapshot: DaemonSnapshot) -> None: ...
     def observe_epoch_latency(self, station: str, seconds: float) -> None: ...
+    def observe_summary_delivery(self, station: str, seconds: float) -> None: ...
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -160,6 +161,8 @@ class Daemon:
         self.notifier = notifier or SdNotifier("")
         self._exporter = exporter
         self._publisher = publisher
+        if publisher is not None and exporter is not None:
+            publisher.on_summary_delivered = exporter.observe_summary_delivery
         self._build_snapshot = build_snapshot
         self._summary = summary
         self._reload = reload
@@ -205,7 +208,8 @@ class Daemon:
                 if alarms is not None:
                     transitions = alarms.observe_snapshot(item)
                 if pub is not None:
-                    pub.publish_snapshot_nowait(item)
+                    arrived = running.runner.epoch_arrived_s if running is not None else None
+                    pub.publish_snapshot_nowait(item, arrived)
             elif isinstance(item, FixStatus):
                 if alarms is not None:
                     transitions = alarms.observe_fix(item)
