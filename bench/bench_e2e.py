@@ -74,6 +74,8 @@ REPO = Path(__file__).resolve().parents[1]
 DAEMON = REPO / ".venv" / "bin" / "ionwarden"
 #: The daemon's histogram of "bytes that completed the epoch read → snapshot out" (_exporter.py).
 EPOCH_HISTOGRAM = "ionwarden_estimator_epoch_processing_seconds"
+#: The daemon's own frame received → summary PUBACK histogram (issue 8's latency, exactly).
+DELIVERY_HISTOGRAM = "ionwarden_mqtt_summary_delivery_seconds"
 #: Bounded waits (s).
 CONNECT_TIMEOUT_S = 60.0  # daemon start-up: Python imports, config, every station connected
 FIRST_SUMMARY_TIMEOUT_S = 60.0
@@ -406,9 +408,11 @@ def histogram_delta(before: dict[str, float], after: dict[str, float], name: str
                 return f"<= {le * 1e3:g} ms" if le != float("inf") else "> last bucket"
         return "?"
 
+    within_10ms = next((cum for le, cum in buckets if le == 0.01), None)
+    share = "" if within_10ms is None else f"; {within_10ms / n * 100:.1f}% <= 10 ms"
     return (
         f"n={n:.0f} mean={total / n * 1e3:.2f} ms p50 {bound(0.5)}, p99 {bound(0.99)} "
-        f"(bucket bounds)"
+        f"(bucket bounds){share}"
     )
 
 
@@ -715,6 +719,11 @@ async def _timed(
     print(
         f"  daemon's own {EPOCH_HISTOGRAM} (bytes read -> snapshot, queue wait + decode + "
         f"estimate) over the timed window: {histogram_delta(m_before, m_after, EPOCH_HISTOGRAM)}"
+    )
+    print(
+        f"  daemon's own {DELIVERY_HISTOGRAM} (frame received -> summary PUBACK: the issue's "
+        f"latency exactly) over the window: "
+        f"{histogram_delta(m_before, m_after, DELIVERY_HISTOGRAM)}"
     )
 
     def d(name: str) -> float:
