@@ -132,7 +132,9 @@ def write_config(
         f'[mqtt]\nenabled = true\nhost = "{mqtt_host}"\nport = {mqtt_port}\n'
         f'topic_prefix = "{prefix}"\n\n'
         f'[prometheus]\nenabled = true\naddress = "127.0.0.1"\nport = {prom_port}\n\n'
-        f'[runtime]\nstate_dir = "{state_dir}"\nworkers = {workers}\n'
+        f'[runtime]\nstate_dir = "{state_dir}"\n'
+        # (only when asked: a daemon from before [runtime] workers refuses the key)
+        + (f"workers = {workers}\n" if workers != 1 else "")
     )
     path.write_text(text)
 
