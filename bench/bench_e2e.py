@@ -33,7 +33,7 @@ Prometheus scrape landing on the burst: the worst case). The daemon is stopped w
 exit status is printed) and the temp files are removed.
 
 Usage: .venv/bin/python bench/bench_e2e.py [--seconds 60] [--stations 20] [--stagger]
-           [--scrape-every S] [--keep-log] [--series CSV] [--workers N]
+           [--scrape-every S] [--keep-log] [--series CSV] [--workers N] [--warm-up S]
 The daemon is the installed ``.venv/bin/ionwarden`` and inherits this process's environment, so
 ``PYTHONPATH=DIR`` with ``DIR/ionwarden/{daemon,parsers}`` (e.g. ``git archive HEAD daemon parsers``
 unpacked there) measures that code instead of the work tree. Exit status: 0, 1 on a set-up failure
@@ -80,7 +80,9 @@ DELIVERY_HISTOGRAM = "ionwarden_mqtt_summary_delivery_seconds"
 CONNECT_TIMEOUT_S = 60.0  # daemon start-up: Python imports, config, every station connected
 FIRST_SUMMARY_TIMEOUT_S = 60.0
 TAIL_TIMEOUT_S = 10.0  # after the last send, for the last summaries
-STOP_TIMEOUT_S = 20.0  # SIGTERM → exit (the daemon's own budget is [runtime] stop_timeout_s = 4)
+STOP_TIMEOUT_S = 20.0
+#: Warm-up pace (s between epochs: 10x real time).
+WARM_UP_PERIOD_S = 0.1  # SIGTERM → exit (the daemon's own budget is [runtime] stop_timeout_s = 4)
 WEEK_S = 604_800.0
 
 
@@ -426,7 +428,7 @@ async def run(args: argparse.Namespace, tmp: Path) -> int:
         f"figures are under contention)"
     )
     t_build = time.perf_counter()
-    chunks = build_chunks(args.seconds)
+    chunks = build_chunks(args.seconds + args.warm_up)
     print(
         f"simulated quiet-day stream (invented data): {len(chunks)} epochs, "
         f"{statistics.median(len(c) for _, c in chunks[1:]):.0f} bytes/epoch after the first "
@@ -543,6 +545,27 @@ async def _timed(
         got.arrived.clear()
         with contextlib.suppress(TimeoutError):
             await asyncio.wait_for(got.arrived.wait(), 0.5)
+    if args.warm_up:
+        # untimed, at 10x real time: arcs level, ROT and the 5-min ROTI windows fill, the receiver
+        # bias converges: the timed seconds then show the steady state, not the start-up
+        t0 = time.monotonic()
+        for k in range(1, args.warm_up + 1):
+            await asyncio.sleep(max(0.0, t0 + k * WARM_UP_PERIOD_S - time.monotonic()))
+            for i in range(n):
+                receivers.send(i, chunks[k][1])
+            daemon.check_alive()
+        last_key = tow_key(chunks[args.warm_up][0])
+        deadline = time.monotonic() + FIRST_SUMMARY_TIMEOUT_S
+        while not all((st, last_key) in got.times for st in names):
+            daemon.check_alive()
+            if time.monotonic() > deadline:
+                raise BenchError(
+                    f"the warm-up's last summaries did not arrive:\n{daemon.log_tail()}"
+                )
+            got.arrived.clear()
+            with contextlib.suppress(TimeoutError):
+                await asyncio.wait_for(got.arrived.wait(), 0.5)
+        print(f"warm-up: {args.warm_up} s of stream at 10x real time, untimed")
     # let the deferred steps, the start-up publishing and the exporter's 1 s refresh finish
     await asyncio.sleep(1.5)
     before, scrape_s = await scrape(prom_port)
@@ -550,7 +573,7 @@ async def _timed(
     await asyncio.sleep(0.5)
 
     # 2. timed: one chunk per second to every station
-    timed = chunks[1:]
+    timed = chunks[1 + args.warm_up :]
     sent: dict[tuple[str, int], tuple[int, float]] = {}  # (station, key) -> (second, send time)
     scrapes: list[tuple[int, float]] = []  # (second, scrape duration)
     bursts: dict[int, tuple[float, float, int]] = {}  # second -> main thread (run, wait, preempted)
@@ -758,6 +781,11 @@ def main() -> None:
     ap.add_argument(
         "--daemon-nice", type=int, default=0, metavar="N",
         help="renice the daemon's main thread (an experiment; negative values need root)",
+    )  # fmt: skip
+    ap.add_argument(
+        "--warm-up", type=int, default=0, metavar="S",
+        help="first feed S seconds of stream untimed at 10x real time (330: past the 5-min ROTI "
+        "window, the steady state a station runs in for months; default 0: from the start)",
     )  # fmt: skip
     ap.add_argument(
         "--workers", type=int, default=1, metavar="N",

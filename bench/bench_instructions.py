@@ -22,9 +22,13 @@ The script runs itself under ``valgrind --tool=callgrind --collect-atstart=no`` 
 ``OPENBLAS_NUM_THREADS=1`` and ``PYTHONHASHSEED=0``) and switches collection on only around the
 counted calls, through ``CALLGRIND_TOGGLE_COLLECT`` in a three-line C helper it compiles with
 ``cc`` against valgrind's ``callgrind.h`` (Debian: package ``valgrind``). The first two seconds are
-not counted (caches, first arcs). Printed: the total, the station-seconds counted, their ratio.
+not counted (caches, first arcs), or ``--warm-up S`` seconds. Mind the phase: in seconds 3-10 of the
+stream arcs still restart and ROT/ROTI are empty, so the default measures the start-up; the steady
+state a station runs in for months needs ``--warm-up 330`` (past the 5-min ROTI window; slow under
+valgrind: use 2 stations). Printed: the total, the station-seconds counted, their ratio.
 
 Usage: .venv/bin/python bench/bench_instructions.py [--what urgent] [--stations 20] [--seconds 8]
+           [--warm-up S]
 A/B: ``PYTHONPATH=DIR`` with ``DIR/ionwarden/{daemon,parsers}`` linking to another checkout (e.g.
 ``git worktree add``) measures that code; run both under the same options.
 """
@@ -75,6 +79,7 @@ def _parent(args: argparse.Namespace) -> int:
             "valgrind", "--tool=callgrind", "--collect-atstart=no",
             f"--callgrind-out-file={out}", sys.executable, __file__, "--child", str(lib),
             "--what", args.what, "--stations", str(args.stations), "--seconds", str(args.seconds),
+            "--warm-up", str(args.warm_up),
         ]  # fmt: skip
         run = subprocess.run(cmd, env=env, capture_output=True, text=True, check=False)
         counted = re.search(r"^counted station-seconds (\d+)$", run.stdout, re.MULTILINE)
@@ -98,7 +103,7 @@ def _parent(args: argparse.Namespace) -> int:
 
 
 # -- the measured child (under valgrind) ----------------------------------------------------------
-async def _pipeline(lib: Any, what: str, n: int, secs: int) -> int:
+async def _pipeline(lib: Any, what: str, n: int, secs: int, warm_up: int) -> int:
     sys.path.insert(0, str(HERE))
     from bench_outputs import _replayed_stations
 
@@ -106,7 +111,7 @@ async def _pipeline(lib: Any, what: str, n: int, secs: int) -> int:
     from ionwarden.daemon.estimator import StationSnapshot
     from ionwarden.daemon.outputs import MqttPublisher
 
-    chunks, pipes, engines = _replayed_stations(secs + WARM_UP_S, n)
+    chunks, pipes, engines = _replayed_stations(secs + warm_up, n)
     mqtt = what == "urgent-mqtt"
     host = os.environ.get("IONWARDEN_TEST_MQTT_HOST", "127.0.0.1")
     port = int(os.environ.get("IONWARDEN_TEST_MQTT_PORT", "1883"))
@@ -116,7 +121,7 @@ async def _pipeline(lib: Any, what: str, n: int, secs: int) -> int:
         await asyncio.wait_for(pub.wait_connected(), 60)
     urgent, counted = what != "settle", 0
     for k, chunk in enumerate(chunks[1:]):
-        on = k >= WARM_UP_S
+        on = k >= warm_up
         counted += n if on else 0
         if on and urgent:
             lib.iw_cg_toggle()
@@ -268,7 +273,7 @@ def _child(args: argparse.Namespace) -> None:
     if args.what == "runtime":
         counted = asyncio.run(_runtime(lib, args.stations, args.seconds))
     else:
-        counted = asyncio.run(_pipeline(lib, args.what, args.stations, args.seconds))
+        counted = asyncio.run(_pipeline(lib, args.what, args.stations, args.seconds, args.warm_up))
     print(f"counted station-seconds {counted}", flush=True)
 
 
@@ -279,6 +284,12 @@ def main() -> int:
     )
     ap.add_argument("--stations", type=int, default=20)
     ap.add_argument("--seconds", type=int, default=8, help="counted seconds (default 8)")
+    ap.add_argument(
+        "--warm-up", type=int, default=WARM_UP_S, metavar="S",
+        help=f"seconds of stream not counted first (default {WARM_UP_S}: the start-up, where arcs "
+        "restart and ROT/ROTI are still empty; 330 for the steady state past the 5-min ROTI "
+        "window, with --what urgent/urgent-mqtt/settle)",
+    )  # fmt: skip
     ap.add_argument("--child", help=argparse.SUPPRESS)  # the measured run, under valgrind
     args = ap.parse_args()
     if args.child:
