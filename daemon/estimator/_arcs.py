@@ -82,6 +82,7 @@ REASON_NAMES = {
 }
 #: e(el) = 1 + 2·exp(el·_EL_SCALE): exp(−el/15°) with el in radians.
 _EL_SCALE = np.array(-180.0 / np.pi / 15.0)
+_ZERO = np.array(0.0)
 _ONE = np.array(1.0)
 _TWO = np.array(2.0)
 
@@ -104,11 +105,6 @@ class SlipThresholds:
     rate_weight: float = 0.1
 
 
-def _sel(all_true: bool, mask: Bool, a: F64, b: F64 | float) -> F64:
-    """``np.where(mask, a, b)``, skipped when the caller knows the mask is all True."""
-    return a if all_true else np.where(mask, a, b)
-
-
 class ArcBlock:
     """The rows of a block ``g`` (NROW, d) the slip tests use, as views made once per block, and
     their work buffers (no allocation and no indexing per epoch on the common path). Copies and
@@ -119,11 +115,11 @@ class ArcBlock:
     caller wants differenced too (read back from ``diff[2:]``).
     """
 
-    __slots__ = ("absres", "cur", "cur_id", "cur_lock", "d", "diff", "dt", "g", "jump", "last_t",
-                 "level", "level_step", "low_thr", "mw_floor", "mw_mean", "mw_thr", "mw_var", "n",
-                 "n_ref", "pred", "prev", "prev_id", "prev_lock", "rate", "ref", "res", "res_gf",
-                 "res_mw", "scr", "scr_dt", "scr_flags", "scr_id", "scr_lock", "sq", "var",
-                 "x_mw", "x_rate")  # fmt: skip
+    __slots__ = ("absres", "cur", "cur_id", "cur_lock", "d", "diff", "dt", "g", "jump", "keep",
+                 "last_t", "level", "level_step", "low_thr", "mw_floor", "mw_mean", "mw_thr",
+                 "mw_var", "n", "n_ref", "pred", "prev", "prev_id", "prev_lock", "rate", "ref",
+                 "res", "res_gf", "res_mw", "scr", "scr_dt", "scr_flags", "scr_id", "scr_lock",
+                 "sq", "var", "x_mw", "x_rate")  # fmt: skip
 
     def __init__(self, g: F64, n_ref: int = 2) -> None:
         d = g.shape[1]
@@ -152,6 +148,8 @@ class ArcBlock:
         self.cur: F64 | None = None
         self.cur_id = self.cur_lock = self.absres  # placeholders, set with ``cur``
         self.jump = np.empty((2, d), np.bool_)
+        #: The general path's (GF, MW) rows of "the scatter learns from this residual".
+        self.keep = np.empty((2, d), np.bool_)
         # Screen flags: pair rank or half-cycle flag changed, lock indicator or time went
         # down (7 rows), previous sample recent enough (1 row).
         self.scr = np.empty((8, d), np.bool_)
@@ -245,7 +243,7 @@ class ArcState:
         if tracked is None or all_tracked:
             np.multiply(b.rate, dt, pred)
         else:
-            np.multiply(np.where(tracked, b.rate, 0.0), dt, out=pred)
+            np.multiply(np.where(tracked, b.rate, _ZERO), dt, pred)
         pred += b.level
         np.subtract(gf_mw, b.ref, b.diff)
         res = b.res  # GF − prediction, MW − mean of the arc
@@ -295,23 +293,21 @@ class ArcState:
             b.last_t.fill(t)
             b.prev[...] = cur
             return no_new, None
-        return self._general(g, t=t, dt=dt, gf_mw=gf_mw, res=res, jump=jump, cur=cur,
+        return self._general(b, t=t, dt=dt, gf_mw=gf_mw, res=res, jump=jump, cur=cur,
                              lli_lost=lli_lost, gap_s=gap_s, screen=bool(screen),
-                             all_tracked=bool(all_tracked))  # fmt: skip
+                             all_tracked=bool(all_tracked), tracked=tracked)  # fmt: skip
 
     def _general(
-        self, g: F64, *, t: F64, dt: F64, gf_mw: F64, res: F64, jump: Bool, cur: F64,
+        self, b: ArcBlock, *, t: F64, dt: F64, gf_mw: F64, res: F64, jump: Bool, cur: F64,
         lli_lost: Bool | None, gap_s: float, screen: bool, all_tracked: bool,
+        tracked: Bool | None,
     ) -> tuple[Bool, npt.NDArray[np.int64] | None]:  # fmt: skip
-        """:meth:`detect` when an arc may start or a young arc has fewer than two samples."""
-        d = g.shape[1]
-        th = self.th
+        """:meth:`detect` when an arc may start or a young arc has fewer than two samples
+        (``tracked``: n ≥ 2 per arc, None when all are)."""
+        g = b.g
         gf_m, mw_m = gf_mw[0], gf_mw[1]
-        gf_res, mw_res = res
         gf_jump, mw_jump = jump
-        n = g[N]
-        tracked = n >= 2
-        new = gf_jump | mw_jump
+        new = np.logical_or(gf_jump, mw_jump)
         if screen:
             prev_rank = g[RANK]
             lock = cur[3:5]
@@ -326,46 +322,62 @@ class ArcState:
                 lli |= lli_lost
             hard = first | gap | pair | lli | lock_drop
             new |= hard
-        all_ok = _count_nonzero(new) == 0
+        k = _count_nonzero(new)
         reason: npt.NDArray[np.int64] | None = None
-        if not all_ok:
-            if not screen:
-                first = gap = pair = lli = lock_drop = hard = np.zeros(d, np.bool_)
-            cont = ~hard
-            reason = (
-                first * REASON_FIRST | gap * REASON_GAP | pair * REASON_PAIR | lli * REASON_LLI
-                | lock_drop * REASON_LOCK | (cont & mw_jump) * REASON_MW
-                | (cont & gf_jump) * REASON_GF
-            )  # fmt: skip
-        w = th.ema_weight
-        ok = ~new
-        pred = g[GF_PRED]
-        # Continuing arcs learn from their residuals; new arcs restart.
-        mw_var = g[MW_VAR]
-        g[MW_VAR] = _sel(all_ok, ok, (1.0 - w) * mw_var + w * mw_res * mw_res, mw_var)
-        # GF: the scatter learns only once the rate prediction is in use; α–β tracker: the
-        # level absorbs part of the residual, the rate a smaller part (the second sample of
-        # an arc sets the rate from a plain difference).
-        gf_var = g[GF_VAR]
-        learn = ok & tracked
-        g[GF_VAR] = _sel(
-            all_ok and all_tracked, learn, (1.0 - w) * gf_var + w * gf_res * gf_res, gf_var
-        )
-        rate = g[GF_RATE] + th.rate_weight * gf_res / dt
-        level = pred + th.level_weight * gf_res
-        if not all_tracked:
-            second = n == 1
-            rate = np.where(second, (gf_m - g[GF_LEVEL]) / dt, rate)
-            level = np.where(second, gf_m, level)
-        g[GF_RATE] = _sel(all_ok, ok, rate, 0.0)
-        g[GF_LEVEL] = _sel(all_ok, ok, level, gf_m)
-        n_new = _sel(all_ok, ok, n + 1.0, 1.0)
-        g[MW_MEAN] = _sel(all_ok, ok, g[MW_MEAN] + mw_res / n_new, mw_m)
-        g[N] = n_new
-        if not all_ok:
-            k = int(_count_nonzero(new))
+        if k:
+            if screen:
+                cont = ~hard
+                reason = (
+                    first * REASON_FIRST | gap * REASON_GAP | pair * REASON_PAIR
+                    | lli * REASON_LLI | lock_drop * REASON_LOCK | (cont & mw_jump) * REASON_MW
+                    | (cont & gf_jump) * REASON_GF
+                )  # fmt: skip
+            else:  # no hard reason: the same int64 bits as the expression above
+                reason = mw_jump * REASON_MW | gf_jump * REASON_GF
+        # Every column is updated as the common path of :meth:`detect` updates it (the same
+        # operations, operands commuted at most: IEEE sums and products are commutative), then
+        # the columns that do not continue so are overwritten: new arcs restart (rate 0, level
+        # and MW mean at this sample, one sample), the second sample of an arc sets the GF rate
+        # from a plain difference, and the scatters keep their values where they do not learn
+        # (GF: the rate prediction is not in use yet; MW: new arc).
+        n = b.n
+        keep = b.keep  # (GF, MW) rows: the scatters learn here
+        ok = np.logical_not(new, keep[1])
+        if all_tracked:
+            keep[0] = ok
+        else:
+            assert tracked is not None
+            np.logical_and(tracked, ok, keep[0])
+            second = np.equal(n, _ONE)
+            if _count_nonzero(second):
+                rate2 = np.subtract(gf_m, b.level)  # (GF − level)/dt, before the level moves
+                rate2 /= dt
+            else:
+                second = None
+        res = b.res
+        sq = np.multiply(res, self._ema_w, b.sq)  # w·res
+        sq *= res
+        var = np.multiply(b.var, self._keep_w)
+        var += sq
+        np.copyto(b.var, var, where=keep)
+        x = np.multiply(b.res_gf, self._rate_w, b.x_rate)
+        x /= dt
+        rate = b.rate
+        rate += x
+        np.multiply(b.res_gf, self._level_w, b.level_step)
+        np.add(b.pred, b.level_step, b.level)
+        n += _ONE
+        b.mw_mean += np.divide(b.res_mw, n, b.x_mw)
+        if not all_tracked and second is not None:
+            np.copyto(rate, rate2, where=second)
+            np.copyto(b.level, gf_m, where=second)
+        if k:
+            np.copyto(rate, _ZERO, where=new)
+            np.copyto(b.level, gf_m, where=new)
+            np.copyto(n, _ONE, where=new)
+            np.copyto(b.mw_mean, mw_m, where=new)
             g[ARC, new] = self.next_arc + np.arange(k)
             self.next_arc += k
-        g[LAST_T] = t
-        g[RANK : LT2 + 1] = cur
+        b.last_t.fill(t)
+        b.prev[...] = cur
         return new, reason

@@ -190,6 +190,11 @@ class BiasModel:
             corr = np.zeros(flat.shape)
         return b_sat, b_sat + rx, corr
 
+    @property
+    def per_arc(self) -> bool:
+        """:meth:`correction` depends on ``arc`` (some levelling correction is held)."""
+        return self._corr_flat.shape[0] != 0
+
     def set_arc_corrections(self, flat: Idx, value: F64, arc: npt.NDArray[np.int64]) -> None:
         """Replace the levelling corrections: ê_a (TECU) of the (satellite, rank)s at ``flat =
         sat·W + rank`` (unique), each for arc ``arc``."""

@@ -109,6 +109,25 @@ _SPREAD = ("stec", "rot", "roti", "iono_l1", "if_code", "if_phase", "hatch", "mp
 _Dual = tuple[npt.NDArray[Any], ...]
 
 
+#: (reason bit, its counter), in the order of ``REASON_NAMES``.
+_REASON_COUNTERS = tuple((bit, f"arcs_{name}") for bit, name in REASON_NAMES.items())
+
+
+def _tally_reasons(counters: dict[str, int], reason: npt.NDArray[np.int64]) -> bool:
+    """Count the arc starts of each reason (bits of ``reason``) in ``counters`` (whose keys
+    exist): the per-bit counts of the set bits, read off the few non-zero satellites in Python
+    (a mask and a count per bit cost two numpy calls each). Returns whether any is a pair
+    switch."""
+    pair = 0
+    for r in reason.tolist():
+        if r:
+            pair |= r & REASON_PAIR
+            for bit, key in _REASON_COUNTERS:
+                if r & bit:
+                    counters[key] += 1
+    return pair != 0
+
+
 class _Block:
     """The working block of the current layout (see ``_state``), kept while the layout repeats,
     with the views and work buffers of :meth:`StationEstimator._dual`, made once per block.
@@ -500,7 +519,7 @@ class StationEstimator:
         cur = blk.cur
         blk.cells.take(blk.i12, axis=1, out=blk.cur_flags, mode="clip")
         if math.isnan(blk.n_min):
-            blk.n_min = float(g[N].min()) if d else math.inf
+            blk.n_min = float(np.minimum.reduce(g[N])) if d else math.inf  # g[N].min()
         t_arr = np.array(t)
         # One subtraction for the slip tests, the levelling and MP steps and ROT (``_state``).
         new, reason = self.arcs.detect(
@@ -509,9 +528,10 @@ class StationEstimator:
         )  # fmt: skip
         any_new = reason is not None
         if reason is not None:
-            for bit, name in REASON_NAMES.items():
-                self.counters[f"arcs_{name}"] += int(np.count_nonzero(reason & bit))
-            pair_switch = (reason & REASON_PAIR) != 0
+            if _tally_reasons(self.counters, reason):
+                pair_switch = (reason & REASON_PAIR) != 0
+            else:  # no pair switch: all False, as that comparison gives
+                pair_switch = lay.no_lli
             arc = g[ARC].astype(np.int32)
             arc.setflags(write=False)
             blk.arc = arc
@@ -528,12 +548,12 @@ class StationEstimator:
         rel = blk.rel  # K·GF relative to the arc's first
         if any_new:
             # Arc starts reset every per-arc accumulator (levelling, ROT origin, Hatch, MP means).
-            keep = ~new
+            # (In place where an arc starts: what ``np.where(~new, row, start)`` gives.)
             lev_mp = comb[LEVX_ROW : MP2_ROW + 1]
-            g[GF0] = np.where(keep, g[GF0], gf_tecu)
-            sw[...] = np.where(keep, sw, 0.0)
-            lev[...] = np.where(keep, lev, lev_mp[0])
-            blk.mp_mean[...] = np.where(keep, blk.mp_mean, 0.0)
+            np.copyto(blk.gf0, gf_tecu, where=new)
+            np.copyto(sw, _ZERO, where=new)
+            np.copyto(lev, lev_mp[0], where=new)
+            np.copyto(blk.mp_mean, _ZERO, where=new)
             np.subtract(lev_mp, means, out=step)
             np.subtract(gf_tecu, blk.gf0, out=rel)
 
@@ -553,9 +573,16 @@ class StationEstimator:
         mp = comb[MP1_ROW : MP2_ROW + 1]
         mp -= blk.mp_mean
         # The bias tables change every receiver_bias_update_s at most: reuse the correction,
-        # except when an arc starts (it drops its predecessor's levelling correction).
-        cached, ver = self._bias_cache, self.biases.version
-        if not any_new and cached is not None and cached[0] is lay and cached[1] == ver:
+        # except when an arc starts while levelling corrections are held (it drops its
+        # predecessor's; without any, the correction does not depend on the arcs).
+        cached, biases = self._bias_cache, self.biases
+        ver = biases.version
+        if (
+            cached is not None
+            and cached[0] is lay
+            and cached[1] == ver
+            and not (any_new and biases.per_arc)
+        ):
             b_sat, total_bias, relevel = cached[2], cached[3], cached[4]
         else:
             b_sat, total_bias, relevel = self.biases.correction(lay.bias_flat, lay.group, g[K], arc)
@@ -592,7 +619,7 @@ class StationEstimator:
             prev *= q
         hatch += prev
         if any_new:
-            hatch = np.where(new, if_code, hatch)
+            np.copyto(hatch, if_code, where=new)  # (hatch is this epoch's own array)
         blk.hatch[...] = hatch
         blk.ifl_prev[...] = if_phase
         return (stec, rot, roti, stec * blk.l1m, if_code, if_phase, hatch, comb[MP1_ROW],

@@ -222,7 +222,9 @@ def _max_median(roti: F64, idx: Idx | None) -> tuple[float, float]:
         r.sort()
     n = r.size
     if n and not (math.isfinite(r.item(0)) and math.isfinite(r.item(n - 1))):
-        n = int(np.searchsorted(r, _NAN))
+        if math.isnan(r.item(0)):  # NaN sorts last: all are NaN (the ROT lag is filling)
+            return math.nan, math.nan
+        n = int(r.searchsorted(_NAN))  # (the method: np.searchsorted wraps it)
         r = r[:n]
         if n and not (r.item(0) > 0.0 and math.isfinite(r.item(n - 1))):
             r = roti if idx is None else roti.take(idx)  # the selection, in satellite order
@@ -247,7 +249,9 @@ def _max_abs(rot: F64, idx: Idx | None) -> float:
         return math.nan
     top = r.item(n - 1)
     if math.isnan(top):  # the largest value is the one before the first NaN
-        n = int(np.searchsorted(r, _NAN))
+        if math.isnan(r.item(0)):  # NaN sorts last: all are NaN
+            return math.nan
+        n = int(r.searchsorted(_NAN))
         if not n:
             return math.nan
         top = r.item(n - 1)

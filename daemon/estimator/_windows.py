@@ -213,7 +213,8 @@ class LagRing:
         k, t_k = self._lag_row(t, interval_s)
         cols = None
         if k < 0:
-            v = np.full(sats.shape, np.nan)
+            v = np.empty(sats.shape[0])  # np.full(sats.shape, nan) without its Python wrapper
+            v.fill(np.nan)
         else:
             cols = self._cols(sats)  # first: it may widen ``_data``
             v = self._data[k][cols].astype(np.float64)
@@ -320,6 +321,11 @@ class SlotStd:
         self._blk: _SumBlock | None = None
         self.last_slot = -1
         self._since_exact = 0
+        #: The last slot whose push added a value (−inf: none; +inf: unknown, after
+        #: :meth:`load_entries`): the ring holds no value once it is ``rows`` slots old.
+        self._value_slot = -math.inf
+        #: The ring holds no value (known at the all-NaN pushes only; False: not known).
+        self._empty = False
         #: Flat indices into ``acc`` of all three rows of the last few read-only satellite
         #: arrays (the entry dropped and the one added are often of two layouts), newest last.
         self._flat3: list[tuple[npt.NDArray[np.intp], npt.NDArray[np.intp]]] = []
@@ -375,6 +381,8 @@ class SlotStd:
         self._vals = vals
         self._sats = [s if s.shape[0] else _NO_SATS for s, _ in entries]
         self._subset = None
+        self._value_slot = math.inf
+        self._empty = False
         self._flush()
 
     def _flat3_index(self, sats: npt.NDArray[np.intp]) -> npt.NDArray[np.intp]:
@@ -450,6 +458,12 @@ class SlotStd:
         self._push(t, sats, value)
         blk = self._blk
         if blk is None or blk.sats is not sats:
+            if self._empty and min_count >= 1:
+                # No value in the ring (the ROT lag is filling): every count is 0, below
+                # min_count, so :meth:`std` gives NaN for each satellite.
+                out = np.empty(sats.shape[0])
+                out.fill(np.nan)
+                return out
             return self.std(sats, min_count)
         return blk.std(min_count)
 
@@ -470,6 +484,7 @@ class SlotStd:
             for n in range(start, slot + 1):
                 self._drop(n % self.rows)
             self._sats[row] = _NO_SATS
+            self._empty = self._value_slot <= slot - self.rows
             if self._since_exact >= self.rows:
                 self._blk = None  # rebuilt below
                 self._recompute()
@@ -481,6 +496,8 @@ class SlotStd:
         else:
             s, v = sats, value
         k = s.shape[0]
+        self._value_slot = slot
+        self._empty = False
         if k > self._vals.shape[1]:
             grown = np.zeros((self.rows, k))
             grown[:, : self._vals.shape[1]] = self._vals
