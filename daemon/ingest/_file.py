@@ -92,8 +92,11 @@ class _PipeTransport:
     async def read(self, max_bytes: int) -> bytes:
         if self._closed:
             raise TransportError(f"{self._what}: read after close")
-        with map_transport_errors(f"{self._what}: read"):
+        try:
             return await self._reader.read(max_bytes)
+        except OSError:  # translated only when raised (as TcpTransport.read)
+            with map_transport_errors(f"{self._what}: read"):
+                raise
 
     async def aclose(self) -> None:
         if self._closed:

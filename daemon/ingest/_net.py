@@ -46,8 +46,14 @@ class TcpTransport:
     async def read(self, max_bytes: int) -> bytes:
         if self._closed:
             raise TransportError(f"{self._what}: read after close")
-        with map_transport_errors(f"{self._what}: read"):
+        try:
             return await self._reader.read(max_bytes)
+        except OSError:
+            # Translated only when raised (every error map_transport_errors translates is an
+            # OSError): entering that generator-based context around every read cost ~10k
+            # instructions a chunk.
+            with map_transport_errors(f"{self._what}: read"):
+                raise
 
     async def write(self, data: bytes) -> None:
         """Send bytes upstream (NTRIP request, GGA upline); waits while the socket buffer is full."""

@@ -77,13 +77,17 @@ class SerialTransport:
         return cls(TcpTransport(reader, writer, what=what), what=what)
 
     async def read(self, max_bytes: int) -> bytes:
-        with _map_serial(f"{self._what}: read"):
-            try:
-                return await self._inner.read(max_bytes)
-            except TransportError:
+        try:
+            return await self._inner.read(max_bytes)
+        except TransportError:
+            raise
+        except asyncio.IncompleteReadError as exc:  # pragma: no cover - adapter detail
+            raise SourceUnavailableError(f"{self._what}: read: {exc}") from exc
+        except Exception:
+            # Translated only when raised: _map_serial is two generator-based contexts, and one
+            # such context around every read cost ~10k instructions a chunk (TcpTransport.read).
+            with _map_serial(f"{self._what}: read"):
                 raise
-            except asyncio.IncompleteReadError as exc:  # pragma: no cover - adapter detail
-                raise SourceUnavailableError(f"{self._what}: read: {exc}") from exc
 
     async def aclose(self) -> None:
         await self._inner.aclose()

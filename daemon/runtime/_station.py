@@ -44,7 +44,7 @@ from ionwarden.daemon.ingest import (
 from ._backoff import backoff_delays
 from ._pacer import ReplayPacer
 from ._queues import BoundedQueue, Overflow, QueueStatistics
-from ._stall import StallDetector, StallKind, StallLimits
+from ._stall import StallDetector, StallKind, StallLimits, StallTimer
 
 
 class Settles(Protocol):
@@ -174,6 +174,9 @@ class _StalledError(TransportError):
     def __init__(self, kind: StallKind, quiet_s: float):
         super().__init__(f"stalled: {kind.value} for {quiet_s:.0f} s")
         self.kind = kind
+
+
+_INF = float("inf")
 
 
 _BREAK = object()  # the connection ended: drop the partial frame, more may follow
@@ -374,38 +377,59 @@ class StationRunner:
         self._connected = True
         self._set_state(StationState.STREAMING)
         log.info("%s: source open", self.name)
-        while True:
-            deadline = det.deadline()
-            try:
-                if deadline == float("inf"):
-                    data = await transport.read(self._read_size)
+        task = asyncio.current_task()
+        assert task is not None
+        watch = StallTimer(det, loop, task)
+        read, size, queue = transport.read, self._read_size, self.queue
+        waits = queue.policy is Overflow.WAIT  # else the put never waits: no coroutine for it
+        try:
+            while True:
+                deadline = det.deadline()
+                try:
+                    if deadline == _INF:
+                        data = await read(size)
+                    else:
+                        watch.arm(deadline)
+                        try:
+                            data = await read(size)
+                        except BaseException as exc:
+                            watch.reading = False
+                            if not (watch.fired and watch.took(exc)):
+                                raise
+                            data = None  # the stall limit interrupted the read: check it
+                        else:
+                            watch.reading = False
+                            if watch.fired:
+                                watch.took(None)
+                except TimeoutError:
+                    data = None
+                now = loop.time()
+                if data is None or data:
+                    kind = det.check(now)
+                    if kind is not None:
+                        quiet = (
+                            now
+                            - {
+                                StallKind.NO_DATA: det.last_data,
+                                StallKind.NO_FRAME: det.last_frame,
+                                StallKind.NO_EPOCH: det.last_epoch,
+                            }[kind]
+                        )
+                        raise _StalledError(kind, quiet)
+                if data is None:
+                    continue
+                if not data:
+                    return True
+                self._bytes += len(data)
+                self._last_data = now
+                det.saw_data(now)
+                if waits:
+                    await queue.put((now, data))
                 else:
-                    async with asyncio.timeout_at(deadline):
-                        data = await transport.read(self._read_size)
-            except TimeoutError:
-                data = None
-            now = loop.time()
-            if data is None or data:
-                kind = det.check(now)
-                if kind is not None:
-                    quiet = (
-                        now
-                        - {
-                            StallKind.NO_DATA: det.last_data,
-                            StallKind.NO_FRAME: det.last_frame,
-                            StallKind.NO_EPOCH: det.last_epoch,
-                        }[kind]
-                    )
-                    raise _StalledError(kind, quiet)
-            if data is None:
-                continue
-            if not data:
-                return True
-            self._bytes += len(data)
-            self._last_data = now
-            det.saw_data(now)
-            await self.queue.put((now, data))
-            det.saw_data(loop.time())  # time spent waiting on our own queue is not the source's
+                    queue.put_nowait((now, data))
+                det.saw_data(loop.time())  # time spent waiting on our own queue is not the source's
+        finally:
+            watch.close()
 
     # -- estimate ---------------------------------------------------------------------------------
     async def estimate_loop(self) -> None:
@@ -453,7 +477,11 @@ class StationRunner:
                         self._progress = loop.time() + delay
                         await asyncio.sleep(delay)
                 self._progress = loop.time()
-                await asyncio.sleep(0)  # one chunk per turn: a garbage flood never starves others
+                if self._lane is None or not self.queue.empty():
+                    # One chunk per turn: a garbage flood never starves others. (With the lane and
+                    # nothing queued the turn is given up anyway: the next chunk waits for its
+                    # ingest read, then for its turn of the lane.)
+                    await asyncio.sleep(0)
         finally:
             self.finished.set()
             if self._on_finished is not None:
@@ -462,9 +490,9 @@ class StationRunner:
     def _step(self, chunk: bytes | None, arrived: float | None) -> float:
         """Feed one chunk (``None``: the stream broke or ended) and emit the outputs, containing
         any failure (module docstring); return the replay pacing delay (s)."""
-        return self._contained(
-            self.core.end_stream if chunk is None else lambda: self.core.feed(chunk), arrived
-        )
+        if chunk is None:
+            return self._contained(self.core.end_stream, None)
+        return self._contained(self.core.feed, arrived, chunk)  # (not a closure per chunk)
 
     def _unsettled(self) -> bool:
         return self.core.unsettled() or (self._also is not None and self._also.unsettled())
@@ -482,18 +510,27 @@ class StationRunner:
         self._also.settle()
         return ()
 
-    def _contained(self, work: Callable[[], Sequence[object]], arrived: float | None) -> float:
-        """Run ``work`` (decode and estimate) and emit its outputs, containing any failure."""
+    def _contained(
+        self, work: Callable[..., Sequence[object]], arrived: float | None, *args: bytes
+    ) -> float:
+        """Run ``work(*args)`` (decode and estimate) and emit its outputs, containing any
+        failure."""
         try:
             try:
-                outputs = work()
+                outputs = work(*args)
             except TOLERATED_DECODE_ERRORS as exc:
                 self._decode_errors += 1
                 self._log_limited(
                     "decode", logging.WARNING, "%s: decode error, chunk skipped: %s", exc
                 )
                 outputs = ()
-            delay = self._handle(outputs, arrived)
+            # (nothing to count or emit in an empty list, as most settle steps return; anything
+            # else, however empty, goes through _handle's check as before)
+            delay = (
+                self._handle(outputs, arrived)
+                if outputs or not isinstance(outputs, (list, tuple))
+                else 0.0
+            )
         except UNCONTAINED_ERRORS:
             raise
         except Exception as exc:
