@@ -77,7 +77,11 @@ class _Layout:
 class _Bins:
     """What depends only on the usable cells' flat indices (equal flat ⇒ equal band keys):
     the bins seen and their cell counts (for learning), the cells per band and whether every
-    cell's bin is warm (for the drop). Counts only grow, so "all warm" once True stays True."""
+    cell's bin is warm (for the drop). Counts only grow, so "all warm" once True stays True.
+
+    While some bin is cold: which cells are warm, kept until ``warm_until`` learning calls (a
+    bin's count grows by at most one per call, so no cold bin can turn warm before), and the
+    bands judged on the warm cells with their (float) warm-cell counts."""
 
     __slots__ = (
         "all_warm",
@@ -88,7 +92,12 @@ class _Bins:
         "min_cells",
         "n_band",
         "n_seen",
+        "n_warm",
         "seen",
+        "warm",
+        "warm_bands",
+        "warm_min_cells",
+        "warm_until",
     )
 
     def __init__(self, flat: bytes) -> None:
@@ -103,6 +112,15 @@ class _Bins:
         #: The judged band keys (ascending) and their cell counts, for ``bands_min_cells``.
         self.bands: tuple[list[int], list[int]] | None = None
         self.bands_min_cells = -1
+        #: The cells in warm bins, their number, valid while the baseline's learning calls are
+        #: fewer than ``warm_until`` (0: not judged yet).
+        self.warm: npt.NDArray[np.bool_] | None = None
+        self.n_warm = 0
+        self.warm_until = 0
+        #: The bands judged on the warm cells (ascending) and their warm-cell counts (floats, as
+        #: drop_db_cells divides by), for ``warm_min_cells``.
+        self.warm_bands: tuple[list[int], list[float]] | None = None
+        self.warm_min_cells = -1
 
 
 @dataclass(slots=True)
@@ -133,6 +151,7 @@ class Cn0Baseline:
         "_layout",
         "_mean",
         "_mean_flat",
+        "_n_learned",
         "_operands",
         "_weight",
         "bin_deg",
@@ -154,6 +173,8 @@ class Cn0Baseline:
         self._mean_flat = self._mean.reshape(-1)  # views: writes go to _mean / _count
         self._count_flat = self._count.reshape(-1)
         self._last_t_s: float | None = None
+        #: learn_cells calls so far: no bin's count is above it (each call adds at most one).
+        self._n_learned = 0
         self._layout: _Layout | None = None
         self._bins: _Bins | None = None
         # 0-d operands: bin width, last bin, min_samples; the time-constant weight and its dt.
@@ -263,15 +284,19 @@ class Cn0Baseline:
         """The bands judged this epoch and their drops: the keys ``k`` (ascending) where
         ``drop_db_cells(cells, min_cells=min_cells)[k]`` is finite, and those values, bit for bit.
 
-        Shortcut once every cell's bin is warm (tests/test_alarms_fixed_settle.py): the judged
+        Shortcuts (tests/test_alarms_fixed_settle.py, tests/test_alarms_warm_cache.py): the judged
         bands and their cell counts are kept with the bins, and each band's mean is one Python
         division of the same sum by the same count (IEEE division, as numpy's), so no 70-band
-        array is filled, tested and gathered."""
+        array is filled, tested and gathered. While some cell's bin is cold, which cells are warm
+        is kept too until a cold bin could have turned warm (``_Bins.warm_until``), and the sums
+        are those of drop_db_cells' cold-bin path (cold cells weigh ±0); with no warm cell there
+        is nothing to judge."""
         bins = cells.bins
         if not bins.all_warm:
-            drop = self.drop_db_cells(cells, min_cells=min_cells)
-            evaluated = np.isfinite(drop).nonzero()[0]
-            return evaluated.tolist(), drop.take(evaluated).tolist()
+            if self._n_learned >= bins.warm_until:
+                self._judge_warm(cells)
+            if not bins.all_warm:
+                return self._partly_warm_bands(cells, min_cells)
         bands = bins.bands
         if bands is None or bins.bands_min_cells != min_cells:
             n = bins.n_band
@@ -291,9 +316,48 @@ class Cn0Baseline:
         values = [total[k] / c for k, c in zip(keys, counts, strict=True)]
         for v in values:
             if not math.isfinite(v):  # only with absurd inputs: keep the finite ones
-                kept = [(k, x) for k, x in zip(keys, values, strict=True) if math.isfinite(x)]
-                return [k for k, _ in kept], [x for _, x in kept]
+                return _finite_bands(keys, values)
         return keys[:], values
+
+    def _judge_warm(self, cells: Cn0Cells) -> None:
+        """Which cells are in warm bins now (drop_db_cells' warm test), kept with the bins until
+        a cold one could turn warm; or "all warm" for good."""
+        bins = cells.bins
+        count = self._count_flat.take(cells.flat)
+        warm = np.greater_equal(count, self._operands[2])
+        n_warm = np.count_nonzero(warm)
+        if n_warm == warm.shape[0]:
+            bins.all_warm = True
+            return
+        # The warmest cold bin needs min_samples − its count more learning calls at least.
+        coldest_gap = self._operands[2] - np.maximum.reduce(count, where=~warm, initial=0)
+        bins.warm_until = self._n_learned + int(coldest_gap)
+        bins.warm = warm
+        bins.n_warm = int(n_warm)
+        bins.warm_bands = None
+
+    def _partly_warm_bands(self, cells: Cn0Cells, min_cells: int) -> tuple[list[int], list[float]]:
+        """drop_db_bands while some cell's bin is cold (the warm cells as judged last)."""
+        bins = cells.bins
+        warm = bins.warm
+        if bins.n_warm == 0 or warm is None:
+            return [], []  # drop_db_cells: all NaN
+        bands = bins.warm_bands
+        if bands is None or bins.warm_min_cells != min_cells:
+            n_warm_band = np.bincount(cells.key, weights=warm, minlength=N_BAND_KEYS)
+            # A band without warm cells is never judged (0/0 is NaN in drop_db_cells).
+            judged = (n_warm_band >= max(min_cells, 1)).nonzero()[0]
+            bands = bins.warm_bands = (judged.tolist(), n_warm_band.take(judged).tolist())
+            bins.warm_min_cells = min_cells
+        keys, counts = bands
+        if not keys:
+            return [], []
+        # drop_db_cells' cold-bin path: cold cells weigh ±0 (x + ±0 = x, no partial sum is −0).
+        dev = self._mean_flat.take(cells.flat)
+        dev -= cells.cn0
+        dev *= warm
+        total: list[float] = np.bincount(cells.key, weights=dev).tolist()
+        return _finite_bands(keys, [total[k] / c for k, c in zip(keys, counts, strict=True)])
 
     def learn(
         self,
@@ -315,6 +379,7 @@ class Cn0Baseline:
         flat, cn0 = cells.flat, cells.cn0
         dt = 1.0 if self._last_t_s is None else min(max(t_s - self._last_t_s, 0.0), 3600.0)
         self._last_t_s = t_s
+        self._n_learned += 1
         if frozen is None:
             bins = cells.bins
             seen, n_seen = bins.seen, bins.n_seen
@@ -345,3 +410,13 @@ class Cn0Baseline:
         epoch_mean += prev
         mean.put(seen, epoch_mean)
         count.put(seen, np.add(c, _ONE_I64))
+
+
+def _finite_bands(keys: list[int], values: list[float]) -> tuple[list[int], list[float]]:
+    """The bands whose drop is finite (as drop_db_cells' finite values; a drop is not finite
+    only with absurd inputs), as new lists."""
+    for v in values:
+        if not math.isfinite(v):
+            kept = [(k, x) for k, x in zip(keys, values, strict=True) if math.isfinite(x)]
+            return [k for k, _ in kept], [x for _, x in kept]
+    return keys[:], values

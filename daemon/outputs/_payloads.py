@@ -66,9 +66,25 @@ def encode(obj: dict[str, Any]) -> bytes:
     return json.dumps(obj, separators=(",", ":"), ensure_ascii=False, allow_nan=False).encode()
 
 
+#: Zero-padded numbers for iso_utc (a table look-up is far cheaper than a format spec).
+_PAD2 = tuple(f"{i:02d}" for i in range(100))
+_PAD3 = tuple(f"{i:03d}" for i in range(1000))
+
+
 def iso_utc(utc: dt.datetime) -> str:
-    """``2026-12-02T13:15:25.123Z`` (UTC, milliseconds)."""
-    return utc.strftime("%Y-%m-%dT%H:%M:%S.") + f"{utc.microsecond // 1000:03d}Z"
+    """``2026-12-02T13:15:25.123Z`` (UTC, milliseconds).
+
+    Written field by field from tables rather than through ``strftime`` (most of the cost of a
+    payload's time fields): the same zero-padded digits for years 1000–9999; before 1000 the C
+    library decides the year's padding, so those go through ``strftime`` as before
+    (tests/test_emit_lean_summary_times.py)."""
+    if utc.year < 1000:
+        return utc.strftime("%Y-%m-%dT%H:%M:%S.") + f"{utc.microsecond // 1000:03d}Z"
+    pad = _PAD2
+    return (
+        f"{utc.year}-{pad[utc.month]}-{pad[utc.day]}T{pad[utc.hour]}:{pad[utc.minute]}:"
+        f"{pad[utc.second]}.{_PAD3[utc.microsecond // 1000]}Z"
+    )
 
 
 def time_fields(t: GpsTime) -> dict[str, Any]:
@@ -142,10 +158,13 @@ def _jstr(text: str) -> str:
 def _time_json(week: int, tow_s: float) -> str:
     """``"time_utc":…,"gps_week":…,"gps_tow_s":…`` of a GPS time, cached: every station of one
     epoch shares it."""
-    t = GpsTime(week, tow_s)
+    t = GpsTime(week, tow_s)  # validates tow_s (0 ≤ tow_s < 604800: finite)
+    # A whole second (1 Hz epochs) is its own 3-decimal rounding: round's decimal round trip is
+    # skipped.
+    tow = tow_s if tow_s == math.floor(tow_s) else round(tow_s, 3)
     return (
         f'"time_utc":"{iso_utc(gps_to_utc(t))}","gps_week":{int(week)},'
-        f'"gps_tow_s":{_float_repr(round(tow_s, 3))}'
+        f'"gps_tow_s":{_float_repr(tow)}'
     )
 
 
@@ -184,20 +203,26 @@ def summary_payload(snap: StationSnapshot) -> bytes:
     d-decimal string, dtoa mode 3), and with ≤ 15 significant digits repr of that double is the
     same decimal without trailing zeros (no other decimal of ≤ 15 digits maps to it), in fixed
     notation (|x| ≥ 1e-4); the zeros go with three ``replace`` (pairs twice, then one: at most
-    5), "1." becomes "1.0" as in repr. Otherwise each figure goes through _jnum.
-    tests/test_emit_lean_payloads.py checks the equality."""
+    5), "1." becomes "1.0" as in repr. A NaN figure (null; ROTI, ROT and the receiver bias are
+    unknown for a station's first epochs) does not send the others the slow way: the test is made
+    on the known figures, ``"%f"`` writes NaN as ``nan`` (never signed, never with a zero that the
+    ``replace`` would touch) and ``nan,`` becomes ``null,``. Otherwise each figure goes through
+    _jnum. tests/test_emit_lean_payloads.py and tests/test_emit_lean_summary_times.py check the
+    equality."""
     t = snap.time
-    vtec = snap.vtec_tecu
-    roti_max = snap.roti_max_tecu_per_min
-    roti_median = snap.roti_median_tecu_per_min
-    rot = snap.rot_max_abs_tecu_per_min
-    grad = snap.gradient_mm_per_km
-    grad_tecu = snap.gradient_tecu_per_km
-    azimuth = snap.gradient_azimuth_deg
-    dual = snap.dual_freq_fraction
-    bias = snap.receiver_bias_tecu
-    bias_sigma = snap.receiver_bias_sigma_tecu
-    if (
+    figs = (
+        vtec := snap.vtec_tecu,
+        roti_max := snap.roti_max_tecu_per_min,
+        roti_median := snap.roti_median_tecu_per_min,
+        rot := snap.rot_max_abs_tecu_per_min,
+        grad := snap.gradient_mm_per_km,
+        grad_tecu := snap.gradient_tecu_per_km,
+        azimuth := snap.gradient_azimuth_deg,
+        dual := snap.dual_freq_fraction,
+        bias := snap.receiver_bias_tecu,
+        bias_sigma := snap.receiver_bias_sigma_tecu,
+    )
+    squares = (
         vtec * vtec
         + roti_max * roti_max
         + roti_median * roti_median
@@ -208,29 +233,21 @@ def summary_payload(snap: StationSnapshot) -> bytes:
         + dual * dual
         + bias * bias
         + bias_sigma * bias_sigma
-        < 1e16
-    ) and not (-1e-4 < grad_tecu < 1e-4 and grad_tecu != 0.0):
+    )
+    # NaN only from a NaN figure (no subtraction: ±∞ alone gives +∞); ±∞ beside it stays +∞ here.
+    nulls = squares != squares  # noqa: PLR0124 - NaN is the only float unequal to itself
+    if nulls:
+        squares = sum([x * x for x in figs if x == x])  # noqa: PLR0124 - (the known ones)
+    if squares < 1e16 and not (-1e-4 < grad_tecu < 1e-4 and grad_tecu != 0.0):
         figures = (
-            (
-                _SUMMARY_FIGURES
-                % (
-                    vtec,
-                    roti_max,
-                    roti_median,
-                    rot,
-                    grad,
-                    grad_tecu,
-                    azimuth,
-                    dual,
-                    bias,
-                    bias_sigma,
-                )
-            )
+            (_SUMMARY_FIGURES % figs)
             .replace("00,", ",")
             .replace("00,", ",")
             .replace("0,", ",")
             .replace(".,", ".0,")
         )
+        if nulls:
+            figures = figures.replace("nan,", "null,")
     else:
         figures = (
             f'"vtec_tecu":{_jnum(vtec, 3)},'
