@@ -1,13 +1,16 @@
 """Cheaper construction of the frozen slots dataclasses built on per-epoch and per-tick paths.
 
-No ionwarden imports: the estimator's snapshots and the alarm engine's statuses both use it, and
-neither package may import the other here (alarms → estimator → outputs → alarms would cycle).
+Imports only ``parsers._twin`` (the twin class the parsers build their own records with): the
+estimator's snapshots and the alarm engine's statuses both use it, and neither package may import
+the other here (alarms → estimator → outputs → alarms would cycle).
 """
 
 from __future__ import annotations
 
 from dataclasses import fields
 from typing import TYPE_CHECKING, Any, TypeVar
+
+from ionwarden.parsers._twin import slots_twin
 
 if TYPE_CHECKING:
     from collections.abc import Callable
@@ -25,7 +28,10 @@ def fast_constructor(cls: type[_T]) -> Callable[..., _T]:
     whose ``__class__`` is then set to ``cls`` (Python allows it between classes of the same slot
     layout); where that is refused, each slot is set through its descriptor instead."""
     names = [f.name for f in fields(cls)]  # type: ignore[arg-type]  # a dataclass
-    twin = type(f"_{cls.__name__}Slots", (), {"__slots__": cls.__slots__})  # type: ignore[attr-defined]
+    try:
+        twin = slots_twin(cls)
+    except TypeError:  # no __class__ assignment between the two (another Python)
+        twin = None
     env: dict[str, Any] = {"_new": object.__new__, "_cls": cls, "_twin": twin}
     env.update({f"_set_{n}": getattr(cls, n).__set__ for n in names})
     args = ", ".join(names)
@@ -37,9 +43,5 @@ def fast_constructor(cls: type[_T]) -> Callable[..., _T]:
         f"def set_{cls.__name__}(*, {args}):\n    o = _new(_cls)\n{sets}\n    return o\n"
     )
     exec(src, env)  # noqa: S102 - source built from the dataclass's own field names
-    build: Callable[..., _T] = env[f"new_{cls.__name__}"]
-    try:
-        build(**dict.fromkeys(names))
-    except TypeError:  # no __class__ assignment between the two (another Python)
-        build = env[f"set_{cls.__name__}"]
+    build: Callable[..., _T] = env[f"{'set' if twin is None else 'new'}_{cls.__name__}"]
     return build

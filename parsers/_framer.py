@@ -40,6 +40,7 @@ import numpy.typing as npt
 
 from ._crc import crc24q_table
 from ._errors import ParseError
+from ._twin import slots_twin
 
 __all__ = [
     "MAX_INCOMPLETE_FRAME",
@@ -124,6 +125,13 @@ def _nmea_frame(raw: bytes, offset: int) -> NmeaFrame:
     return frame
 
 
+# Cheaper still where a run's frames are built in a loop (``Framer._rtcm_at``, ``_take_nmea_run``):
+# plain stores into a twin with the same slots, whose class is then set to the frame's (see
+# ``_twin``). Same type, same fields, equal values: tests/test_decode_twin_paths.py.
+_RtcmFrameSlots = slots_twin(RtcmFrame)
+_NmeaFrameSlots = slots_twin(NmeaFrame)
+
+
 @dataclass(frozen=True, slots=True, kw_only=True)
 class FramerStatistics:
     """Counters since the framer was created (all totals, never reset)."""
@@ -190,17 +198,22 @@ def _run_rows(lengths: tuple[int, ...]) -> tuple[npt.NDArray[np.intp], npt.NDArr
 
 
 def _crc_run(buf: bytearray, starts: list[int], end: int) -> list[int]:
-    """CRC-24Q of frames laid end to end in ``buf``: ``starts[k]`` to the next start (or ``end``).
+    """CRC-24Q of frames laid end to end in ``buf``: ``starts[k]`` to the next start (or ``end``)."""
+    ends = [*starts[1:], end]
+    return _crc_lengths(buf, starts[0], [b - a for a, b in zip(starts, ends, strict=True)])
+
+
+def _crc_lengths(buf: bytearray, s0: int, lengths: list[int]) -> list[int]:
+    """CRC-24Q of frames laid end to end in ``buf`` from ``s0``, of these lengths (bytes).
 
     One gather and one XOR-reduce for the whole run (same table and sums as :func:`crc24q_fast`).
     """
-    s0 = starts[0]
-    if len(starts) == 1:  # one frame: fewer numpy calls
-        idx = _CRC_ROW[_RTCM_MAX_FRAME - (end - s0) :] + np.frombuffer(buf, np.uint8, end - s0, s0)
+    if len(lengths) == 1:  # one frame: fewer numpy calls
+        n = lengths[0]
+        idx = _CRC_ROW[_RTCM_MAX_FRAME - n :] + np.frombuffer(buf, np.uint8, n, s0)
         return [int(np.bitwise_xor.reduce(_CRC_FLAT.take(idx)))]
-    ends = [*starts[1:], end]
-    rows, first = _run_rows(tuple([b - a for a, b in zip(starts, ends, strict=True)]))
-    idx = rows + np.frombuffer(buf, np.uint8, end - s0, s0)
+    rows, first = _run_rows(tuple(lengths))
+    idx = rows + np.frombuffer(buf, np.uint8, rows.shape[0], s0)
     crcs: list[int] = np.bitwise_xor.reduceat(_CRC_FLAT.take(idx), first).tolist()
     return crcs
 
@@ -363,46 +376,54 @@ class Framer:
         end = i + 6 + (((buf[i + 1] & 0x03) << 8) | buf[i + 2])
         if size < end:
             return self._incomplete()
-        starts = [i]
+        lengths = [end - i]  # of the frames of the run, back to back from i
         p = end
         limit = min(size, end + _CRC_RUN_BYTES)
         while p + 3 <= limit and buf[p] == _PREAMBLE:
-            if buf[p + 1] & 0xFC:  # reserved bits set: not a frame
+            h = buf[p + 1]
+            if h & 0xFC:  # reserved bits set: not a frame
                 break
-            q = p + 6 + (((buf[p + 1] & 0x03) << 8) | buf[p + 2])
+            q = p + 6 + ((h << 8) | buf[p + 2])  # h is the length's top 2 bits alone
             if q > limit:
                 break
-            starts.append(p)
+            lengths.append(q - p)
             p = q
-        crcs = _crc_run(buf, starts, p)
+        crcs = _crc_lengths(buf, i, lengths)
         if crcs[0] != 0:
             self._counts[3] += 1
             self._skip(1)  # resync by one byte, never by the claimed length
             return None
-        starts.append(p)
         # _accept of each good frame in order, inlined for messages (what a receiver sends): the
         # same payloads, frames, counters and scan position; keep-alives and 1-byte messages go
-        # through _accept itself. The scan resumes at the first bad CRC and rejects it there.
-        counts, by_type, base = self._counts, self._by_type, self._base
-        taken = 0
-        for k, crc in enumerate(crcs):
+        # through _accept itself (from the frame's start). The scan resumes at the first bad CRC
+        # and rejects it there. Payloads are cut from one copy of the run's bytes.
+        by_type, base = self._by_type, self._base
+        run = bytes(buf[i:p])
+        a = taken = 0  # a: the frame's start in ``run``
+        for n, crc in zip(lengths, crcs, strict=True):
             if crc != 0:
                 break
-            a, b = starts[k], starts[k + 1]
-            if b - a < 8:  # message length 0 or 1
-                self._accept(a, b, frames)
+            b = a + n
+            if n < 8:  # message length 0 or 1
+                self._pos = i + a
+                self._accept(i + a, i + b, frames)
+                a = b
                 continue
-            payload = bytes(buf[a + 3 : b - 3])
+            payload = run[a + 3 : b - 3]
             msg_type = (payload[0] << 4) | (payload[1] >> 4)
             by_type[msg_type] = by_type.get(msg_type, 0) + 1
-            frame = _NEW(RtcmFrame)
-            _SET_TYPE(frame, msg_type)
-            _SET_PAYLOAD(frame, payload)
-            _SET_RTCM_OFFSET(frame, base + a)
+            frame = _RtcmFrameSlots()
+            frame.msg_type = msg_type
+            frame.payload = payload
+            frame.offset = base + i + a
+            frame.__class__ = RtcmFrame
             frames.append(frame)
             taken += 1
-            self._pos = b
-        counts[0] += taken
+            a = b
+        # After the last frame taken (_accept moved the scan itself when that one was its).
+        if i + a > self._pos:  # noqa: PLR1730 - a compare is cheaper than a call to max()
+            self._pos = i + a
+        self._counts[0] += taken
         return None
 
     def _accept(self, i: int, end: int, frames: list[Frame]) -> None:
@@ -464,7 +485,11 @@ class Framer:
         offset = self._base + i
         for s, x in zip(parts, xors, strict=True):
             if x == _TAIL_XOR[s[-5:] if s[-2] == 0x0D else s[-4:]] ^ s[0]:
-                frames.append(_nmea_frame(s, offset))
+                frame = _NmeaFrameSlots()  # NmeaFrame(raw=s, offset=offset), see _twin
+                frame.raw = s
+                frame.offset = offset
+                frame.__class__ = NmeaFrame
+                frames.append(frame)
                 counts[1] += 1
             elif s.find(b"$", 1) < 0 and s.find(b"!", 1) < 0:
                 counts[4] += 1

@@ -21,7 +21,7 @@ Rows 0–1 plus rows 2–3 give the rough range and the rate; the formulas are t
 
 from __future__ import annotations
 
-from dataclasses import dataclass, fields
+from dataclasses import dataclass
 from typing import TYPE_CHECKING, Final
 
 import numpy as np
@@ -31,6 +31,7 @@ from ._epoch import ObsEpoch
 from ._msm import _LIGHT_MS_M, _PAD, MsmHead
 from ._msm_tables import LOCK_TIME_DF402_S, LOCK_TIME_DF407_S
 from ._signals import frequencies_hz
+from ._twin import slots_twin
 
 if TYPE_CHECKING:
     from collections.abc import Sequence
@@ -75,26 +76,11 @@ _STEP: Final = np.arange(_MAX_BATCH, dtype=np.intp).reshape(1, _MAX_BATCH, 1)
 
 # Hot-path construction (one ObsEpoch per epoch): the frozen dataclass's generated ``__init__``
 # stores each field with ``object.__setattr__(self, name, value)`` (a lookup by name every time)
-# and then calls ``__post_init__``, which returns at once for ``_validate=False``; these store
-# the same values through the slot descriptors directly, as ``_framer`` does for its frames.
-# Same type, same fields, equal values: tests/test_decode_speed_epoch.py.
-_NEW = object.__new__
-_EPOCH_SLOTS: Final = {f.name: vars(ObsEpoch)[f.name].__set__ for f in fields(ObsEpoch)}
-_SET_TIME = _EPOCH_SLOTS["time"]
-_SET_STATION = _EPOCH_SLOTS["station_id"]
-_SET_SAT = _EPOCH_SLOTS["sat"]
-_SET_SIG = _EPOCH_SLOTS["sig"]
-_SET_PR = _EPOCH_SLOTS["pseudorange_m"]
-_SET_PHASE = _EPOCH_SLOTS["phase_cycles"]
-_SET_RATE = _EPOCH_SLOTS["range_rate_mps"]
-_SET_CN0 = _EPOCH_SLOTS["cn0_dbhz"]
-_SET_LOCK_S = _EPOCH_SLOTS["lock_time_s"]
-_SET_LOCK_IND = _EPOCH_SLOTS["lock_indicator"]
-_SET_HALF = _EPOCH_SLOTS["half_cycle"]
-_SET_LLI = _EPOCH_SLOTS["lli"]
-_SET_FREQ = _EPOCH_SLOTS["freq_hz"]
-_SET_SOURCES = _EPOCH_SLOTS["sources"]
-_SET_VALIDATE = _EPOCH_SLOTS["_validate"]
+# and then calls ``__post_init__``, which returns at once for ``_validate=False``; ``_epoch``
+# stores the same values into a plain twin with ObsEpoch's slots, whose class is then set to
+# ObsEpoch (see ``_twin``). Same type, same fields, equal values: tests/test_decode_speed_epoch.py
+# and tests/test_decode_twin_paths.py.
+_ObsEpochSlots = slots_twin(ObsEpoch)
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -430,25 +416,28 @@ def _epoch(
     cn0: npt.NDArray[np.float32], lock_s: npt.NDArray[np.float32],
     lock_ind: npt.NDArray[np.int16], half: npt.NDArray[np.bool_], freq: _F64,
 ) -> ObsEpoch:  # fmt: skip
-    """``ObsEpoch(time=…, station_id=…, …, _validate=False)`` field by field (see
-    ``_EPOCH_SLOTS``), with the layout's shared read-only columns."""
-    epoch = _NEW(ObsEpoch)
-    _SET_TIME(epoch, time)
-    _SET_STATION(epoch, station)
-    _SET_SAT(epoch, lay.sat)
-    _SET_SIG(epoch, lay.sig)
-    _SET_PR(epoch, pr)
-    _SET_PHASE(epoch, phase)
-    _SET_RATE(epoch, rate)
-    _SET_CN0(epoch, cn0)
-    _SET_LOCK_S(epoch, lock_s)
-    _SET_LOCK_IND(epoch, lock_ind)
-    _SET_HALF(epoch, half)
-    _SET_LLI(epoch, lay.lli)
-    _SET_FREQ(epoch, freq)
-    _SET_SOURCES(epoch, lay.sources)
-    _SET_VALIDATE(epoch, False)
-    return epoch
+    """``ObsEpoch(time=…, station_id=…, …, _validate=False)``, stored field by field into the
+    plain twin of ``ObsEpoch`` whose class is then set to it (``_twin``), with the layout's
+    shared read-only columns."""
+    epoch = _ObsEpochSlots()
+    epoch.time = time
+    epoch.station_id = station
+    epoch.sat = lay.sat
+    epoch.sig = lay.sig
+    epoch.pseudorange_m = pr
+    epoch.phase_cycles = phase
+    epoch.range_rate_mps = rate
+    epoch.cn0_dbhz = cn0
+    epoch.lock_time_s = lock_s
+    epoch.lock_indicator = lock_ind
+    epoch.half_cycle = half
+    epoch.lli = lay.lli
+    epoch.freq_hz = freq
+    epoch.sources = lay.sources
+    epoch._validate = False
+    epoch.__class__ = ObsEpoch
+    result: ObsEpoch = epoch
+    return result
 
 
 def _decode_one(lay: _EpochLayout, epoch: tuple[Sequence[MsmHead], GpsTime, int]) -> ObsEpoch:

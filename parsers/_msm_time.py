@@ -13,6 +13,7 @@ import functools
 from typing import TYPE_CHECKING, Final
 
 from ._gnsstime import BDS_GPS_OFFSET_S, GpsTime, leap_seconds_at
+from ._twin import slots_twin
 
 if TYPE_CHECKING:
     from ._msm import MsmHead, MsmMessage
@@ -62,9 +63,21 @@ def gps_ms_of_day(msg: MsmMessage | MsmHead, leap_s: int) -> int:
     return tow % DAY_MS
 
 
+#: Plain twin of GpsTime (see ``_twin``): ``_at`` stores the fields and sets the class, without
+#: the frozen ``__init__``'s ``object.__setattr__`` per field and its range check, which cannot
+#: fail there (0 <= ms < WEEK_MS, so 0 <= ms / 1000.0 < 604800.0 after rounding).
+_GpsTimeSlots = slots_twin(GpsTime)
+
+
 def _at(week: int, tow_ms: int) -> GpsTime:
+    """``GpsTime(week + week_shift, tow_ms / 1000.0)`` with the ms wrapped into the week."""
     week_shift, tow_ms = divmod(tow_ms, WEEK_MS)
-    return GpsTime(week + week_shift, tow_ms / 1000.0)
+    t = _GpsTimeSlots()
+    t.week = week + week_shift
+    t.tow_s = tow_ms / 1000.0
+    t.__class__ = GpsTime
+    result: GpsTime = t
+    return result
 
 
 @functools.lru_cache(maxsize=8)
@@ -77,9 +90,12 @@ def leap_at(ref: GpsTime) -> int:
     return _leap_on_gps_day(int(ref.total_s // 86_400.0))
 
 
-def resolve_epoch(msg: MsmMessage | MsmHead, ref: GpsTime) -> GpsTime:
-    """Full GPS time of an MSM epoch nearest to ``ref`` (week and day rollovers), exact to 1 ms."""
-    leap = leap_at(ref)
+def resolve_epoch(msg: MsmMessage | MsmHead, ref: GpsTime, leap_s: int | None = None) -> GpsTime:
+    """Full GPS time of an MSM epoch nearest to ``ref`` (week and day rollovers), exact to 1 ms.
+
+    ``leap_s``: ``leap_at(ref)`` when the caller already has it (a stream keeps it per reference).
+    """
+    leap = leap_at(ref) if leap_s is None else leap_s
     ref_ms = round(ref.tow_s * 1000.0)
     tow = msm_gps_tow_ms(msg, leap)
     if tow is not None:

@@ -487,7 +487,7 @@ class StreamDecoder:
 
     def _emit(self, ep: _Epoch, out: list[Message]) -> None:
         assert self._ref is not None
-        time = resolve_epoch(ep.msgs[0], self._ref)
+        time = resolve_epoch(ep.msgs[0], self._ref, self._leap())  # leap_at(ref), kept per ref
         self._ref = time
         # The cells are decoded when this feed returns, with the other epochs it closed.
         self._pending.append((len(out), ep, time))
