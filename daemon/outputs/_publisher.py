@@ -133,8 +133,7 @@ class MqttPublisher:
         self._inflight: deque[tuple[OutboundMessage, asyncio.Future[None], float]] = deque()
         self._lost = False
         self._topics: dict[str, tuple[Topic, Topic]] = {}
-        #: Called with (station, seconds) when the broker acknowledges a summary that knows when
-        #: its epoch's bytes arrived: frame received → PUBACK (the daemon wires the exporter).
+        #: (station, seconds) of each acknowledged summary: frame received → PUBACK (the exporter).
         self.on_summary_delivered: Callable[[str, float], None] | None = None
 
     @property
@@ -196,9 +195,8 @@ class MqttPublisher:
         )
 
     def announce_station_nowait(self, station: str, state: str, last_epoch: GpsTime | None) -> None:
-        """Queue a station's retained status on another process's behalf: the main process of
-        ``[runtime] workers`` > 1 says "offline" for the stations of a worker that died without
-        its goodbye (a worker's connection has no last will; the daemon's has)."""
+        """Queue a station's retained status for another process: the main process of workers
+        says "offline" for a dead worker's stations (a worker's connection has no last will)."""
         self._put(
             self._tree.station_status(station),
             fmt.station_status_payload(station, state, self._clock(), last_epoch),
@@ -219,8 +217,7 @@ class MqttPublisher:
         self, snap: StationSnapshot, arrived_s: float | None = None
     ) -> None:
         """Queue the epoch summary (and the satellite figures when due) of one station;
-        ``arrived_s``: when the bytes that completed the epoch arrived (monotonic, for
-        :attr:`on_summary_delivered`)."""
+        ``arrived_s``: when its epoch's last bytes arrived (for :attr:`on_summary_delivered`)."""
         station = snap.station
         self._last_epoch[station] = snap.time
         if self._station_state.get(station) != "online":

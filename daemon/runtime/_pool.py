@@ -40,7 +40,7 @@ from ._backoff import backoff_delays
 from ._link import Assign, Link, LinkError, Notify, Report
 from ._notify import SdNotifier, watchdog_interval_s
 from ._summary import MAX_STATUS_CHARS
-from ._supervisor import tick_delay_s
+from ._supervisor import run_under_signals, tick_delay_s
 
 if TYPE_CHECKING:
     from collections.abc import Callable, Iterable, Mapping, Sequence
@@ -225,20 +225,9 @@ class WorkerPool:
     # -- main -----------------------------------------------------------------------------------
     async def run(self) -> int:
         """Run until SIGTERM/SIGINT (or every worker's sources ended); return the exit status."""
-        loop = asyncio.get_running_loop()
-        handlers = {
-            signal.SIGTERM: self.request_stop,
-            signal.SIGINT: self.request_stop,
-            signal.SIGHUP: self.request_reload,
-        }
-        for sig, fn in handlers.items():
-            loop.add_signal_handler(sig, fn)
-        try:
-            return await self._run()
-        finally:
-            for sig in handlers:
-                loop.remove_signal_handler(sig)
-            self.notifier.close()
+        return await run_under_signals(
+            self._run, stop=self.request_stop, reload=self.request_reload, notifier=self.notifier
+        )
 
     async def _run(self) -> int:
         if self._exporter is not None:
@@ -448,12 +437,14 @@ class WorkerPool:
                 self.notifier.notify(f"STATUS={status}")
                 last_status = status
             if wd is not None and now - last_wd >= wd:
-                # A worker that is running but has not pinged for two periods is wedged: withhold
+                # A worker that is running but has not pinged for a whole WatchdogSec (plus two of
+                # its ticks: it pings from its status tick, at most every wd) is wedged: withhold
                 # the ping, so that systemd restarts the unit. One being restarted is excused.
+                limit = 2 * wd + 2 * self._status_interval_s
                 silent = [
                     w.index
                     for w in self._workers
-                    if w.proc is not None and w.ready and now - w.last_ping_s > 2 * wd
+                    if w.proc is not None and w.ready and now - w.last_ping_s > limit
                 ]
                 if silent:
                     log.error("workers %s stopped pinging: withholding the watchdog ping", silent)

@@ -43,7 +43,7 @@ from ._summary import format_status, format_summary
 
 if TYPE_CHECKING:
     import datetime as dt
-    from collections.abc import Callable, Sequence
+    from collections.abc import Awaitable, Callable, Sequence
     from pathlib import Path
 
     from ionwarden.daemon.alarms import StationAlarms
@@ -52,7 +52,14 @@ if TYPE_CHECKING:
     from ._core import StationCore
     from ._station import StationStatistics
 
-__all__ = ["Daemon", "DaemonOptions", "SnapshotSink", "StationBundle", "tick_delay_s"]
+__all__ = [
+    "Daemon",
+    "DaemonOptions",
+    "SnapshotSink",
+    "StationBundle",
+    "run_under_signals",
+    "tick_delay_s",
+]
 
 log = logging.getLogger("ionwarden.daemon.runtime")
 
@@ -96,6 +103,27 @@ def tick_delay_s(now_s: float, last_epoch_s: float | None, interval_s: float) ->
         return interval_s
     delay = (last_epoch_s + 0.5 * interval_s - now_s) % interval_s
     return delay + interval_s if delay < 0.25 * interval_s else delay
+
+
+async def run_under_signals(
+    main: Callable[[], Awaitable[int]],
+    *,
+    stop: Callable[[], None],
+    reload: Callable[[], None],
+    notifier: SdNotifier,
+) -> int:
+    """``await main()`` with SIGTERM/SIGINT asking ``stop`` and SIGHUP ``reload``; the handlers
+    are removed and ``notifier`` closed (it is owned) when it returns."""
+    loop = asyncio.get_running_loop()
+    handlers = {signal.SIGTERM: stop, signal.SIGINT: stop, signal.SIGHUP: reload}
+    for sig, fn in handlers.items():
+        loop.add_signal_handler(sig, fn)
+    try:
+        return await main()
+    finally:
+        for sig in handlers:
+            loop.remove_signal_handler(sig)
+        notifier.close()
 
 
 class SnapshotSink(Protocol):
@@ -437,20 +465,9 @@ class Daemon:
     # -- main ---------------------------------------------------------------------------------------
     async def run(self) -> int:
         """Run until SIGTERM/SIGINT (or every finite source ended); return the exit status."""
-        loop = asyncio.get_running_loop()
-        handlers = {
-            signal.SIGTERM: self.request_stop,
-            signal.SIGINT: self.request_stop,
-            signal.SIGHUP: self.request_reload,
-        }
-        for sig, fn in handlers.items():
-            loop.add_signal_handler(sig, fn)
-        try:
-            return await self._run()
-        finally:
-            for sig in handlers:
-                loop.remove_signal_handler(sig)
-            self.notifier.close()
+        return await run_under_signals(
+            self._run, stop=self.request_stop, reload=self.request_reload, notifier=self.notifier
+        )
 
     async def _run(self) -> int:
         opts = self.options
