@@ -133,7 +133,9 @@ def write_config(
     text += (
         f'[mqtt]\nenabled = true\nhost = "{mqtt_host}"\nport = {mqtt_port}\n'
         f'topic_prefix = "{prefix}"\n\n'
-        f'[prometheus]\nenabled = true\naddress = "127.0.0.1"\nport = {prom_port}\n\n'
+        f'[prometheus]\nenabled = true\naddress = "127.0.0.1"\nport = {prom_port}\n'
+        # 1-ms buckets up to 30 ms: the daemon's own histograms then give p50/p99 to the ms
+        f"latency_buckets_s = [{', '.join(f'{ms / 1e3:g}' for ms in range(1, 31))}, 0.05, 0.1, 1.0]\n\n"
         f'[runtime]\nstate_dir = "{state_dir}"\n'
         # (only when asked: a daemon from before [runtime] workers refuses the key)
         + (f"workers = {workers}\n" if workers != 1 else "")
