@@ -388,9 +388,9 @@ class Daemon:
         lane = self._lane
         while True:
             await asyncio.sleep(tick_delay_s(loop.time(), last_epoch_s, opts.status_interval_s))
-            # A 1 Hz tick drifts through the second: as a background step it waits for the
-            # urgent steps of a burst (every station's epoch at the top of the GPS second)
-            # instead of delaying the stations behind it by its snapshot of every station.
+            # Aimed midway between bursts (tick_delay_s); as a background step it still waits for
+            # the urgent steps of a burst that came early or late, instead of delaying the
+            # stations behind it by its snapshot of every station.
             await lane.turn(background=True)
             try:
                 now = loop.time()
