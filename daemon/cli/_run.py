@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import argparse
 import asyncio
-import datetime as dt
 import sys
 from dataclasses import replace
 from importlib import resources
@@ -79,16 +78,13 @@ def _print_line(line: str) -> None:
 async def _serve(
     settings: Settings, path: Path | None, summary_every: float | None, *, demo: bool = False
 ) -> int:
-    from prometheus_client import CollectorRegistry  # noqa: PLC0415
-
-    from ionwarden.daemon.outputs import Exporter, MqttPublisher  # noqa: PLC0415
+    from ionwarden.daemon.outputs import MqttPublisher  # noqa: PLC0415
     from ionwarden.daemon.runtime import SdNotifier  # noqa: PLC0415
     from ionwarden.daemon.runtime._app import (  # noqa: PLC0415
-        build_daemon_snapshot,
-        make_factory,
+        daemon_from_settings,
+        exporter_from_settings,
         options_from_settings,
     )
-    from ionwarden.daemon.runtime._supervisor import Daemon, DaemonOptions  # noqa: PLC0415
 
     loop = asyncio.get_running_loop()
     options = options_from_settings(settings)
@@ -96,38 +92,16 @@ async def _serve(
         options = replace(options, summary_interval_s=summary_every)
     if demo:  # a demo replay leaves no state behind
         options = replace(options, state_dir=None)
-    exporter = (
-        Exporter(settings.prometheus, registry=CollectorRegistry(), monotonic=loop.time)
-        if settings.prometheus.enabled
-        else None
-    )
     publisher = MqttPublisher(settings.mqtt, monotonic=loop.time) if settings.mqtt.enabled else None
-    started = loop.time()
-
-    # Stations (sources, estimator, alarms) follow a SIGHUP reload; MQTT and the exporter keep the
-    # settings they started with (changing those needs a restart).
-    current = {"factory": make_factory(settings)}
-
-    def reload() -> DaemonOptions:
-        if path is None:
-            raise ConfigError("", "no configuration file to reload")
-        from ionwarden.daemon.config import load_settings  # noqa: PLC0415
-
-        fresh = load_settings(path)
-        new = options_from_settings(fresh)
-        current["factory"] = make_factory(fresh)
-        return replace(new, summary_interval_s=options.summary_interval_s)
-
-    daemon = Daemon(
+    daemon = daemon_from_settings(
+        settings,
+        path,
         options,
-        factory=lambda cfg: current["factory"](cfg),  # noqa: PLW0108 - late-bound on reload
         notifier=SdNotifier(),
-        exporter=exporter,
+        exporter=exporter_from_settings(settings, loop.time),
         publisher=publisher,
-        build_snapshot=lambda d, stats: build_daemon_snapshot(d, publisher, started, stats),
-        summary=_print_line if options.summary_interval_s else None,
-        reload=reload if path is not None else None,
-        utc_now=lambda: dt.datetime.now(dt.UTC),
+        started_s=loop.time(),
+        summary=_print_line,
     )
     return await daemon.run()
 

@@ -12,7 +12,6 @@ status, with the last will, and the health message).
 from __future__ import annotations
 
 import asyncio
-import datetime as dt
 import logging
 import socket
 import sys
@@ -28,7 +27,6 @@ if TYPE_CHECKING:
     from pathlib import Path
 
     from ionwarden.daemon.config import MqttSettings, Settings
-    from ionwarden.daemon.runtime._supervisor import DaemonOptions
 
 __all__ = ["serve_pool", "serve_worker", "worker_count"]
 
@@ -60,19 +58,14 @@ def _enabled_names(settings: Settings) -> tuple[str, ...]:
 
 async def serve_pool(settings: Settings, path: Path, args: argparse.Namespace) -> int:
     """The main process: exporter, daemon status and health, systemd, and the workers."""
-    from prometheus_client import CollectorRegistry  # noqa: PLC0415
-
     from ionwarden.daemon.config import load_settings  # noqa: PLC0415
-    from ionwarden.daemon.outputs import Exporter, MqttPublisher  # noqa: PLC0415
+    from ionwarden.daemon.outputs import MqttPublisher  # noqa: PLC0415
     from ionwarden.daemon.runtime import SdNotifier  # noqa: PLC0415
+    from ionwarden.daemon.runtime._app import exporter_from_settings  # noqa: PLC0415
     from ionwarden.daemon.runtime._pool import WorkerPool  # noqa: PLC0415
 
     loop = asyncio.get_running_loop()
-    exporter = (
-        Exporter(settings.prometheus, registry=CollectorRegistry(), monotonic=loop.time)
-        if settings.prometheus.enabled
-        else None
-    )
+    exporter = exporter_from_settings(settings, loop.time)
     publisher = MqttPublisher(settings.mqtt, monotonic=loop.time) if settings.mqtt.enabled else None
     base = _worker_command(args, path)
     workers = worker_count(settings, path)
@@ -105,17 +98,11 @@ def _worker_mqtt(settings: MqttSettings, index: int) -> MqttSettings:
     return settings.model_copy(update={"client_id": f"{settings.client_id}-w{index}"})
 
 
-def _only(options: DaemonOptions, names: frozenset[str]) -> DaemonOptions:
-    return replace(options, stations=tuple(c for c in options.stations if c.name in names))
-
-
 async def serve_worker(settings: Settings, path: Path, fd: int, summary_every: float | None) -> int:
     """One worker: the stations the main process assigns over the link ``fd``."""
-    from ionwarden.daemon.config import load_settings  # noqa: PLC0415
     from ionwarden.daemon.outputs import MqttPublisher  # noqa: PLC0415
     from ionwarden.daemon.runtime._app import (  # noqa: PLC0415
-        build_daemon_snapshot,
-        make_factory,
+        daemon_from_settings,
         options_from_settings,
     )
     from ionwarden.daemon.runtime._link import (  # noqa: PLC0415
@@ -124,7 +111,6 @@ async def serve_worker(settings: Settings, path: Path, fd: int, summary_every: f
         LinkNotifier,
         LinkSink,
     )
-    from ionwarden.daemon.runtime._supervisor import Daemon  # noqa: PLC0415
 
     loop = asyncio.get_running_loop()
     link = await Link.open(socket.socket(fileno=fd))
@@ -134,35 +120,26 @@ async def serve_worker(settings: Settings, path: Path, fd: int, summary_every: f
     index = first.worker
     tag_worker_logs(index)
     names = {"now": frozenset(first.stations)}
-    options = _only(options_from_settings(settings), names["now"])
+    options = options_from_settings(settings)
     if summary_every is not None:
         options = replace(options, summary_interval_s=summary_every)
-    log.info("stations %s", ", ".join(c.name for c in options.stations) or "none")
     publisher = (
         MqttPublisher(_worker_mqtt(settings.mqtt, index), monotonic=loop.time, daemon_status=False)
         if settings.mqtt.enabled
         else None
     )
-    started = loop.time()
-    current = {"factory": make_factory(settings)}
-
-    def reload() -> DaemonOptions:
-        fresh = load_settings(path)
-        current["factory"] = make_factory(fresh)
-        new = _only(options_from_settings(fresh), names["now"])
-        return replace(new, summary_interval_s=options.summary_interval_s)
-
-    daemon = Daemon(
+    daemon = daemon_from_settings(
+        settings,
+        path,
         options,
-        factory=lambda cfg: current["factory"](cfg),  # noqa: PLW0108 - late-bound on reload
         notifier=LinkNotifier(link),
         exporter=LinkSink(link, per_satellite=settings.prometheus.per_satellite),
         publisher=publisher,
-        build_snapshot=lambda d, stats: build_daemon_snapshot(d, publisher, started, stats),
-        summary=(lambda line: print(line, flush=True)) if options.summary_interval_s else None,
-        reload=reload,
-        utc_now=lambda: dt.datetime.now(dt.UTC),
+        started_s=loop.time(),
+        summary=lambda line: print(line, flush=True),
+        only=lambda: names["now"],
     )
+    log.info("stations %s", ", ".join(c.name for c in daemon.options.stations) or "none")
 
     async def listen() -> None:
         while (message := await link.receive()) is not None:

@@ -20,6 +20,7 @@ from ionwarden.daemon.estimator import StationPipeline
 from ionwarden.daemon.ingest import FileSource, NtripSource, StdinSource, parse_source
 from ionwarden.daemon.outputs import (
     DaemonSnapshot,
+    Exporter,
     IngestFigures,
     QueueFigures,
     StationFigures,
@@ -30,7 +31,7 @@ from ._checkpoint import fingerprint
 from ._core import FramingCore
 from ._stall import StallLimits
 from ._station import StationConfig
-from ._supervisor import DaemonOptions, StationBundle
+from ._supervisor import Daemon, DaemonOptions, StationBundle
 
 if TYPE_CHECKING:
     from collections.abc import Callable, Mapping, Sequence
@@ -39,10 +40,18 @@ if TYPE_CHECKING:
     from ionwarden.daemon.config import Settings, StationSettings
     from ionwarden.daemon.outputs import MqttPublisher
 
+    from ._notify import SdNotifier
     from ._station import StationStatistics
-    from ._supervisor import Daemon
+    from ._supervisor import SnapshotSink
 
-__all__ = ["build_daemon_snapshot", "make_factory", "ntrip_password", "options_from_settings"]
+__all__ = [
+    "build_daemon_snapshot",
+    "daemon_from_settings",
+    "exporter_from_settings",
+    "make_factory",
+    "ntrip_password",
+    "options_from_settings",
+]
 
 #: File name, inside ``$CREDENTIALS_DIRECTORY``, of a station's NTRIP password (systemd
 #: ``LoadCredential=ntrip_password.<station>:/etc/ionwarden/…``).
@@ -207,4 +216,60 @@ def build_daemon_snapshot(
         queues=tuple(queues),
         mqtt=publisher.statistics() if publisher is not None else None,
         started_monotonic_s=started_s,
+    )
+
+
+def exporter_from_settings(settings: Settings, monotonic: Callable[[], float]) -> Exporter | None:
+    """The Prometheus exporter of ``[prometheus]`` on a registry of its own (None when off)."""
+    if not settings.prometheus.enabled:
+        return None
+    from prometheus_client import CollectorRegistry  # noqa: PLC0415
+
+    return Exporter(settings.prometheus, registry=CollectorRegistry(), monotonic=monotonic)
+
+
+def daemon_from_settings(
+    settings: Settings,
+    path: Path | None,
+    options: DaemonOptions,
+    *,
+    notifier: SdNotifier,
+    exporter: SnapshotSink | None,
+    publisher: MqttPublisher | None,
+    started_s: float,
+    summary: Callable[[str], None] | None,
+    only: Callable[[], frozenset[str]] | None = None,
+) -> Daemon:
+    """The daemon of ``settings`` (``options`` from :func:`options_from_settings`, adjusted by the
+    caller). Stations (sources, estimator, alarms) follow a SIGHUP reload of ``path`` (none
+    without it); MQTT and the exporter keep the settings they started with. ``only``: the names
+    of the stations to run, asked again at each reload (a worker's share)."""
+
+    def select(o: DaemonOptions) -> DaemonOptions:
+        if only is None:
+            return o
+        names = only()
+        return replace(o, stations=tuple(c for c in o.stations if c.name in names))
+
+    current = {"factory": make_factory(settings)}
+
+    def reload() -> DaemonOptions:
+        from ionwarden.daemon.config import load_settings  # noqa: PLC0415
+
+        assert path is not None
+        fresh = load_settings(path)
+        current["factory"] = make_factory(fresh)
+        new = select(options_from_settings(fresh))
+        return replace(new, summary_interval_s=options.summary_interval_s)
+
+    return Daemon(
+        select(options),
+        factory=lambda cfg: current["factory"](cfg),  # noqa: PLW0108 - late-bound on reload
+        notifier=notifier,
+        exporter=exporter,
+        publisher=publisher,
+        build_snapshot=lambda d, stats: build_daemon_snapshot(d, publisher, started_s, stats),
+        summary=summary if options.summary_interval_s else None,
+        reload=reload if path is not None else None,
+        utc_now=lambda: dt.datetime.now(dt.UTC),
     )
