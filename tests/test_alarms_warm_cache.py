@@ -20,6 +20,7 @@ import pytest
 from ionwarden.daemon.alarms import Cn0Baseline, StationAlarms
 from ionwarden.daemon.config import AlarmSettings, Cn0BaselineSettings, ThresholdAlarm
 from ionwarden.parsers import signal_code
+from tests._float_platform import fingerprint
 from tests.test_alarms_fastpaths import _ReferenceBaseline
 from tests.test_emit_lean_alarms import _TOUCHY, scenario_snapshots
 
@@ -101,57 +102,65 @@ _SETTINGS = {
 }
 
 #: sha256 of every transition and every status after each epoch (reprs), per stream and
-#: settings, captured from the code before this change (equal to the previous implementation).
-_GOLDEN: dict[tuple[str, str], tuple[int, str]] = {
-    ("storm-front/HARC", "default"): (
-        1,
-        "25dadd810a540f7d0d29946da7b75e04f6ef005ac2e9732146d125692afec4fc",
-    ),
-    ("storm-front/HARC", "mid"): (
-        1,
-        "95705f3d527da297f2e14ea764f70b5b8b1f8137e3acb210ef348be7cee9dca6",
-    ),
-    ("storm-front/HARC", "touchy"): (
-        2,
-        "7d0b6ddf0d7ddca57d29fa389605163fb9577dfe2aa81d55a5796ed367aa6b46",
-    ),
-    ("storm-front/HRV1", "default"): (
-        1,
-        "65c215a8b5f21253d88926baaeb7c8866b9fb974f2631fb9bd4891d874ab1e8c",
-    ),
-    ("storm-front/HRV1", "mid"): (
-        1,
-        "ed18ac9a6370a4f139a0025aa80a189252f1053ad3d4c6e70b23ad697e6ee403",
-    ),
-    ("storm-front/HRV1", "touchy"): (
-        2,
-        "adb7835bcbfa468ea158f5c09d701df77fe09fa3d3aec118bd794fd7c340a7c6",
-    ),
-    ("scintillation/HARC", "default"): (
-        2,
-        "287a096d14d8720544c9bc8184962b7d9d66cbd77d154b075c4ebcf824787236",
-    ),
-    ("scintillation/HARC", "mid"): (
-        14,
-        "66b60b4ea2fbc79013373b6d9f399d758a65148db420b683f8e06e7a5f78fff2",
-    ),
-    ("scintillation/HARC", "touchy"): (
-        5,
-        "70e09478b8dc3c5147f6573a48d924a2b4386f32db8edb0587a0d4a8270eb501",
-    ),
-    ("band-outage/HARC", "default"): (
-        2,
-        "dee4b21dc5405e4f4f3e547a9fa1f0a683ff20b189ae5748d1a8ae959748d2c0",
-    ),
-    ("band-outage/HARC", "mid"): (
-        2,
-        "796014198a6d514a5b0d450af5700c0ef514c0d9231eb339f0f0c0aec6b9c836",
-    ),
-    ("band-outage/HARC", "touchy"): (
-        3,
-        "677706af63c759404f0128408a9c4fdfc6b71a56fa81b8d591dabd8de16d676d",
-    ),
+#: settings, per floating-point platform (tests/_float_platform.py: the snapshots come from the
+#: estimator, whose numpy math may round a last bit differently on another CPU), captured from the
+#: code before this change (e44e582^, equal to the previous implementation) on that platform. The
+#: first set (git history) was taken on an x86-64 machine with AVX-512 whose fingerprint was not
+#: recorded.
+_GOLDEN_BY_PLATFORM: dict[str, dict[tuple[str, str], tuple[int, str]]] = {
+    # x86-64, AVX2 without AVX-512 (numpy 2.4: X86_V3), captured 2026-12-03
+    "5cbd07108fd657e2": {
+        ("storm-front/HARC", "default"): (
+            1,
+            "97d11a5b608d5e5c83480797a12bd549778c4b12d5b874b5d9e82a2ae6786ea7",
+        ),
+        ("storm-front/HARC", "mid"): (
+            1,
+            "31d25dcfa7d6ee869c8610d6cbe26759265835c46da1c57b5e52879475a591bf",
+        ),
+        ("storm-front/HARC", "touchy"): (
+            2,
+            "3b4220ea91cff60b5edc1e4e8722ae5b137e3771b13badf82c51327065784d59",
+        ),
+        ("storm-front/HRV1", "default"): (
+            1,
+            "e1f82f99384089ca0eb0e6e55333bfcdd59dbd8375368eee9c5ca400750024e3",
+        ),
+        ("storm-front/HRV1", "mid"): (
+            1,
+            "679ce54da2dfafd89668cae898573addfaab7d3e2a097a80b10f3bd3f530c302",
+        ),
+        ("storm-front/HRV1", "touchy"): (
+            2,
+            "1114f41b8aa0ca0de4c481205c61e7e3afc9081dd01d39f65952e00c09e2fe54",
+        ),
+        ("scintillation/HARC", "default"): (
+            2,
+            "86fd51ac85470bddf0044d2abfc9555c78a7d60927f16d27cd309525edeeb20d",
+        ),
+        ("scintillation/HARC", "mid"): (
+            14,
+            "901c7187c03642f85642179c46e84dc1be6845c7028c70789766046197e78183",
+        ),
+        ("scintillation/HARC", "touchy"): (
+            5,
+            "56939e08b8b49d822fc3bf87704d9bcb9dd2c662e60a8774d3d0ed928cea414c",
+        ),
+        ("band-outage/HARC", "default"): (
+            2,
+            "c749862e06dd562614f130ba7e4a832c4ee69b1fe629eab52ea70729eb4e625a",
+        ),
+        ("band-outage/HARC", "mid"): (
+            2,
+            "8aaf094b175dd787223e1eaf216f49b2c85fd23c942d5cddff73a5888ade70d5",
+        ),
+        ("band-outage/HARC", "touchy"): (
+            3,
+            "7ac4a535ec5191668a1c0254f158eb1abcb041b465acdfb59d8f274a0acbc689",
+        ),
+    },
 }
+_GOLDEN = _GOLDEN_BY_PLATFORM.get(fingerprint())
 
 
 def _digest(stream: str, settings_name: str) -> tuple[int, str]:
@@ -169,6 +178,11 @@ def _digest(stream: str, settings_name: str) -> tuple[int, str]:
     return n_transitions, h.hexdigest()
 
 
+@pytest.mark.skipif(
+    _GOLDEN is None,
+    reason=f"no golden digests for floating-point platform {fingerprint()} "
+    "(capture them from e44e582^: see tests/_float_platform.py)",
+)
 @pytest.mark.parametrize("settings_name", sorted(_SETTINGS))
 @pytest.mark.parametrize(
     "stream",
@@ -177,4 +191,5 @@ def _digest(stream: str, settings_name: str) -> tuple[int, str]:
 def test_station_alarms_equal_previous_code_on_simulator_storms(stream, settings_name):
     """StationAlarms gives the previous code's transitions and statuses, epoch by epoch, on the
     simulator's storm streams under touchy, default and intermediate settings."""
+    assert _GOLDEN is not None
     assert _digest(stream, settings_name) == _GOLDEN[stream, settings_name]
