@@ -190,7 +190,10 @@ def test_assets_mosquitto_tls_example_serves_the_publisher(tmp_path, client_cert
             ["mosquitto_passwd", *flag, "-b", str(passwd), user, pw], check=True, timeout=30
         )
     prefix = unique_prefix().replace("iwtest/", "ionwarden/")
-    tls_port, plain_port = free_port(), free_port()
+    tls_port = free_port()
+    plain_port = free_port()
+    while plain_port == tls_port:  # (each is only a port free a moment ago)
+        plain_port = free_port()
     conf = (CONFIG / "mosquitto" / "ionwarden-tls.conf").read_text(encoding="utf-8")
     conf = (
         conf.replace("/etc/mosquitto/ionwarden.passwd", str(passwd))
@@ -206,7 +209,11 @@ def test_assets_mosquitto_tls_example_serves_the_publisher(tmp_path, client_cert
     proc = subprocess.Popen([exe, "-c", str(tmp_path / "m.conf")])
     try:
         deadline = time.monotonic() + 10.0
-        while not port_open("127.0.0.1", tls_port) and proc.poll() is None:
+        # Both listeners: mosquitto opens them in the config's order (TLS first), and the
+        # reader below connects to the plain one (under load it came up after the test began).
+        while proc.poll() is None and not all(
+            port_open("127.0.0.1", port) for port in (tls_port, plain_port)
+        ):
             assert time.monotonic() < deadline, "mosquitto did not start"
             time.sleep(0.02)  # polling for readiness, not timing logic
         assert proc.poll() is None, "mosquitto rejected the example config"
