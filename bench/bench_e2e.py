@@ -145,11 +145,11 @@ def write_config(
 
 # -- the daemon process -------------------------------------------------------------------------
 class DaemonProcess:
-    def __init__(self, config: Path, log_path: Path) -> None:
+    def __init__(self, daemon: Path, config: Path, log_path: Path) -> None:
         self.log_path = log_path
         self._log = log_path.open("wb")
         self.proc = subprocess.Popen(
-            [str(DAEMON), "run", "--config", str(config)],
+            [str(daemon), "run", "--config", str(config)],
             stdin=subprocess.DEVNULL,
             stdout=self._log,
             stderr=subprocess.STDOUT,
@@ -437,7 +437,7 @@ async def run(args: argparse.Namespace, tmp: Path) -> int:
         f"({len(chunks[0][1])} bytes), built in {time.perf_counter() - t_build:.1f} s"
     )
     code = Path(str(sys.modules["ionwarden.daemon"].__file__)).parent.parent
-    print(f"daemon: {DAEMON} run (code imported from {code}; PYTHONPATH is passed on)")
+    print(f"daemon: {args.daemon} run (code imported from {code}; PYTHONPATH is passed on)")
     names = [f"e2e{i:02d}" for i in range(n)]
     prefix = f"iwbench-e2e/{os.getpid()}-{uuid.uuid4().hex[:8]}"
     receivers = Receivers(n)
@@ -456,7 +456,7 @@ async def run(args: argparse.Namespace, tmp: Path) -> int:
         workers=args.workers,
     )
     check = await asyncio.create_subprocess_exec(
-        str(DAEMON), "config", "check", str(cfg),
+        str(args.daemon), "config", "check", str(cfg),
         stdout=subprocess.PIPE, stderr=subprocess.STDOUT,
     )  # fmt: skip
     out, _ = await asyncio.wait_for(check.communicate(), CONNECT_TIMEOUT_S)
@@ -470,7 +470,7 @@ async def run(args: argparse.Namespace, tmp: Path) -> int:
             await client.subscribe(f"{prefix}/+/summary", qos=1)
             sub = asyncio.create_task(subscribe(client, got), name="bench.subscriber")
             try:
-                daemon = DaemonProcess(cfg, tmp / "daemon.log")
+                daemon = DaemonProcess(args.daemon, cfg, tmp / "daemon.log")
                 if args.daemon_nice:  # an experiment: the daemon's main thread vs the broker
                     os.setpriority(os.PRIO_PROCESS, daemon.pid, args.daemon_nice)
                     print(f"daemon main thread reniced to {args.daemon_nice}")
@@ -793,6 +793,12 @@ def main() -> None:
         "--workers", type=int, default=1, metavar="N",
         help="[runtime] workers of the daemon (default 1: one process)",
     )  # fmt: skip
+    ap.add_argument(
+        "--daemon", type=Path, default=DAEMON, metavar="PATH",
+        help="the ionwarden executable to run (default .venv/bin/ionwarden); e.g. one installed "
+        "in a venv of Debian's python3, which a Pi runs (built with PGO and LTO, unlike a "
+        "pyenv build)",
+    )  # fmt: skip
     ap.add_argument("--keep-log", action="store_true", help="keep the daemon's log (temp dir)")
     ap.add_argument(
         "--series", type=Path, metavar="CSV",
@@ -804,8 +810,8 @@ def main() -> None:
         ap.error("--seconds and --stations must be at least 1")
     args.mqtt_host = os.environ.get("IONWARDEN_TEST_MQTT_HOST", "127.0.0.1")
     args.mqtt_port = int(os.environ.get("IONWARDEN_TEST_MQTT_PORT", "1883"))
-    if not DAEMON.exists():
-        ap.error(f"{DAEMON} not found: install the project into .venv first")
+    if not args.daemon.exists():
+        ap.error(f"{args.daemon} not found: install the project into .venv first")
     tmp = Path(tempfile.mkdtemp(prefix="bench_e2e-"))
     try:
         rc = asyncio.run(run(args, tmp))
