@@ -7,7 +7,9 @@ only where it was captured. ``fingerprint()`` hashes the results of the routines
 fixed inputs: two machines with the same fingerprint compute our outputs alike (as far as these
 routines tell; add one here if a digest ever differs between machines that share a fingerprint).
 Golden tests keep one set of digests per fingerprint, each captured from the previous code on
-that platform, and skip (saying so) on a platform they have none for.
+that platform, and skip (saying so) on a platform they have none for. Digests captured before
+the fingerprint existed are kept under ``simd_label()``, the coarser key they held on: machine,
+numpy release, and whether numpy uses AVX-512 (its vectorised math differs with it).
 """
 
 from __future__ import annotations
@@ -15,6 +17,7 @@ from __future__ import annotations
 import hashlib
 import platform
 from functools import cache
+from typing import TypeVar
 
 import numpy as np
 
@@ -46,3 +49,22 @@ def fingerprint() -> str:
     ):  # fmt: skip
         h.update(np.ascontiguousarray(r).tobytes())
     return h.hexdigest()[:16]
+
+
+def simd_label() -> str:
+    """Machine, numpy's major.minor release, and whether numpy's dispatch found AVX-512."""
+    try:
+        from numpy._core._multiarray_umath import __cpu_features__ as features
+    except ImportError:  # (numpy < 2: only x86-64 with AVX-512 matters here)
+        features = {}
+    avx512 = "AVX-512" if features.get("AVX512_SKX") else "no AVX-512"
+    return f"{platform.machine()} numpy {np.__version__.rsplit('.', 1)[0]} {avx512}"
+
+
+T = TypeVar("T")
+
+
+def golden_for(table: dict[str, T]) -> T | None:
+    """This platform's golden values: by fingerprint, else by ``simd_label()``, else None."""
+    found = table.get(fingerprint())
+    return found if found is not None else table.get(simd_label())
