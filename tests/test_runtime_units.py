@@ -20,7 +20,7 @@ from ionwarden.daemon.runtime import (
     backoff_delays,
     max_delay_s,
 )
-from ionwarden.daemon.runtime._station import StationStatistics
+from ionwarden.daemon.runtime._station_records import StationStatistics
 from ionwarden.daemon.runtime._summary import format_status, format_summary
 
 

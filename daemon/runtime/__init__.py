@@ -18,12 +18,9 @@ from ._station import (
     RETRYABLE_ERRORS,
     TOLERATED_DECODE_ERRORS,
     UNCONTAINED_ERRORS,
-    SourceEvent,
-    StationConfig,
     StationRunner,
-    StationState,
-    StationStatistics,
 )
+from ._station_records import SourceEvent, StationConfig, StationState, StationStatistics
 from ._vclock import VirtualClockLoop, run_virtual
 
 __all__ = [

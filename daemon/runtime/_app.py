@@ -30,7 +30,7 @@ from ionwarden.parsers import utc_to_gps
 from ._checkpoint import fingerprint
 from ._core import FramingCore
 from ._stall import StallLimits
-from ._station import StationConfig
+from ._station_records import StationConfig
 from ._supervisor import Daemon, DaemonOptions, StationBundle
 
 if TYPE_CHECKING:
@@ -41,7 +41,7 @@ if TYPE_CHECKING:
     from ionwarden.daemon.outputs import MqttPublisher
 
     from ._notify import SdNotifier
-    from ._station import StationStatistics
+    from ._station_records import StationStatistics
     from ._supervisor import SnapshotSink
 
 __all__ = [

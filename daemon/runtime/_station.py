@@ -26,34 +26,29 @@ the framer resynchronises); file and stdin sources use ``WAIT`` (nothing lost, r
 from __future__ import annotations
 
 import asyncio
-import enum
 import logging
-from dataclasses import dataclass, field
-from typing import TYPE_CHECKING, Protocol
+from typing import TYPE_CHECKING
 
 from ionwarden.daemon.errors import ParseError, TransportError
 from ionwarden.daemon.estimator import FixStatus, StationSnapshot
 from ionwarden.daemon.ingest import (
     FileSource,
     SourceRejectedError,
-    StdinSource,
     TcpListenTransport,
     open_transport,
 )
 
 from ._backoff import backoff_delays
 from ._pacer import ReplayPacer
-from ._queues import BoundedQueue, Overflow, QueueStatistics
+from ._queues import BoundedQueue, Overflow
 from ._stall import StallDetector, StallKind, StallLimits, StallTimer
-
-
-class Settles(Protocol):
-    """Deferred work that waits for a background step (``StationAlarms``: its learning)."""
-
-    def unsettled(self) -> bool: ...
-
-    def settle(self) -> None: ...
-
+from ._station_records import (
+    Settles,
+    SourceEvent,
+    StationConfig,
+    StationState,
+    StationStatistics,
+)
 
 if TYPE_CHECKING:
     import random
@@ -61,7 +56,7 @@ if TYPE_CHECKING:
 
     from ionwarden.daemon.ingest import SourceSpec, Transport
 
-    from ._core import DecoderCounts, StationCore
+    from ._core import StationCore
     from ._lane import StepLane
 
 __all__ = [
@@ -70,11 +65,7 @@ __all__ = [
     "RETRYABLE_ERRORS",
     "TOLERATED_DECODE_ERRORS",
     "UNCONTAINED_ERRORS",
-    "SourceEvent",
-    "StationConfig",
     "StationRunner",
-    "StationState",
-    "StationStatistics",
 ]
 
 log = logging.getLogger("ionwarden.daemon.runtime.station")
@@ -95,79 +86,6 @@ PIPELINE_LOG_INTERVAL_S = 60.0
 PACED_READ_BYTES = 1024
 #: ...and queues at most this many chunks ahead of the estimator.
 PACED_QUEUE_CHUNKS = 4
-
-
-class StationState(enum.StrEnum):
-    STARTING = "starting"
-    CONNECTING = "connecting"
-    STREAMING = "streaming"
-    STALLED = "stalled"
-    RETRY_WAIT = "retry-wait"
-    REFUSED = "refused"
-    FINISHED = "finished"
-    STOPPED = "stopped"
-
-
-@dataclass(frozen=True, slots=True, kw_only=True)
-class StationConfig:
-    """Everything the runtime needs to run one station (built from the config by the CLI)."""
-
-    name: str
-    source: SourceSpec
-    password: str = field(default="", repr=False)
-    read_size: int = 65536
-    queue_size: int = 256
-    stall: StallLimits = field(default_factory=StallLimits)
-    backoff_initial_s: float = 1.0
-    backoff_cap_s: float = 30.0
-    #: Digest of the station's config; a SIGHUP reload restarts the station only when it changes.
-    fingerprint: str = ""
-
-    @property
-    def finite(self) -> bool:
-        """A source whose end is the end of the station (a file without loop, stdin)."""
-        return (isinstance(self.source, FileSource) and not self.source.loop) or isinstance(
-            self.source, StdinSource
-        )
-
-
-@dataclass(frozen=True, slots=True, kw_only=True)
-class SourceEvent:
-    """A state change of a station's source (connect, stall, refusal, retry, end)."""
-
-    station: str
-    state: StationState
-    detail: str
-    monotonic_s: float
-
-
-@dataclass(frozen=True, slots=True, kw_only=True)
-class StationStatistics:
-    """One station now (STYLE rule 15): source state, counters since start, queue figures."""
-
-    station: str
-    state: StationState
-    detail: str
-    connected: bool
-    bytes_total: int
-    connects_total: int
-    reconnects_total: int
-    stalls_total: int
-    epochs_total: int
-    fixes_total: int
-    decode_errors_total: int
-    decoder: DecoderCounts
-    queue: QueueStatistics
-    last_data_monotonic_s: float | None
-    last_epoch_monotonic_s: float | None
-    latest: StationSnapshot | None
-    latest_fix: FixStatus | None
-    #: Monotonic time of the estimate task's last completed step (the watchdog reads it).
-    progress_monotonic_s: float
-    #: Pipeline steps that raised and were contained (see the module docstring).
-    pipeline_errors_total: int = 0
-    #: Times the station's core was reset after repeated pipeline failures.
-    pipeline_resets_total: int = 0
 
 
 class _StalledError(TransportError):

@@ -8,12 +8,12 @@ from __future__ import annotations
 import math
 from typing import TYPE_CHECKING
 
-from ._station import StationState
+from ._station_records import StationState
 
 if TYPE_CHECKING:
     from collections.abc import Sequence
 
-    from ._station import StationStatistics
+    from ._station_records import StationStatistics
 
 __all__ = ["format_status", "format_summary"]
 

@@ -38,7 +38,8 @@ from ionwarden.parsers import utc_to_gps
 from ._checkpoint import load_checkpoint, save_checkpoint
 from ._lane import StepLane
 from ._notify import SdNotifier, watchdog_interval_s
-from ._station import SourceEvent, StationConfig, StationRunner, StationState
+from ._station import StationRunner
+from ._station_records import SourceEvent, StationConfig, StationState
 from ._summary import format_status, format_summary
 
 if TYPE_CHECKING:
@@ -50,7 +51,7 @@ if TYPE_CHECKING:
     from ionwarden.daemon.outputs import DaemonSnapshot, MqttPublisher
 
     from ._core import StationCore
-    from ._station import StationStatistics
+    from ._station_records import StationStatistics
 
 __all__ = [
     "Daemon",
