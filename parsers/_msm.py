@@ -14,6 +14,8 @@ phase-range rate = DF399 + DF404·10⁻⁴ m/s. Invalid markers become NaN: DF39
 negative code of every signed fine field; CN0 = 0 ("not computed") also becomes NaN.
 """
 
+# size: ~470 lines: the MSM4–7 field layouts (RTCM 10403.3 §3.5.12) and their one
+# vectorised decoder; the layouts are the decoder's tables.
 from __future__ import annotations
 
 from dataclasses import dataclass

@@ -19,6 +19,8 @@ Rows 0–1 plus rows 2–3 give the rough range and the rate; the formulas are t
 ``_msm.decode_msm``, operation for operation, so both give bit-identical values.
 """
 
+# size: ~470 lines: the whole-epoch MSM decode and the layout cache it runs on; the
+# layout and the decode change together.
 from __future__ import annotations
 
 from dataclasses import dataclass

@@ -16,6 +16,8 @@ byte array, and every F14.3 field is read by digit arithmetic at fixed columns (
 ``float()`` one by one. Memory per epoch is bounded by :data:`MAX_SATELLITES_PER_EPOCH` lines.
 """
 
+# size: ~400 lines: the observation record reader (epoch lines, the per-header layout and the
+# vectorised F14.3 decode) in one place; the header reader is in _rinex_obs_header.py.
 from __future__ import annotations
 
 from dataclasses import dataclass

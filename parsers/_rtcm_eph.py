@@ -15,6 +15,8 @@ more than half a week away from the reference moves to the adjacent week (end-of
 Stale (year-old) ephemerides decode normally: the estimator decides what is stale.
 """
 
+# size: ~530 lines: six ephemeris messages (1019, 1020, 1042, 1044, 1045, 1046) as field
+# tables and their decoders, sharing the bit reader and the scale conventions.
 from __future__ import annotations
 
 import math

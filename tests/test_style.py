@@ -11,8 +11,9 @@ import pytest
 from .conftest import REPO
 
 RUNTIME_FILES = sorted((REPO / "parsers").rglob("*.py")) + sorted((REPO / "daemon").rglob("*.py"))
-#: Modules over this many lines must say why in a "# size: <reason>" comment (STYLE rule 1).
-MAX_LINES = 600
+#: Modules over this many lines must say why in a "# size: <reason>" comment (STYLE rule 1's soft
+#: cap, and its review question R1: "Does any module exceed 400 lines without a stated reason?").
+MAX_LINES = 400
 #: parsers/ is sans-IO (STYLE rule 3).
 FORBIDDEN_IN_PARSERS = {"asyncio", "socket", "serial", "time", "logging", "select", "threading"}
 #: Reference libraries are for tests and benches only.
@@ -32,7 +33,7 @@ def _imports(path: Path) -> set[str]:
 
 @pytest.mark.parametrize("path", RUNTIME_FILES, ids=lambda p: p.relative_to(REPO).as_posix())
 def test_module_size_within_cap(path: Path) -> None:
-    """A runtime module stays under 600 lines unless it states a reason (STYLE rule 1)."""
+    """A runtime module stays under 400 lines unless it states a reason (STYLE rule 1, R1)."""
     text = path.read_text()
     if text.count("\n") > MAX_LINES:
         assert "# size:" in text, (

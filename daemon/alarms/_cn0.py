@@ -11,6 +11,8 @@ Learning is frozen for a band while its alarm is active or pending, so interfere
 become the new normal. Everything is vectorised over cells (STYLE rule 21).
 """
 
+# size: ~420 lines: the C/N0 baseline's learning and its drop test share the binned
+# cells and their warm/cold bookkeeping.
 from __future__ import annotations
 
 import math

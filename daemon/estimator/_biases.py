@@ -49,6 +49,8 @@ slower than s²/n) gave the lowest worst-seed STEC error: 1.03 TECU with factor 
 0.97 with 3.
 """
 
+# size: ~470 lines: satellite and receiver code-bias tables over the same pair-rank
+# axes, with their config and broadcast sources.
 from __future__ import annotations
 
 import math

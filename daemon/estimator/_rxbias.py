@@ -105,6 +105,8 @@ order); ``normal`` / ``rhs`` are ordered (coefficients, groups), size ``p + G``;
 (A, p + G), ``_arc_n`` (A, A).
 """
 
+# size: ~570 lines: one model on one set of normal equations (prediction, re-levelling of open
+# arcs, solving, sigma scaling, state round trip), with the measurements behind its choices.
 from __future__ import annotations
 
 import math

@@ -23,6 +23,8 @@ all end (file replays) exits 0 and is not restarted; when every worker has ended
 daemon.
 """
 
+# size: ~500 lines: the main process of worker processes: assignment, restart with
+# backoff, merging reports, systemd and MQTT on their behalf; one owner for the workers' lifetimes.
 from __future__ import annotations
 
 import asyncio

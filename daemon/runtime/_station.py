@@ -23,6 +23,8 @@ Queue policy: live sources use ``DROP_OLDEST`` (a slow estimator loses the oldes
 the framer resynchronises); file and stdin sources use ``WAIT`` (nothing lost, reading slows).
 """
 
+# size: ~520 lines: one station's ingest and estimate tasks with their containment
+# and retry policy (module docstring); the records are in _station_records.py.
 from __future__ import annotations
 
 import asyncio

@@ -22,6 +22,8 @@ No ``asyncio.wait_for`` is used (on Python 3.11 it can lose a cancellation, CPyt
 a task still running after its grace is cancelled again, with an error logged.
 """
 
+# size: ~550 lines: the root TaskGroup and everything it owns (stations, reload, tick,
+# watchdog, shutdown order) in one place, so the lifetime of every task reads top to bottom.
 from __future__ import annotations
 
 import asyncio
