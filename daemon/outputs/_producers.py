@@ -124,20 +124,11 @@ class TopicProducers:
         if self._station_state.get(station) == state:
             return
         self._station_state[station] = state
-        payload = fmt.station_status_payload(
-            station, state, self._clock(), self._last_epoch.get(station)
-        )
-        self._put(
-            self._tree.station_status(station),
-            payload,
-            qos=self._s.qos_status,
-            retain=True,
-            alarm_class=True,
-        )
+        self.announce_station_nowait(station, state, self._last_epoch.get(station))
 
     def announce_station_nowait(self, station: str, state: str, last_epoch: GpsTime | None) -> None:
-        """Queue a station's retained status for another process: the main process of workers
-        says "offline" for a dead worker's stations (a worker's connection has no last will)."""
+        """Queue a station's retained status (also for another process: the main process of
+        workers says "offline" for a dead worker's stations, whose connection has no last will)."""
         self._put(
             self._tree.station_status(station),
             fmt.station_status_payload(station, state, self._clock(), last_epoch),
