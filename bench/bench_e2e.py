@@ -34,6 +34,7 @@ exit status is printed) and the temp files are removed.
 
 Usage: .venv/bin/python bench/bench_e2e.py [--seconds 60] [--stations 20] [--stagger]
            [--scrape-every S] [--keep-log] [--series CSV] [--workers N] [--warm-up S]
+           [--daemon PATH]
 The daemon is the installed ``.venv/bin/ionwarden`` and inherits this process's environment, so
 ``PYTHONPATH=DIR`` with ``DIR/ionwarden/{daemon,parsers}`` (e.g. ``git archive HEAD daemon parsers``
 unpacked there) measures that code instead of the work tree. Exit status: 0, 1 on a set-up failure
@@ -80,9 +81,9 @@ DELIVERY_HISTOGRAM = "ionwarden_mqtt_summary_delivery_seconds"
 CONNECT_TIMEOUT_S = 60.0  # daemon start-up: Python imports, config, every station connected
 FIRST_SUMMARY_TIMEOUT_S = 60.0
 TAIL_TIMEOUT_S = 10.0  # after the last send, for the last summaries
-STOP_TIMEOUT_S = 20.0
+STOP_TIMEOUT_S = 20.0  # SIGTERM → exit (the daemon's own budget is [runtime] stop_timeout_s = 4)
 #: Warm-up pace (s between epochs: 10x real time).
-WARM_UP_PERIOD_S = 0.1  # SIGTERM → exit (the daemon's own budget is [runtime] stop_timeout_s = 4)
+WARM_UP_PERIOD_S = 0.1
 WEEK_S = 604_800.0
 
 
