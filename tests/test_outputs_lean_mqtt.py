@@ -1,4 +1,4 @@
-"""The lean QoS 1 MQTT path (``outputs/_client.py``): PUBLISH bytes against paho's encoder and
+"""The lean QoS 0/1 MQTT path (``outputs/_client.py``): PUBLISH bytes against paho's encoder and
 MQTT 5.0 §3.3, PUBACK reading through a real socket in any chunking, mixed with packets paho
 handles, and the whole path against the local Mosquitto; the publisher's acknowledgement deadline
 when acknowledgements settle without waking its pump."""
@@ -35,14 +35,14 @@ def _paho() -> mqtt.Client:
     return mqtt.Client(CallbackAPIVersion.VERSION2, protocol=mqtt.MQTTv5)
 
 
-def _paho_publish_bytes(topic: str, payload: bytes, retain: bool, props: Properties | None,
-                        mid: int) -> bytes:  # fmt: skip
-    """What paho 2.x itself queues for this QoS 1 PUBLISH (its ``_send_publish``), captured from
-    its out-queue on a client whose writes go nowhere."""
+def _paho_publish_bytes(topic: str, payload: bytes, qos: int, retain: bool,
+                        props: Properties | None, mid: int) -> bytes:  # fmt: skip
+    """What paho 2.x itself queues for this QoS 0 or 1 PUBLISH (its ``_send_publish``), captured
+    from its out-queue on a client whose writes go nowhere."""
     c = _paho()
     c._sock = object()  # "connected": _send_publish only checks it is not None
     c.on_socket_register_write = lambda *_: None  # queue, do not write
-    rc = c._send_publish(mid, topic.encode(), payload, 1, retain, False, None, props)
+    rc = c._send_publish(mid, topic.encode(), payload, qos, retain, False, None, props)
     assert rc == mqtt.MQTT_ERR_SUCCESS
     c._sock = None  # nothing to close
     return bytes(c._out_packet[-1]["packet"])
@@ -74,25 +74,28 @@ SIZES = [0, 1, 100, 127 - 20, 127 - 19, 16383 - 20, 16383 - 19, 16400, 2_097_151
 @pytest.mark.parametrize("size", SIZES)
 @pytest.mark.parametrize("retain", [False, True])
 @pytest.mark.parametrize("expiry", [None, 30, 86400])
-def test_lean_publish_bytes_equal_paho_and_mqtt5(size, retain, expiry):
-    """Lean QoS 1 PUBLISH == paho 2.x's bytes (reference library); fields as MQTT 5.0 §3.3.1
-    (first byte 0x32 | retain), §1.5.5 (Remaining Length), §3.3.2 (topic, packet identifier,
-    properties) and the payload."""
+@pytest.mark.parametrize("qos", [0, 1])
+def test_lean_publish_bytes_equal_paho_and_mqtt5(size, retain, expiry, qos):
+    """Lean QoS 0/1 PUBLISH == paho 2.x's bytes (reference library); fields as MQTT 5.0 §3.3.1
+    (first byte 0x30 | QoS << 1 | retain), §1.5.5 (Remaining Length), §3.3.2 (topic, packet
+    identifier for QoS 1 only, properties) and the payload."""
     topic = "ionwarden/ST-Ω/summary"  # a UTF-8 topic name (§1.5.4)
     payload = bytes(range(256)) * (size // 256) + bytes(range(size % 256))
     props = None if expiry is None else _expiry(expiry)
     for mid in (1, 258, 65535):
         packed = b"\x00" if props is None else bytes(props.pack())
-        ours = _client.encode_publish_qos1(topic, payload, retain, packed, mid)
-        assert ours == _paho_publish_bytes(topic, payload, retain, props, mid)
-        assert ours[0] == 0x32 | retain
+        ours = _client.encode_publish(topic, payload, qos=qos, retain=retain, props=packed, mid=mid)
+        assert ours == _paho_publish_bytes(topic, payload, qos, retain, props, mid)
+        assert ours[0] == 0x30 | qos << 1 | retain
         remaining, pos = _varint_decode(ours, 1)
         assert remaining == len(ours) - pos
         name_len = int.from_bytes(ours[pos : pos + 2], "big")
         assert ours[pos + 2 : pos + 2 + name_len].decode() == topic
         pos += 2 + name_len
-        assert int.from_bytes(ours[pos : pos + 2], "big") == mid
-        props_len, pos = _varint_decode(ours, pos + 2)
+        if qos:
+            assert int.from_bytes(ours[pos : pos + 2], "big") == mid
+            pos += 2
+        props_len, pos = _varint_decode(ours, pos)
         if expiry is None:
             assert props_len == 0
         else:  # Message Expiry Interval: identifier 0x02, four-byte integer (§3.3.2.3.3)
@@ -105,10 +108,62 @@ def test_lean_publish_refuses_what_paho_refuses(topic):
     """Wildcards and over-long topic names are refused as paho refuses them (MQTT 5.0 §3.3.2.1,
     §1.5.4: at most 65,535 bytes)."""
     with pytest.raises(ValueError) as ours:
-        _client.encode_publish_qos1(topic, b"x", False, b"\x00", 1)
+        _client.encode_publish(topic, b"x", qos=1, retain=False, props=b"\x00", mid=1)
     with pytest.raises(ValueError) as paho:
         _paho().publish(topic, b"x", qos=1)
     assert str(ours.value) == str(paho.value)
+
+
+def test_lean_publishes_the_socket_does_not_take_whole_are_finished_by_paho_in_order():
+    """With the socket's send buffer full, lean QoS 0 and QoS 1 publishes leave their bytes to
+    paho's queue: the peer receives the packets whole and in publishing order (each as paho would write it: ``_paho_publish_bytes``), the QoS 0 future
+    completes once its packet is written (as paho's own QoS 0 publish), the QoS 1 future on its
+    PUBACK (MQTT 5.0 §3.4)."""
+
+    async def main() -> None:
+        a, b = socket.socketpair()
+        a.setblocking(False)
+        b.setblocking(False)
+        a.setsockopt(socket.SOL_SOCKET, socket.SO_SNDBUF, 4096)
+        pub = _client.QuickAckClient("127.0.0.1", 1883, protocol=aiomqtt.ProtocolVersion.V5)
+        paho = pub._client
+        assert isinstance(paho, _client._LeanPaho)
+        paho._sock = a
+        filled = 0
+        with contextlib.suppress(BlockingIOError):
+            while True:
+                filled += a.send(b"\xff" * 65536)
+        payload = bytes(range(256)) * 40  # 10 kB: more than the socket takes at once
+        props = _expiry(60)
+        first = paho._last_mid + 1
+        ack0 = pub.iw_publish("t/qos0", payload, 0, False, props)
+        ack1 = pub.iw_publish("t/qos1", payload, 1, True, None)
+        assert not ack0.done()
+        assert paho._out_packet  # queued behind the full socket
+        expected = _paho_publish_bytes(
+            "t/qos0", payload, 0, False, props, first
+        ) + _paho_publish_bytes("t/qos1", payload, 1, True, None, first + 1)
+        got = bytearray()
+        loop = asyncio.get_running_loop()
+        async with asyncio.timeout(10):
+            while len(got) < filled + len(expected):
+                got += await loop.sock_recv(b, 65536)
+            await ack0
+        assert bytes(got[filled:]) == expected
+        assert not ack1.done()
+        b.sendall(_puback(first + 1))
+        async with asyncio.timeout(10):
+            while not ack1.done():
+                paho.loop_read()
+                await asyncio.sleep(0.01)
+        assert not paho._out_packet
+        assert not pub._iw_acks
+        loop.remove_writer(a.fileno())
+        paho._sock = None
+        a.close()
+        b.close()
+
+    asyncio.run(main())
 
 
 # -- PUBACK reading -----------------------------------------------------------------------------
@@ -237,7 +292,7 @@ def test_lean_publishes_through_mosquitto_arrive_with_retain_and_expiry():
     """QoS 1 publishes on the lean path through the local Mosquitto: every acknowledgement future
     completes, a v5 subscriber receives each payload in order with its retain flag and Message
     Expiry Interval (MQTT 5.0 §3.3.2.3.3: the broker forwards the remaining lifetime, at most the
-    value sent); QoS 0 and 2 still go through paho on the same connection."""
+    value sent); QoS 2 still goes through paho on the same connection."""
     need("a Mosquitto broker", port_open(BROKER_HOST, BROKER_PORT))
     prefix = unique_prefix()
     n = 300

@@ -26,10 +26,12 @@ from collections import deque
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
+from ionwarden.daemon._records import fast_constructor
+
 if TYPE_CHECKING:
     from ._topics import Topic
 
-__all__ = ["OutboundBuffer", "OutboundMessage"]
+__all__ = ["OutboundBuffer", "OutboundMessage", "new_outbound_message"]
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -50,6 +52,12 @@ class OutboundMessage:
     queued_s: float = 0.0
     origin_s: float | None = None
     station: str = ""
+
+
+#: ``OutboundMessage(**fields)`` with every field by keyword, for the per-epoch producers: the
+#: same object without the frozen ``__init__``'s ``object.__setattr__`` per field (20.5k -> 4.2k
+#: instructions per message under callgrind; the summary's formatting takes ~37k).
+new_outbound_message = fast_constructor(OutboundMessage)
 
 
 class OutboundBuffer:

@@ -6,7 +6,7 @@
   each waiting for its acknowledgement timeout.
 * :meth:`QuickAckClient.iw_publish`: publish without a task per message; the packet is written
   during the call, and a future completes on its acknowledgement.
-* A lean QoS 1 path (:class:`_LeanPaho`): a QoS 1 PUBLISH is encoded here (MQTT 5.0 §3.3) and
+* A lean QoS 0/1 path (:class:`_LeanPaho`): a QoS 1 PUBLISH is encoded here (MQTT 5.0 §3.3) and
   written at once, and the PUBACKs of those publishes (§3.4) are read in one ``recv`` and settled
   without paho's per-packet machinery (three ``recv`` calls, a dict, a ``Properties`` object and
   two callbacks per PUBACK). The MQTT client's share of a station-second went from 0.40 M
@@ -14,7 +14,9 @@
   (CONNACK, PINGRESP, DISCONNECT, a PUBACK of a publish paho sent itself) still goes through paho,
   from the same buffer. The publisher keeps its own record of what is unacknowledged and sends it
   again on the next connection (``_publisher``), so paho's in-flight bookkeeping is not needed for
-  these publishes.
+  these publishes. A QoS 0 PUBLISH (the satellites message) is encoded and written the same way:
+  paho's own publish builds a message, its info with a lock and condition, a ``Properties`` and
+  a queue entry, and calls back twice, about ten times the instructions of the lean one.
 
 They hook aiomqtt 2.x's paho callbacks (``_on_socket_open``, ``_on_publish``, ``_on_disconnect``,
 ``_on_socket_register_write``) and use its paho client (``_client``, ``_loop``) and paho 2.x's
@@ -23,6 +25,8 @@ packet read/queue methods (``_packet_read``, ``_sock_recv``, ``_sock_send``, ``_
 default mosquitto, and ``tests/test_outputs_lean_mqtt.py`` checks the bytes on the wire.
 """
 
+# size: ~430 lines: the lean PUBLISH encoder and PUBACK reader sit beside the paho and aiomqtt
+# hooks they stand in for, so the whole wire path of a publish reads in one place.
 from __future__ import annotations
 
 import asyncio
@@ -46,13 +50,15 @@ if TYPE_CHECKING:
 __all__ = [
     "PackedOnce",
     "QuickAckClient",
-    "encode_publish_qos1",
+    "encode_publish",
     "new_client",
     "raise_if_cancelled",
 ]
 
-#: PUBLISH with QoS 1 (MQTT 5.0 §3.3.1.1: packet type 3, QoS bits 01; bit 0 is RETAIN).
-_PUBLISH_QOS1 = 0x32
+#: PUBLISH's first byte (MQTT 5.0 §3.3.1: packet type 3 in the high nibble; bits 2-1 the QoS,
+#: bit 0 RETAIN).
+_PUBLISH = 0x30
+_QOS_BITS = 0x06
 #: PUBACK's first byte (MQTT 5.0 §3.4.1: packet type 4, flags 0).
 _PUBACK = 0x40
 #: Bytes asked of the socket per read (PUBACKs are 4-5 bytes; a burst of 20 stations' is < 100).
@@ -75,36 +81,52 @@ def _varint(n: int) -> bytes:
         out.append(byte | 0x80)
 
 
-def _publish_head(topic: str, retain: bool, props: bytes) -> tuple[bytes, bytes, int]:
-    """The parts of a QoS 1 PUBLISH that do not change between payloads: the first byte, the
-    topic name with its length (§3.3.2.1, a UTF-8 string §1.5.4) and the Remaining Length
-    without the payload (topic, packet identifier, properties). Raises ``ValueError`` for a topic
-    paho would refuse (wildcards, longer than 65,535 bytes)."""
+#: What a lean PUBLISH keeps of its topic, QoS, retain flag and properties (:func:`_publish_head`).
+_Head = tuple[int, bytes, bytes, int]
+
+
+def _publish_head(topic: str, qos: int, retain: bool, props: bytes) -> _Head:
+    """The parts of a QoS 0 or 1 PUBLISH that do not change between payloads: the first byte
+    (§3.3.1), the topic name with its length (§3.3.2.1, a UTF-8 string §1.5.4), the properties,
+    and the Remaining Length without the payload (topic, packet identifier for QoS 1 only
+    (§3.3.2.2), properties). Raises ``ValueError`` for a topic paho would refuse (wildcards,
+    longer than 65,535 bytes)."""
     name = topic.encode("utf-8")
     if b"+" in name or b"#" in name:
         raise ValueError("Publish topic cannot contain wildcards.")
     if len(name) > 65535:
         raise ValueError("Publish topic is too long.")
-    first = bytes((_PUBLISH_QOS1 | (1 if retain else 0),))
-    return first, len(name).to_bytes(2, "big") + name, 2 + len(name) + 2 + len(props)
+    first = _PUBLISH | qos << 1 | (1 if retain else 0)
+    return first, len(name).to_bytes(2, "big") + name, props, 2 + len(name) + 2 * qos + len(props)
 
 
-def _publish_packet(
-    head: tuple[bytes, bytes, int], props: bytes, payload: bytes, mid: int
-) -> bytes:
-    """The QoS 1 PUBLISH of ``payload`` with packet identifier ``mid``, from its unchanging parts
-    (:func:`_publish_head` of the same ``props``). Raises ``ValueError`` past MQTT's size limit."""
-    first, name, fixed = head
-    remaining = fixed + len(payload)
-    if remaining > _MAX_REMAINING:
+def _publish_packet(head: _Head, payload: bytes, mid: int) -> bytes:
+    """The PUBLISH of ``payload`` from its unchanging parts (:func:`_publish_head`), with packet
+    identifier ``mid`` when its QoS is 1. Raises ``ValueError`` past MQTT's size limit."""
+    first, name, props, fixed = head
+    n = fixed + len(payload)
+    # The Remaining Length (§1.5.5): one byte below 128, two below 16,384 (a summary's
+    # ~500 bytes), written here without _varint's loop; longer through it.
+    if n < 128:
+        lead = bytes((first, n))
+    elif n < 16384:
+        lead = bytes((first, n & 0x7F | 0x80, n >> 7))
+    elif n > _MAX_REMAINING:
         raise ValueError("Payload too large.")
-    return b"".join((first, _varint(remaining), name, mid.to_bytes(2, "big"), props, payload))
+    else:
+        lead = bytes((first,)) + _varint(n)
+    if first & _QOS_BITS:
+        return b"".join((lead, name, mid.to_bytes(2, "big"), props, payload))
+    return b"".join((lead, name, props, payload))
 
 
-def encode_publish_qos1(topic: str, payload: bytes, retain: bool, props: bytes, mid: int) -> bytes:
-    """One QoS 1 PUBLISH packet (MQTT 5.0 §3.3): ``props`` are the packed properties with their
-    length (``b"\\x00"`` for none), ``mid`` the packet identifier (1-65535)."""
-    return _publish_packet(_publish_head(topic, retain, props), props, payload, mid)
+def encode_publish(
+    topic: str, payload: bytes, *, qos: int, retain: bool, props: bytes, mid: int
+) -> bytes:
+    """One QoS 0 or 1 PUBLISH packet (MQTT 5.0 §3.3): ``props`` are the packed properties with
+    their length (``b"\\x00"`` for none), ``mid`` the packet identifier (1-65535; not written
+    for QoS 0)."""
+    return _publish_packet(_publish_head(topic, qos, retain, props), payload, mid)
 
 
 class _LeanPaho(mqtt.Client):
@@ -208,8 +230,8 @@ class QuickAckClient(aiomqtt.Client):
 
     _iw_sock: object = None
     _iw_acks: dict[int, asyncio.Future[None]] | None = None
-    #: (topic, retain, packed properties) → the unchanging parts of a lean QoS 1 PUBLISH.
-    _iw_heads: dict[tuple[str, bool, bytes], tuple[bytes, bytes, int]] | None = None
+    #: (topic, QoS, retain, properties) → the unchanging parts of a lean PUBLISH.
+    _iw_heads: dict[tuple[str, int, bool, object], _Head] | None = None
     #: Called (on the event loop) after each acknowledgement (PUBACK, or a QoS 0 write).
     iw_on_ack: Callable[[], None] | None = None
     #: Called (on the event loop) when the connection is lost: the publisher stops waiting for
@@ -269,12 +291,68 @@ class QuickAckClient(aiomqtt.Client):
         :meth:`_on_socket_register_write`); the future completes on its PUBACK (QoS 0: once
         written). Raises ``MqttCodeError`` when the client cannot publish (not connected).
 
-        QoS 1 takes the lean path (see the module's docstring): the same bytes paho would send,
-        written here; QoS 0 and 2 go through paho."""
+        QoS 0 and 1 take the lean path (see the module's docstring): the same bytes paho would
+        send, written here; QoS 2 goes through paho."""
         client = self._client
-        if qos == 1 and isinstance(client, _LeanPaho):
-            return self._iw_publish_qos1(client, topic, payload, retain, properties)
-        info = client.publish(topic, payload, qos, retain, properties)
+        if qos > 1 or not isinstance(client, _LeanPaho):
+            return self._iw_publish_paho(topic, payload, qos, retain, properties)
+        if client._sock is None:
+            raise aiomqtt.MqttCodeError(mqtt.MQTT_ERR_NO_CONN, "Could not publish message")
+        heads = self._iw_heads
+        if heads is None:
+            self._iw_heads = heads = {}
+        # A PackedOnce never changes: its header is found by the object (no pack() per publish);
+        # other properties by their bytes, which may change between publishes.
+        packed: object = properties
+        if properties is not None and type(properties) is not PackedOnce:
+            packed = bytes(properties.pack())  # type: ignore[no-untyped-call]
+        key = (topic, qos, retain, packed)
+        head = heads.get(key)
+        if head is None:
+            if len(heads) >= _HEADS_MAX:
+                heads.clear()
+            props = b"\x00" if properties is None else bytes(properties.pack())  # type: ignore[no-untyped-call]
+            heads[key] = head = _publish_head(topic, qos, retain, props)
+        # paho numbers every publish, QoS 0 too; the identifier is written for QoS 1 only.
+        mid = client._mid_generate()
+        packet = _publish_packet(head, payload, mid)
+        ack: asyncio.Future[None] = self._loop.create_future()
+        sent = 0
+        if not client._out_packet:  # nothing queued before it: write now
+            # A failed write leaves the packet to paho's queue, which meets the error again and
+            # reports the lost connection its own way (BlockingIOError included). Not
+            # contextlib.suppress: that is a context manager object per publish.
+            try:  # noqa: SIM105
+                sent = client._sock_send(packet)
+            except OSError:
+                pass
+        if sent == len(packet):
+            client._last_msg_out = mqtt.time_func()
+            if not qos:
+                ack.set_result(None)  # QoS 0: done once written
+                return ack
+        elif qos:
+            client._packet_queue(mqtt.PUBLISH, packet[sent:], mid, 1)
+        else:
+            # paho writes the rest (perhaps at once: _on_socket_register_write), then marks the
+            # message info published, as for a QoS 0 publish of its own; the future is
+            # registered only after, so its completion never re-enters the caller's _fill.
+            info = mqtt.MQTTMessageInfo(mid)
+            client._packet_queue(mqtt.PUBLISH, packet[sent:], mid, 0, info)
+            if info.is_published():
+                ack.set_result(None)
+                return ack
+        acks = self._iw_acks
+        if acks is None:
+            self._iw_acks = acks = {}
+        acks[mid] = ack
+        return ack
+
+    def _iw_publish_paho(
+        self, topic: str, payload: bytes, qos: int, retain: bool, properties: Properties | None
+    ) -> asyncio.Future[None]:
+        """:meth:`iw_publish` through paho's own publish (QoS 2, or a client not switched)."""
+        info = self._client.publish(topic, payload, qos, retain, properties)
         if info.rc != mqtt.MQTT_ERR_SUCCESS:
             raise aiomqtt.MqttCodeError(info.rc, "Could not publish message")
         ack: asyncio.Future[None] = self._loop.create_future()
@@ -284,38 +362,6 @@ class QuickAckClient(aiomqtt.Client):
             if self._iw_acks is None:
                 self._iw_acks = {}
             self._iw_acks[info.mid] = ack
-        return ack
-
-    def _iw_publish_qos1(
-        self, client: _LeanPaho, topic: str, payload: bytes, retain: bool,
-        properties: Properties | None,
-    ) -> asyncio.Future[None]:  # fmt: skip
-        if client._sock is None:
-            raise aiomqtt.MqttCodeError(mqtt.MQTT_ERR_NO_CONN, "Could not publish message")
-        props = b"\x00" if properties is None else bytes(properties.pack())  # type: ignore[no-untyped-call]
-        heads = self._iw_heads
-        if heads is None or len(heads) >= _HEADS_MAX:
-            self._iw_heads = heads = {}
-        key = (topic, retain, props)
-        head = heads.get(key)
-        if head is None:
-            heads[key] = head = _publish_head(topic, retain, props)
-        mid = client._mid_generate()
-        packet = _publish_packet(head, props, payload, mid)
-        ack: asyncio.Future[None] = self._loop.create_future()
-        if self._iw_acks is None:
-            self._iw_acks = {}
-        self._iw_acks[mid] = ack
-        sent = 0
-        if not client._out_packet:  # nothing queued before it: write now
-            # A failed write leaves the packet to paho's queue, which meets the error again and
-            # reports the lost connection its own way.
-            with contextlib.suppress(OSError):  # BlockingIOError included
-                sent = client._sock_send(packet)
-        if sent < len(packet):
-            client._packet_queue(mqtt.PUBLISH, packet[sent:], mid, 1)
-        else:
-            client._last_msg_out = mqtt.time_func()
         return ack
 
     def _on_socket_register_write(self, client: Any, userdata: Any, sock: Any) -> None:

@@ -18,7 +18,7 @@ from typing import TYPE_CHECKING
 from ionwarden.daemon.alarms import AlarmKind, AlarmState, AlarmStatus
 
 from . import _payloads as fmt
-from ._buffer import OutboundBuffer, OutboundMessage
+from ._buffer import OutboundBuffer, OutboundMessage, new_outbound_message
 from ._topics import Topic, TopicTree
 
 if TYPE_CHECKING:
@@ -38,6 +38,20 @@ log = logging.getLogger("ionwarden.daemon.outputs.mqtt")
 
 def utc_now() -> dt.datetime:
     return dt.datetime.now(dt.UTC)
+
+
+class _StationRoute:
+    """What a station's per-epoch messages need, found with one look-up per epoch: its summary and
+    satellites topics (validated once) and the satellites message's schedule (GPS seconds: when
+    the last one was queued and when the next is due; None until the first)."""
+
+    __slots__ = ("satellites", "sats_due_s", "sats_last_s", "summary")
+
+    def __init__(self, summary: Topic, satellites: Topic) -> None:
+        self.summary = summary
+        self.satellites = satellites
+        self.sats_last_s = 0.0
+        self.sats_due_s: float | None = None
 
 
 def _version() -> str:
@@ -72,10 +86,9 @@ class TopicProducers:
         self._drained.set()
         self._station_state: dict[str, str] = {}
         self._last_epoch: dict[str, GpsTime] = {}
-        self._last_sats_s: dict[str, float] = {}
-        self._sats_due: dict[str, float] = {}
+        self._routes: dict[str, _StationRoute] = {}
+        self._sats_scheduled = 0  # stations whose satellites message has a due time
         self._last_health_s: float | None = None
-        self._topics: dict[str, tuple[Topic, Topic]] = {}
 
     @property
     def topics(self) -> TopicTree:
@@ -96,19 +109,23 @@ class TopicProducers:
         origin_s: float | None = None,
         station: str = "",
     ) -> None:
-        msg = OutboundMessage(
-            topic=topic,
-            payload=payload,
-            qos=qos,
-            retain=retain,
-            expiry_s=expiry_s,
-            alarm_class=alarm_class,
-            bulk=bulk,
-            queued_s=self._monotonic(),
-            origin_s=origin_s,
-            station=station,
+        self._queue(
+            new_outbound_message(
+                topic=topic,
+                payload=payload,
+                qos=qos,
+                retain=retain,
+                expiry_s=expiry_s,
+                alarm_class=alarm_class,
+                bulk=bulk,
+                queued_s=self._monotonic(),
+                origin_s=origin_s,
+                station=station,
+            )
         )
-        if not self._buffer.put_nowait(msg) and alarm_class:
+
+    def _queue(self, msg: OutboundMessage) -> None:
+        if not self._buffer.put_nowait(msg) and msg.alarm_class:
             log.error(
                 "MQTT alarm buffer full (%d): dropped the oldest alarm/status message",
                 self._buffer.alarm_bound,
@@ -137,13 +154,12 @@ class TopicProducers:
             alarm_class=True,
         )
 
-    def _station_topics(self, station: str) -> tuple[Topic, Topic]:
-        """The summary and satellites topics of a station (validated once, then cached)."""
-        topics = self._topics.get(station)
-        if topics is None:
-            topics = (self._tree.summary(station), self._tree.satellites(station))
-            self._topics[station] = topics
-        return topics
+    def _route(self, station: str) -> _StationRoute:
+        """A station's topics and satellites schedule (made on its first epoch)."""
+        route = self._routes[station] = _StationRoute(
+            self._tree.summary(station), self._tree.satellites(station)
+        )
+        return route
 
     def publish_snapshot_nowait(
         self, snap: StationSnapshot, arrived_s: float | None = None
@@ -151,43 +167,49 @@ class TopicProducers:
         """Queue the epoch summary (and the satellite figures when due) of one station;
         ``arrived_s``: when its epoch's last bytes arrived (for :attr:`on_summary_delivered`)."""
         station = snap.station
-        self._last_epoch[station] = snap.time
+        epoch = snap.time
+        self._last_epoch[station] = epoch
         if self._station_state.get(station) != "online":
             self._set_station_state(station, "online")
-        summary_topic, satellites_topic = self._station_topics(station)
+        route = self._routes.get(station) or self._route(station)
         s = self._s
+        self._queue(
+            new_outbound_message(
+                topic=route.summary,
+                payload=fmt.summary_payload(snap),
+                qos=s.qos_summary,
+                retain=False,
+                expiry_s=s.epoch_expiry_s,
+                alarm_class=False,
+                bulk=False,
+                queued_s=self._monotonic(),
+                origin_s=arrived_s,
+                station=station,
+            )
+        )
+        t = epoch.total_s
+        due = route.sats_due_s
+        if due is not None and route.sats_last_s <= t < due:
+            return  # (most epochs) the satellites message is not due: nothing more to do
+        route.sats_last_s = t
+        gap = s.satellites_interval_s
+        if due is None:
+            # Stagger stations (receivers align epochs to the second): after its first one,
+            # the n-th station's second satellites message waits n mod ⌊interval⌋ seconds
+            # more, so the formatting and sending of 20 stations does not land in the same
+            # second every interval; still at most one per interval.
+            gap += self._sats_scheduled % max(int(gap), 1)
+            self._sats_scheduled += 1
+        route.sats_due_s = t + gap
         self._put(
-            summary_topic,
-            fmt.summary_payload(snap),
-            qos=s.qos_summary,
+            route.satellites,
+            fmt.satellites_payload(snap),
+            qos=s.qos_satellites,
             retain=False,
             alarm_class=False,
             expiry_s=s.epoch_expiry_s,
-            origin_s=arrived_s,
-            station=station,
+            bulk=True,
         )
-        t = snap.time.total_s
-        last = self._last_sats_s.get(station)
-        due = self._sats_due.get(station)
-        if last is None or due is None or t >= due or t < last:
-            self._last_sats_s[station] = t
-            gap = s.satellites_interval_s
-            if due is None:
-                # Stagger stations (receivers align epochs to the second): after its first one,
-                # the n-th station's second satellites message waits n mod ⌊interval⌋ seconds
-                # more, so the formatting and sending of 20 stations does not land in the same
-                # second every interval; still at most one per interval.
-                gap += len(self._sats_due) % max(int(gap), 1)
-            self._sats_due[station] = t + gap
-            self._put(
-                satellites_topic,
-                fmt.satellites_payload(snap),
-                qos=s.qos_satellites,
-                retain=False,
-                alarm_class=False,
-                expiry_s=s.epoch_expiry_s,
-                bulk=True,
-            )
 
     def publish_alarm_states_nowait(self, statuses: Iterable[AlarmStatus]) -> None:
         """Queue the retained state of each alarm (call once at start so every alarm is visible)."""

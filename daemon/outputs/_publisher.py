@@ -245,14 +245,22 @@ class MqttPublisher(TopicProducers):
         buf = self._buffer
         inflight = self._inflight
         window = self._s.publish_window
-        deadline = asyncio.get_running_loop().time() + self._s.timeout_s
+        expiry = self._expiry
+        deadline = None  # read from the loop's clock once a message is sent (often none is)
         while len(inflight) < window:
             msg = buf.take()
             if msg is None:
                 return
+            if deadline is None:
+                deadline = asyncio.get_running_loop().time() + self._s.timeout_s
+            props = None if msg.expiry_s is None else expiry.get(msg.expiry_s)
             try:
                 ack = client.iw_publish(
-                    msg.topic.value, msg.payload, msg.qos, msg.retain, self._props(msg)
+                    msg.topic.value,
+                    msg.payload,
+                    msg.qos,
+                    msg.retain,
+                    props if props is not None else self._props(msg),
                 )
             except TRANSIENT_MQTT_ERRORS as exc:  # the link is down: the session ends
                 if self._failed is None:
