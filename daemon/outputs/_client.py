@@ -206,6 +206,7 @@ class _LeanPaho(mqtt.Client):
 
 #: Linux only; elsewhere the re-arming below is skipped.
 _TCP_QUICKACK: int | None = getattr(socket, "TCP_QUICKACK", None)
+_IPPROTO_TCP = socket.IPPROTO_TCP
 
 
 def _quickack(sock: object) -> None:
@@ -217,8 +218,11 @@ def _quickack(sock: object) -> None:
     pipelined window and nothing more to send, that ACK would wait ~40 ms for the timer."""
     if _TCP_QUICKACK is None or not isinstance(sock, socket.socket):
         return
-    with contextlib.suppress(OSError):
-        sock.setsockopt(socket.IPPROTO_TCP, _TCP_QUICKACK, 1)
+    # (not contextlib.suppress: a context manager object per read)
+    try:  # noqa: SIM105
+        sock.setsockopt(_IPPROTO_TCP, _TCP_QUICKACK, 1)
+    except OSError:
+        pass
 
 
 class QuickAckClient(aiomqtt.Client):
