@@ -42,8 +42,8 @@ def utc_now() -> dt.datetime:
 
 class _StationRoute:
     """What a station's per-epoch messages need, found with one look-up per epoch: its summary and
-    satellites topics (validated once) and the satellites message's schedule (GPS seconds: when
-    the last one was queued and when the next is due; None until the first)."""
+    satellites topics (validated once) and the satellites message's schedule in GPS seconds: when
+    the last one was queued, and when the next is due (None before the first)."""
 
     __slots__ = ("satellites", "sats_due_s", "sats_last_s", "summary")
 
