@@ -368,13 +368,13 @@ class Cn0Baseline:
         """The bands judged this epoch and their drops: the keys ``k`` (ascending) where
         ``drop_db_cells(cells, min_cells=min_cells)[k]`` is finite, and those values, bit for bit.
 
-        Shortcuts (tests/test_alarms_fixed_settle.py, tests/test_alarms_warm_cache.py): the judged
-        bands and their cell counts are kept with the bins, and each band's mean is one Python
-        division of the same sum by the same count (IEEE division, as numpy's), so no 70-band
-        array is filled, tested and gathered. While some cell's bin is cold, which cells are warm
-        is kept too until a cold bin could have turned warm (``_Bins.warm_until``), and the sums
-        are those of drop_db_cells' cold-bin path (cold cells weigh ±0); with no warm cell there
-        is nothing to judge."""
+        Shortcuts (tests/test_alarms_fixed_settle.py, tests/test_alarms_warm_cache.py,
+        tests/test_alarms_steady_bins.py): the judged bands and their cell counts are kept with
+        the bins, and the judged bands' means are the same sums divided by the same counts, so
+        no 70-band array is filled, tested and gathered. While some cell's bin is cold, which
+        cells are warm is kept too until a cold bin could have turned warm
+        (``_Bins.warm_until``), and the sums are those of drop_db_cells' cold-bin path (the
+        warm cells' in order); with no warm cell there is nothing to judge."""
         keys, values = self.judged_drops(cells, min_cells)
         return list(keys), values
 
