@@ -11,11 +11,13 @@ Learning is frozen for a band while its alarm is active or pending, so interfere
 become the new normal. Everything is vectorised over cells (STYLE rule 21).
 """
 
-# size: ~420 lines: the C/N0 baseline's learning and its drop test share the binned
-# cells and their warm/cold bookkeeping.
+# size: ~550 lines: the C/N0 baseline's learning and its drop test share the binned
+# cells and their caches (layout, bins and their elevation bounds, warm/cold bookkeeping).
 from __future__ import annotations
 
+import functools
 import math
+import sys
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
@@ -59,10 +61,44 @@ def band_label(key: int) -> str:
     return f"{_SYSTEMS[key // 10]}{key % 10}"
 
 
-class _Layout:
-    """What depends only on the epoch's cell layout (satellite and signal of each cell)."""
+@functools.cache
+def _bin_bounds(
+    bin_deg: float, n_bins: int
+) -> tuple[npt.NDArray[np.float64], npt.NDArray[np.float64]]:
+    """Per elevation bin ``b``: the bounds ``lo[b] ≤ el < hi[b]`` of the elevations that
+    :meth:`Cn0Baseline.cells` takes as usable and puts in bin ``b`` (``min(⌊el / bin_deg⌋,
+    n_bins − 1)``, the quotient rounded as numpy's division rounds it), exactly.
 
-    __slots__ = ("all_known", "dtypes", "flat0", "key", "known", "sat", "sig")
+    ``lo[b]`` for b ≥ 1 is the least double whose rounded quotient reaches ``b`` (the quotient
+    is monotonic in el, so those above it all reach ``b``); ``lo[0]`` is 0 (−0 passes it, as
+    in ``el ≥ 0``). The last bin takes every finite elevation above it up to ``2⁶¹ · bin_deg``,
+    whose quotients ``astype(intp)`` still truncates (more is absurd: the general path)."""
+    lo = [0.0]
+    for b in range(1, n_bins):
+        x = b * bin_deg
+        while x / bin_deg >= b:
+            x = math.nextafter(x, -math.inf)
+        while x / bin_deg < b:
+            x = math.nextafter(x, math.inf)
+        lo.append(x)
+    top = math.ldexp(bin_deg, 61)
+    hi = [*lo[1:], top if math.isfinite(top) else sys.float_info.max]
+    bounds = np.array(lo, np.float64), np.array(hi, np.float64)
+    for a in bounds:
+        a.flags.writeable = False  # shared by every baseline of this bin width
+    return bounds
+
+
+class _Layout:
+    """What depends only on the epoch's cell layout (satellite and signal of each cell), and the
+    bins of its last epoch whose every cell was usable (``full``), with each cell's elevation
+    bounds for them (``bounds``: lo, hi; None until asked): an epoch whose elevations all fall
+    within them and whose C/N0 are all usable has those bins again, without binning
+    (tests/test_alarms_steady_bins.py)."""
+
+    __slots__ = (
+        "all_known", "bounds", "dtypes", "flat0", "full", "key", "known", "ones", "sat", "sig",
+    )  # fmt: skip
 
     def __init__(
         self, sat: npt.NDArray[np.int16], sig: npt.NDArray[np.uint16], n_bins: int
@@ -74,6 +110,10 @@ class _Layout:
         self.known = (self.key >= 0) & (self.key < N_BAND_KEYS)
         self.all_known = bool(self.known.all())
         self.flat0 = self.key * n_bins
+        self.full: _Bins | None = None
+        self.bounds: tuple[npt.NDArray[np.float64], npt.NDArray[np.float64]] | None = None
+        #: A comparison true for every cell, as bytes (numpy bools are bytes 0/1).
+        self.ones = b"\x01" * sat.shape[0]
 
 
 class _Bins:
@@ -89,7 +129,10 @@ class _Bins:
         "all_warm",
         "bands",
         "bands_min_cells",
+        "base",
+        "base_learned",
         "flat",
+        "flat_cells",
         "judged",
         "min_cells",
         "n_band",
@@ -98,13 +141,21 @@ class _Bins:
         "seen",
         "warm",
         "warm_bands",
+        "warm_key",
         "warm_min_cells",
         "warm_until",
     )
 
-    def __init__(self, flat: bytes) -> None:
+    def __init__(self, flat: bytes, flat_cells: npt.NDArray[np.intp]) -> None:
         self.flat = flat
+        #: The flat indices themselves (read-only), handed out again by the steady-bins path.
+        self.flat_cells = flat_cells
+        flat_cells.flags.writeable = False
         self.all_warm = False
+        #: The baseline gathered at these bins (``_mean_flat.take(flat)``) after the baseline's
+        #: ``base_learned``-th learning call (-1: none), by :meth:`Cn0Baseline.prepare`.
+        self.base: npt.NDArray[np.float64] | None = None
+        self.base_learned = -1
         self.seen: npt.NDArray[np.intp] | None = None
         self.n_seen: npt.NDArray[np.intp] | None = None
         self.n_band: npt.NDArray[np.intp] | None = None
@@ -112,16 +163,18 @@ class _Bins:
         self.judged: npt.NDArray[np.bool_] | None = None
         self.min_cells = -1
         #: The judged band keys (ascending) and their cell counts, for ``bands_min_cells``.
-        self.bands: tuple[list[int], list[int]] | None = None
+        self.bands: _Bands | None = None
         self.bands_min_cells = -1
         #: The cells in warm bins, their number, valid while the baseline's learning calls are
         #: fewer than ``warm_until`` (0: not judged yet).
         self.warm: npt.NDArray[np.bool_] | None = None
         self.n_warm = 0
         self.warm_until = 0
-        #: The bands judged on the warm cells (ascending) and their warm-cell counts (floats, as
-        #: drop_db_cells divides by), for ``warm_min_cells``.
-        self.warm_bands: tuple[list[int], list[float]] | None = None
+        #: The bands judged on the warm cells (ascending) and their warm-cell counts, for
+        #: ``warm_min_cells``.
+        self.warm_bands: _Bands | None = None
+        #: Each cell's band key, warm cells only (cold ones: N_BAND_KEYS, no band).
+        self.warm_key: npt.NDArray[np.intp] | None = None
         self.warm_min_cells = -1
 
 
@@ -139,10 +192,13 @@ class Cn0Cells:
 class Cn0Baseline:
     """Per-band, per-elevation-bin C/N0 baseline of one station (mutable state, pure methods).
 
-    Per-epoch shortcuts (results bit for bit those of the general path; tests/test_alarms_fastpaths.py):
-    band keys are kept while the cell layout repeats; when every cell is usable no cell is
-    gathered; while the cells' bins repeat, the bins seen, their counts and the cells per band
-    are kept, and the warm test is skipped once every bin is warm.
+    Per-epoch shortcuts (results bit for bit those of the general path; tests/test_alarms_fastpaths.py,
+    tests/test_alarms_steady_bins.py): band keys are kept while the cell layout repeats; when
+    every cell is usable no cell is gathered, and when moreover every elevation stays within
+    its bin the bins are not recomputed; while the cells' bins repeat, the bins seen, their
+    counts and the cells per band are kept, and the warm test is skipped once every bin is
+    warm; :meth:`prepare` gathers the baseline for the next epoch ahead (the engine calls it
+    in its deferred step).
     """
 
     __slots__ = (
@@ -207,6 +263,20 @@ class Cn0Baseline:
             or lay.dtypes[1] is not sig.dtype
         ):
             lay = self._layout = _Layout(sat, sig, n_bins)
+        full = lay.full
+        if full is not None:
+            # Steady bins: every elevation within its cell's bounds for the layout's last bins
+            # (finite and ≥ 0 with them) and every C/N0 usable give those bins again, bit for bit.
+            lo, hi = lay.bounds or self._bounds(lay, full)
+            ones = lay.ones
+            if (
+                np.greater_equal(el_deg, lo).tobytes() == ones
+                and np.less(el_deg, hi).tobytes() == ones
+                and np.greater(cn0_dbhz, _ZERO_F32).tobytes() == ones
+                and np.less(cn0_dbhz, _INF_F32).tobytes() == ones
+            ):
+                self._bins = full
+                return Cn0Cells(lay.key, full.flat_cells, cn0_dbhz.astype(np.float64), full)
         bin_deg, last_bin, _ = self._operands
         # Comparisons with NaN are False (no warning): NaN and ±∞ fail one bound each.
         ok = np.greater_equal(el_deg, _ZERO)
@@ -215,7 +285,8 @@ class Cn0Baseline:
         ok &= np.less(cn0_dbhz, _INF_F32)
         if not lay.all_known:
             ok &= lay.known
-        if np.count_nonzero(ok) == ok.shape[0]:  # every cell usable: nothing to gather
+        every = np.count_nonzero(ok) == ok.shape[0]
+        if every:  # every cell usable: nothing to gather
             key, flat0 = lay.key, lay.flat0
             q = np.divide(el_deg, bin_deg)
             cn0 = cn0_dbhz.astype(np.float64)
@@ -230,8 +301,19 @@ class Cn0Baseline:
         packed = flat.tobytes()
         bins = self._bins
         if bins is None or bins.flat != packed:
-            bins = self._bins = _Bins(packed)
+            bins = self._bins = _Bins(packed, flat)
+        if every and lay.full is not bins:
+            lay.full, lay.bounds = bins, None
         return Cn0Cells(key=key, flat=flat, cn0=cn0, bins=bins)
+
+    def _bounds(
+        self, lay: _Layout, full: _Bins
+    ) -> tuple[npt.NDArray[np.float64], npt.NDArray[np.float64]]:
+        """Each cell's elevation bounds for the bins ``full`` of layout ``lay`` (kept there)."""
+        lo_bin, hi_bin = _bin_bounds(self.bin_deg, self._mean.shape[1])
+        b = full.flat_cells - lay.flat0
+        bounds = lay.bounds = lo_bin.take(b), hi_bin.take(b)
+        return bounds
 
     def drop_db(
         self,
@@ -286,13 +368,19 @@ class Cn0Baseline:
         """The bands judged this epoch and their drops: the keys ``k`` (ascending) where
         ``drop_db_cells(cells, min_cells=min_cells)[k]`` is finite, and those values, bit for bit.
 
-        Shortcuts (tests/test_alarms_fixed_settle.py, tests/test_alarms_warm_cache.py): the judged
-        bands and their cell counts are kept with the bins, and each band's mean is one Python
-        division of the same sum by the same count (IEEE division, as numpy's), so no 70-band
-        array is filled, tested and gathered. While some cell's bin is cold, which cells are warm
-        is kept too until a cold bin could have turned warm (``_Bins.warm_until``), and the sums
-        are those of drop_db_cells' cold-bin path (cold cells weigh ±0); with no warm cell there
-        is nothing to judge."""
+        Shortcuts (tests/test_alarms_fixed_settle.py, tests/test_alarms_warm_cache.py,
+        tests/test_alarms_steady_bins.py): the judged bands and their cell counts are kept with
+        the bins, and the judged bands' means are the same sums divided by the same counts, so
+        no 70-band array is filled, tested and gathered. While some cell's bin is cold, which
+        cells are warm is kept too until a cold bin could have turned warm
+        (``_Bins.warm_until``), and the sums are those of drop_db_cells' cold-bin path (the
+        warm cells' in order); with no warm cell there is nothing to judge."""
+        keys, values = self.judged_drops(cells, min_cells)
+        return list(keys), values
+
+    def judged_drops(self, cells: Cn0Cells, min_cells: int) -> tuple[tuple[int, ...], list[float]]:
+        """:meth:`drop_db_bands` with the keys as a tuple (the same tuple while the bins and
+        ``min_cells`` repeat)."""
         bins = cells.bins
         if not bins.all_warm:
             if self._n_learned >= bins.warm_until:
@@ -305,21 +393,35 @@ class Cn0Baseline:
             if n is None:
                 n = bins.n_band = np.bincount(cells.key, minlength=N_BAND_KEYS)
             # A band without cells is never judged (0/0 is NaN in drop_db_cells).
-            judged = (n >= max(min_cells, 1)).nonzero()[0]
-            bands = bins.bands = (judged.tolist(), n.take(judged).tolist())
+            bands = bins.bands = _judged_bands(n, min_cells)
             bins.bands_min_cells = min_cells
-        keys, counts = bands
-        if not keys:
-            return [], []
+        if not bands[0]:
+            return (), []
+        return _band_means(cells.key, self._deviation(cells), bands)
+
+    def _deviation(self, cells: Cn0Cells) -> npt.NDArray[np.float64]:
+        """Baseline − C/N0 per cell (a new array), from the baseline :meth:`prepare` gathered at
+        these bins when nothing was learned since."""
+        bins = cells.bins
+        base = bins.base
+        if base is not None and bins.base_learned == self._n_learned:
+            return np.subtract(base, cells.cn0)
         dev = self._mean_flat.take(cells.flat)
         dev -= cells.cn0
-        # Without minlength the sums stop at the largest band key seen: the same sums.
-        total: list[float] = np.bincount(cells.key, weights=dev).tolist()
-        values = [total[k] / c for k, c in zip(keys, counts, strict=True)]
-        for v in values:
-            if not math.isfinite(v):  # only with absurd inputs: keep the finite ones
-                return _finite_bands(keys, values)
-        return keys[:], values
+        return dev
+
+    def prepare(self, cells: Cn0Cells) -> None:
+        """Work for the next epoch, done ahead (its results are the same without it): gather
+        the baseline as it now is at ``cells``' bins, which the next epoch's cells most often
+        have again, and the elevation bounds of the steady-bins test. Its caller must not write
+        to the baseline's arrays itself before the next epoch (tests do, to make a bin
+        infinite: they do not call this)."""
+        bins = cells.bins
+        bins.base = self._mean_flat.take(cells.flat)
+        bins.base_learned = self._n_learned
+        lay = self._layout
+        if lay is not None and lay.full is bins and lay.bounds is None:
+            self._bounds(lay, bins)
 
     def _judge_warm(self, cells: Cn0Cells) -> None:
         """Which cells are in warm bins now (drop_db_cells' warm test), kept with the bins until
@@ -337,29 +439,29 @@ class Cn0Baseline:
         bins.warm = warm
         bins.n_warm = int(n_warm)
         bins.warm_bands = None
+        bins.warm_key = np.where(warm, cells.key, N_BAND_KEYS)
 
-    def _partly_warm_bands(self, cells: Cn0Cells, min_cells: int) -> tuple[list[int], list[float]]:
+    def _partly_warm_bands(
+        self, cells: Cn0Cells, min_cells: int
+    ) -> tuple[tuple[int, ...], list[float]]:
         """drop_db_bands while some cell's bin is cold (the warm cells as judged last)."""
         bins = cells.bins
         warm = bins.warm
         if bins.n_warm == 0 or warm is None:
-            return [], []  # drop_db_cells: all NaN
+            return (), []  # drop_db_cells: all NaN
         bands = bins.warm_bands
         if bands is None or bins.warm_min_cells != min_cells:
             n_warm_band = np.bincount(cells.key, weights=warm, minlength=N_BAND_KEYS)
             # A band without warm cells is never judged (0/0 is NaN in drop_db_cells).
-            judged = (n_warm_band >= max(min_cells, 1)).nonzero()[0]
-            bands = bins.warm_bands = (judged.tolist(), n_warm_band.take(judged).tolist())
+            bands = bins.warm_bands = _judged_bands(n_warm_band, min_cells)
             bins.warm_min_cells = min_cells
-        keys, counts = bands
-        if not keys:
-            return [], []
-        # drop_db_cells' cold-bin path: cold cells weigh ±0 (x + ±0 = x, no partial sum is −0).
-        dev = self._mean_flat.take(cells.flat)
-        dev -= cells.cn0
-        dev *= warm
-        total: list[float] = np.bincount(cells.key, weights=dev).tolist()
-        return _finite_bands(keys, [total[k] / c for k, c in zip(keys, counts, strict=True)])
+        if not bands[0] or bins.warm_key is None:
+            return (), []
+        # drop_db_cells' cold-bin path sums the warm cells in order, the cold ones weighing ±0
+        # (x + ±0 = x, and no partial sum is −0); here they are summed apart instead (band key
+        # N_BAND_KEYS): the same sums, as the baseline and the usable C/N0 are finite (a
+        # deviation times 0 is ±0, never NaN).
+        return _band_means(bins.warm_key, self._deviation(cells), bands)
 
     def learn(
         self,
@@ -414,11 +516,36 @@ class Cn0Baseline:
         count.put(seen, np.add(c, _ONE_I64))
 
 
-def _finite_bands(keys: list[int], values: list[float]) -> tuple[list[int], list[float]]:
+#: Judged band keys (ascending), the same as an index array, and their cell counts (floats).
+_Bands = tuple[tuple[int, ...], "npt.NDArray[np.intp]", "npt.NDArray[np.float64]"]
+
+
+def _judged_bands(n: npt.NDArray[np.int64] | npt.NDArray[np.float64], min_cells: int) -> _Bands:
+    """The bands with at least ``min_cells`` cells (and one) among counts ``n`` per band key."""
+    judged = (n >= max(min_cells, 1)).nonzero()[0]
+    return tuple(judged.tolist()), judged, n.take(judged).astype(np.float64)
+
+
+def _band_means(
+    key: npt.NDArray[np.intp], dev: npt.NDArray[np.float64], bands: _Bands
+) -> tuple[tuple[int, ...], list[float]]:
+    """The mean of ``dev`` over the cells of each judged band (cells summed in order, as
+    drop_db_cells' bincount sums them, then divided by the count: IEEE division, the same
+    quotient), the finite ones only."""
+    keys, at, counts = bands
+    # Without minlength the sums stop at the largest band key seen: the same sums.
+    values: list[float] = np.divide(np.bincount(key, weights=dev).take(at), counts).tolist()
+    # A sum is finite only if every value is (NaN and ±∞ carry through it; a finite sum
+    # that overflows only costs the filter, which keeps them all).
+    if not math.isfinite(sum(values)):  # only with absurd inputs: keep the finite ones
+        return _finite_bands(keys, values)
+    return keys, values
+
+
+def _finite_bands(
+    keys: tuple[int, ...], values: list[float]
+) -> tuple[tuple[int, ...], list[float]]:
     """The bands whose drop is finite (as drop_db_cells' finite values; a drop is not finite
-    only with absurd inputs), as new lists."""
-    for v in values:
-        if not math.isfinite(v):
-            kept = [(k, x) for k, x in zip(keys, values, strict=True) if math.isfinite(x)]
-            return [k for k, _ in kept], [x for _, x in kept]
-    return keys[:], values
+    only with absurd inputs), the values as a new list."""
+    kept = [(k, x) for k, x in zip(keys, values, strict=True) if math.isfinite(x)]
+    return tuple(k for k, _ in kept), [x for _, x in kept]

@@ -6,9 +6,10 @@ returns the transitions it caused, in order. The caller logs, publishes and expo
 
 Deferred learning: folding an epoch's C/N0 cells into the baseline does not change that epoch's
 evaluation, so :meth:`StationAlarms.observe_snapshot` leaves it pending and :meth:`StationAlarms.settle`
-does it (the runtime calls it once the other stations' urgent work is out). The next
-``observe_snapshot`` settles anything still pending first, so results never depend on whether or
-when ``settle`` ran.
+does it (the runtime calls it once the other stations' urgent work is out), with what else no
+transition of the epoch waits for: recording the CN0 values of a quiet epoch, gathering the
+baseline for the next one. The next ``observe_snapshot`` settles anything still pending first, and
+``statuses`` records pending values, so results never depend on whether or when ``settle`` ran.
 """
 
 from __future__ import annotations
@@ -117,27 +118,71 @@ class StationAlarms:
                 AlarmKind.DUAL_FREQUENCY_LOSS,
             )
         )
+        # The quiet-epoch path of the snapshot alarms: their raise levels (+∞: disabled) and
+        # where their values go (a sink of this engine's own for a disabled one).
+        sink = _Alarm(
+            key="", kind=AlarmKind.ROTI, band="", severity=Severity.ADVISORY,
+            machine=Debouncer(raise_at=math.inf, clear_at=math.inf, raise_after_s=0.0,
+                              clear_after_s=0.0),
+        )  # fmt: skip
+        self._snapshot_sinks = tuple(a or sink for a in self._snapshot_alarms)
+        self._snapshot_raise = tuple(
+            math.inf if a is None else a.machine.raise_at for a in self._snapshot_alarms
+        )
+        #: No snapshot alarm is active or holding a change.
+        self._snapshot_quiet = True
+        self._roti_median = settings.roti_statistic == "median"
+        self._cn0_on = settings.cn0_drop.enabled
+        self._cn0_raise_at = settings.cn0_drop.raise_at
+        self._cn0_min_cells = settings.cn0_baseline.min_cells
         #: The CN0 alarm of each band key (None until the band is first evaluated).
         self._cn0_by_key: list[_Alarm | None] = [None] * N_BAND_KEYS
+        #: The band keys last judged whose alarms all exist, and those alarms.
+        self._cn0_known: tuple[tuple[int, ...], tuple[_Alarm, ...]] = ((), ())
         #: No CN0 alarm is active or pending (nothing frozen; a value below raise_at changes
         #: nothing but the alarm's value).
         self._cn0_quiet = True
-        #: The last snapshot's baseline learning, not yet done: (cells, t_s, frozen bands).
-        self._unlearned: tuple[Cn0Cells, float, npt.NDArray[np.bool_] | None] | None = None
+        #: The last snapshot's deferred part: its baseline learning (cells, t_s, frozen bands)
+        #: and, on a quiet epoch, the CN0 alarms' values to record (alarms, values).
+        self._unlearned: (
+            tuple[
+                Cn0Cells,
+                float,
+                npt.NDArray[np.bool_] | None,
+                tuple[_Alarm, ...] | None,
+                list[float] | None,
+            ]
+            | None
+        ) = None
 
     def unsettled(self) -> bool:
         """Learning is pending: :meth:`settle` has work to do."""
         return self._unlearned is not None
 
     def settle(self) -> None:
-        """Do the deferred part of the last :meth:`observe_snapshot`: fold its C/N0 cells into
-        the baseline (a no-op when nothing is pending). Call it after the urgent work of every
-        station; skipping it only moves the work into the next ``observe_snapshot``."""
+        """Do the deferred part of the last :meth:`observe_snapshot`: record the quiet CN0 alarms'
+        values, fold its C/N0 cells into the baseline and gather the baseline for the next epoch
+        (a no-op when nothing is pending). Call it after the urgent work of every station;
+        skipping it only moves the work into the next ``observe_snapshot`` (:meth:`statuses`
+        records the values itself)."""
         pending = self._unlearned
         if pending is not None:
             self._unlearned = None
-            cells, t_s, frozen = pending
-            self._cn0.learn_cells(cells, t_s, frozen=frozen)
+            cells, t_s, frozen, alarms, values = pending
+            if alarms is not None and values is not None:
+                for alarm, value in zip(alarms, values, strict=True):
+                    alarm.value = value
+            base = self._cn0
+            base.learn_cells(cells, t_s, frozen=frozen)
+            base.prepare(cells)
+
+    def _record_cn0_values(self) -> None:
+        """Record the CN0 values a quiet epoch left to :meth:`settle`, learning still pending."""
+        pending = self._unlearned
+        if pending is not None and pending[3] is not None and pending[4] is not None:
+            for alarm, value in zip(pending[3], pending[4], strict=True):
+                alarm.value = value
+            self._unlearned = (pending[0], pending[1], pending[2], None, None)
 
     def _add(self, key: str, kind: AlarmKind, band: str, cfg: ThresholdAlarm) -> _Alarm:
         alarm = _Alarm(
@@ -215,22 +260,43 @@ class StationAlarms:
         if self._unlearned is not None:
             self.settle()
         out: list[AlarmTransition] = []
-        t = snap.time
-        t_s = t.total_s
-        s = self._settings
-        roti = (
-            snap.roti_median_tecu_per_min
-            if s.roti_statistic == "median"
-            else snap.roti_max_tecu_per_min
-        )
-        values = (
-            roti,
-            snap.rot_max_abs_tecu_per_min,
-            snap.vtec_tecu,
-            abs(snap.gradient_mm_per_km),
-            1.0 - snap.dual_freq_fraction,
-        )
+        t_s = snap.time.total_s
+        roti = snap.roti_median_tecu_per_min if self._roti_median else snap.roti_max_tecu_per_min
+        rot = snap.rot_max_abs_tecu_per_min
+        vtec = snap.vtec_tecu
+        gradient = abs(snap.gradient_mm_per_km)
+        loss = 1.0 - snap.dual_freq_fraction
+        r_roti, r_rot, r_vtec, r_gradient, r_loss = self._snapshot_raise
+        if self._snapshot_quiet and not (
+            roti >= r_roti or rot >= r_rot or vtec >= r_vtec or gradient >= r_gradient
+            or loss >= r_loss
+        ):  # fmt: skip
+            # Shortcut: every alarm normal with no hold, no value reaching raise_at (NaN does
+            # not): Debouncer.step would change nothing (no crossing: the hold stays None, no
+            # flip); only the values are kept.
+            a_roti, a_rot, a_vtec, a_gradient, a_loss = self._snapshot_sinks
+            a_roti.value = roti
+            a_rot.value = rot
+            a_vtec.value = vtec
+            a_gradient.value = gradient
+            a_loss.value = loss
+        else:
+            self._observe_levels(snap, (roti, rot, vtec, gradient, loss), out, t_s)
+        if self._cn0_on and snap.cell_sat.size:
+            self._observe_cn0(snap, out, t_s)
+        return out
+
+    def _observe_levels(
+        self,
+        snap: StationSnapshot,
+        values: tuple[float, float, float, float, float],
+        out: list[AlarmTransition],
+        t_s: float,
+    ) -> None:
+        """The snapshot alarms one by one (some active, holding or reaching raise_at)."""
         step = self._step
+        t = snap.time
+        quiet = True
         for alarm, value in zip(self._snapshot_alarms, values, strict=True):
             if alarm is None:
                 continue
@@ -241,29 +307,27 @@ class StationAlarms:
                 # Shortcut: normal, no hold, below raise_at (or NaN): Debouncer.step would change
                 # nothing (no crossing: the hold stays None, no flip); only the value is kept.
                 alarm.value = value
-        if s.cn0_drop.enabled and snap.cell_sat.size:
-            self._observe_cn0(snap, out, t_s)
-        return out
+            quiet = quiet and not m.active and m.held_since is None
+        self._snapshot_quiet = quiet
 
     def _observe_cn0(self, snap: StationSnapshot, out: list[AlarmTransition], t_s: float) -> None:
         base = self._cn0
         cells = base.cells(snap.cell_sat, snap.cell_sig, snap.cell_el_deg, snap.cell_cn0_dbhz)
         # Bands evaluated this epoch (bounded: at most N_BAND_KEYS); the loops are per band.
-        keys, values = base.drop_db_bands(cells, min_cells=self._settings.cn0_baseline.min_cells)
+        keys, values = base.judged_drops(cells, self._cn0_min_cells)
+        if self._cn0_quiet and (not values or max(values) < self._cn0_raise_at):
+            known_keys, alarms = self._cn0_known
+            if known_keys != keys:
+                found = tuple(self._cn0_by_key[k] for k in keys)
+                if all(found):  # every band known (truth test: no __eq__ call per alarm)
+                    known_keys, alarms = self._cn0_known = (keys, found)  # type: ignore[assignment]
+            if known_keys == keys:
+                # Shortcut: every CN0 machine is normal with no hold and no value reaches
+                # raise_at, so each step would only record the value (Debouncer.step: no
+                # crossing → no hold); settle() records them (statuses() first, if called).
+                self._unlearned = (cells, t_s, None, alarms, values)
+                return
         by_key = self._cn0_by_key
-        alarms = [by_key[k] for k in keys]
-        if (
-            self._cn0_quiet
-            and (not values or max(values) < self._settings.cn0_drop.raise_at)
-            and all(alarms)  # every band known (truth test: no __eq__ call per alarm)
-        ):
-            # Shortcut: every CN0 machine is normal with no hold and no value reaches raise_at,
-            # so each step would only record the value (Debouncer.step: no crossing → no hold).
-            for alarm, value in zip(alarms, values, strict=True):
-                assert alarm is not None
-                alarm.value = value
-            self._unlearned = (cells, t_s, None)
-            return
         for k, value in zip(keys, values, strict=True):
             alarm = by_key[k]
             if alarm is None:
@@ -282,7 +346,7 @@ class StationAlarms:
                     frozen = np.zeros(N_BAND_KEYS, np.bool_)
                 frozen[k] = True
         self._cn0_quiet = frozen is None
-        self._unlearned = (cells, t_s, frozen)
+        self._unlearned = (cells, t_s, frozen, None, None)
 
     def observe_fix(self, fix: FixStatus, time: GpsTime | None = None) -> list[AlarmTransition]:
         """Evaluate the NMEA fix alarms; ``time`` is used when the fix carries none."""
@@ -305,6 +369,7 @@ class StationAlarms:
 
     def statuses(self) -> tuple[AlarmStatus, ...]:
         """The current status of every alarm, in a stable order (built by :func:`_new_status`)."""
+        self._record_cn0_values()
         station = self.station
         active, normal = AlarmState.ACTIVE, AlarmState.NORMAL
         out = []
