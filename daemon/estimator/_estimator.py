@@ -77,7 +77,7 @@ from ._state import (
     N,
     new_state,
 )  # fmt: skip
-from ._station import SkyTerms, station_figures
+from ._station import SkyTerms, station_values
 from ._windows import LagRing, SlotStd
 
 if TYPE_CHECKING:
@@ -360,11 +360,11 @@ class StationEstimator:
         up = el_all > _ZERO
         if _count_nonzero(up) != m:
             vtec[~up] = np.nan
-        st = station_figures(
+        (vtec_st, roti_max, roti_med, rot_max, g_tecu, g_mm, g_az) = station_values(
             el_rad=el_all, sin_el=sin_all, el_known=el_known, pts=pts, rot=rot, roti=roti,
-            mask_rad=self._mask_rad,
+            mask_rad=self._mask_rad, scratch=self._sky.scratch,
         )  # fmt: skip
-        self._last_roti_median = st.roti_median
+        self._last_roti_median = roti_med
         # The snapshot reports the receiver bias that was applied to this epoch's STEC.
         bias_ref, sigma_ref = self.biases.reference()
         if self.biases.due(t):
@@ -427,13 +427,13 @@ class StationEstimator:
             station=self.station,
             time=epoch.time,
             n_sats=m,
-            vtec_tecu=st.vtec_tecu,
-            roti_max_tecu_per_min=st.roti_max,
-            roti_median_tecu_per_min=st.roti_median,
-            rot_max_abs_tecu_per_min=st.rot_max_abs,
-            gradient_mm_per_km=st.gradient_mm_per_km,
-            gradient_tecu_per_km=st.gradient_tecu_per_km,
-            gradient_azimuth_deg=st.gradient_azimuth_deg,
+            vtec_tecu=vtec_st,
+            roti_max_tecu_per_min=roti_max,
+            roti_median_tecu_per_min=roti_med,
+            rot_max_abs_tecu_per_min=rot_max,
+            gradient_mm_per_km=g_mm,
+            gradient_tecu_per_km=g_tecu,
+            gradient_azimuth_deg=g_az,
             dual_freq_fraction=float(lay.idx.shape[0] / m) if m else math.nan,
             receiver_bias_tecu=bias_ref,
             receiver_bias_sigma_tecu=sigma_ref,

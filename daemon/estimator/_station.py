@@ -17,12 +17,17 @@ import numpy.typing as npt
 from ionwarden.daemon._records import fast_constructor
 from ionwarden.daemon.geo import DEFAULT_EARTH_RADIUS_M
 
+from ._npfast import count_nonzero as _count_nonzero
+
 __all__ = [
     "GPS_L1_M_PER_TECU",
+    "FitScratch",
     "SkyTerms",
     "StationFigures",
+    "StationValues",
     "pierce_offsets_km",
     "station_figures",
+    "station_values",
 ]
 
 F64 = npt.NDArray[np.float64]
@@ -47,6 +52,28 @@ class StationFigures:
 
 
 _new_station_figures = fast_constructor(StationFigures)
+
+
+class FitScratch:
+    """Outputs of :func:`station_values`' numpy calls, kept by each estimator (a given output
+    costs less than a new array and, for the weighted means, the ``[:, None]`` view): the sum
+    of the weights (0-d), the weighted means of x, y, VTEC as a column (and flat: the
+    matrix-vector product writes them), and the plane fit's 3 × 3 sums (and flat: one list).
+    Per estimator, not per module: BLAS calls release the GIL. Copies and pickles are new
+    scratch (a copied view would be an independent array; every buffer is written before it is
+    read)."""
+
+    __slots__ = ("means", "means_flat", "sums", "sums_flat", "w_sum")
+
+    def __init__(self) -> None:
+        self.w_sum = np.array(0.0)
+        self.means = np.empty((3, 1))
+        self.means_flat = self.means[:, 0]  # (contiguous)
+        self.sums = np.empty((3, 3))
+        self.sums_flat = self.sums.reshape(9)
+
+    def __reduce__(self) -> tuple[type[FitScratch], tuple[()]]:
+        return FitScratch, ()
 
 
 def pierce_offsets_km(
@@ -75,6 +102,8 @@ class SkyTerms:
         self._lat = math.nan
         self._lon_lat = np.full((2, 1), np.nan)  # the same as a column
         self._cos_lat = np.array(np.nan)
+        #: The station figures' scratch outputs (:func:`station_values`).
+        self.scratch = FitScratch()
 
     def mapping(self, el_rad: F64) -> F64:
         """M(el) = 1/√(1 − (R·cos el/(R + h))²) (SCIENCE.md §6)."""
@@ -106,7 +135,33 @@ class SkyTerms:
 def station_figures(
     *, el_rad: F64, sin_el: F64, el_known: bool, pts: F64, rot: F64, roti: F64, mask_rad: float
 ) -> StationFigures:
-    """Station summary over satellites at or above ``mask_rad`` (all when elevation is unknown).
+    """Station summary over satellites at or above ``mask_rad`` (:func:`station_values`)."""
+    v = station_values(
+        el_rad=el_rad, sin_el=sin_el, el_known=el_known, pts=pts, rot=rot, roti=roti,
+        mask_rad=mask_rad, scratch=FitScratch(),
+    )  # fmt: skip
+    return _new_station_figures(
+        vtec_tecu=v[0],
+        roti_max=v[1],
+        roti_median=v[2],
+        rot_max_abs=v[3],
+        gradient_tecu_per_km=v[4],
+        gradient_mm_per_km=v[5],
+        gradient_azimuth_deg=v[6],
+    )
+
+
+#: The fields of :class:`StationFigures`, in their order.
+StationValues = tuple[float, float, float, float, float, float, float]
+
+
+def station_values(
+    *, el_rad: F64, sin_el: F64, el_known: bool, pts: F64, rot: F64, roti: F64, mask_rad: float,
+    scratch: FitScratch,
+) -> StationValues:  # fmt: skip
+    """Station summary over satellites at or above ``mask_rad`` (all when elevation is unknown):
+    the fields of :class:`StationFigures` as a tuple (the estimator reads them once: building
+    the record cost more than it saved).
 
     ``sin_el`` is sin(el_rad); ``el_known``: no elevation is NaN (and the pierce points are
     known); ``pts`` (3, m): pierce-point offsets x, y (km; x and y from the same pierce point)
@@ -145,23 +200,21 @@ def station_figures(
     # The weights of the VTEC mean are the plane fit's too unless an x is NaN.
     vtec = pts[2]
     if el_known:  # pierce points of known elevations are finite: x, y are
-        # First as if every VTEC above the mask were finite (use = above): a finite weighted
-        # sum says they are, as each of its terms is finite (the weights are in [0, 1]: a NaN
-        # or infinite VTEC makes its term, and so the sum, NaN or infinite).
-        i_use, n_use = i_above, n_above
-        vu = vtec if i_above is None else vtec.take(i_above)
-        wu = _weights(sin_el, w, i_above)
-        wu_sum = np.add.reduce(wu)  # wu.sum() without its Python wrapper
+        # ``use`` is ``above`` unless a VTEC is not finite, which one isfinite over all of them
+        # tells: satellites with an unknown STEC (on the simulator's quiet day, three GLONASS
+        # ones without a bias) have a NaN VTEC every epoch, and finding that out from a NaN
+        # weighted sum, as before, cost that sum and its operands twice.
+        fin = np.isfinite(vtec)
+        if _count_nonzero(fin) == m:
+            i_use, n_use = i_above, n_above
+        else:
+            np.logical_and(fin, above, fin)
+            i_use = fin.nonzero()[0]
+            n_use = i_use.shape[0]
+        vu = vtec if i_use is None else vtec.take(i_use)
+        wu = _weights(sin_el, w, i_use)
+        wu_sum = np.add.reduce(wu, 0, None, out=scratch.w_sum)  # wu.sum(), 0-d (tested)
         dot = wu.dot(vu)  # ndarray.dot runs the BLAS call of ``@`` (tested)
-        if not math.isfinite(dot):
-            fin_u = np.isfinite(vu)
-            n_use = int(np.count_nonzero(fin_u))  # (the rare path)
-            if n_use < n_above:
-                i_use = fin_u.nonzero()[0] if i_above is None else i_above[fin_u]
-                vu = vu[fin_u]
-                wu = wu[fin_u]
-                wu_sum = np.add.reduce(wu)
-                dot = wu.dot(vu)
         fit_is_use = True
     else:
         fin = np.isfinite(pts[::2])
@@ -174,9 +227,12 @@ def station_figures(
             i_use = None
         vu = vtec if i_use is None else vtec.take(i_use)
         wu = _weights(sin_el, w, i_use)
-        wu_sum = np.add.reduce(wu)
+        wu_sum = np.add.reduce(wu, 0, None, out=scratch.w_sum)
         dot = wu.dot(vu)
-    vtec_st = float(dot / wu_sum) if n_use else math.nan
+    vtec_st = math.nan
+    if n_use:  # Python floats divide as numpy's do, but raise on a zero sum: numpy's NaN then
+        s_w = float(wu_sum)
+        vtec_st = float(dot) / s_w if s_w else float(dot / wu_sum)
     roti_max, roti_med = _max_median(roti, i_above)
     rot_max = _max_abs(rot, i_above)
 
@@ -188,24 +244,17 @@ def station_figures(
         n_fit = i_fit.shape[0]
     if n_fit >= 4:
         if i_fit is None:  # every satellite
-            ge, gn = _plane_slopes(wu, pts, wu_sum)
+            ge, gn = _plane_slopes(scratch, wu, pts, wu_sum)
         elif n_fit == n_use:  # fit is use: the weights and their sum of the VTEC mean
-            ge, gn = _plane_slopes(wu, _columns(pts, i_fit), wu_sum, own=True)
+            ge, gn = _plane_slopes(scratch, wu, _columns(pts, i_fit), wu_sum, own=True)
         else:
-            ge, gn = _plane_slopes(_weights(sin_el, w, i_fit), _columns(pts, i_fit), own=True)
+            w_fit = _weights(sin_el, w, i_fit)
+            ge, gn = _plane_slopes(scratch, w_fit, _columns(pts, i_fit), own=True)
         if math.isfinite(ge):
             g_t = math.hypot(ge, gn)
             g_mm = g_t * GPS_L1_M_PER_TECU * 1000.0
             g_az = math.degrees(math.atan2(ge, gn)) % 360.0
-    return _new_station_figures(
-        vtec_tecu=vtec_st,
-        roti_max=roti_max,
-        roti_median=roti_med,
-        rot_max_abs=rot_max,
-        gradient_tecu_per_km=g_t,
-        gradient_mm_per_km=g_mm,
-        gradient_azimuth_deg=g_az,
-    )
+    return vtec_st, roti_max, roti_med, rot_max, g_t, g_mm, g_az
 
 
 def _max_median(roti: F64, idx: Idx | None) -> tuple[float, float]:
@@ -278,19 +327,23 @@ def _columns(xyv: F64, idx: Idx) -> F64:
 
 
 def _plane_slopes(
-    w: F64, xyv: F64, w_sum: np.float64 | None = None, *, own: bool = False
-) -> tuple[float, float]:
+    scratch: FitScratch, w: F64, xyv: F64, w_sum: npt.NDArray[np.float64] | None = None, *,
+    own: bool = False,
+) -> tuple[float, float]:  # fmt: skip
     """Slopes (∂v/∂x, ∂v/∂y) of the weighted least-squares plane v = c + gx·x + gy·y through
     the points ``xyv`` (rows x, y, v) with weights ``w`` (``w_sum``: their sum, if known;
-    ``own``: ``xyv`` is a scratch copy, centred in place).
+    ``own``: ``xyv`` is a scratch copy, centred in place); the means and sums go to ``scratch``.
 
     Centred on the weighted means, the normal equations reduce to 2 × 2, solved in closed form;
     NaN when the points lie (nearly) on one line.
     """
-    mean = xyv.dot(w)  # ndarray.dot: the BLAS calls of ``@`` (tested)
+    mean = scratch.means_flat
+    xyv.dot(w, mean)  # ndarray.dot: the BLAS calls of ``@`` (tested), into ``mean``
     mean /= np.add.reduce(w) if w_sum is None else w_sum
-    c = np.subtract(xyv, mean[:, None], xyv) if own else np.subtract(xyv, mean[:, None])
-    (sxx, sxy, sxv), (_, syy, syv), _ = (c * w).dot(c.T).tolist()
+    col = scratch.means  # ``mean`` as a column
+    c = np.subtract(xyv, col, xyv) if own else np.subtract(xyv, col)
+    (c * w).dot(c.T, scratch.sums)
+    sxx, sxy, sxv, _, syy, syv, _, _, _ = scratch.sums_flat.tolist()
     det = sxx * syy - sxy * sxy
     if not det > 1e-9 * sxx * syy:
         return math.nan, math.nan
