@@ -5,8 +5,9 @@ estimate task becomes ready in the same loop iteration. asyncio runs all ready c
 polls sockets again, so without a lane the 20 steps run back to back and the MQTT publisher, its
 socket writes and the broker's PUBACKs wait for the whole burst: the first station's summary is
 acknowledged only after the last station's estimation. With the lane, a step takes its turn and
-hands the lane on in the *next* loop iteration (``call_soon``), so each iteration runs one step
-and then polls I/O: publishing proceeds between steps.
+hands the lane on in the *next* loop iteration (``call_soon``, or the waiter's ``set_result``,
+which schedules it so), so each iteration runs one step and then polls I/O: publishing proceeds
+between steps.
 
 Two classes of step: *urgent* ones (bytes in → snapshot → publish: what a user waits for) and
 *background* ones (work the published figures do not depend on, such as a station's periodic
@@ -57,6 +58,19 @@ class StepLane:
 
     def done(self) -> None:
         """The step ended: the lane goes to the next waiter in the next loop iteration."""
+        urgent = self._urgent
+        while urgent:
+            fut = urgent.popleft()
+            if not fut.done():  # skip waiters cancelled meanwhile
+                # Handed now, it resumes in the next iteration all the same (``set_result``
+                # schedules its task with ``call_soon``), after that iteration's poll of I/O; the
+                # first live urgent waiter is whom ``_hand_on`` would pick then too (later ones
+                # queue behind it; one cancelled meanwhile passes the lane on in ``turn``). Saves
+                # a callback and a whole loop iteration per step of a burst.
+                fut.set_result(None)  # the lane stays busy: it is theirs now
+                return
+        # No urgent step waits: one may still come before the next iteration (an ingest task
+        # woken in this one) and would go before any background waiter, so decide then.
         asyncio.get_running_loop().call_soon(self._hand_on)
 
     def _hand_on(self) -> None:
