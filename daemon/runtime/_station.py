@@ -435,15 +435,17 @@ class StationRunner:
                         delay = self._step(chunk, arrived)
                         if self.core.frames_total() > frames_before:
                             self._detector.saw_frame(loop.time())
-                    finally:
+                        unsettled = self._unsettled()
+                    except BaseException:
                         if lane is not None:
                             lane.done()
-                    if self._unsettled():
+                        raise
+                    if unsettled:
                         # The deferred part of the step (receiver-bias fit, messages after the
                         # epoch) after every urgent step waiting: the snapshot just emitted does
                         # not depend on it (StepLane, StationPipeline.settle).
                         if lane is not None:
-                            await lane.turn(background=True)
+                            await lane.done_then_turn(background=True)
                         else:
                             await asyncio.sleep(0)  # the outputs go out first
                         try:
@@ -451,6 +453,8 @@ class StationRunner:
                         finally:
                             if lane is not None:
                                 lane.done()
+                    elif lane is not None:
+                        lane.done()
                     if delay > 0:  # replay pacing is planned idleness, not a stuck pipeline
                         self._progress = loop.time() + delay
                         await asyncio.sleep(delay)
