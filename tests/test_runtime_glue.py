@@ -84,9 +84,8 @@ def test_step_lane_passes_on_when_a_waiter_is_cancelled():
         await w2  # w2 got the lane
         w3 = asyncio.get_running_loop().create_task(lane.turn(), name="daemon.estimate[w3]")
         await asyncio.sleep(0)
-        lane.done()  # hand it to w3 ...
-        await asyncio.sleep(0)
-        w3.cancel()  # ... which is cancelled after being handed the lane
+        lane.done()  # hand it to w3 (handed at once: its task resumes in the next iteration) ...
+        w3.cancel()  # ... which is cancelled after being handed the lane, before it resumes
         for _ in range(3):
             await asyncio.sleep(0)
         assert w1.cancelled()

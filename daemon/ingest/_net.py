@@ -8,11 +8,14 @@ from __future__ import annotations
 import asyncio
 import logging
 from collections import deque
-from typing import Self
+from typing import TYPE_CHECKING, Self
 
 from ionwarden.daemon.errors import TransportError
 
 from ._transport import SourceUnavailableError, map_transport_errors
+
+if TYPE_CHECKING:
+    from collections.abc import Callable
 
 __all__ = ["TcpListenTransport", "TcpTransport", "UdpTransport"]
 
@@ -55,6 +58,20 @@ class TcpTransport:
             with map_transport_errors(f"{self._what}: read"):
                 raise
 
+    def start_push(self, deliver: Callable[[bytes], None]) -> asyncio.Future[bool] | None:
+        """From now on hand each chunk the connection receives to ``deliver`` as it arrives, in
+        the event loop's I/O callback, instead of keeping it for :meth:`read` (not to be called
+        after that): no reading task is woken per chunk. Call it only right after a read that
+        returned fewer bytes than asked (nothing left buffered). Returns the connection's end, a
+        future: True at EOF, or the error of a read (translated as :meth:`read` does); ``None``
+        (nothing changed) when the stream has already ended: :meth:`read` tells how."""
+        if self._closed or self._reader.at_eof() or self._reader.exception() is not None:
+            return None
+        transport = self._writer.transport
+        ended: asyncio.Future[bool] = asyncio.get_running_loop().create_future()
+        transport.set_protocol(_Pushing(transport.get_protocol(), deliver, ended, self._what))
+        return ended
+
     async def write(self, data: bytes) -> None:
         """Send bytes upstream (NTRIP request, GGA upline); waits while the socket buffer is full."""
         with map_transport_errors(f"{self._what}: write"):
@@ -74,6 +91,52 @@ class TcpTransport:
             self._writer.transport.abort()
         except OSError as exc:  # a socket that already broke cannot fail to close in a useful way
             log.debug("%s: close: %s", self._what, exc)
+
+
+class _Pushing(asyncio.Protocol):
+    """A connection's protocol once :meth:`TcpTransport.start_push` was called: received bytes go
+    to ``deliver``, the end to ``ended``; everything else still reaches the stream's own protocol
+    (``inner``), so that closing and writing work as before."""
+
+    def __init__(
+        self,
+        inner: asyncio.BaseProtocol,
+        deliver: Callable[[bytes], None],
+        ended: asyncio.Future[bool],
+        what: str,
+    ):
+        assert isinstance(inner, asyncio.Protocol)
+        self._inner, self._deliver, self._ended, self._what = inner, deliver, ended, what
+
+    def data_received(self, data: bytes) -> None:
+        self._deliver(data)
+
+    def eof_received(self) -> bool | None:
+        self._end(None)
+        return self._inner.eof_received()
+
+    def connection_lost(self, exc: Exception | None) -> None:
+        self._end(exc)
+        self._inner.connection_lost(exc)
+
+    def pause_writing(self) -> None:
+        self._inner.pause_writing()
+
+    def resume_writing(self) -> None:
+        self._inner.resume_writing()
+
+    def _end(self, exc: Exception | None) -> None:
+        ended = self._ended
+        if ended.done():
+            return
+        if exc is None:
+            ended.set_result(True)
+            return
+        try:
+            with map_transport_errors(f"{self._what}: read"):  # as TcpTransport.read would
+                raise exc
+        except Exception as err:  # (handed to whoever waits for the end)
+            ended.set_exception(err)
 
 
 class TcpListenTransport:
@@ -128,6 +191,12 @@ class TcpListenTransport:
             raise TransportError(f"{self._what}: read after close")
         peer = await asyncio.shield(self._peer)
         return await peer.read(max_bytes)
+
+    def start_push(self, deliver: Callable[[bytes], None]) -> asyncio.Future[bool] | None:
+        """As :meth:`TcpTransport.start_push`, on the connected receiver (None before one)."""
+        if self._closed or not self._peer.done() or self._peer.cancelled():
+            return None
+        return self._peer.result().start_push(deliver)
 
     async def aclose(self) -> None:
         if self._closed:

@@ -5,8 +5,9 @@ estimate task becomes ready in the same loop iteration. asyncio runs all ready c
 polls sockets again, so without a lane the 20 steps run back to back and the MQTT publisher, its
 socket writes and the broker's PUBACKs wait for the whole burst: the first station's summary is
 acknowledged only after the last station's estimation. With the lane, a step takes its turn and
-hands the lane on in the *next* loop iteration (``call_soon``), so each iteration runs one step
-and then polls I/O: publishing proceeds between steps.
+hands the lane on in the *next* loop iteration (``call_soon``, or the waiter's ``set_result``,
+which schedules it so), so each iteration runs one step and then polls I/O: publishing proceeds
+between steps.
 
 Two classes of step: *urgent* ones (bytes in → snapshot → publish: what a user waits for) and
 *background* ones (work the published figures do not depend on, such as a station's periodic
@@ -25,16 +26,39 @@ from collections import deque
 __all__ = ["StepLane"]
 
 
+def _first_live(waiters: deque[asyncio.Future[bool]]) -> asyncio.Future[bool] | None:
+    """Take the first waiter not cancelled meanwhile off ``waiters`` (None: there is none)."""
+    while waiters:
+        fut = waiters.popleft()
+        if not fut.done():
+            return fut
+    return None
+
+
 class StepLane:
     """``await lane.turn()`` before a step, ``lane.done()`` after it (always, e.g. ``finally``);
-    ``await lane.turn(background=True)`` for a step that may wait for every urgent one."""
+    ``await lane.turn(background=True)`` for a step that may wait for every urgent one, and
+    ``await lane.done_then_turn(background=True)`` for one that follows the step just done.
+
+    How the lane is handed on: the decision "who is next" belongs to the next loop iteration (a
+    step may still come to wait in this one, and an urgent one would go first). ``done()`` takes
+    it at once only where the next iteration cannot decide otherwise, and hands the lane straight
+    to the waiter (``set_result``: its task resumes in the next iteration, after that iteration's
+    poll of I/O, at the place in it where the decision would have been taken): to the first
+    urgent waiter (later ones queue behind it), else to the first background waiter, which on
+    resuming looks again for an urgent waiter come meanwhile and, finding one, hands the lane on
+    to it and waits again at the head of its class. Only with nobody waiting is the decision
+    left to a callback in the next iteration (:meth:`_hand_on`), which frees the lane when still
+    nobody waits. Each direct hand-over saves that callback and a whole loop iteration."""
 
     __slots__ = ("_background", "_busy", "_urgent")
 
     def __init__(self) -> None:
         self._busy = False
-        self._urgent: deque[asyncio.Future[None]] = deque()
-        self._background: deque[asyncio.Future[None]] = deque()
+        # A waiter's result: True when done() handed it the lane (a background waiter then looks
+        # for an urgent one come meanwhile), False when _hand_on did (decided in its iteration).
+        self._urgent: deque[asyncio.Future[bool]] = deque()
+        self._background: deque[asyncio.Future[bool]] = deque()
 
     @property
     def waiting(self) -> int:
@@ -46,24 +70,54 @@ class StepLane:
         if not self._busy:  # a free lane has no live waiter (each is handed it on release)
             self._busy = True
             return
-        fut: asyncio.Future[None] = asyncio.get_running_loop().create_future()
+        fut: asyncio.Future[bool] = asyncio.get_running_loop().create_future()
         (self._background if background else self._urgent).append(fut)
-        try:
-            await fut
-        except asyncio.CancelledError:
-            if fut.done() and not fut.cancelled():  # handed the lane, then cancelled: pass it on
-                self.done()
-            raise
+        await self._wait(fut, background)
+
+    async def done_then_turn(self, *, background: bool = False) -> None:
+        """``done()``, then ``await turn(background=...)``, in the same order of turns; but when
+        no other step waits, the lane comes back one loop iteration sooner (handed straight to
+        this waiter by ``done()``)."""
+        fut: asyncio.Future[bool] = asyncio.get_running_loop().create_future()
+        (self._background if background else self._urgent).append(fut)
+        self.done()
+        await self._wait(fut, background)
+
+    async def _wait(self, fut: asyncio.Future[bool], background: bool) -> None:
+        while True:
+            try:
+                if fut.done():  # handed by this step's own done(): its turn is in the next
+                    await asyncio.sleep(0)  # iteration all the same (at that same place in it)
+                    direct = fut.result()
+                else:
+                    direct = await fut
+            except asyncio.CancelledError:
+                # handed the lane, then cancelled: pass it on
+                if fut.done() and not fut.cancelled():
+                    self.done()
+                raise
+            if not (direct and background):
+                return
+            urgent = _first_live(self._urgent)
+            if urgent is None:
+                return
+            # An urgent step came to wait between done() and now, where _hand_on would have
+            # chosen it: it goes first, and this step waits again at the head of its class.
+            urgent.set_result(False)
+            fut = asyncio.get_running_loop().create_future()
+            self._background.appendleft(fut)
 
     def done(self) -> None:
         """The step ended: the lane goes to the next waiter in the next loop iteration."""
-        asyncio.get_running_loop().call_soon(self._hand_on)
+        fut = _first_live(self._urgent) or _first_live(self._background)
+        if fut is not None:
+            fut.set_result(True)  # the lane stays busy: it is theirs now
+        else:  # nobody waits yet: decide in the next iteration
+            asyncio.get_running_loop().call_soon(self._hand_on)
 
     def _hand_on(self) -> None:
-        for waiters in (self._urgent, self._background):
-            while waiters:
-                fut = waiters.popleft()
-                if not fut.done():  # skip waiters cancelled meanwhile
-                    fut.set_result(None)  # the lane stays busy: it is theirs now
-                    return
-        self._busy = False
+        fut = _first_live(self._urgent) or _first_live(self._background)
+        if fut is not None:
+            fut.set_result(False)  # the lane stays busy: it is theirs now
+        else:
+            self._busy = False

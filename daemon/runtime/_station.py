@@ -180,6 +180,8 @@ class StationRunner:
         self._progress = now
         self._pipeline_errors = self._pipeline_resets = self._failing_steps = 0
         self._log_limit: dict[str, tuple[float, int]] = {}  # key -> (last logged, suppressed)
+        #: The end of the connection whose chunks the transport pushes (None: it is read).
+        self._ended: asyncio.Future[bool] | None = None
 
     # -- state ------------------------------------------------------------------------------------
     @property
@@ -302,6 +304,11 @@ class StationRunner:
         watch = StallTimer(det, loop, task)
         read, size, queue = transport.read, self._read_size, self.queue
         waits = queue.policy is Overflow.WAIT  # else the put never waits: no coroutine for it
+        # A transport that can push its chunks (TCP) does, once a read has emptied its buffer:
+        # then no task wakes up per chunk (_pushed). Not with WAIT: a push cannot wait.
+        push: Callable[[Callable[[bytes], None]], asyncio.Future[bool] | None] | None = (
+            None if waits else getattr(transport, "start_push", None)
+        )
         try:
             while True:
                 deadline = det.deadline()
@@ -327,15 +334,7 @@ class StationRunner:
                 if data is None or data:
                     kind = det.check(now)
                     if kind is not None:
-                        quiet = (
-                            now
-                            - {
-                                StallKind.NO_DATA: det.last_data,
-                                StallKind.NO_FRAME: det.last_frame,
-                                StallKind.NO_EPOCH: det.last_epoch,
-                            }[kind]
-                        )
-                        raise _StalledError(kind, quiet)
+                        raise self._stalled(kind, now)
                 if data is None:
                     continue
                 if not data:
@@ -345,11 +344,70 @@ class StationRunner:
                 det.saw_data(now)
                 if waits:
                     await queue.put((now, data))
-                else:
-                    queue.put_nowait((now, data))
-                det.saw_data(loop.time())  # time spent waiting on our own queue is not the source's
+                    det.saw_data(loop.time())  # time spent waiting on our queue is not the source's
+                    continue
+                queue.put_nowait((now, data))
+                if push is not None and len(data) < size:  # nothing left buffered: switch
+                    self._ended = push(self._received)
+                    if self._ended is not None:
+                        return await self._pushed(self._ended, watch)
         finally:
+            self._ended = None
             watch.close()
+
+    def _stalled(self, kind: StallKind, now: float) -> _StalledError:
+        det = self._detector
+        last = {
+            StallKind.NO_DATA: det.last_data,
+            StallKind.NO_FRAME: det.last_frame,
+            StallKind.NO_EPOCH: det.last_epoch,
+        }[kind]
+        return _StalledError(kind, now - last)
+
+    async def _pushed(self, ended: asyncio.Future[bool], watch: StallTimer) -> bool:
+        """The rest of :meth:`_pump` once the transport pushes its chunks (``start_push``): they
+        go to :meth:`_received` as they arrive, and this task only waits for the connection's
+        end under the same stall limits (one wake-up per connection instead of one per chunk)."""
+        if self._detector.deadline() == _INF:
+            return await ended
+        watch.arm(self._detector.deadline())  # (re-armed by the timer while no stall is in force)
+        try:
+            return await ended
+        except BaseException as exc:
+            watch.reading = False
+            if not (watch.fired and watch.took(exc)):
+                raise
+        # The stall limit interrupted the wait (a verdict that stands: only _received moves the
+        # detector, and it stops at the end, which the timer's cancellation is).
+        now = self._loop.time()
+        kind = self._detector.check(now)
+        assert kind is not None
+        raise self._stalled(kind, now)
+
+    def _received(self, data: bytes) -> None:
+        """A chunk pushed by the transport (in its I/O callback): what :meth:`_pump` does with a
+        chunk it read, errors included, which end the connection as a read's would."""
+        ended = self._ended
+        if ended is None or ended.done():  # the end is decided: the rest goes with the connection
+            return
+        try:
+            now = self._loop.time()
+            det = self._detector
+            kind = det.check(now)
+            if kind is not None:
+                ended.set_exception(self._stalled(kind, now))
+                return
+            self._bytes += len(data)
+            self._last_data = now
+            det.saw_data(now)
+            size = self._read_size
+            if len(data) <= size:
+                self.queue.put_nowait((now, data))
+            else:  # in read-sized chunks, as reads would have handed them out
+                for i in range(0, len(data), size):
+                    self.queue.put_nowait((now, data[i : i + size]))
+        except Exception as exc:  # raised in the ingest task (rule 10), as a read's would be
+            ended.set_exception(exc)
 
     # -- estimate ---------------------------------------------------------------------------------
     async def estimate_loop(self) -> None:
@@ -377,15 +435,17 @@ class StationRunner:
                         delay = self._step(chunk, arrived)
                         if self.core.frames_total() > frames_before:
                             self._detector.saw_frame(loop.time())
-                    finally:
+                        unsettled = self._unsettled()
+                    except BaseException:
                         if lane is not None:
                             lane.done()
-                    if self._unsettled():
+                        raise
+                    if unsettled:
                         # The deferred part of the step (receiver-bias fit, messages after the
                         # epoch) after every urgent step waiting: the snapshot just emitted does
                         # not depend on it (StepLane, StationPipeline.settle).
                         if lane is not None:
-                            await lane.turn(background=True)
+                            await lane.done_then_turn(background=True)
                         else:
                             await asyncio.sleep(0)  # the outputs go out first
                         try:
@@ -393,6 +453,8 @@ class StationRunner:
                         finally:
                             if lane is not None:
                                 lane.done()
+                    elif lane is not None:
+                        lane.done()
                     if delay > 0:  # replay pacing is planned idleness, not a stuck pipeline
                         self._progress = loop.time() + delay
                         await asyncio.sleep(delay)
