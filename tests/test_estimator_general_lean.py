@@ -275,6 +275,37 @@ def test_slip_general_path_equals_previous_general_path(seed: int) -> None:
     assert commons >= 20
 
 
+@pytest.mark.parametrize("seed", [1, 2])
+def test_slip_single_dt_shortcut_equals_per_row_dt(seed: int) -> None:
+    """ArcState.detect taking one dt for all rows (every last_t the previous epoch's time) updates its block and starts the same arcs as computing dt row by row, through gaps and arc starts (source: the general path (oracle), ``ArcBlock.t_all`` forgotten before each call)."""
+    d = 9
+    th = SlipThresholds()
+    rng = np.random.default_rng(200 + seed)
+    g_fast = _block(d, th, rng)
+    g_slow = g_fast.copy()
+    fast_st, slow_st = ArcState(th), ArcState(th)
+    b_fast, b_slow = ArcBlock(g_fast), ArcBlock(g_slow)
+    no_new = np.zeros(d, np.bool_)
+    no_new.setflags(write=False)
+    shortcuts = starts = 0
+    for t, gf_mw, cur, lli, el in _epochs(seed, d, 160):
+        kw = {"t": np.array(t), "gf_mw": gf_mw, "el_rad": el, "el_known": False,
+              "lli_lost": lli, "gap_s": 30.0, "no_new": no_new}  # fmt: skip
+        tracked = bool(np.all(g_fast[N] >= 2.0))
+        shortcuts += b_fast.t_all is not None
+        b_slow.t_all = None  # the oracle: dt row by row from last_t
+        got = fast_st.detect(b_fast, cur=cur, all_tracked=tracked, **kw)
+        want = slow_st.detect(b_slow, cur=cur.copy(), all_tracked=tracked, **kw)
+        np.testing.assert_array_equal(got[0], want[0])
+        assert (got[1] is None) == (want[1] is None)
+        if want[1] is not None:
+            np.testing.assert_array_equal(got[1], want[1])
+            starts += 1
+        assert g_fast.tobytes() == g_slow.tobytes()  # every row, bit for bit (NaN included)
+    assert shortcuts == 159  # all but the first epoch
+    assert starts >= 40  # arc starts (gaps among them) as well as the common path
+
+
 @pytest.mark.parametrize("seed", [5, 6])
 def test_reason_tally_equals_previous_tally(seed: int) -> None:
     """The arc-reason counters count each reason bit of each satellite as the previous per-bit

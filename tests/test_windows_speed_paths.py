@@ -62,6 +62,51 @@ def test_slot_std_filling_block_equals_general_path(monkeypatch: pytest.MonkeyPa
     assert len(added) > 100  # the filling block path ran
 
 
+def test_slot_std_placed_block_equals_general_path(monkeypatch: pytest.MonkeyPatch) -> None:
+    """SlotStd.push_std dropping entries of other layouts (placed in block order, the block widened by their satellites outside it) and entries or values with NaN through its block gives the std and sums of a window fed writeable copies, bit for bit (source: the general path)."""
+    calls = {"placed": 0, "outside": 0, "gaps": 0}
+    sub, add = _windows._SumBlock.sub_placed, _windows._SumBlock.add_gaps
+
+    def counted_sub(
+        blk: _windows._SumBlock, place: _windows._Placement, v: np.ndarray, p: np.ndarray | None
+    ) -> None:
+        calls["placed"] += 1
+        calls["outside"] += blk.cols.shape[0] > blk.sats.shape[0]  # widened by other satellites
+        sub(blk, place, v, p)
+
+    def counted_add(blk: _windows._SumBlock, v: np.ndarray, p: np.ndarray) -> None:
+        calls["gaps"] += 1
+        add(blk, v, p)
+
+    monkeypatch.setattr(_windows._SumBlock, "sub_placed", counted_sub)
+    monkeypatch.setattr(_windows._SumBlock, "add_gaps", counted_add)
+    fast, slow = SlotStd(16, 30.0, 1.0), SlotStd(16, 30.0, 1.0)
+    layouts = [*_layouts(), np.array([0, 3, 5, 6, 9])]
+    layouts[-1].setflags(write=False)
+    rng = np.random.default_rng(11)
+    t, sats = 0.0, layouts[0]
+    for k in range(1500):
+        # Mostly regular slots (the placed path needs no skipped slot), layouts that change
+        # more often than the window's 30 slots, NaN in some epochs.
+        t += 1.0 if rng.random() < 0.97 else 3.0
+        if rng.random() < 0.05:
+            sats = layouts[int(rng.integers(len(layouts)))]
+        value = rng.normal(size=sats.shape[0])
+        if rng.random() < 0.1:
+            value[int(rng.integers(sats.shape[0]))] = np.nan
+        min_count = 5 if k % 89 else 0
+        got = fast.push_std(t, sats, value, min_count)
+        expect = slow.push_std(t, sats.copy(), value, min_count)
+        assert slow._blk is None  # the oracle never keeps a block
+        np.testing.assert_array_equal(got, expect)
+        if k % 37 == 0:  # reading acc writes the block back; the next push gathers it afresh
+            np.testing.assert_array_equal(fast.acc, slow.acc)
+    np.testing.assert_array_equal(fast.acc, slow.acc)
+    assert calls["placed"] > 100  # each path ran
+    assert calls["outside"] > 20
+    assert calls["gaps"] > 50
+
+
 def test_lag_ring_column_slice_equals_general_path() -> None:
     """LagRing.lag_push through a slice of consecutive columns (read-only satellites) returns and stores the same values as a ring fed writeable copies (a column gather), bit for bit (source: the general path)."""
     fast, slow = LagRing(16, 5.0), LagRing(16, 5.0)

@@ -119,13 +119,17 @@ class ArcBlock:
                  "last_t", "level", "level_step", "low_thr", "mw_floor", "mw_mean", "mw_thr",
                  "mw_var", "n", "n_ref", "pred", "prev", "prev_id", "prev_lock", "rate", "ref",
                  "res", "res_gf", "res_mw", "scr", "scr_dt", "scr_flags", "scr_id", "scr_lock",
-                 "sq", "var", "x_mw", "x_rate")  # fmt: skip
+                 "sq", "t_all", "var", "x_mw", "x_rate")  # fmt: skip
 
     def __init__(self, g: F64, n_ref: int = 2) -> None:
         d = g.shape[1]
         assert g.shape == (NROW, d), g.shape
         assert 2 <= n_ref <= NROW - GF_PRED, n_ref
         self.g, self.d, self.n_ref = g, d, n_ref
+        #: The time every row of ``last_t`` holds (s; None: not known): :meth:`ArcState.detect`
+        #: writes this epoch's time into all of them (on both of its paths), so from its second
+        #: call on one dt is all.
+        self.t_all: float | None = None
         self.last_t, self.dt, self.n = g[LAST_T], g[DT], g[N]
         self.prev = g[RANK : LT2 + 1]  # rank, half-cycle flags, lock indicators, lock times
         self.prev_id = g[RANK : HALF2 + 1]
@@ -216,10 +220,13 @@ class ArcState:
         assert gf_mw.shape == (b.n_ref, d), gf_mw.shape
         assert el_rad.shape == (d,), el_rad.shape
         assert cur.shape == (7, d), cur.shape
-        dt = np.subtract(t, b.last_t, b.dt)
-        gap = self._gap
-        if gap[0] != gap_s:
-            self._gap = gap = (gap_s, np.array(gap_s))
+        t_all = b.t_all
+        if t_all is None:
+            dt = np.subtract(t, b.last_t, b.dt)
+        else:  # every row's t − last_t, the same IEEE subtraction in Python
+            dt_s = float(t) - t_all
+            dt = b.dt
+            dt.fill(dt_s)
         # Cheap screen, a superset of the hard reasons below (computed exactly only if it fires):
         # no previous sample or a gap, another pair, a half-cycle flag that changed, a lock
         # indicator or lock time that went down, RINEX loss of lock.
@@ -227,10 +234,17 @@ class ArcState:
             b.cur, b.cur_id, b.cur_lock = cur, cur[0:3], cur[3:7]
         np.not_equal(b.cur_id, b.prev_id, b.scr_id)
         np.less(b.cur_lock, b.prev_lock, b.scr_lock)
-        np.less_equal(dt, gap[1], b.scr_dt)
+        if t_all is None:
+            gap = self._gap
+            if gap[0] != gap_s:
+                self._gap = gap = (gap_s, np.array(gap_s))
+            np.less_equal(dt, gap[1], b.scr_dt)
+            late = _count_nonzero(b.scr_dt) != d
+        else:
+            late = not dt_s <= gap_s
         screen = (
             _count_nonzero(b.scr_flags)
-            or _count_nonzero(b.scr_dt) != d
+            or late
             or (lli_lost is not None and _count_nonzero(lli_lost))
         )
         n = b.n
@@ -291,11 +305,14 @@ class ArcState:
             np.multiply(b.res_gf, self._level_w, b.level_step)
             np.add(pred, b.level_step, b.level)
             b.last_t.fill(t)
+            b.t_all = float(t)
             b.prev[...] = cur
             return no_new, None
-        return self._general(b, t=t, dt=dt, gf_mw=gf_mw, res=res, jump=jump, cur=cur,
-                             lli_lost=lli_lost, gap_s=gap_s, screen=bool(screen),
-                             all_tracked=bool(all_tracked), tracked=tracked)  # fmt: skip
+        out = self._general(b, t=t, dt=dt, gf_mw=gf_mw, res=res, jump=jump, cur=cur,
+                            lli_lost=lli_lost, gap_s=gap_s, screen=bool(screen),
+                            all_tracked=bool(all_tracked), tracked=tracked)  # fmt: skip
+        b.t_all = float(t)  # (``_general`` writes t into every last_t too)
+        return out
 
     def _general(
         self, b: ArcBlock, *, t: F64, dt: F64, gf_mw: F64, res: F64, jump: Bool, cur: F64,

@@ -94,6 +94,10 @@ class CellRouter:
         self._c1 = self._sig_slot[pairs.sig1]
         self._c2 = self._sig_slot[pairs.sig2]
         self._last: EpochLayout | None = None
+        #: The read-only sat, sig and freq_hz arrays whose bytes are ``_last.ids`` (None: not
+        #: known): the decoder hands the same arrays while the layout repeats, and the same
+        #: read-only arrays hold the same bytes (no join of their bytes to compare).
+        self._src: tuple[object, object, object] | None = None
         #: Recent layouts by (ids, usable), oldest first: a layout that comes back after a blip
         #: (a cell unusable for an epoch or two) is the same object again, so the per-layout
         #: state of the rings and the geometry (kept by identity) carries on. Setting ``_last``
@@ -107,9 +111,24 @@ class CellRouter:
     def layout(self, epoch: ObsEpoch) -> EpochLayout:
         """The layout of ``epoch`` (the cached one when sat, sig, freq and usability repeat)."""
         pr = epoch.pseudorange_m
-        ids = b"".join((epoch.sat.tobytes(), epoch.sig.tobytes(), epoch.freq_hz.tobytes()))
+        sat, sig, freq = epoch.sat, epoch.sig, epoch.freq_hz
         last = self._last
-        same = last if last is not None and last.ids == ids else None
+        src = self._src
+        if (
+            last is not None
+            and src is not None
+            and src[0] is sat
+            and src[1] is sig
+            and src[2] is freq
+        ):
+            ids = last.ids
+            same: EpochLayout | None = last
+        else:
+            ids = b"".join((sat.tobytes(), sig.tobytes(), freq.tobytes()))
+            same = last if last is not None and last.ids == ids else None
+            read_only = not (sat.flags.writeable or sig.flags.writeable or freq.flags.writeable)
+            src = (sat, sig, freq) if read_only else None
+            self._src = None  # (set again below, with ``_last``)
         # Usable values: code > 0 and code, phase, frequency finite (their product is finite
         # exactly when all three are: |values| < 1e9 · 1e9 · 1e10 never overflow). With the
         # last layout's frequencies, all finite, the product of code and phase tells the same.
@@ -120,6 +139,7 @@ class CellRouter:
         ok &= pr > _ZERO
         usable = ok.tobytes()
         if same is not None and same.usable == usable:
+            self._src = src
             return same
         if last is None:
             self._recent.clear()
@@ -132,6 +152,7 @@ class CellRouter:
                 del self._recent[next(iter(self._recent))]
             self._recent[key] = lay
         self._last = lay
+        self._src = src
         self.rebuilds += 1
         return lay
 

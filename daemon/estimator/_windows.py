@@ -299,15 +299,21 @@ class SlotStd:
     cannot drift.
 
     Memory (300 entries per station at the default 1 s slots): entry ``r`` is the satellite
-    array ``_sats[r]`` (the caller's read-only array, shared, not copied; a NaN-filtered subset
-    is reused while the same satellites lack a value) and the first ``len(_sats[r])`` values of
-    row ``r`` of one (R, widest entry) float64 pool, which grows (rarely, by reallocation) when an
-    epoch has more satellites: no numpy array or tuple per entry (~150 B of object overhead each,
-    long-lived small blocks that fragment the heap).
+    array ``_sats[r]`` (the caller's read-only array, shared, not copied) and the first
+    ``len(_sats[r])`` values of row ``r`` of one (R, widest entry) float64 pool, which grows
+    (rarely, by reallocation) when an epoch has more satellites: no numpy array or tuple per
+    entry (~150 B of object overhead each, long-lived small blocks that fragment the heap). A
+    satellite without a value (NaN) is held as 0.0 with presence 0.0 in ``_gaps[r]`` (a
+    read-only presence shared while the same satellites lack a value; None: all have one):
+    adding or removing 0.0 and a count of 0.0 leaves the sums as leaving it out does (x ± 0.0
+    is x but for x = −0.0, which no sum is: they start at +0.0, and in round-to-nearest s + v
+    or s − v is −0.0 only when s is).
 
-    While the same read-only satellite array is pushed slot after slot without NaN (the common
-    case), its three sums live in a dense (3, d) block (``_SumBlock``) updated in place, and are
-    written back into ``acc`` when anything else reads or changes it (``acc`` is a property).
+    While the same read-only satellite array is pushed slot after slot, its three sums live in
+    a dense block (``_SumBlock``) updated in place, also when the entry leaving is of another
+    array (an old layout's: the block is widened once by its satellites missing from it), and
+    are written back into ``acc`` when anything else reads or changes it (``acc`` is a
+    property).
     """
 
     def __init__(self, n_slots: int, window_s: float, slot_s: float) -> None:
@@ -315,6 +321,9 @@ class SlotStd:
         self.n_slots = n_slots
         self.rows = max(2, round(window_s / slot_s))
         self._sats: list[npt.NDArray[np.intp]] = [_NO_SATS] * self.rows
+        #: Per entry: None when every satellite has a value, else its read-only presence (1.0
+        #: value, 0.0 NaN; its value in the pool is then 0.0), shared by consecutive entries.
+        self._gaps: list[F64 | None] = [None] * self.rows
         self._vals: F64 = np.zeros((self.rows, 0))
         self._acc = np.zeros((3, n_slots))  # total, total_sq, count
         #: The sums of the satellites pushed last, while they repeat (None: all in ``_acc``).
@@ -331,8 +340,13 @@ class SlotStd:
         self._flat3: list[tuple[npt.NDArray[np.intp], npt.NDArray[np.intp]]] = []
         #: Work buffers of ``_increments3`` by length.
         self._inc3: dict[int, F64] = {}
-        #: The last NaN-filtered satellite subset: (the caller's array, finite mask, subset).
-        self._subset: tuple[npt.NDArray[np.intp], bytes, npt.NDArray[np.intp]] | None = None
+        #: Work buffers of ``_increments3`` with a presence row, by length.
+        self._inc3p: dict[int, F64] = {}
+        #: The last presence made: (the caller's read-only array, NaN mask bytes, presence).
+        self._presence_of: tuple[npt.NDArray[np.intp], bytes, F64] | None = None
+        #: Where the entries of other read-only satellite arrays sit in the block's (the last
+        #: few pairs): (entry's satellites, block's satellites, ``_Placement``), newest last.
+        self._places: list[tuple[npt.NDArray[np.intp], npt.NDArray[np.intp], _Placement]] = []
 
     @property
     def acc(self) -> F64:
@@ -345,7 +359,7 @@ class SlotStd:
         the next push of the same satellites gathers it again); returns ``_acc``."""
         blk = self._blk
         if blk is not None:
-            self._acc[:, blk.sats] = blk.sums
+            self._acc[:, blk.cols] = blk.sums
             self._blk = None
         return self._acc
 
@@ -367,8 +381,23 @@ class SlotStd:
     @property
     def entries(self) -> list[tuple[npt.NDArray[np.intp], F64]]:
         """The ring entries as (satellites, values) in row order (values are views: copy them
-        to keep them past the next push)."""
-        return [(s, self._vals[r, : s.shape[0]]) for r, s in enumerate(self._sats)]
+        to keep them past the next push); the satellites without a value are left out, those of
+        entries sharing a presence share one read-only array."""
+        out: list[tuple[npt.NDArray[np.intp], F64]] = []
+        subsets: dict[tuple[int, int], npt.NDArray[np.intp]] = {}
+        for r, s in enumerate(self._sats):
+            v = self._vals[r, : s.shape[0]]
+            pres = self._gaps[r]
+            if pres is None:
+                out.append((s, v))
+                continue
+            fin = pres > _ZERO
+            sub = subsets.get((id(s), id(pres)))
+            if sub is None:
+                subsets[id(s), id(pres)] = sub = s[fin]
+                sub.setflags(write=False)
+            out.append((sub, v[fin]))
+        return out
 
     def load_entries(self, entries: list[tuple[npt.NDArray[np.intp], F64]]) -> None:
         """Replace the ring entries (restoring a checkpoint; the sums are set separately)."""
@@ -380,7 +409,7 @@ class SlotStd:
             vals[r, : s.shape[0]] = v
         self._vals = vals
         self._sats = [s if s.shape[0] else _NO_SATS for s, _ in entries]
-        self._subset = None
+        self._gaps = [None] * self.rows
         self._value_slot = math.inf
         self._empty = False
         self._flush()
@@ -399,53 +428,90 @@ class SlotStd:
             self._flat3.append((sats, fi))
         return fi
 
-    def _increments3(self, vals: F64) -> F64:
+    def _increments3(self, vals: F64, pres: F64 | None = None) -> F64:
         """What adding the values ``vals`` adds to total, total_sq and count: (values,
-        values², ones), in a work buffer per length (its ones written once; valid until the
-        next call)."""
+        values², ones or the presence ``pres``), in a work buffer per length (its ones written
+        once; valid until the next call)."""
         k = vals.shape[0]
-        inc = self._inc3.get(k)
+        bufs = self._inc3 if pres is None else self._inc3p
+        inc = bufs.get(k)
         if inc is None:
-            if len(self._inc3) >= 8:
-                self._inc3.clear()
-            self._inc3[k] = inc = np.ones(3 * k)
+            if len(bufs) >= 8:
+                bufs.clear()
+            bufs[k] = inc = np.ones(3 * k)
+        if pres is not None:
+            inc[2 * k :] = pres
         inc[:k] = vals
         np.multiply(vals, vals, out=inc[k : 2 * k])
         return inc
 
+    def _placement(self, sats: npt.NDArray[np.intp], into: npt.NDArray[np.intp]) -> _Placement:
+        """Where the read-only ``sats`` sit among a block's columns ``into``, kept for the last
+        few pairs (an old layout's entries leave for R slots after a layout change)."""
+        for known, blk_sats, place in self._places:
+            if known is sats and blk_sats is into:
+                return place
+        place = _Placement(sats, into, self.n_slots)
+        if len(self._places) >= 4:
+            del self._places[0]
+        self._places.append((sats, into, place))
+        return place
+
+    def _drop_placed(
+        self, blk: _SumBlock, sats: npt.NDArray[np.intp], vals: F64, pres: F64 | None
+    ) -> _SumBlock:
+        """Drop the entry (``sats``, ``vals``, presence ``pres``) of other satellites than the
+        block's in the block (``_drop``'s operations; 0 for its columns not in ``sats``: x − 0
+        is x), first widening it by those of ``sats`` it lacks (once per old layout); returns
+        the block."""
+        place = self._placement(sats, blk.cols)
+        if place.outside is not None:
+            cols = np.concatenate((blk.cols, sats[place.outside]))
+            self._blk = blk = _SumBlock(blk.sats, self._flush()[:, cols], cols)
+            place = self._placement(sats, cols)
+        blk.sub_placed(place, vals, pres)
+        return blk
+
     def _drop(self, row: int) -> None:
         # One gather, subtraction and scatter of the three rows (the same element operations
-        # as row by row: total − v, total_sq − v², count − 1).
+        # as row by row: total − v, total_sq − v², count − 1; − 0 where a value is missing).
         sats = self._sats[row]
         if sats.size:
             flat = self.acc.reshape(-1)
-            flat[self._flat3_index(sats)] -= self._increments3(self._vals[row, : sats.shape[0]])
+            inc = self._increments3(self._vals[row, : sats.shape[0]], self._gaps[row])
+            flat[self._flat3_index(sats)] -= inc
             self._sats[row] = _NO_SATS
+            self._gaps[row] = None
 
     def _recompute(self) -> None:
         sats = np.concatenate(self._sats)
-        # The entries' values in row order, as ``entries`` holds them: the first len(_sats[r])
+        # The entries' values in row order (0.0 where one is missing): the first len(_sats[r])
         # of each pool row (one boolean gather, not one view per entry).
         n = np.fromiter((e.shape[0] for e in self._sats), np.intp, self.rows)
         vals = self._vals[np.arange(self._vals.shape[1]) < n[:, None]]
-        self.acc[0] = np.bincount(sats, vals, self.n_slots)
+        self.acc[0] = np.bincount(sats, vals, self.n_slots)  # (+ 0.0 where a value is missing)
         self.acc[1] = np.bincount(sats, vals * vals, self.n_slots)
-        self.acc[2] = np.bincount(sats, minlength=self.n_slots)
+        if all(p is None for p in self._gaps):
+            self.acc[2] = np.bincount(sats, minlength=self.n_slots)
+        else:
+            pres = [
+                np.ones(e.shape[0]) if p is None else p
+                for e, p in zip(self._sats, self._gaps, strict=True)
+            ]
+            self.acc[2] = np.bincount(sats, np.concatenate(pres), self.n_slots)
 
-    def _finite_subset(
-        self, sats: npt.NDArray[np.intp], fin: npt.NDArray[np.bool_]
-    ) -> npt.NDArray[np.intp]:
-        """``sats[fin]`` as a read-only array, the same object as last time for the same
-        (read-only) ``sats`` and mask: entries of consecutive slots share it."""
-        key = fin.tobytes()
-        last = self._subset
+    def _presence(self, sats: npt.NDArray[np.intp], nan: npt.NDArray[np.bool_]) -> F64:
+        """1.0 where a value is, 0.0 at ``nan``, read-only; the same object as last time for the
+        same (read-only) ``sats`` and mask: entries of consecutive slots share it."""
+        key = nan.tobytes()
+        last = self._presence_of
         if last is not None and last[0] is sats and last[1] == key:
             return last[2]
-        s = sats[fin]
+        pres = np.logical_not(nan).astype(np.float64)
+        pres.setflags(write=False)
         if not sats.flags.writeable:
-            s.setflags(write=False)
-            self._subset = (sats, key, s)
-        return s
+            self._presence_of = (sats, key, pres)
+        return pres
 
     def push(self, t: float, sats: npt.NDArray[np.intp], value: F64) -> None:
         """Add this epoch's values (NaN ignored; ``sats`` unique) if ``t`` opens a new slot."""
@@ -484,63 +550,57 @@ class SlotStd:
             for n in range(start, slot + 1):
                 self._drop(n % self.rows)
             self._sats[row] = _NO_SATS
+            self._gaps[row] = None
             self._empty = self._value_slot <= slot - self.rows
             if self._since_exact >= self.rows:
                 self._blk = None  # rebuilt below
                 self._recompute()
                 self._since_exact = 0
             return
+        # An entry holds every satellite pushed; a NaN is held as 0.0 with presence 0.0 (sums
+        # ± 0.0 and counts ± 0.0 are unchanged: what leaving the satellite out gives).
+        pres = None
+        v = value
         if n_nan:
-            fin = ~nan
-            s, v = self._finite_subset(sats, fin), value[fin]
-        else:
-            s, v = sats, value
-        k = s.shape[0]
+            pres = self._presence(sats, nan)
+            v = np.where(nan, _ZERO, value)
+        k = sats.shape[0]
         self._value_slot = slot
         self._empty = False
         if k > self._vals.shape[1]:
             grown = np.zeros((self.rows, k))
             grown[:, : self._vals.shape[1]] = self._vals
             self._vals = grown
-        if start == slot and self._sats[row] is s and not s.flags.writeable:
-            # The slot replaces the entry of the same satellites R slots ago (their counts lose
-            # one and gain one: unchanged): each sum loses what that entry added, gains this.
-            old = self._vals[row, :k]
+        gone = self._sats[row]  # the entry this slot replaces (R slots ago)
+        if start == slot and not sats.flags.writeable and not gone.flags.writeable:
+            # One entry leaves, one comes, both of read-only satellite arrays: the sums of the
+            # caller's satellites are updated in their block, with the same element operations
+            # as ``acc`` below (sum − old, count − 1, then sum + value, count + 1).
             blk = self._blk
-            if s is sats and blk is not None and blk.sats is s:  # the common case
-                blk.replace(old, v)
-            elif s is sats:
-                self._blk = blk = _SumBlock(s, self._flush()[:, s])
-                blk.replace(old, v)
+            if blk is None or blk.sats is not sats:
+                self._blk = blk = _SumBlock(sats, self._flush()[:, sats])
+            old = self._vals[row, : gone.shape[0]]
+            gone_pres = self._gaps[row]
+            if gone is sats and pres is None and gone_pres is None:  # the common case
+                blk.replace(old, v)  # (counts unchanged; ``old`` becomes ``v``)
             else:
-                fi = self._flat3_index(s)[: 2 * k]  # total, total_sq (counts unchanged)
-                flat = self.acc.reshape(-1)
-                sums = flat[fi]
-                sums -= self._increments3(old)[: 2 * k]
-                sums += self._increments3(v)[: 2 * k]  # (the buffer: each used before the next)
-                flat[fi] = sums
-                old[...] = v
-        elif (
-            start == slot
-            and s is sats
-            and k
-            and self._sats[row] is _NO_SATS
-            and not s.flags.writeable
-        ):
-            # The slot fills an empty entry (the window is filling, or slots were skipped): the
-            # sums gain this entry, in the block as in ``acc`` below (sum + value, count + 1).
-            blk = self._blk
-            if blk is None or blk.sats is not s:
-                self._blk = blk = _SumBlock(s, self._flush()[:, s])
-            blk.add(v)
-            self._vals[row, :k] = v
+                if gone is sats:
+                    blk.sub(old, gone_pres)
+                elif gone.shape[0]:
+                    blk = self._drop_placed(blk, gone, old, gone_pres)
+                if pres is None:
+                    blk.add(v)
+                else:
+                    blk.add_gaps(v, pres)
+                self._vals[row, :k] = v
         else:
             for n in range(start, slot + 1):
                 self._drop(n % self.rows)
             flat = self.acc.reshape(-1)
-            flat[self._flat3_index(s)] += self._increments3(v)  # total, total_sq, count
+            flat[self._flat3_index(sats)] += self._increments3(v, pres)  # total, sq, count
             self._vals[row, :k] = v
-        self._sats[row] = s if k else _NO_SATS
+        self._sats[row] = sats
+        self._gaps[row] = pres
         if self._since_exact >= self.rows:
             self._blk = None  # rebuilt below
             self._recompute()
@@ -569,18 +629,32 @@ class SlotStd:
 
 
 class _SumBlock:
-    """The sums (total, total_sq, count) of one read-only satellite array as a dense (3, d)
-    block, with the work buffers of its updates. Copies and pickles rebuild the views."""
+    """The sums (total, total_sq, count) of one read-only satellite array ``sats`` as a dense
+    (3, d) block, with the work buffers of its updates. Copies and pickles rebuild the views.
 
-    __slots__ = ("count", "min_count", "n_div", "pair", "q", "q_mean", "q_var", "sats", "short",
-                 "sq", "sums", "total", "total_sq")  # fmt: skip
+    ``cols`` (D ≥ d): ``sats`` then the satellites of entries still in the ring that are not in
+    ``sats`` (an old layout's, for R slots after a change): ``sums`` is (3, D), the entries
+    leaving are dropped from its full rows, the block's own figures are its first d columns.
+    """
 
-    def __init__(self, sats: npt.NDArray[np.intp], sums: F64) -> None:
+    __slots__ = ("all_count", "all_sq", "all_total", "cols", "count", "min_count", "n_div", "pair",
+                 "placed", "q", "q_mean", "q_var", "sats", "short", "sq", "sq_all", "sums",
+                 "total", "total_sq")  # fmt: skip
+
+    def __init__(
+        self, sats: npt.NDArray[np.intp], sums: F64, cols: npt.NDArray[np.intp] | None = None
+    ) -> None:
+        d = sats.shape[0]
         self.sats = sats
+        self.cols = sats if cols is None else cols
         self.sums = sums
-        self.total, self.total_sq, self.count = sums[0], sums[1], sums[2]
-        self.pair = sums[:2]  # total, total_sq
-        self.sq = np.empty(sats.shape[0])
+        self.all_total, self.all_sq, self.all_count = sums[0], sums[1], sums[2]
+        self.total, self.total_sq, self.count = sums[0, :d], sums[1, :d], sums[2, :d]
+        self.pair = sums[:2, :d]  # total, total_sq
+        self.sq = np.empty(d)
+        width = self.cols.shape[0]
+        self.sq_all = np.empty(width)
+        self.placed = np.empty(width)  # an entry's values in column order, 0 elsewhere
         self.q = np.empty((2, sats.shape[0]))
         self.q_mean, self.q_var = self.q[0], self.q[1]
         #: ``min_count`` the rows below were made for (−1: redo them; the counts change only in
@@ -589,8 +663,10 @@ class _SumBlock:
         self.short: npt.NDArray[np.bool_] | None = None
         self.n_div = self.count
 
-    def __reduce__(self) -> tuple[type[_SumBlock], tuple[npt.NDArray[np.intp], F64]]:
-        return (_SumBlock, (self.sats, self.sums))
+    def __reduce__(
+        self,
+    ) -> tuple[type[_SumBlock], tuple[npt.NDArray[np.intp], F64, npt.NDArray[np.intp]]]:
+        return (_SumBlock, (self.sats, self.sums, self.cols))
 
     def replace(self, old: F64, new: F64) -> None:
         """Replace the values ``old`` by ``new`` in the sums (``old`` is overwritten by ``new``):
@@ -605,7 +681,8 @@ class _SumBlock:
 
     def add(self, new: F64) -> None:
         """Add the values ``new`` to the sums: the same operations as :meth:`SlotStd._push` on
-        ``acc`` (sum + value, count + 1). The counts grow: :meth:`std` redoes its rows unless no
+        ``acc`` (sum + value, count + 1). The counts grow (after a :meth:`sub` or
+        :meth:`sub_placed` too: each lost one at most): :meth:`std` redoes its rows unless no
         count was short (none becomes short, and ``n_div`` is then ``count`` itself)."""
         self.total += new
         sq = np.multiply(new, new, self.sq)
@@ -613,6 +690,43 @@ class _SumBlock:
         self.count += _ONE
         if self.short is not None:
             self.min_count = -1
+
+    def add_gaps(self, new: F64, pres: F64) -> None:
+        """:meth:`add` of values some of which are missing (0.0, presence ``pres`` 0.0 there:
+        count + presence). The counts may fall after a :meth:`sub`: :meth:`std` redoes its
+        rows."""
+        self.total += new
+        sq = np.multiply(new, new, self.sq)
+        self.total_sq += sq
+        self.count += pres
+        self.min_count = -1
+
+    def sub(self, old: F64, pres: F64 | None) -> None:
+        """Drop the values ``old`` (presence ``pres``, None: all) of the block's satellites from
+        the sums (sum − value, count − 1 or − presence); :meth:`add` follows."""
+        self.total -= old
+        sq = np.multiply(old, old, self.sq)
+        self.total_sq -= sq
+        self.count -= _ONE if pres is None else pres
+
+    def _place(self, place: _Placement, vals: F64) -> F64:
+        """``vals`` (of ``place``'s satellites) in column order, 0 where the column's satellite
+        has none."""
+        placed = self.placed
+        if place.partial:
+            placed.fill(0.0)
+        placed.put(place.pos, vals if place.sel is None else vals.take(place.sel))
+        return placed
+
+    def sub_placed(self, place: _Placement, vals: F64, pres: F64 | None) -> None:
+        """Drop an entry of other satellites (``place``: all among ``cols``; presence ``pres``,
+        None: all) from their sums (sum − value, count − 1 or − presence; the other columns
+        − 0: unchanged); :meth:`add` follows."""
+        placed = self._place(place, vals)
+        self.all_total -= placed
+        sq = np.multiply(placed, placed, self.sq_all)
+        self.all_sq -= sq
+        self.all_count -= place.present if pres is None else self._place(place, pres)
 
     def std(self, min_count: int) -> F64:
         """:meth:`SlotStd.std` of the block's satellites (the same operations as ``_std``)."""
@@ -630,3 +744,27 @@ class _SumBlock:
         if self.short is not None:
             out[self.short] = np.nan
         return out
+
+
+class _Placement:
+    """Where the satellites of an entry sit among a block's (both unique): ``pos`` the block
+    positions of those in the block, ``sel`` their indices in the entry (None: all of them, in
+    order), ``present`` 1.0 at ``pos`` and 0.0 elsewhere (d,), ``partial``: some block position
+    is not in ``pos``; ``outside`` the entry's indices of the satellites outside the block
+    (None: none)."""
+
+    __slots__ = ("outside", "partial", "pos", "present", "sel")
+
+    def __init__(
+        self, sats: npt.NDArray[np.intp], into: npt.NDArray[np.intp], n_slots: int
+    ) -> None:
+        lut = np.full(n_slots, -1, np.intp)
+        lut[into] = np.arange(into.shape[0])
+        where = lut[sats]
+        inside = where >= 0
+        self.pos = where[inside]  # (writeable: ``put`` copies a read-only index array)
+        self.sel = None if inside.all() else np.flatnonzero(inside)
+        self.present = np.zeros(into.shape[0])
+        self.present[self.pos] = 1.0
+        self.partial = self.pos.shape[0] < into.shape[0]
+        self.outside = None if self.sel is None else np.flatnonzero(~inside)
