@@ -14,10 +14,11 @@ phase-range rate = DF399 + DF404·10⁻⁴ m/s. Invalid markers become NaN: DF39
 negative code of every signed fine field; CN0 = 0 ("not computed") also becomes NaN.
 """
 
-# size: ~470 lines: the MSM4–7 field layouts (RTCM 10403.3 §3.5.12) and their one
+# size: ~520 lines: the MSM4–7 field layouts (RTCM 10403.3 §3.5.12) and their one
 # vectorised decoder; the layouts are the decoder's tables.
 from __future__ import annotations
 
+import struct
 from dataclasses import dataclass
 from typing import Final
 
@@ -247,10 +248,10 @@ class MsmHead:
     """
 
     __slots__ = (
+        "_head",
         "epoch_ms",
         "glo_channels",
         "glonass_day",
-        "head",
         "layout",
         "msg_type",
         "msm_level",
@@ -265,8 +266,7 @@ class MsmHead:
         self, payload: bytes, head: int, msm_system: MsmSystem, level: int, layout: _Layout
     ) -> None:
         self.payload = payload
-        #: The first 240 bits of the payload as one integer (header and cell mask).
-        self.head = head
+        self._head: int | None = head
         self.msg_type = head >> 228
         self.msm_system = msm_system
         self.system = msm_system.letter
@@ -279,11 +279,31 @@ class MsmHead:
         self.multiple_message = bool((head >> 185) & 1)
         self.glo_channels: npt.NDArray[np.int8] | None = None
 
+    @property
+    def head(self) -> int:
+        """The first 240 bits of the payload as one integer (header and cell mask; zero bits past
+        a shorter payload's end). Worked out on first use: the memo path of
+        :func:`parse_msm_head` reads the header fields from the bytes and needs none of it."""
+        head = self._head
+        if head is None:
+            head = self._head = int.from_bytes(self.payload[:30], "big") << 8 * max(
+                0, 30 - len(self.payload)
+            )
+        return head
 
-#: What :func:`parse_msm_head` remembers of a stream's last message of each MSM type: the shift,
-#: width mask and value of its header bits 73 up to the end of the cell mask (DF394, DF395, DF396),
-#: its system, MSM level and layout.
-MsmMemo = dict[int, tuple[int, int, int, MsmSystem, int, _Layout]]
+
+#: What :func:`parse_msm_head` remembers of a stream's last message of each MSM type: the bytes
+#: of its header from byte 9 (bit 72, DF418's last bit) up to the last whole byte of the cell mask
+#: (DF394, DF395, DF396: RTCM 10403.3 Table 3.5-78), the index of the byte holding the cell mask's
+#: end, that byte's mask and masked value, then its system, the system's letter, MSM level and
+#: layout.
+MsmMemo = dict[int, tuple[bytes, int, int, int, MsmSystem, str, int, _Layout]]
+
+#: Header bytes before the memo's bytes: bits 0–71 (Table 3.5-78, DF002 to DF418 but its last bit).
+_MEMO_FROM: Final = 9
+_NEW = object.__new__
+#: Bytes 0–1, 2 and 3–6 of an MSM message, big-endian (see parse_msm_head).
+_TOP: Final = struct.Struct(">HBI")
 
 
 def parse_msm_head(payload: bytes, memo: MsmMemo | None = None) -> MsmHead:
@@ -293,9 +313,49 @@ def parse_msm_head(payload: bytes, memo: MsmMemo | None = None) -> MsmHead:
     ``memo`` (one per stream, empty at first): a receiver sends the same masks in every message
     of a type, epoch after epoch; when this message's masks are those of the stream's last one of
     its type, their layout is taken from there without working them out (the same layout, checks
-    and errors).
+    and errors), and the few header fields that change are read straight from the bytes.
     """
     nbytes = len(payload)
+    if memo is not None and nbytes >= 22:
+        # Bits 0–55 (Table 3.5-78): DF002 and DF003's first 4 bits, DF003's last 8, then the
+        # epoch time (30 bits), DF393 and DF409's first bit.
+        top, low, time = _TOP.unpack_from(payload)
+        msg_type = top >> 4
+        last = memo.get(msg_type)
+        # Bits 72 to the cell mask's end: DF418's last bit, DF394 and DF395 (which fix the cell
+        # mask's width), then DF396. One more bit than the layout needs (a change of DF418 only
+        # sends the message down the general path below, which gives the same head).
+        if last is not None:
+            prefix, at, mask, byte, system, letter, level, known = last
+            if (
+                payload.startswith(prefix, _MEMO_FROM)
+                and at < nbytes
+                and payload[at] & mask == byte
+            ):
+                if nbytes < known.nbytes:
+                    raise ParseError(
+                        f"MSM payload has {nbytes} bytes, its masks need {known.nbytes}",
+                        message_id=msg_type,
+                    )
+                # MsmHead.__init__'s fields, without the whole head as one integer.
+                h = _NEW(MsmHead)
+                h.payload = payload
+                h._head = None
+                h.msg_type = msg_type
+                h.msm_system = system
+                h.system = letter
+                h.msm_level = level
+                h.layout = known
+                h.station_id = ((top & 0xF) << 8) | low  # DF003, bits 12–23
+                if known.glo_fdma:  # DF416 (3 bits) + DF034 (27 bits)
+                    h.epoch_ms = (time >> 2) & 0x7FF_FFFF
+                    h.glonass_day = time >> 29
+                else:
+                    h.epoch_ms = time >> 2
+                    h.glonass_day = -1
+                h.multiple_message = bool(time & 2)  # DF393, bit 54
+                h.glo_channels = None
+                return h
     if nbytes < 22:
         raise ParseError(f"MSM header needs 22 bytes, got {nbytes}", offset=nbytes)
     # Header (RTCM 10403.3 Table 3.5-78) and up to 64 cell-mask bits: 233 bits in 30 bytes.
@@ -303,17 +363,6 @@ def parse_msm_head(payload: bytes, memo: MsmMemo | None = None) -> MsmHead:
     if nbytes < 30:
         head <<= 8 * (30 - nbytes)
     msg_type = head >> 228
-    if memo is not None:
-        last = memo.get(msg_type)
-        # Bits 73 to the cell mask's end: DF394 and DF395 (which fix its width), then DF396.
-        if last is not None and (head >> last[0]) & last[1] == last[2]:
-            known = last[5]
-            if nbytes < known.nbytes:
-                raise ParseError(
-                    f"MSM payload has {nbytes} bytes, its masks need {known.nbytes}",
-                    message_id=msg_type,
-                )
-            return MsmHead(payload, head, last[3], last[4], known)
     found = _MSM_SYSTEM.get(msg_type)
     if found is None:
         raise ParseError("not an MSM4-7 message", message_id=msg_type)
@@ -333,9 +382,16 @@ def parse_msm_head(payload: bytes, memo: MsmMemo | None = None) -> MsmHead:
         lay = _LAYOUTS[key] = _layout(
             system, level, satmask=satmask, sigmask=sigmask, cellmask=cellmask, nsig=nsig
         )
-    if memo is not None:
-        shift, width = 71 - nsat * nsig, (1 << (96 + nsat * nsig)) - 1
-        memo[msg_type] = (shift, width, (head >> shift) & width, system, level, lay)
+    end = HEADER_BITS + nsat * nsig  # the cell mask's end (bit index, exclusive)
+    at, part = divmod(end, 8)
+    # Remembered only where the payload holds every byte the memo compares: a cut copy's bytes
+    # would match a longer message's prefix whatever follows.
+    if memo is not None and at < nbytes:
+        mask = (0xFF << (8 - part)) & 0xFF  # the byte's bits before ``end`` (none if part = 0)
+        memo[msg_type] = (
+            payload[_MEMO_FROM:at], at, mask, payload[at] & mask, system, system.letter, level,
+            lay,
+        )  # fmt: skip
     if nbytes < lay.nbytes:
         raise ParseError(
             f"MSM payload has {nbytes} bytes, its masks need {lay.nbytes}", message_id=msg_type

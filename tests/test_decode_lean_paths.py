@@ -209,6 +209,33 @@ def test_msm_head_memo_equals_fresh_parse_on_altered_headers(seed, flips, cut):
     assert _head_outcome(seed, memo) == _head_outcome(seed, None)
 
 
+def test_msm_head_memo_path_taken_on_repeated_masks_and_equal():
+    """The memo's byte path (no whole-head integer) is the one taken for a real capture's repeated
+    masks (PROVENANCE.md), and gives what the general path gives (the oracle) for every message."""
+    memo: MsmMemo = {}
+    fast = 0
+    for p in _msm_payloads(_real(_RTCM_FILES[0])):
+        h = parse_msm_head(p, memo)
+        fast += h._head is None  # built from the bytes, head not worked out yet
+        assert _head_outcome(p, None) == _head_outcome(p, memo)
+    assert fast > 100
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.sampled_from(_SEEDS), st.integers(22, 40), st.integers(0, 239), st.data())
+def test_msm_head_memo_from_cut_copy_never_matches_other_masks(seed, cut, bit, data):
+    """A memo left by a cut copy of a message (its masks' bytes partly missing) does not make a
+    message whose later mask bits differ take the memo's layout: it parses as without a memo (the
+    general path, the oracle)."""
+    memo: MsmMemo = {}
+    _head_outcome(seed[:cut], memo)
+    b = bytearray(seed)
+    b[bit // 8] ^= 0x80 >> (bit % 8)
+    other = bytes(b[: len(b) - data.draw(st.integers(0, 3))])
+    assert _head_outcome(other, memo) == _head_outcome(other, None)
+    assert _head_outcome(seed, memo) == _head_outcome(seed, None)
+
+
 class _NoMemo(dict):  # type: ignore[type-arg]
     """A memo that never keeps anything: every header takes the general path."""
 
