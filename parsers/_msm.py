@@ -262,22 +262,19 @@ class MsmHead:
         "system",
     )
 
-    def __init__(
-        self, payload: bytes, head: int, msm_system: MsmSystem, level: int, layout: _Layout
-    ) -> None:
-        self.payload = payload
-        self._head: int | None = head
-        self.msg_type = head >> 228
-        self.msm_system = msm_system
-        self.system = msm_system.letter
-        self.msm_level = level
-        self.layout = layout
-        self.station_id = (head >> 216) & 0xFFF
-        epoch = (head >> 186) & 0x3FFF_FFFF  # bits 24–53
-        self.epoch_ms = epoch & 0x7FF_FFFF if layout.glo_fdma else epoch
-        self.glonass_day = epoch >> 27 if layout.glo_fdma else -1
-        self.multiple_message = bool((head >> 185) & 1)
-        self.glo_channels: npt.NDArray[np.int8] | None = None
+    # Built by parse_msm_head only (its one tail fills every slot; no __init__ call per message).
+    payload: bytes
+    _head: int | None
+    msg_type: int
+    msm_system: MsmSystem
+    system: str
+    msm_level: int
+    layout: _Layout
+    station_id: int
+    epoch_ms: int
+    glonass_day: int
+    multiple_message: bool
+    glo_channels: npt.NDArray[np.int8] | None
 
     @property
     def head(self) -> int:
@@ -297,7 +294,9 @@ class MsmHead:
 #: (DF394, DF395, DF396: RTCM 10403.3 Table 3.5-78), the index of the byte holding the cell mask's
 #: end, that byte's mask and masked value, then its system, the system's letter, MSM level and
 #: layout.
-MsmMemo = dict[int, tuple[bytes, int, int, int, MsmSystem, str, int, _Layout]]
+#: A message type's system, the system's letter, MSM level and layout.
+_Kind = tuple[MsmSystem, str, int, _Layout]
+MsmMemo = dict[int, tuple[bytes, int, int, int, _Kind]]
 
 #: Header bytes before the memo's bytes: bits 0–71 (Table 3.5-78, DF002 to DF418 but its last bit).
 _MEMO_FROM: Final = 9
@@ -319,43 +318,26 @@ def parse_msm_head(payload: bytes, memo: MsmMemo | None = None) -> MsmHead:
     if memo is not None and nbytes >= 22:
         # Bits 0–55 (Table 3.5-78): DF002 and DF003's first 4 bits, DF003's last 8, then the
         # epoch time (30 bits), DF393 and DF409's first bit.
-        top, low, time = _TOP.unpack_from(payload)
-        msg_type = top >> 4
+        fields = _TOP.unpack_from(payload)
+        msg_type = fields[0] >> 4
         last = memo.get(msg_type)
         # Bits 72 to the cell mask's end: DF418's last bit, DF394 and DF395 (which fix the cell
         # mask's width), then DF396. One more bit than the layout needs (a change of DF418 only
         # sends the message down the general path below, which gives the same head).
         if last is not None:
-            prefix, at, mask, byte, system, letter, level, known = last
+            prefix, at, mask, byte, kind = last
             if (
                 payload.startswith(prefix, _MEMO_FROM)
                 and at < nbytes
                 and payload[at] & mask == byte
             ):
-                if nbytes < known.nbytes:
+                need = kind[3].nbytes
+                if nbytes < need:
                     raise ParseError(
-                        f"MSM payload has {nbytes} bytes, its masks need {known.nbytes}",
+                        f"MSM payload has {nbytes} bytes, its masks need {need}",
                         message_id=msg_type,
                     )
-                # MsmHead.__init__'s fields, without the whole head as one integer.
-                h = _NEW(MsmHead)
-                h.payload = payload
-                h._head = None
-                h.msg_type = msg_type
-                h.msm_system = system
-                h.system = letter
-                h.msm_level = level
-                h.layout = known
-                h.station_id = ((top & 0xF) << 8) | low  # DF003, bits 12–23
-                if known.glo_fdma:  # DF416 (3 bits) + DF034 (27 bits)
-                    h.epoch_ms = (time >> 2) & 0x7FF_FFFF
-                    h.glonass_day = time >> 29
-                else:
-                    h.epoch_ms = time >> 2
-                    h.glonass_day = -1
-                h.multiple_message = bool(time & 2)  # DF393, bit 54
-                h.glo_channels = None
-                return h
+                return _new_head(payload, None, fields, kind)
     if nbytes < 22:
         raise ParseError(f"MSM header needs 22 bytes, got {nbytes}", offset=nbytes)
     # Header (RTCM 10403.3 Table 3.5-78) and up to 64 cell-mask bits: 233 bits in 30 bytes.
@@ -382,21 +364,48 @@ def parse_msm_head(payload: bytes, memo: MsmMemo | None = None) -> MsmHead:
         lay = _LAYOUTS[key] = _layout(
             system, level, satmask=satmask, sigmask=sigmask, cellmask=cellmask, nsig=nsig
         )
+    kind = (system, system.letter, level, lay)
     end = HEADER_BITS + nsat * nsig  # the cell mask's end (bit index, exclusive)
     at, part = divmod(end, 8)
     # Remembered only where the payload holds every byte the memo compares: a cut copy's bytes
     # would match a longer message's prefix whatever follows.
     if memo is not None and at < nbytes:
         mask = (0xFF << (8 - part)) & 0xFF  # the byte's bits before ``end`` (none if part = 0)
-        memo[msg_type] = (
-            payload[_MEMO_FROM:at], at, mask, payload[at] & mask, system, system.letter, level,
-            lay,
-        )  # fmt: skip
+        memo[msg_type] = (payload[_MEMO_FROM:at], at, mask, payload[at] & mask, kind)
     if nbytes < lay.nbytes:
         raise ParseError(
             f"MSM payload has {nbytes} bytes, its masks need {lay.nbytes}", message_id=msg_type
         )
-    return MsmHead(payload, head, system, level, lay)
+    return _new_head(payload, head, _TOP.unpack_from(payload), kind)
+
+
+def _new_head(
+    payload: bytes, head: int | None, fields: tuple[int, int, int], kind: _Kind
+) -> MsmHead:
+    """The :class:`MsmHead` of both paths of :func:`parse_msm_head`: the header fields that change
+    from one message to the next from ``fields`` (``_TOP.unpack_from(payload)``: bits 0–55 of
+    Table 3.5-78), the rest from ``kind``; ``head`` the first 240 bits as one integer, or None
+    (worked out on first use of ``MsmHead.head``)."""
+    top, low, time = fields
+    system, letter, level, lay = kind
+    h = _NEW(MsmHead)
+    h.payload = payload
+    h._head = head
+    h.msg_type = top >> 4  # DF002, bits 0–11
+    h.msm_system = system
+    h.system = letter
+    h.msm_level = level
+    h.layout = lay
+    h.station_id = ((top & 0xF) << 8) | low  # DF003, bits 12–23
+    if lay.glo_fdma:  # DF416 (3 bits) + DF034 (27 bits)
+        h.epoch_ms = (time >> 2) & 0x7FF_FFFF
+        h.glonass_day = time >> 29
+    else:  # DF004 (GPS, QZSS), DF248 (Galileo), DF427 (BeiDou): bits 24–53
+        h.epoch_ms = time >> 2
+        h.glonass_day = -1
+    h.multiple_message = bool(time & 2)  # DF393, bit 54
+    h.glo_channels = None
+    return h
 
 
 def _fields(payload: bytes, lay: _Layout, part: slice) -> npt.NDArray[np.int64]:
