@@ -89,3 +89,21 @@ class AlarmTransition:
     unit: str
     raise_at: float
     clear_at: float
+
+    def status(self) -> AlarmStatus:
+        """The alarm's status right after this transition (settled: not pending; since its time),
+        as published retained beside the transition event."""
+        return AlarmStatus(
+            station=self.station,
+            alarm=self.alarm,
+            kind=self.kind,
+            band=self.band,
+            severity=self.severity,
+            state=self.state,
+            pending=False,
+            value=self.value,
+            unit=self.unit,
+            raise_at=self.raise_at,
+            clear_at=self.clear_at,
+            since=self.time,
+        )

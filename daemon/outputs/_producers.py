@@ -236,23 +236,9 @@ class TopicProducers:
                 retain=False,
                 alarm_class=True,
             )
-            status = AlarmStatus(
-                station=tr.station,
-                alarm=tr.alarm,
-                kind=tr.kind,
-                band=tr.band,
-                severity=tr.severity,
-                state=tr.state,
-                pending=False,
-                value=tr.value,
-                unit=tr.unit,
-                raise_at=tr.raise_at,
-                clear_at=tr.clear_at,
-                since=tr.time,
-            )
             self._put(
                 self._tree.alarm(tr.station, tr.alarm),
-                fmt.alarm_state_payload(status, now),
+                fmt.alarm_state_payload(tr.status(), now),
                 qos=self._s.qos_alarm,
                 retain=True,
                 alarm_class=True,
