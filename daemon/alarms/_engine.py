@@ -165,13 +165,11 @@ class StationAlarms:
         (a no-op when nothing is pending). Call it after the urgent work of every station;
         skipping it only moves the work into the next ``observe_snapshot`` (:meth:`statuses`
         records the values itself)."""
+        self._record_cn0_values()
         pending = self._unlearned
         if pending is not None:
             self._unlearned = None
-            cells, t_s, frozen, alarms, values = pending
-            if alarms is not None and values is not None:
-                for alarm, value in zip(alarms, values, strict=True):
-                    alarm.value = value
+            cells, t_s, frozen, _, _ = pending
             base = self._cn0
             base.learn_cells(cells, t_s, frozen=frozen)
             base.prepare(cells)
