@@ -10,7 +10,10 @@ What runs where:
   (``IONWARDEN_TEST_MQTT_HOST``/``PORT``, default 127.0.0.1:1883) under a unique ``topic_prefix``,
   the Prometheus exporter on a free loopback port, ``state_dir`` in a temp dir, every other setting
   at its default (INFO logging, summary lines, per-satellite series, checkpoints);
-* a subscriber here (aiomqtt, QoS 1) listens to ``<prefix>/+/summary``.
+* a subscriber listens to ``<prefix>/+/summary`` (QoS 1): by default ``mosquitto_sub``
+  (Debian: mosquitto-clients), whose output, with each receipt time, is read only between bursts;
+  ``--subscriber aiomqtt`` puts it in this process, parsing each summary on the shared cores as it
+  arrives (~7 ms of CPU a second at 20 stations, which then competes with the daemon).
 
 Sequence: the first chunk (ephemerides, receiver set-up) goes to every station untimed and the
 bench waits for every station's first summary; then, each second, that second's chunk is written
@@ -34,7 +37,7 @@ exit status is printed) and the temp files are removed.
 
 Usage: .venv/bin/python bench/bench_e2e.py [--seconds 60] [--stations 20] [--stagger]
            [--scrape-every S] [--keep-log] [--series CSV] [--workers N] [--warm-up S]
-           [--daemon PATH]
+           [--daemon PATH] [--subscriber mosquitto_sub|aiomqtt]
 The daemon is the installed ``.venv/bin/ionwarden`` and inherits this process's environment, so
 ``PYTHONPATH=DIR`` with ``DIR/ionwarden/{daemon,parsers}`` (e.g. ``git archive HEAD daemon parsers``
 unpacked there) measures that code instead of the work tree. Exit status: 0, 1 on a set-up failure
@@ -334,25 +337,115 @@ class Received:
     duplicates: int = 0
     bad: int = 0
     arrived: asyncio.Event = field(default_factory=asyncio.Event)
+    #: the lean subscriber, when it is the one (its file is read here, between bursts)
+    lean: LeanSubscriber | None = None
+
+    def record(self, t: float, topic: str, payload: bytes) -> None:
+        """One summary received at ``t`` (perf_counter s): matched by station and epoch."""
+        try:
+            station = topic.split("/")[-2]
+            body = json.loads(payload)
+            key = tow_key(float(body["gps_tow_s"]))
+            self.weeks.add(int(body["gps_week"]))
+        except (ValueError, KeyError, TypeError, IndexError):
+            self.bad += 1
+            return
+        if (station, key) in self.times:
+            self.duplicates += 1
+            return
+        self.times[(station, key)] = t
+        self.per_station[station] = self.per_station.get(station, 0) + 1
+        self.arrived.set()
+
+    async def wait(self, timeout_s: float) -> None:
+        """Until a summary arrives or ``timeout_s`` passes (the lean subscriber's file is read
+        every 0.1 s: only while the bench waits, never during the timed bursts)."""
+        if self.lean is not None:
+            for _ in range(max(1, round(timeout_s / 0.1))):  # a file to poll, not an event
+                if self.lean.poll(self):
+                    return
+                await asyncio.sleep(0.1)
+            return
+        self.arrived.clear()
+        with contextlib.suppress(TimeoutError):
+            await asyncio.wait_for(self.arrived.wait(), timeout_s)
 
 
 async def subscribe(client: aiomqtt.Client, got: Received) -> None:
     async for msg in client.messages:
         t = time.perf_counter()  # before any parsing
-        try:
-            station = str(msg.topic).split("/")[-2]
-            body = json.loads(bytes(msg.payload))
-            key = tow_key(float(body["gps_tow_s"]))
-            got.weeks.add(int(body["gps_week"]))
-        except (ValueError, KeyError, TypeError, IndexError):
-            got.bad += 1
-            continue
-        if (station, key) in got.times:
-            got.duplicates += 1
-            continue
-        got.times[(station, key)] = t
-        got.per_station[station] = got.per_station.get(station, 0) + 1
-        got.arrived.set()
+        got.record(t, str(msg.topic), bytes(msg.payload))
+
+
+class LeanSubscriber:
+    """``mosquitto_sub`` (Debian: mosquitto-clients, the broker's own command-line client, in C)
+    writing each summary with its receipt time (``%U``: Unix time in ns) to a file that the bench
+    reads only while it waits. A summary's consumer on a site is remote; a Python subscriber here
+    parses JSON on the same two cores as the daemon (~0.3 ms of CPU a message), which the lean one
+    does not: the figures then show the daemon and the broker, not the bench."""
+
+    def __init__(self, host: str, port: int, prefix: str, path: Path) -> None:
+        self.path = path
+        self._out = path.open("wb")
+        self.proc = subprocess.Popen(
+            ["mosquitto_sub", "-h", host, "-p", str(port), "-q", "1", "-i",
+             f"iwbench-sub-{os.getpid()}", "-t", f"{prefix}/+/summary", "-F", "%U %t %p"],
+            stdin=subprocess.DEVNULL, stdout=self._out, stderr=subprocess.STDOUT,
+        )  # fmt: skip
+        self._pos = 0
+        self._partial = b""
+        #: realtime − perf_counter (s), the smallest of a few samples' spans
+        pairs = []
+        for _ in range(5):
+            a = time.perf_counter()
+            w = time.time()
+            b = time.perf_counter()
+            pairs.append((b - a, w - (a + b) / 2))
+        self._offset = min(pairs)[1]
+
+    def poll(self, got: Received) -> bool:
+        """Read what arrived since the last poll into ``got``; whether anything did."""
+        if self.proc.poll() is not None:
+            raise BenchError(
+                f"mosquitto_sub exited with status {self.proc.returncode}: "
+                f"{self.path.read_bytes()[-300:].decode(errors='replace')}"
+            )
+        with self.path.open("rb") as f:
+            f.seek(self._pos)
+            data = f.read()
+        self._pos += len(data)
+        lines = (self._partial + data).split(b"\n")
+        self._partial = lines.pop()
+        for line in lines:
+            stamp, _, rest = line.partition(b" ")
+            topic, _, payload = rest.partition(b" ")
+            try:
+                t = float(stamp) - self._offset
+            except ValueError:
+                got.bad += 1
+                continue
+            got.record(t, topic.decode(errors="replace"), payload)
+        return bool(lines)
+
+    async def ready(self, host: str, port: int, prefix: str, got: Received) -> None:
+        """Wait until it is subscribed: a probe summary published here comes back through it."""
+        probe = json.dumps({"gps_tow_s": -1.0, "gps_week": -1}).encode()
+        async with aiomqtt.Client(host, port, timeout=10) as client:
+            for _ in range(50):
+                await client.publish(f"{prefix}/probe/summary", probe, qos=1)
+                await asyncio.sleep(0.1)
+                if self.poll(got):
+                    got.times.clear()
+                    got.per_station.clear()
+                    got.weeks.clear()
+                    return
+        raise BenchError("mosquitto_sub did not receive a probe within 5 s")
+
+    def close(self) -> None:
+        self.proc.terminate()
+        with contextlib.suppress(subprocess.TimeoutExpired):
+            self.proc.wait(5)
+        self._out.close()
 
 
 # -- /metrics -------------------------------------------------------------------------------------
@@ -467,9 +560,21 @@ async def run(args: argparse.Namespace, tmp: Path) -> int:
     got = Received()
     daemon: DaemonProcess | None = None
     try:
-        async with aiomqtt.Client(args.mqtt_host, args.mqtt_port, timeout=10) as client:
-            await client.subscribe(f"{prefix}/+/summary", qos=1)
-            sub = asyncio.create_task(subscribe(client, got), name="bench.subscriber")
+        async with contextlib.AsyncExitStack() as stack:
+            if args.subscriber == "mosquitto_sub":
+                lean = LeanSubscriber(args.mqtt_host, args.mqtt_port, prefix, tmp / "sub.txt")
+                stack.callback(lean.close)
+                await lean.ready(args.mqtt_host, args.mqtt_port, prefix, got)
+                got.lean = lean
+                print("subscriber: mosquitto_sub (C), its output read only between bursts")
+                sub = None
+            else:
+                client = await stack.enter_async_context(
+                    aiomqtt.Client(args.mqtt_host, args.mqtt_port, timeout=10)
+                )
+                await client.subscribe(f"{prefix}/+/summary", qos=1)
+                sub = asyncio.create_task(subscribe(client, got), name="bench.subscriber")
+                print("subscriber: aiomqtt in this process (parses each summary as it arrives)")
             try:
                 daemon = DaemonProcess(args.daemon, cfg, tmp / "daemon.log")
                 if args.daemon_nice:  # an experiment: the daemon's main thread vs the broker
@@ -485,9 +590,10 @@ async def run(args: argparse.Namespace, tmp: Path) -> int:
                     prom_port=prom_port,
                 )
             finally:
-                sub.cancel()
-                with contextlib.suppress(asyncio.CancelledError):
-                    await sub
+                if sub is not None:
+                    sub.cancel()
+                    with contextlib.suppress(asyncio.CancelledError):
+                        await sub
     except aiomqtt.MqttError as exc:
         raise BenchError(
             f"MQTT broker {args.mqtt_host}:{args.mqtt_port}: {exc} (set "
@@ -545,9 +651,7 @@ async def _timed(
                 f"no first summary within {FIRST_SUMMARY_TIMEOUT_S:.0f} s from {absent} "
                 f"(summaries seen: {got.per_station}, unparsable {got.bad}):\n{daemon.log_tail()}"
             )
-        got.arrived.clear()
-        with contextlib.suppress(TimeoutError):
-            await asyncio.wait_for(got.arrived.wait(), 0.5)
+        await got.wait(0.5)
     if args.warm_up:
         # untimed, at 10x real time: arcs level, ROT and the 5-min ROTI windows fill, the receiver
         # bias converges: the timed seconds then show the steady state, not the start-up
@@ -565,9 +669,7 @@ async def _timed(
                 raise BenchError(
                     f"the warm-up's last summaries did not arrive:\n{daemon.log_tail()}"
                 )
-            got.arrived.clear()
-            with contextlib.suppress(TimeoutError):
-                await asyncio.wait_for(got.arrived.wait(), 0.5)
+            await got.wait(0.5)
         print(f"warm-up: {args.warm_up} s of stream at 10x real time, untimed")
     # let the deferred steps, the start-up publishing and the exporter's 1 s refresh finish
     await asyncio.sleep(1.5)
@@ -618,9 +720,7 @@ async def _timed(
             scrapes.append((s, took))
     t_last = time.monotonic()
     while time.monotonic() - t_last < TAIL_TIMEOUT_S and not all(k in got.times for k in sent):
-        got.arrived.clear()
-        with contextlib.suppress(TimeoutError):
-            await asyncio.wait_for(got.arrived.wait(), 0.5)
+        await got.wait(0.5)
     # the CPU window: whole seconds, from the first burst to a second after the last one
     await asyncio.sleep(max(0.0, start + len(timed) - loop.time()))
     cpu1, thr1, wall1 = daemon.cpu_s(), daemon.threads(), time.perf_counter()
@@ -800,6 +900,12 @@ def main() -> None:
         "in a venv of Debian's python3, which a Pi runs (built with PGO and LTO, unlike a "
         "pyenv build)",
     )  # fmt: skip
+    ap.add_argument(
+        "--subscriber", choices=("mosquitto_sub", "aiomqtt"), default=None,
+        help="who receives the summaries: mosquitto_sub (default when installed: the broker's C "
+        "client, read between bursts, as light as a remote consumer) or aiomqtt in this process "
+        "(parses each summary on the shared cores)",
+    )  # fmt: skip
     ap.add_argument("--keep-log", action="store_true", help="keep the daemon's log (temp dir)")
     ap.add_argument(
         "--series", type=Path, metavar="CSV",
@@ -811,6 +917,10 @@ def main() -> None:
         ap.error("--seconds and --stations must be at least 1")
     args.mqtt_host = os.environ.get("IONWARDEN_TEST_MQTT_HOST", "127.0.0.1")
     args.mqtt_port = int(os.environ.get("IONWARDEN_TEST_MQTT_PORT", "1883"))
+    if args.subscriber is None:
+        args.subscriber = "mosquitto_sub" if shutil.which("mosquitto_sub") else "aiomqtt"
+    elif args.subscriber == "mosquitto_sub" and shutil.which("mosquitto_sub") is None:
+        ap.error("mosquitto_sub not found (Debian: apt-get install mosquitto-clients)")
     if not args.daemon.exists():
         ap.error(f"{args.daemon} not found: install the project into .venv first")
     tmp = Path(tempfile.mkdtemp(prefix="bench_e2e-"))
