@@ -5,13 +5,15 @@ counts repeat to ~0.1%, so a change to the per-epoch path is judged by them (the
 clock by ``bench_outputs.py`` / ``bench_e2e.py``). What is counted, per ``--what``:
 
 * ``urgent`` — the step a station's bytes wait for: ``FramingCore.feed`` (framing, decoding,
-  estimating) + the alarms' ``observe_snapshot`` + the summary's formatting and queueing, as the
-  daemon builds them (``defer``), on the simulator's invented quiet-day stream; the publisher is not
-  connected;
+  estimating) + handing the snapshot to its ``DeferredAlarms`` + the summary's formatting and
+  queueing, as the daemon builds them (``defer``), on the simulator's invented quiet-day stream;
+  the publisher is not connected;
 * ``urgent-mqtt`` — the same with the publisher connected to the broker (IONWARDEN_TEST_MQTT_HOST /
   _PORT, default 127.0.0.1:1883), up to every PUBACK of the second read and settled;
 * ``settle`` — the deferred part of each second, run after every station's urgent step
-  (``FramingCore.settle``, ``StationAlarms.settle``);
+  (``FramingCore.settle``, then ``DeferredAlarms.settle``: the alarms' ``observe_snapshot``, the
+  publishing of its transitions and ``StationAlarms.settle``). As before, the fixes the core's
+  settle decodes are not handed to the alarms (not counted);
 * ``runtime`` — the daemon's own machinery around a step: the real ``Daemon`` (StepLane, TCP
   ingest with stall detection, epoch-latency histogram, 1 Hz status tick with the exporter's
   snapshot) with a stand-in core that hands out a ready-made snapshot per chunk (no decoding,
@@ -110,6 +112,7 @@ async def _pipeline(lib: Any, what: str, n: int, secs: int, warm_up: int) -> int
     from ionwarden.daemon.config import MqttSettings
     from ionwarden.daemon.estimator import StationSnapshot
     from ionwarden.daemon.outputs import MqttPublisher
+    from ionwarden.daemon.runtime._deferred_alarms import DeferredAlarms
 
     chunks, pipes, engines = _replayed_stations(secs + warm_up, n)
     mqtt = what == "urgent-mqtt"
@@ -119,6 +122,8 @@ async def _pipeline(lib: Any, what: str, n: int, secs: int, warm_up: int) -> int
     task = asyncio.create_task(pub.run()) if mqtt else None
     if mqtt:
         await asyncio.wait_for(pub.wait_connected(), 60)
+    # as the daemon runs them: evaluated in the station's settle, after its summary went out
+    alarms = [DeferredAlarms(e, pub) for e in engines]
     urgent, counted = what != "settle", 0
     for k, chunk in enumerate(chunks[1:]):
         on = k >= warm_up
@@ -128,7 +133,7 @@ async def _pipeline(lib: Any, what: str, n: int, secs: int, warm_up: int) -> int
         for i in range(n):
             for out in pipes[i].feed(chunk):
                 if isinstance(out, StationSnapshot):
-                    pub.publish_transitions_nowait(engines[i].observe_snapshot(out))
+                    alarms[i].defer(out)
                     pub.publish_snapshot_nowait(out)
         if mqtt:
             await asyncio.wait_for(pub.wait_drained(), 60)
@@ -136,7 +141,7 @@ async def _pipeline(lib: Any, what: str, n: int, secs: int, warm_up: int) -> int
             lib.iw_cg_toggle()  # off after the urgent steps, or on for the settle
         for i in range(n):
             pipes[i].settle()
-            engines[i].settle()
+            alarms[i].settle()
         if on and not urgent:
             lib.iw_cg_toggle()
     if task is not None:

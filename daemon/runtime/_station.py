@@ -125,8 +125,9 @@ class StationRunner:
     ):
         self._on_latency = on_latency
         self._lane = lane
-        #: More deferred work of the station's outputs (its alarms' baseline learning), settled
-        #: in the same background step as the core's.
+        #: More deferred work of the station's outputs (its alarms' evaluation of the last
+        #: snapshot and their baseline learning), settled in the same background step as the
+        #: core's.
         self._also = also_settle
         self._on_finished = on_finished
         self.config = config
@@ -484,6 +485,13 @@ class StationRunner:
         back, so its decode errors count as such), then that of the outputs (``also_settle``,
         after the outputs the core's settle emits), contained like a step."""
         self._contained(self.core.settle, None)
+        if self._also is not None and self._also.unsettled():
+            self._contained(self._settle_also, None)
+
+    def settle_outputs(self) -> None:
+        """Do the outputs' deferred work (``also_settle``) now, contained like a step: for the
+        daemon, before its status tick reads the alarms and after it cancelled the station
+        (whose background turn may never come)."""
         if self._also is not None and self._also.unsettled():
             self._contained(self._settle_also, None)
 

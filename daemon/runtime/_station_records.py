@@ -22,7 +22,8 @@ __all__ = ["Settles", "SourceEvent", "StationConfig", "StationState", "StationSt
 
 
 class Settles(Protocol):
-    """Deferred work that waits for a background step (``StationAlarms``: its learning)."""
+    """Deferred work that waits for a background step (``DeferredAlarms``: the alarms'
+    evaluation of the last snapshot and their learning)."""
 
     def unsettled(self) -> bool: ...
 

@@ -31,13 +31,14 @@ import logging
 import signal
 import time
 from dataclasses import dataclass, field, replace
-from typing import TYPE_CHECKING, Any, Protocol
+from typing import TYPE_CHECKING, Protocol
 
 from ionwarden.daemon.estimator import FixStatus, StationSnapshot
 from ionwarden.daemon.outputs import GOODBYE_TIMEOUT_S
 from ionwarden.parsers import utc_to_gps
 
 from ._checkpoint import load_checkpoint, save_checkpoint
+from ._deferred_alarms import DeferredAlarms
 from ._lane import StepLane
 from ._notify import SdNotifier, watchdog_interval_s
 from ._station import StationRunner
@@ -166,6 +167,8 @@ class StationBundle:
 class _Running:
     runner: StationRunner
     bundle: StationBundle
+    #: The bundle's alarms with the evaluation of its last snapshot pending (None: no alarms).
+    alarms: DeferredAlarms | None
     tasks: list[asyncio.Task[None]] = field(default_factory=list)
 
 
@@ -224,6 +227,8 @@ class Daemon:
         return tuple(r.runner.statistics() for r in self._stations.values())
 
     def station_alarms(self) -> tuple[StationAlarms, ...]:
+        """Every station's alarms; a snapshot's evaluation may still be pending (the state one
+        epoch old) between its urgent step and its station's background turn (_deferred_alarms)."""
         return tuple(
             r.bundle.alarms for r in self._stations.values() if r.bundle.alarms is not None
         )
@@ -232,22 +237,21 @@ class Daemon:
     def _emit_for(self, name: str) -> Callable[[object], None]:
         def emit(item: object) -> None:
             running = self._stations.get(name)
-            alarms = running.bundle.alarms if running is not None else None
-            pub = self._publisher
-            transitions: list[Any] = []
+            alarms = running.alarms if running is not None else None
             if isinstance(item, StationSnapshot):
+                # The summary first: the snapshot's alarm evaluation waits for the station's
+                # background turn (DeferredAlarms), which publishes its transitions.
                 if alarms is not None:
-                    transitions = alarms.observe_snapshot(item)
+                    alarms.defer(item)
+                pub = self._publisher
                 if pub is not None:
                     arrived = running.runner.epoch_arrived_s if running is not None else None
                     pub.publish_snapshot_nowait(item, arrived)
             elif isinstance(item, FixStatus):
                 if alarms is not None:
-                    transitions = alarms.observe_fix(item)
+                    alarms.fix(item)
             elif isinstance(item, SourceEvent):
                 log.debug("%s: source %s %s", item.station, item.state.value, item.detail)
-            if transitions and pub is not None:  # the alarm engine logs each transition itself
-                pub.publish_transitions_nowait(transitions)
 
         return emit
 
@@ -274,6 +278,9 @@ class Daemon:
                     log.warning("%s: ignoring unusable checkpoint: %s", cfg.name, exc)
                 else:
                     log.info("%s: restored checkpointed state", cfg.name)
+        alarms = (
+            DeferredAlarms(bundle.alarms, self._publisher) if bundle.alarms is not None else None
+        )
         runner = StationRunner(
             cfg,
             bundle.core,
@@ -282,9 +289,9 @@ class Daemon:
             on_finished=self._wake.set,
             on_latency=self._exporter.observe_epoch_latency if self._exporter is not None else None,
             lane=self._lane,
-            also_settle=bundle.alarms,
+            also_settle=alarms,
         )
-        running = _Running(runner=runner, bundle=bundle)
+        running = _Running(runner=runner, bundle=bundle, alarms=alarms)
         self._stations[cfg.name] = running
         running.tasks = [
             self._tg.create_task(runner.ingest_loop(), name=f"daemon.ingest[{cfg.name}]"),
@@ -296,10 +303,12 @@ class Daemon:
         return running
 
     async def _stop_stations(self, names: list[str]) -> None:
-        """Cancel the stations' tasks together, then record statistics and write checkpoints."""
+        """Cancel the stations' tasks together, then evaluate a snapshot still waiting for its
+        alarms (cancelled before its background turn), record statistics and write checkpoints."""
         stopping = [self._stations.pop(name) for name in names]
         await _cancel_and_wait([t for r in stopping for t in r.tasks], STATION_STOP_GRACE_S)
         for running in stopping:
+            running.runner.settle_outputs()
             self.stopped_statistics[running.runner.name] = running.runner.statistics()
             self._checkpoint_one(running)
 
@@ -359,7 +368,13 @@ class Daemon:
         """Serve a fresh snapshot to the exporter and evaluate the stall alarms; return the
         snapshot (``None`` without a snapshot builder) for the health message of the same tick.
         ``stats``: :meth:`statistics` of this instant, when the caller already has them (each
-        station's costs a few frozen records: taken once per tick, not once per use)."""
+        station's costs a few frozen records: taken once per tick, not once per use).
+
+        A station's alarm evaluation still waiting for its background turn is done first, so
+        the alarm states served are the latest epoch's and a stall transition comes after its
+        snapshot's ones (a background step too: nothing urgent waits for it)."""
+        for running in self._stations.values():
+            running.runner.settle_outputs()
         if stats is None:
             stats = self.statistics()
         snap = self._build_snapshot(self, stats) if self._build_snapshot is not None else None
@@ -369,16 +384,14 @@ class Daemon:
             now_gps = utc_to_gps(self._utc_now())
             loop_now = asyncio.get_running_loop().time()
             for running, st in zip(self._stations.values(), stats, strict=True):
-                alarms = running.bundle.alarms
+                alarms = running.alarms
                 if alarms is None or st.state is StationState.FINISHED:
                     continue
                 since = st.last_epoch_monotonic_s
                 age = loop_now - (
                     since if since is not None else running.runner.started_monotonic_s
                 )
-                transitions = alarms.observe_stall(age, now_gps)
-                if transitions and self._publisher is not None:
-                    self._publisher.publish_transitions_nowait(transitions)
+                alarms.stall(age, now_gps)
         return snap
 
     async def _status_loop(self) -> None:
