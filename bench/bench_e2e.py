@@ -741,10 +741,10 @@ async def _timed(
     missing = len(sent) - len(rows)
     if args.series is not None:
         with args.series.open("w", encoding="utf-8") as out:
-            out.write("second,station,latency_ms,burst_on_cpu_ms\n")
+            out.write("second,station,latency_ms,burst_on_cpu_ms,burst_waiting_ms,preempted\n")
             for s, i, x in sorted(rows):
-                on_cpu = bursts[s][0] * 1e3 if s in bursts else float("nan")
-                out.write(f"{s},{i},{x:.3f},{on_cpu:.3f}\n")
+                b = bursts.get(s, (float("nan"), float("nan"), -1))
+                out.write(f"{s},{i},{x:.3f},{b[0] * 1e3:.3f},{b[1] * 1e3:.3f},{b[2]}\n")
     mode = "stations spread evenly over the second" if args.stagger else "all at the same instant"
     print(
         f"\nReal daemon, {n} stations x 1 Hz x {len(timed)} s, chunks {mode}; "
@@ -910,7 +910,8 @@ def main() -> None:
     ap.add_argument(
         "--series", type=Path, metavar="CSV",
         help="also write every latency as CSV rows: second, station index, latency ms, and the "
-        "main thread's on-CPU ms in that burst (to see which seconds make the p99)",
+        "busiest station loop's on-CPU ms, ms waiting for a CPU and involuntary switches in that "
+        "burst (to see which seconds make the p99)",
     )  # fmt: skip
     args = ap.parse_args()
     if args.seconds < 1 or args.stations < 1:
