@@ -189,11 +189,10 @@ class ArcState:
         np.multiply(g[LWL], self.th.mw_floor_wl_cycles, out=g[MW_FLOOR])
         g[GF_LOW] = self.th.gf_floor_m
 
-    def detect(
+    def detect(  # noqa: PLR0917 - called positionally: a keyword costs ~600 instructions
         self,
         b: ArcBlock,
-        *,
-        t: F64,
+        t: float | F64,
         gf_mw: F64,
         el_rad: F64,
         el_known: bool,
@@ -207,7 +206,7 @@ class ArcState:
         (arc ids, counts, MW/GF trackers, flags), return (new_arc, reason bits or None when no
         arc starts).
 
-        ``t``: epoch time (s, 0-d); ``gf_mw`` (``b.n_ref``, d): GF and MW (m), then the samples
+        ``t``: epoch time (s, a float or 0-d); ``gf_mw`` (``b.n_ref``, d): GF and MW (m), then the samples
         whose differences with the block rows after ``MW_MEAN`` go to ``b.diff[2:]``, computed
         before any update (``b.diff`` is valid until the next call); ``el_known``: no elevation
         is NaN; ``cur`` (7, d): this epoch's pair rank, half-cycle flags of band 1 and 2, MSM
@@ -315,7 +314,7 @@ class ArcState:
         return out
 
     def _general(
-        self, b: ArcBlock, *, t: F64, dt: F64, gf_mw: F64, res: F64, jump: Bool, cur: F64,
+        self, b: ArcBlock, *, t: float | F64, dt: F64, gf_mw: F64, res: F64, jump: Bool, cur: F64,
         lli_lost: Bool | None, gap_s: float, screen: bool, all_tracked: bool,
         tracked: Bool | None,
     ) -> tuple[Bool, npt.NDArray[np.int64] | None]:  # fmt: skip
