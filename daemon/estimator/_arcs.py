@@ -115,7 +115,7 @@ class ArcBlock:
     caller wants differenced too (read back from ``diff[2:]``).
     """
 
-    __slots__ = ("absres", "cur", "cur_id", "cur_lock", "d", "diff", "dt", "g", "jump", "keep",
+    __slots__ = ("absres", "cur", "cur_id", "cur_lock", "d", "diff", "dt", "dt_s", "g", "jump", "keep",
                  "last_t", "level", "level_step", "low_thr", "mw_floor", "mw_mean", "mw_thr",
                  "mw_var", "n", "n_ref", "pred", "prev", "prev_id", "prev_lock", "rate", "ref",
                  "res", "res_gf", "res_mw", "scr", "scr_dt", "scr_flags", "scr_id", "scr_lock",
@@ -130,6 +130,9 @@ class ArcBlock:
         #: writes this epoch's time into all of them (on both of its paths), so from its second
         #: call on one dt is all.
         self.t_all: float | None = None
+        #: The value :meth:`ArcState.detect` last filled every row of ``dt`` with (None: not
+        #: known; nothing else writes that row of a block).
+        self.dt_s: float | None = None
         self.last_t, self.dt, self.n = g[LAST_T], g[DT], g[N]
         self.prev = g[RANK : LT2 + 1]  # rank, half-cycle flags, lock indicators, lock times
         self.prev_id = g[RANK : HALF2 + 1]
@@ -222,10 +225,13 @@ class ArcState:
         t_all = b.t_all
         if t_all is None:
             dt = np.subtract(t, b.last_t, b.dt)
+            b.dt_s = None
         else:  # every row's t − last_t, the same IEEE subtraction in Python
             dt_s = float(t) - t_all
             dt = b.dt
-            dt.fill(dt_s)
+            if dt_s != b.dt_s or dt_s == 0.0:  # (the row holds the last one: the interval)
+                dt.fill(dt_s)
+                b.dt_s = dt_s
         # Cheap screen, a superset of the hard reasons below (computed exactly only if it fires):
         # no previous sample or a gap, another pair, a half-cycle flag that changed, a lock
         # indicator or lock time that went down, RINEX loss of lock.
