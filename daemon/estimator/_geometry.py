@@ -134,7 +134,7 @@ class Geometry:
             dt_s = t_s - same[2]
             if abs(dt_s) <= self.refresh_s:
                 # The operations of the general case below, with one dt for all satellites.
-                geo = np.multiply(same[4], dt_s)  # (a float operand: cheaper than a 0-d)
+                geo = np.multiply(same[4], np.array(dt_s))
                 geo += same[3]
                 self._wrap(geo)
                 self.all_known = same[5]
