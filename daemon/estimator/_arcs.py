@@ -115,7 +115,7 @@ class ArcBlock:
     caller wants differenced too (read back from ``diff[2:]``).
     """
 
-    __slots__ = ("absres", "cur", "cur_id", "cur_lock", "d", "diff", "dt", "g", "jump", "keep",
+    __slots__ = ("absres", "cur", "cur_id", "cur_lock", "d", "diff", "dt", "dt_s", "g", "jump", "keep",
                  "last_t", "level", "level_step", "low_thr", "mw_floor", "mw_mean", "mw_thr",
                  "mw_var", "n", "n_ref", "pred", "prev", "prev_id", "prev_lock", "rate", "ref",
                  "res", "res_gf", "res_mw", "scr", "scr_dt", "scr_flags", "scr_id", "scr_lock",
@@ -130,6 +130,9 @@ class ArcBlock:
         #: writes this epoch's time into all of them (on both of its paths), so from its second
         #: call on one dt is all.
         self.t_all: float | None = None
+        #: The value :meth:`ArcState.detect` last filled every row of ``dt`` with (None: not
+        #: known; nothing else writes that row of a block).
+        self.dt_s: float | None = None
         self.last_t, self.dt, self.n = g[LAST_T], g[DT], g[N]
         self.prev = g[RANK : LT2 + 1]  # rank, half-cycle flags, lock indicators, lock times
         self.prev_id = g[RANK : HALF2 + 1]
@@ -189,11 +192,10 @@ class ArcState:
         np.multiply(g[LWL], self.th.mw_floor_wl_cycles, out=g[MW_FLOOR])
         g[GF_LOW] = self.th.gf_floor_m
 
-    def detect(
+    def detect(  # noqa: PLR0917 - called positionally: a keyword costs ~600 instructions
         self,
         b: ArcBlock,
-        *,
-        t: F64,
+        t: float | F64,
         gf_mw: F64,
         el_rad: F64,
         el_known: bool,
@@ -207,7 +209,7 @@ class ArcState:
         (arc ids, counts, MW/GF trackers, flags), return (new_arc, reason bits or None when no
         arc starts).
 
-        ``t``: epoch time (s, 0-d); ``gf_mw`` (``b.n_ref``, d): GF and MW (m), then the samples
+        ``t``: epoch time (s, a float or 0-d); ``gf_mw`` (``b.n_ref``, d): GF and MW (m), then the samples
         whose differences with the block rows after ``MW_MEAN`` go to ``b.diff[2:]``, computed
         before any update (``b.diff`` is valid until the next call); ``el_known``: no elevation
         is NaN; ``cur`` (7, d): this epoch's pair rank, half-cycle flags of band 1 and 2, MSM
@@ -223,10 +225,13 @@ class ArcState:
         t_all = b.t_all
         if t_all is None:
             dt = np.subtract(t, b.last_t, b.dt)
+            b.dt_s = None
         else:  # every row's t − last_t, the same IEEE subtraction in Python
             dt_s = float(t) - t_all
             dt = b.dt
-            dt.fill(dt_s)
+            if dt_s != b.dt_s or dt_s == 0.0:  # (the row holds the last one: the interval)
+                dt.fill(dt_s)
+                b.dt_s = dt_s
         # Cheap screen, a superset of the hard reasons below (computed exactly only if it fires):
         # no previous sample or a gap, another pair, a half-cycle flag that changed, a lock
         # indicator or lock time that went down, RINEX loss of lock.
@@ -315,7 +320,7 @@ class ArcState:
         return out
 
     def _general(
-        self, b: ArcBlock, *, t: F64, dt: F64, gf_mw: F64, res: F64, jump: Bool, cur: F64,
+        self, b: ArcBlock, *, t: float | F64, dt: F64, gf_mw: F64, res: F64, jump: Bool, cur: F64,
         lli_lost: Bool | None, gap_s: float, screen: bool, all_tracked: bool,
         tracked: Bool | None,
     ) -> tuple[Bool, npt.NDArray[np.int64] | None]:  # fmt: skip

@@ -222,7 +222,8 @@ class BiasModel:
         g = self.ref_group
         if g < 0:
             return math.nan, math.nan
-        return float(self.applied[g]), float(self.rx.sigma[g])
+        applied: float = self.applied.item(g)  # (item: the same Python float, no scalar)
+        return applied, self.rx.sigma.item(g)
 
     def due(self, t: float) -> bool:
         return t - self.last_t >= self.update_s

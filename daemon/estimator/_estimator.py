@@ -56,7 +56,7 @@ from ._npfast import quiet_enter as _quiet_enter
 from ._npfast import quiet_exit as _quiet_exit
 from ._pairs import PairTable, band_delays_s
 from ._persist import apply_rolling, checked_rolling, resume_allowed, rolling_state
-from ._snapshot import SatelliteFigures, StationSnapshot, new_satellite_figures, new_snapshot
+from ._snapshot import SatelliteFigures, StationSnapshot, satellite_figures_of, snapshot_of
 from ._state import (
     ARC,
     F1,
@@ -228,6 +228,10 @@ class StationEstimator:
         self._hatch_consts: tuple[float, float, F64, F64] = (math.nan, 1.0, _ZERO, _ZERO)
         #: (interval, the slip tests' gap max(max_gap_s, gap_samples · interval) in s).
         self._gap = (math.nan, math.nan)
+        #: The last read-only LLI array seen all zero (the decoder shares one per layout).
+        self._lli_clear: npt.NDArray[np.uint8] | None = None
+        #: (ROT lag in s, 60/lag as a 0-d array: the factor to TECU/min).
+        self._rot_scale: tuple[float, F64] = (math.nan, _ZERO)
         self._last_epoch_t = -math.inf
         self._intervals = np.full(_INTERVAL_HISTORY, np.nan)
         self._interval = 1.0  # s, median of the recent epoch intervals
@@ -341,8 +345,7 @@ class StationEstimator:
         sin_all = np.sin(el_all)
         el = el_all if lay.all_dual else el_all[lay.has]
         sin_el = sin_all if lay.all_dual else sin_all[lay.has]
-        figs = self._dual(epoch, lay, t=t, interval=interval, el=el, sin_el=sin_el,
-                          el_known=el_known)  # fmt: skip
+        figs = self._dual(epoch, lay, t, interval, el, sin_el, el_known)  # (positional: cheaper)
         (stec, rot, roti, iono_l1, if_code, if_phase, hatch, mp1, mp2, noise, relevel,
          stec_raw, lev, b_sat, n_arc, arc, new, pair_switch) = figs  # fmt: skip
         if not lay.all_dual:  # per-pair-satellite arrays over every satellite present
@@ -361,9 +364,8 @@ class StationEstimator:
         if _count_nonzero(up) != m:
             vtec[~up] = np.nan
         (vtec_st, roti_max, roti_med, rot_max, g_tecu, g_mm, g_az) = station_values(
-            el_rad=el_all, sin_el=sin_all, el_known=el_known, pts=pts, rot=rot, roti=roti,
-            mask_rad=self._mask_rad, scratch=self._sky.scratch,
-        )  # fmt: skip
+            el_all, sin_all, el_known, pts, rot, roti, self._mask_rad, self._sky.scratch
+        )  # (el_rad, sin_el, el_known, pts, rot, roti, mask_rad, scratch: positional, cheaper)
         self._last_roti_median = roti_med
         # The snapshot reports the receiver bias that was applied to this epoch's STEC.
         bias_ref, sigma_ref = self.biases.reference()
@@ -393,57 +395,57 @@ class StationEstimator:
         assert blk is not None
         if lay.cells_in_range:  # every cell's satellite is present: a contiguous output
             deg = np.degrees(geo)
-            cell_el = deg[0].take(blk.cell_pos)
+            cell_el = deg.take(blk.cell_pos)  # row 0: the flat take (cell_pos < m)
         else:  # a NaN slot after the satellites for the cells out of range (cell_pos = m)
             deg_nan = np.empty((4, m + 1))
             np.degrees(geo, out=deg_nan[:, :m])
             deg_nan[0, m] = np.nan
             cell_el = deg_nan.take(blk.cell_pos)  # row 0 (cell_pos ≤ m): the flat take
             deg = deg_nan[:, :m]
-        sats = new_satellite_figures(
-            sat=lay.sat16,
-            pair=lay.labels,
-            el_deg=deg[0],
-            az_deg=deg[1],
-            ipp_lat_deg=deg[2],
-            ipp_lon_deg=deg[3],
-            stec_tecu=stec,
-            vtec_tecu=vtec,
-            rot_tecu_per_min=rot,
-            roti_tecu_per_min=roti,
-            iono_l1_m=iono_l1,
-            if_code_m=if_code,
-            if_phase_m=if_phase,
-            if_code_smoothed_m=hatch,
-            slip=slip,
-            arc_id=arc_id,
-            mp1_m=mp1,
-            mp2_m=mp2,
-            if_noise_factor=noise,
-            pair_switch=switch,
-            stec_relevel_tecu=relevel,
+        sats = satellite_figures_of(  # (positional, in field order)
+            lay.sat16,  # sat
+            lay.labels,  # pair
+            deg[0],  # el_deg
+            deg[1],  # az_deg
+            deg[2],  # ipp_lat_deg
+            deg[3],  # ipp_lon_deg
+            stec,  # stec_tecu
+            vtec,  # vtec_tecu
+            rot,  # rot_tecu_per_min
+            roti,  # roti_tecu_per_min
+            iono_l1,  # iono_l1_m
+            if_code,  # if_code_m
+            if_phase,  # if_phase_m
+            hatch,  # if_code_smoothed_m
+            slip,  # slip
+            arc_id,  # arc_id
+            mp1,  # mp1_m
+            mp2,  # mp2_m
+            noise,  # if_noise_factor
+            switch,  # pair_switch
+            relevel,  # stec_relevel_tecu
         )
-        return new_snapshot(
-            station=self.station,
-            time=epoch.time,
-            n_sats=m,
-            vtec_tecu=vtec_st,
-            roti_max_tecu_per_min=roti_max,
-            roti_median_tecu_per_min=roti_med,
-            rot_max_abs_tecu_per_min=rot_max,
-            gradient_mm_per_km=g_mm,
-            gradient_tecu_per_km=g_tecu,
-            gradient_azimuth_deg=g_az,
-            dual_freq_fraction=float(lay.idx.shape[0] / m) if m else math.nan,
-            receiver_bias_tecu=bias_ref,
-            receiver_bias_sigma_tecu=sigma_ref,
-            satellites=sats,
-            cell_sat=epoch.sat,
-            cell_sig=epoch.sig,
-            cell_el_deg=cell_el,
-            cell_cn0_dbhz=epoch.cn0_dbhz,
-            geometry_source=geo_source if m else "none",
-            counters=self._counters(),
+        return snapshot_of(  # (positional, in field order)
+            self.station,  # station
+            epoch.time,  # time
+            m,  # n_sats
+            vtec_st,  # vtec_tecu
+            roti_max,  # roti_max_tecu_per_min
+            roti_med,  # roti_median_tecu_per_min
+            rot_max,  # rot_max_abs_tecu_per_min
+            g_mm,  # gradient_mm_per_km
+            g_tecu,  # gradient_tecu_per_km
+            g_az,  # gradient_azimuth_deg
+            float(lay.idx.shape[0] / m) if m else math.nan,  # dual_freq_fraction
+            bias_ref,  # receiver_bias_tecu
+            sigma_ref,  # receiver_bias_sigma_tecu
+            sats,  # satellites
+            epoch.sat,  # cell_sat
+            epoch.sig,  # cell_sig
+            cell_el,  # cell_el_deg
+            epoch.cn0_dbhz,  # cell_cn0_dbhz
+            geo_source if m else "none",  # geometry_source
+            self._counters(),  # counters
         )
 
     # -- the working block ----------------------------------------------------------------------
@@ -478,8 +480,8 @@ class StationEstimator:
         self._sync()
         return self._st
 
-    def _dual(
-        self, epoch: ObsEpoch, lay: EpochLayout, *, t: float, interval: float, el: F64,
+    def _dual(  # noqa: PLR0917 - called positionally: a keyword costs ~600 instructions
+        self, epoch: ObsEpoch, lay: EpochLayout, t: float, interval: float, el: F64,
         sin_el: F64, el_known: bool,
     ) -> _Dual:  # fmt: skip
         """All dual-frequency figures of the ``d`` satellites ``lay.idx`` (arrays of length d), in
@@ -495,16 +497,20 @@ class StationEstimator:
         idx = lay.idx
         i12 = blk.i12_2
         d = idx.shape[0]
-        meas_l = epoch.phase_cycles.take(i12, out=blk.meas_l, mode="clip")
+        meas_l = epoch.phase_cycles.take(i12, None, blk.meas_l, "clip")  # (out, mode)
         meas_l *= lay.wavelength_m
-        epoch.pseudorange_m.take(i12, out=blk.meas_p, mode="clip")
+        epoch.pseudorange_m.take(i12, None, blk.meas_p, "clip")
         comb = _einsum("kjd,jd->kd", lay.comb, blk.meas)  # (combinations, d)
         gf_tecu = comb[GFT_ROW]
         if_code = comb[IFC_ROW]
         if_phase = comb[IFP_ROW]
         lli_lost = None
-        if _count_nonzero(epoch.lli):
-            lli_lost = np.logical_or.reduce(epoch.lli[i12] & 1, axis=0)
+        lli = epoch.lli
+        if lli is not self._lli_clear:  # (a read-only array seen all zero: zero still)
+            if _count_nonzero(lli):
+                lli_lost = np.logical_or.reduce(lli[i12] & 1, axis=0)
+            elif not lli.flags.writeable:
+                self._lli_clear = lli
         gap = self._gap
         if gap[0] != interval:  # the slip tests' gap (s) at this sampling interval
             self._gap = gap = (interval, max(self.settings.max_gap_s,
@@ -517,14 +523,14 @@ class StationEstimator:
         c1[...] = epoch.lock_indicator
         c2[...] = epoch.lock_time_s
         cur = blk.cur
-        blk.cells.take(blk.i12, axis=1, out=blk.cur_flags, mode="clip")
+        blk.cells.take(blk.i12, 1, blk.cur_flags, "clip")  # (axis, out, mode)
         if math.isnan(blk.n_min):
             blk.n_min = float(np.minimum.reduce(g[N])) if d else math.inf  # g[N].min()
-        t_arr = np.array(t)
         # One subtraction for the slip tests, the levelling and MP steps and ROT (``_state``).
+        # (b, t, gf_mw, el_rad, el_known, cur, lli_lost, gap_s, all_tracked, no_new: positional)
         new, reason = self.arcs.detect(
-            blk.arcs, t=t_arr, gf_mw=comb[: GFT_ROW + 1], el_rad=el, el_known=el_known, cur=cur,
-            lli_lost=lli_lost, gap_s=gap_s, all_tracked=blk.n_min >= 2.0, no_new=lay.no_lli,
+            blk.arcs, t, comb[: GFT_ROW + 1], el, el_known, cur, lli_lost, gap_s,
+            blk.n_min >= 2.0, lay.no_lli,
         )  # fmt: skip
         any_new = reason is not None
         if reason is not None:
@@ -594,7 +600,10 @@ class StationEstimator:
         lagged, t_lag = self.rot_ring.lag_push(t, idx, rel, arc, interval)
         if math.isfinite(t_lag):
             rot = np.subtract(rel, lagged, lagged)
-            rot *= 60.0 / (t - t_lag)
+            rs = self._rot_scale
+            if rs[0] != t - t_lag:  # (the lag, the same epoch after epoch)
+                self._rot_scale = rs = (t - t_lag, np.array(60.0 / (t - t_lag)))
+            rot *= rs[1]
         else:
             rot = lagged
         roti = self.roti_window.push_std(t, idx, rot, self.settings.roti_min_samples)

@@ -63,7 +63,7 @@ class FitScratch:
     scratch (a copied view would be an independent array; every buffer is written before it is
     read)."""
 
-    __slots__ = ("means", "means_flat", "sums", "sums_flat", "w_sum")
+    __slots__ = ("flags", "means", "means_flat", "selection", "sums", "sums_flat", "w_sum")
 
     def __init__(self) -> None:
         self.w_sum = np.array(0.0)
@@ -71,9 +71,65 @@ class FitScratch:
         self.means_flat = self.means[:, 0]  # (contiguous)
         self.sums = np.empty((3, 3))
         self.sums_flat = self.sums.reshape(9)
+        #: (2, m) "above the mask" and "VTEC finite" of the epoch, with its two rows.
+        both = np.empty((2, 0), np.bool_)
+        self.flags: tuple[npt.NDArray[np.bool_], ...] = (both, both[0], both[1])
+        #: The selections of the last flags seen (None: none yet; see :meth:`select`).
+        self.selection: _Selection | None = None
 
     def __reduce__(self) -> tuple[type[FitScratch], tuple[()]]:
         return FitScratch, ()
+
+    def forget(self) -> None:
+        """Drop the kept selection (the next :meth:`select` builds it again)."""
+        self.selection = None
+
+    def select(self, el_rad: F64, mask: F64, vtec: F64) -> _Selection:
+        """The selections of the satellites above ``mask`` (rad, 0-d) and of those with a finite
+        VTEC among them: the same object while those flags repeat, as they do epoch after epoch
+        (the flags' bytes are the key: two calls and a comparison instead of the index arrays'
+        four to six)."""
+        m = el_rad.shape[0]
+        flags = self.flags
+        if flags[0].shape[1] != m:
+            both = np.empty((2, m), np.bool_)
+            self.flags = flags = (both, both[0], both[1])
+        np.greater_equal(el_rad, mask, flags[1])
+        np.isfinite(vtec, flags[2])
+        key = flags[0].tobytes()
+        sel = self.selection
+        if sel is None or sel.key != key:
+            self.selection = sel = _Selection(key, flags[1], flags[2])
+        return sel
+
+
+class _Selection:
+    """Index arrays of one epoch's flags (rows of :meth:`FitScratch.select`), as the general path
+    of :func:`station_values` computes them when no elevation is NaN: ``i_above`` the satellites
+    at or above the mask (None: all), ``i_use`` those of them with a finite VTEC (None: all),
+    ``n_use`` their number, and ``fit_flat`` (k, 3) the flat indices of their pierce-point
+    columns in a (3, m) array (None with ``i_use``): ``xyv.take(fit_flat).T`` is
+    ``np.asfortranarray(xyv.take(i_use, axis=1))``, the same values in the same memory order in
+    one call. Private and writeable (``take`` copies a read-only index array)."""
+
+    __slots__ = ("fit_flat", "i_above", "i_use", "key", "n_use")
+
+    def __init__(
+        self, key: bytes, above: npt.NDArray[np.bool_], fin: npt.NDArray[np.bool_]
+    ) -> None:
+        m = above.shape[0]
+        self.key = key
+        nz = above.nonzero()[0]
+        n_above = nz.shape[0]
+        self.i_above: Idx | None = None if n_above == m else nz
+        if np.count_nonzero(fin) == m:
+            self.i_use, self.n_use = self.i_above, n_above
+        else:
+            self.i_use = (fin & above).nonzero()[0]
+            self.n_use = int(self.i_use.shape[0])
+        self.fit_flat: Idx | None = None
+        if self.i_use is not None:
+            self.fit_flat = self.i_use[:, None] + m * np.arange(3, dtype=np.intp)
 
 
 def pierce_offsets_km(
@@ -155,8 +211,8 @@ def station_figures(
 StationValues = tuple[float, float, float, float, float, float, float]
 
 
-def station_values(
-    *, el_rad: F64, sin_el: F64, el_known: bool, pts: F64, rot: F64, roti: F64, mask_rad: float,
+def station_values(  # noqa: PLR0917 - called positionally: a keyword costs ~600 instructions
+    el_rad: F64, sin_el: F64, el_known: bool, pts: F64, rot: F64, roti: F64, mask_rad: float,
     scratch: FitScratch,
 ) -> StationValues:  # fmt: skip
     """Station summary over satellites at or above ``mask_rad`` (all when elevation is unknown):
@@ -175,6 +231,8 @@ def station_values(
         if len(_MASKS) >= 8:
             _MASKS.clear()
         _MASKS[mask_rad] = mask = np.array(mask_rad)
+    if el_known and mask_rad >= 0.0:
+        return _known_values(sin_el, pts, rot, roti, scratch.select(el_rad, mask, pts[2]), scratch)
     # Selections as index arrays (None: every satellite): a take costs a fraction of a boolean
     # subscript and gives the same values in the same order; nonzero() counts them too.
     above = el_rad >= mask
@@ -257,6 +315,38 @@ def station_values(
     return vtec_st, roti_max, roti_med, rot_max, g_t, g_mm, g_az
 
 
+def _known_values(  # noqa: PLR0917 - the per-epoch path: positional
+    sin_el: F64, pts: F64, rot: F64, roti: F64, sel: _Selection, scratch: FitScratch
+) -> StationValues:
+    """:func:`station_values` when no elevation is NaN and the mask is not negative (weights
+    sin²el of the selected satellites): its ``el_known`` path with the selections ``sel`` kept
+    while they repeat, the same operations on the same operands otherwise."""
+    i_use, n_use = sel.i_use, sel.n_use
+    vtec = pts[2]
+    vu = vtec if i_use is None else vtec.take(i_use)
+    wu = _weights(sin_el, None, i_use)
+    wu_sum = np.add.reduce(wu, 0, None, out=scratch.w_sum)  # wu.sum(), 0-d (tested)
+    dot = wu.dot(vu)  # ndarray.dot runs the BLAS call of ``@`` (tested)
+    vtec_st = math.nan
+    if n_use:  # Python floats divide as numpy's do, but raise on a zero sum: numpy's NaN then
+        s_w = float(wu_sum)
+        vtec_st = float(dot) / s_w if s_w else float(dot / wu_sum)
+    i_above = sel.i_above
+    roti_max, roti_med = _max_median(roti, i_above)
+    rot_max = _max_abs(rot, i_above)
+    g_t = g_mm = g_az = math.nan
+    if n_use >= 4:
+        if sel.fit_flat is None:  # every satellite
+            ge, gn = _plane_slopes(scratch, wu, pts, wu_sum)
+        else:  # the weights and their sum of the VTEC mean; the columns in Fortran order
+            ge, gn = _plane_slopes(scratch, wu, pts.take(sel.fit_flat).T, wu_sum, True)
+        if math.isfinite(ge):
+            g_t = math.hypot(ge, gn)
+            g_mm = g_t * GPS_L1_M_PER_TECU * 1000.0
+            g_az = math.degrees(math.atan2(ge, gn)) % 360.0
+    return vtec_st, roti_max, roti_med, rot_max, g_t, g_mm, g_az
+
+
 def _max_median(roti: F64, idx: Idx | None) -> tuple[float, float]:
     """Largest and median finite ``roti`` of the satellites ``idx`` (all if None).
 
@@ -327,7 +417,7 @@ def _columns(xyv: F64, idx: Idx) -> F64:
 
 
 def _plane_slopes(
-    scratch: FitScratch, w: F64, xyv: F64, w_sum: npt.NDArray[np.float64] | None = None, *,
+    scratch: FitScratch, w: F64, xyv: F64, w_sum: npt.NDArray[np.float64] | None = None,
     own: bool = False,
 ) -> tuple[float, float]:  # fmt: skip
     """Slopes (∂v/∂x, ∂v/∂y) of the weighted least-squares plane v = c + gx·x + gy·y through

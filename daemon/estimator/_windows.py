@@ -207,6 +207,29 @@ class LagRing:
         started: npt.NDArray[np.bool_] | None = None
         if last is not None and last[0] is sats and last[1] is arc:
             any_started = False  # the same read-only arrays as before: last_arc[sats] == arc
+            memo = self._cols_of
+            if memo is not None and memo[0] is sats:
+                # The common case, as below with its calls inlined: no arc started since the
+                # lag row (t_k ≥ t0_max), columns known, ``sats`` and ``arc`` read-only (they
+                # were when ``_last_push`` kept them), ``_last_push`` unchanged.
+                k, t_k = self._lag_row(t, interval_s)
+                if k >= 0 and t_k >= self.t0_max:
+                    known = memo[1]
+                    data = self._data
+                    v = data[k][known].astype(np.float64)
+                    self.head = row = (self.head + 1) % self.t.shape[0]
+                    self.t[row] = t
+                    self._t_low = min(self._t_low, t)
+                    self._full = None
+                    drow = data[row]
+                    if self._row_sats[row] is not sats:
+                        drow.fill(np.nan)
+                        self._row_sats[row] = sats
+                    if type(known) is slice:
+                        drow[known] = value
+                    else:
+                        drow.put(known, value)
+                    return v, t_k
         else:
             started = self.last_arc[sats] != arc
             any_started = bool(_count_nonzero(started))
@@ -240,7 +263,7 @@ class LagRing:
             )
         tol = steps[1]
         k = (self.head + 1 - steps[2]) % self.t.shape[0]
-        t_k = float(self.t[k])
+        t_k: float = self.t.item(k)
         if not abs(t_k - target) <= tol:
             if self._t_low - target > tol:  # so is every row's |t − target|: the ring is filling
                 return -1, math.nan
@@ -572,11 +595,15 @@ class SlotStd:
             grown[:, : self._vals.shape[1]] = self._vals
             self._vals = grown
         gone = self._sats[row]  # the entry this slot replaces (R slots ago)
-        if start == slot and not sats.flags.writeable and not gone.flags.writeable:
+        blk = self._blk
+        if (
+            start == slot
+            and not sats.flags.writeable
+            and (gone is sats or not gone.flags.writeable)  # (one flags object, not two)
+        ):
             # One entry leaves, one comes, both of read-only satellite arrays: the sums of the
             # caller's satellites are updated in their block, with the same element operations
             # as ``acc`` below (sum − old, count − 1, then sum + value, count + 1).
-            blk = self._blk
             if blk is None or blk.sats is not sats:
                 self._blk = blk = _SumBlock(sats, self._flush()[:, sats])
             old = self._vals[row, : gone.shape[0]]
