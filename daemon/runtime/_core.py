@@ -12,6 +12,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, Protocol
 
+from ionwarden.daemon._records import fast_constructor
 from ionwarden.parsers import MSM_TYPES
 from ionwarden.parsers._framer import MAX_INCOMPLETE_FRAME, Framer, FramerStatistics, RtcmFrame
 
@@ -87,8 +88,13 @@ class FrameConsumer(Protocol):
     def load_state_dict(self, state: Mapping[str, Any], /) -> None: ...
 
 
+#: ``DecoderCounts(**fields)``, every field given (the status tick takes one per station each
+#: second): without the frozen ``__init__``'s ``object.__setattr__`` per field.
+_new_decoder_counts = fast_constructor(DecoderCounts)
+
+
 def _add(a: DecoderCounts, s: FramerStatistics) -> DecoderCounts:
-    return DecoderCounts(
+    return _new_decoder_counts(
         frames_total=a.frames_total + s.rtcm_frames + s.nmea_frames,
         rtcm_frames_total=a.rtcm_frames_total + s.rtcm_frames,
         nmea_frames_total=a.nmea_frames_total + s.nmea_frames,

@@ -50,6 +50,7 @@ from ._station_records import (
     StationConfig,
     StationState,
     StationStatistics,
+    new_station_statistics,
 )
 
 if TYPE_CHECKING:
@@ -203,14 +204,14 @@ class StationRunner:
         )
 
     def statistics(self) -> StationStatistics:
-        return StationStatistics(
+        return new_station_statistics(
             station=self.name,
             state=self._state,
             detail=self._detail,
             connected=self._connected,
             bytes_total=self._bytes,
             connects_total=self._connects,
-            reconnects_total=max(0, self._connects - 1),
+            reconnects_total=self._connects - 1 if self._connects else 0,
             stalls_total=self._stalls,
             epochs_total=self._epochs,
             fixes_total=self._fixes,
