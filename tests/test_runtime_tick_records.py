@@ -206,3 +206,31 @@ def test_station_statistics_counts_and_snapshot_as_before() -> None:
         assert last[1].reconnects_total
 
     asyncio.run(main())
+
+
+def test_framer_totals_are_its_statistics_counters() -> None:
+    """Framer.totals() (what the tick's DecoderCounts read) holds the counters of
+    Framer.statistics(), in the order it documents, after frames, junk, an empty frame, a bad
+    checksum and a truncated frame at the end of the stream."""
+    from ionwarden.parsers._framer import Framer
+
+    framer = Framer()
+    bad = bytearray(rtcm_frame(1077, b"\x05"))
+    bad[-1] ^= 0xFF  # a CRC failure
+    framer.feed(rtcm_frame(1077, b"\x01") + b"junk" + rtcm_frame(1005, b"\x00" * 17))
+    framer.feed(b"$GPGGA,1*00\r\n" + bytes(bad) + b"\xd3\x00\x00\x47\xea\x4b")
+    framer.feed(rtcm_frame(1077, b"\x02")[:6])
+    framer.feed(b"")
+    s = framer.statistics()
+    expected = (
+        s.rtcm_frames,
+        s.nmea_frames,
+        s.rtcm_empty_frames,
+        s.crc_failures,
+        s.nmea_checksum_failures,
+        s.truncated_at_eof,
+        s.bytes_discarded,
+        s.bytes_total,
+    )
+    assert framer.totals() == expected
+    assert all(expected[i] for i in (0, 3, 5, 6, 7))  # (not all 0)

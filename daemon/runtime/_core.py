@@ -105,6 +105,22 @@ def _add(a: DecoderCounts, s: FramerStatistics) -> DecoderCounts:
     )
 
 
+def _add_framer(a: DecoderCounts, framer: Framer) -> DecoderCounts:
+    """``_add(a, framer.statistics())`` from the framer's ``totals()`` (the same counters,
+    without the copy of its per-type table and the frozen record: the status tick takes a
+    station's counts every second)."""
+    rtcm, nmea, _empty, crc, nmea_fail, truncated, discarded, _total = framer.totals()
+    return _new_decoder_counts(
+        frames_total=a.frames_total + rtcm + nmea,
+        rtcm_frames_total=a.rtcm_frames_total + rtcm,
+        nmea_frames_total=a.nmea_frames_total + nmea,
+        crc_errors_total=a.crc_errors_total + crc,
+        checksum_errors_total=a.checksum_errors_total + nmea_fail,
+        discarded_bytes_total=a.discarded_bytes_total + discarded,
+        truncated_frames_total=a.truncated_frames_total + truncated,
+    )
+
+
 def _after_last_epoch(frames: Sequence[Frame]) -> int:
     """Index just after the last frame that closes an observation epoch: an MSM whose
     multiple-message bit (DF393, bit 54 of the message: RTCM 10403.3 §3.5.12, Table 3.5-78) is 0;
@@ -241,7 +257,7 @@ class FramingCore:
     def end_stream(self) -> Sequence[object]:
         frames = self._held()
         frames += self._frame(b"")
-        self._done = _add(self._done, self._framer.statistics())
+        self._done = _add_framer(self._done, self._framer)
         self._framer = Framer()
         self._fed = 0
         if self._consumer is None or not frames:
@@ -249,7 +265,7 @@ class FramingCore:
         return self._consumer.feed_frames(frames)
 
     def counts(self) -> DecoderCounts:
-        return _add(self._done, self._framer.statistics())
+        return _add_framer(self._done, self._framer)
 
     def _bind_settle(self) -> None:
         c = self._consumer
@@ -279,7 +295,7 @@ class FramingCore:
 
     def reset(self) -> None:
         self._held()  # framed and counted as feed would have, then dropped (as held frames are)
-        self._done = _add(self._done, self._framer.statistics())
+        self._done = _add_framer(self._done, self._framer)
         self._framer = Framer()
         self._fed = 0
         if self._rebuild is not None:
