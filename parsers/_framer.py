@@ -326,6 +326,13 @@ class Framer:
             bytes_total=c[7],
         )
 
+    def totals(self) -> tuple[int, ...]:
+        """The counters of :meth:`statistics` without its per-type table: (rtcm_frames,
+        nmea_frames, rtcm_empty_frames, crc_failures, nmea_checksum_failures, truncated_at_eof,
+        bytes_discarded, bytes_total). A station's status tick reads them every second; the
+        table's copy and the frozen record are not needed there."""
+        return tuple(self._counts)
+
     def _skip(self, n: int) -> None:
         self._pos += n
         self._counts[6] += n

@@ -278,6 +278,56 @@ def test_pubacks_split_across_reads_settle_the_same(step):
     r.close()
 
 
+@pytest.mark.parametrize("step", [None, 1, 3])
+def test_pubacks_of_one_read_are_reported_once_after_it(step):
+    """The lean path settles each PUBACK of ours as it parses it, and calls the after-read hook
+    once per read, after the read's last packet (the publisher then settles its window once per
+    read, not once per packet): the same settlements, in the same order, as one at a time."""
+    data, ours, pahos = _stream()
+    r = _Reader(set(ours))
+    for mid in pahos:
+        r.paho_owns(mid)
+    seen: list[list[int]] = []
+    r.client._iw_after_read = lambda: seen.append(list(r.settled))
+    chunks = [data] if step is None else [data[i : i + step] for i in range(0, len(data), step)]
+    for chunk in chunks:
+        r.feed(chunk)
+    assert r.settled == ours
+    assert len(seen) == len(chunks)  # once per read, whatever it held
+    assert seen[0] == (ours if step is None else [])  # after the whole read, not per packet
+    assert seen[-1] == ours
+    r.close()
+
+
+def test_quickack_client_reports_a_reads_acknowledgements_once():
+    """QuickAckClient completes each acknowledged publish's future as its PUBACK is parsed and
+    calls ``iw_on_ack`` once after the read (none for a read without one of ours); a PUBACK of
+    an unknown or already settled identifier settles nothing (exactly once)."""
+
+    async def main() -> None:
+        c = _client.QuickAckClient("127.0.0.1", 1, protocol=aiomqtt.ProtocolVersion.V5)
+        calls: list[int] = []
+        c.iw_on_ack = lambda: calls.append(1)
+        loop = asyncio.get_running_loop()
+        futs = {mid: loop.create_future() for mid in (1, 2, 3)}
+        c._iw_acks = dict(futs)
+        assert c._iw_puback(1)
+        assert c._iw_puback(2)
+        assert not c._iw_puback(1)  # already settled
+        assert not c._iw_puback(7)  # not ours
+        assert calls == []  # not per packet
+        c._iw_after_read()
+        assert calls == [1]
+        c._iw_after_read()  # a read without PUBACKs of ours
+        assert calls == [1]
+        assert [f.done() for f in futs.values()] == [True, True, False]
+        assert c._iw_puback(3)
+        c._iw_after_read()
+        assert calls == [1, 1]
+
+    asyncio.run(main())
+
+
 def test_closed_connection_is_reported_as_lost():
     """A read of zero bytes (peer closed) is a lost connection, as in paho's own read."""
     r = _Reader(set())

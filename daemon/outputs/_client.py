@@ -139,6 +139,9 @@ class _LeanPaho(mqtt.Client):
 
     _iw_rbuf: bytearray
     _iw_puback: Callable[[int], bool] | None = None
+    #: Called after each read whose PUBACKs ``_iw_puback`` took: they are settled together, once
+    #: per read, not once per packet.
+    _iw_after_read: Callable[[], None] | None = None
 
     def _sock_recv(self, bufsize: int) -> bytes:
         buf = self._iw_rbuf
@@ -152,6 +155,15 @@ class _LeanPaho(mqtt.Client):
         puback = self._iw_puback
         if puback is None:
             return super()._packet_read()
+        after = self._iw_after_read
+        if after is None:
+            return self._iw_read(puback)
+        try:
+            return self._iw_read(puback)
+        finally:
+            after()
+
+    def _iw_read(self, puback: Callable[[int], bool]) -> MQTTErrorCode:
         if self._in_packet["command"]:  # paho is in the middle of a packet: let it finish it
             rc = super()._packet_read()
             if rc != mqtt.MQTT_ERR_SUCCESS or self._in_packet["command"]:
@@ -236,7 +248,8 @@ class QuickAckClient(aiomqtt.Client):
     _iw_acks: dict[int, asyncio.Future[None]] | None = None
     #: (topic, QoS, retain, properties) → the unchanging parts of a lean PUBLISH.
     _iw_heads: dict[tuple[str, int, bool, object], _Head] | None = None
-    #: Called (on the event loop) after each acknowledgement (PUBACK, or a QoS 0 write).
+    #: Called (on the event loop) after acknowledgements: once per read that brought PUBACKs of
+    #: lean publishes, after each of paho's own (a PUBACK, or a QoS 0 write).
     iw_on_ack: Callable[[], None] | None = None
     #: Called (on the event loop) when the connection is lost: the publisher stops waiting for
     #: acknowledgements that cannot come any more, instead of waiting for each one's timeout.
@@ -249,18 +262,29 @@ class QuickAckClient(aiomqtt.Client):
             paho.__class__ = _LeanPaho
             paho._iw_rbuf = bytearray()  # type: ignore[attr-defined]
             paho._iw_puback = self._iw_puback  # type: ignore[attr-defined]
+            paho._iw_after_read = self._iw_after_read  # type: ignore[attr-defined]
 
     def _iw_puback(self, mid: int) -> bool:
-        """The PUBACK of ``mid`` arrived: complete its future (True if it was a lean publish)."""
+        """The PUBACK of ``mid`` arrived: complete its future (True if it was a lean publish);
+        ``iw_on_ack`` is called once after the read that brought it (:meth:`_iw_after_read`)."""
         acks = self._iw_acks
         ack = acks.pop(mid, None) if acks else None
         if ack is None:
             return False
         if not ack.done():
             ack.set_result(None)
+            self._iw_acked = True
+        return True
+
+    _iw_acked = False
+
+    def _iw_after_read(self) -> None:
+        """A read ended: ``iw_on_ack`` once for every PUBACK it settled (the publisher settles
+        its window in sending order and refills it once, not once per packet)."""
+        if self._iw_acked:
+            self._iw_acked = False
             if self.iw_on_ack is not None:
                 self.iw_on_ack()
-        return True
 
     def _on_disconnect(self, client: Any, userdata: Any, *args: Any) -> None:
         super()._on_disconnect(client, userdata, *args)

@@ -98,6 +98,8 @@ class MqttPublisher(TopicProducers):
         self._expiry: dict[int, PackedOnce] = {}
         self._failed: BaseException | None = None
         self._live: QuickAckClient | None = None  # the connected client, during a session
+        #: The loop run() runs on (asyncio.get_running_loop() is a getpid() system call each).
+        self._loop: asyncio.AbstractEventLoop | None = None
         #: Messages in flight, in sending order: (message, acknowledged, deadline (loop time)).
         self._inflight: deque[tuple[OutboundMessage, asyncio.Future[None], float]] = deque()
         self._lost = False
@@ -173,6 +175,7 @@ class MqttPublisher(TopicProducers):
         if self._running:
             raise RuntimeError("MqttPublisher.run is already running")
         self._running = True
+        self._loop = asyncio.get_running_loop()
         s = self._s
         delays = backoff_delays(
             initial_s=s.reconnect_initial_s, cap_s=s.reconnect_cap_s, rng=self._rng
@@ -252,7 +255,10 @@ class MqttPublisher(TopicProducers):
             if msg is None:
                 return
             if deadline is None:
-                deadline = asyncio.get_running_loop().time() + self._s.timeout_s
+                loop = self._loop
+                if loop is None:  # (a session run() did not start)
+                    self._loop = loop = asyncio.get_running_loop()
+                deadline = loop.time() + self._s.timeout_s
             props = None if msg.expiry_s is None else expiry.get(msg.expiry_s)
             try:
                 ack = client.iw_publish(

@@ -14,6 +14,7 @@ from dataclasses import replace
 from pathlib import Path
 from typing import TYPE_CHECKING
 
+from ionwarden.daemon._records import fast_constructor
 from ionwarden.daemon.alarms import StationAlarms
 from ionwarden.daemon.errors import ConfigError
 from ionwarden.daemon.estimator import StationPipeline
@@ -165,6 +166,14 @@ def make_factory(
     return build
 
 
+# The status tick builds these for every station each second: without the frozen ``__init__``'s
+# ``object.__setattr__`` per field (every field given).
+_new_station_figures = fast_constructor(StationFigures)
+_new_ingest_figures = fast_constructor(IngestFigures)
+_new_queue_figures = fast_constructor(QueueFigures)
+_new_daemon_snapshot = fast_constructor(DaemonSnapshot)
+
+
 def build_daemon_snapshot(
     daemon: Daemon,
     publisher: MqttPublisher | None,
@@ -179,11 +188,11 @@ def build_daemon_snapshot(
     for st in daemon.statistics() if stats is None else stats:
         d = st.decoder
         stations.append(
-            StationFigures(
+            _new_station_figures(
                 station=st.station,
                 snapshot=st.latest,
                 fix=st.latest_fix,
-                ingest=IngestFigures(
+                ingest=_new_ingest_figures(
                     bytes_total=st.bytes_total,
                     frames_total=d.frames_total,
                     crc_errors_total=d.crc_errors_total + d.checksum_errors_total,
@@ -199,7 +208,7 @@ def build_daemon_snapshot(
         )
         q = st.queue
         queues.append(
-            QueueFigures(
+            _new_queue_figures(
                 stage=q.stage,
                 station=q.station,
                 depth=q.depth,
@@ -210,7 +219,7 @@ def build_daemon_snapshot(
         )
     for a in daemon.station_alarms():
         alarms.extend(a.statuses())
-    return DaemonSnapshot(
+    return _new_daemon_snapshot(
         stations=tuple(stations),
         alarms=tuple(alarms),
         queues=tuple(queues),

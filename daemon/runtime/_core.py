@@ -12,6 +12,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, Protocol
 
+from ionwarden.daemon._records import fast_constructor
 from ionwarden.parsers import MSM_TYPES
 from ionwarden.parsers._framer import MAX_INCOMPLETE_FRAME, Framer, FramerStatistics, RtcmFrame
 
@@ -87,8 +88,13 @@ class FrameConsumer(Protocol):
     def load_state_dict(self, state: Mapping[str, Any], /) -> None: ...
 
 
+#: ``DecoderCounts(**fields)``, every field given (the status tick takes one per station each
+#: second): without the frozen ``__init__``'s ``object.__setattr__`` per field.
+_new_decoder_counts = fast_constructor(DecoderCounts)
+
+
 def _add(a: DecoderCounts, s: FramerStatistics) -> DecoderCounts:
-    return DecoderCounts(
+    return _new_decoder_counts(
         frames_total=a.frames_total + s.rtcm_frames + s.nmea_frames,
         rtcm_frames_total=a.rtcm_frames_total + s.rtcm_frames,
         nmea_frames_total=a.nmea_frames_total + s.nmea_frames,
@@ -96,6 +102,22 @@ def _add(a: DecoderCounts, s: FramerStatistics) -> DecoderCounts:
         checksum_errors_total=a.checksum_errors_total + s.nmea_checksum_failures,
         discarded_bytes_total=a.discarded_bytes_total + s.bytes_discarded,
         truncated_frames_total=a.truncated_frames_total + s.truncated_at_eof,
+    )
+
+
+def _add_framer(a: DecoderCounts, framer: Framer) -> DecoderCounts:
+    """``_add(a, framer.statistics())`` from the framer's ``totals()`` (the same counters,
+    without the copy of its per-type table and the frozen record: the status tick takes a
+    station's counts every second)."""
+    rtcm, nmea, _empty, crc, nmea_fail, truncated, discarded, _total = framer.totals()
+    return _new_decoder_counts(
+        frames_total=a.frames_total + rtcm + nmea,
+        rtcm_frames_total=a.rtcm_frames_total + rtcm,
+        nmea_frames_total=a.nmea_frames_total + nmea,
+        crc_errors_total=a.crc_errors_total + crc,
+        checksum_errors_total=a.checksum_errors_total + nmea_fail,
+        discarded_bytes_total=a.discarded_bytes_total + discarded,
+        truncated_frames_total=a.truncated_frames_total + truncated,
     )
 
 
@@ -235,7 +257,7 @@ class FramingCore:
     def end_stream(self) -> Sequence[object]:
         frames = self._held()
         frames += self._frame(b"")
-        self._done = _add(self._done, self._framer.statistics())
+        self._done = _add_framer(self._done, self._framer)
         self._framer = Framer()
         self._fed = 0
         if self._consumer is None or not frames:
@@ -243,7 +265,7 @@ class FramingCore:
         return self._consumer.feed_frames(frames)
 
     def counts(self) -> DecoderCounts:
-        return _add(self._done, self._framer.statistics())
+        return _add_framer(self._done, self._framer)
 
     def _bind_settle(self) -> None:
         c = self._consumer
@@ -273,7 +295,7 @@ class FramingCore:
 
     def reset(self) -> None:
         self._held()  # framed and counted as feed would have, then dropped (as held frames are)
-        self._done = _add(self._done, self._framer.statistics())
+        self._done = _add_framer(self._done, self._framer)
         self._framer = Framer()
         self._fed = 0
         if self._rebuild is not None:

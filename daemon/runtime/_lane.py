@@ -51,10 +51,16 @@ class StepLane:
     left to a callback in the next iteration (:meth:`_hand_on`), which frees the lane when still
     nobody waits. Each direct hand-over saves that callback and a whole loop iteration."""
 
-    __slots__ = ("_background", "_busy", "_urgent")
+    __slots__ = ("_background", "_busy", "_deciding", "_loop", "_urgent")
 
     def __init__(self) -> None:
         self._busy = False
+        #: done() left the choice of the next step to a _hand_on callback still to come.
+        self._deciding = False
+        #: The event loop, taken at first use (asyncio.get_running_loop() checks the process id
+        #: with a getpid() system call each time): a lane serves one loop, as asyncio's own
+        #: primitives do.
+        self._loop: asyncio.AbstractEventLoop | None = None
         # A waiter's result: True when done() handed it the lane (a background waiter then looks
         # for an urgent one come meanwhile), False when _hand_on did (decided in its iteration).
         self._urgent: deque[asyncio.Future[bool]] = deque()
@@ -70,15 +76,45 @@ class StepLane:
         if not self._busy:  # a free lane has no live waiter (each is handed it on release)
             self._busy = True
             return
-        fut: asyncio.Future[bool] = asyncio.get_running_loop().create_future()
+        fut: asyncio.Future[bool] = (self._loop or self._bind()).create_future()
         (self._background if background else self._urgent).append(fut)
         await self._wait(fut, background)
+
+    def _bind(self) -> asyncio.AbstractEventLoop:
+        self._loop = loop = asyncio.get_running_loop()
+        return loop
+
+    def claim(self, fut: asyncio.Future[bool]) -> None:
+        """An urgent turn asked for from a callback on behalf of a task sleeping on ``fut`` (a
+        station whose bytes the I/O callback just queued): ``fut`` completes when the turn is the
+        task's, so the task wakes up once, holding the lane, instead of once for its bytes and
+        again for its turn. It is then the task's to ``done()``; a task cancelled after ``fut``
+        completed passes the lane on with ``done()``.
+
+        Served as a ``turn()`` from the task would be, urgent waiters first come first served,
+        only asked for one loop iteration sooner: the lane is taken at once when free, and also
+        when ``done()`` left the choice to the next iteration and no urgent step waits (that
+        choice would have been this step: the task resumes in the next iteration either way,
+        after that iteration's poll of I/O, never in the iteration of the step before)."""
+        if not self._busy:
+            self._busy = True
+            fut.set_result(True)
+            return
+        urgent = self._urgent
+        if self._deciding:
+            while urgent and urgent[0].done():
+                urgent.popleft()
+            if not urgent:
+                self._deciding = False  # (the pending _hand_on stands down)
+                fut.set_result(True)
+                return
+        urgent.append(fut)
 
     async def done_then_turn(self, *, background: bool = False) -> None:
         """``done()``, then ``await turn(background=...)``, in the same order of turns; but when
         no other step waits, the lane comes back one loop iteration sooner (handed straight to
         this waiter by ``done()``)."""
-        fut: asyncio.Future[bool] = asyncio.get_running_loop().create_future()
+        fut: asyncio.Future[bool] = (self._loop or self._bind()).create_future()
         (self._background if background else self._urgent).append(fut)
         self.done()
         await self._wait(fut, background)
@@ -104,7 +140,7 @@ class StepLane:
             # An urgent step came to wait between done() and now, where _hand_on would have
             # chosen it: it goes first, and this step waits again at the head of its class.
             urgent.set_result(False)
-            fut = asyncio.get_running_loop().create_future()
+            fut = (self._loop or self._bind()).create_future()
             self._background.appendleft(fut)
 
     def done(self) -> None:
@@ -113,9 +149,13 @@ class StepLane:
         if fut is not None:
             fut.set_result(True)  # the lane stays busy: it is theirs now
         else:  # nobody waits yet: decide in the next iteration
-            asyncio.get_running_loop().call_soon(self._hand_on)
+            self._deciding = True
+            (self._loop or self._bind()).call_soon(self._hand_on)
 
     def _hand_on(self) -> None:
+        if not self._deciding:  # claim() gave the lane to an urgent step meanwhile
+            return
+        self._deciding = False
         fut = _first_live(self._urgent) or _first_live(self._background)
         if fut is not None:
             fut.set_result(False)  # the lane stays busy: it is theirs now

@@ -17,6 +17,8 @@ from collections import deque
 from dataclasses import dataclass
 from typing import Generic, TypeVar
 
+from ionwarden.daemon._records import fast_constructor
+
 __all__ = ["BoundedQueue", "Overflow", "QueueStatistics"]
 
 T = TypeVar("T")
@@ -42,6 +44,9 @@ class QueueStatistics:
     dropped_total: int
 
 
+_new_queue_statistics = fast_constructor(QueueStatistics)
+
+
 def _wake_next(waiters: deque[asyncio.Future[None]]) -> None:
     """Wake the first waiter not cancelled meanwhile (as ``asyncio.Queue`` does)."""
     while waiters:
@@ -65,6 +70,7 @@ class BoundedQueue(Generic[T]):
         "_items",
         "_maxsize",
         "_peak",
+        "_policy_name",
         "_put",
         "_putters",
         "_stage",
@@ -81,6 +87,7 @@ class BoundedQueue(Generic[T]):
         self._getters: deque[asyncio.Future[None]] = deque()
         self._putters: deque[asyncio.Future[None]] = deque()
         self.policy = policy
+        self._policy_name = policy.value  # (an enum's .value is a property: read once)
         self._wait = policy is Overflow.WAIT
         self._stage = stage
         self._station = station
@@ -168,10 +175,10 @@ class BoundedQueue(Generic[T]):
         return not self._items
 
     def statistics(self) -> QueueStatistics:
-        return QueueStatistics(
+        return _new_queue_statistics(
             stage=self._stage,
             station=self._station,
-            policy=self.policy.value,
+            policy=self._policy_name,
             capacity=self._maxsize,
             depth=len(self._items),
             peak=self._peak,

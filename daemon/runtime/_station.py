@@ -50,6 +50,7 @@ from ._station_records import (
     StationConfig,
     StationState,
     StationStatistics,
+    new_station_statistics,
 )
 
 if TYPE_CHECKING:
@@ -183,6 +184,10 @@ class StationRunner:
         self._log_limit: dict[str, tuple[float, int]] = {}  # key -> (last logged, suppressed)
         #: The end of the connection whose chunks the transport pushes (None: it is read).
         self._ended: asyncio.Future[bool] | None = None
+        #: What the estimate task sleeps on while its queue is empty (with a lane; else None),
+        #: and the chunk taken for it with its claim of the lane (see _wake_idle).
+        self._idle: asyncio.Future[bool] | None = None
+        self._in_hand: tuple[float, bytes] | None = None
 
     # -- state ------------------------------------------------------------------------------------
     @property
@@ -204,14 +209,14 @@ class StationRunner:
         )
 
     def statistics(self) -> StationStatistics:
-        return StationStatistics(
+        return new_station_statistics(
             station=self.name,
             state=self._state,
             detail=self._detail,
             connected=self._connected,
             bytes_total=self._bytes,
             connects_total=self._connects,
-            reconnects_total=max(0, self._connects - 1),
+            reconnects_total=self._connects - 1 if self._connects else 0,
             stalls_total=self._stalls,
             epochs_total=self._epochs,
             fixes_total=self._fixes,
@@ -262,10 +267,12 @@ class StationRunner:
                     await transport.aclose()
                 if ended and cfg.finite:
                     await self.queue.put(_END)
+                    self._wake_idle()
                     self._set_state(StationState.FINISHED, "end of stream")
                     log.info("%s: source ended", self.name)
                     return
                 await self.queue.put(_BREAK)
+                self._wake_idle()
                 if self.core.frames_total() > frames_before:  # it worked for a while
                     delays = backoff_delays(
                         initial_s=cfg.backoff_initial_s, cap_s=cfg.backoff_cap_s, rng=self._rng
@@ -345,9 +352,11 @@ class StationRunner:
                 det.saw_data(now)
                 if waits:
                     await queue.put((now, data))
+                    self._wake_idle()
                     det.saw_data(loop.time())  # time spent waiting on our queue is not the source's
                     continue
                 queue.put_nowait((now, data))
+                self._wake_idle()
                 if push is not None and len(data) < size:  # nothing left buffered: switch
                     self._ended = push(self._received)
                     if self._ended is not None:
@@ -407,6 +416,7 @@ class StationRunner:
             else:  # in read-sized chunks, as reads would have handed them out
                 for i in range(0, len(data), size):
                     self.queue.put_nowait((now, data[i : i + size]))
+            self._wake_idle(claim=True)
         except Exception as exc:  # raised in the ingest task (rule 10), as a read's would be
             ended.set_exception(exc)
 
@@ -414,9 +424,16 @@ class StationRunner:
     async def estimate_loop(self) -> None:
         """Decode queued bytes and emit outputs; return after a finite source's end."""
         loop = self._loop
+        lane = self._lane
+        queue = self.queue
         try:
             while True:
-                item = await self.queue.get()
+                item: object = None
+                if lane is not None and queue.empty():
+                    item = await self._next_item(lane)
+                has_turn = item is not None  # a chunk taken with its turn of the lane
+                if item is None:
+                    item = await queue.get()  # (at once after _next_item: an item is queued)
                 if item is _END or item is _BREAK:
                     self._step(None, None)
                     if self._unsettled():
@@ -428,8 +445,7 @@ class StationRunner:
                     arrived, chunk = item
                     if self._pacer is not None:  # a paced replay's bytes "arrive" when released
                         arrived = max(arrived, loop.time())
-                    lane = self._lane
-                    if lane is not None:
+                    if lane is not None and not has_turn:
                         await lane.turn()
                     try:
                         frames_before = self.core.frames_total()
@@ -460,7 +476,7 @@ class StationRunner:
                         self._progress = loop.time() + delay
                         await asyncio.sleep(delay)
                 self._progress = loop.time()
-                if self._lane is None or not self.queue.empty():
+                if lane is None or not queue.empty():
                     # One chunk per turn: a garbage flood never starves others. (With the lane and
                     # nothing queued the turn is given up anyway: the next chunk waits for its
                     # ingest read, then for its turn of the lane.)
@@ -469,6 +485,48 @@ class StationRunner:
             self.finished.set()
             if self._on_finished is not None:
                 self._on_finished()
+
+    async def _next_item(self, lane: StepLane) -> tuple[float, bytes] | None:
+        """Sleep until an item is queued; return the chunk taken with the lane's turn for it
+        (None: the item is in the queue, and no turn was claimed for it).
+
+        A chunk pushed while the task sleeps is taken off the queue at once and claims the lane's
+        turn for it (:meth:`_wake_idle`, ``StepLane.claim``), so the task wakes up once, holding
+        the chunk and its turn, instead of once to take the chunk and again for its turn: the
+        same steps in the same order, the chunk out of the queue while it waits for its turn (as
+        when the task took it itself, one iteration later), one wake-up less."""
+        fut: asyncio.Future[bool] = self._loop.create_future()
+        self._idle = fut
+        try:
+            await fut
+        except asyncio.CancelledError:
+            if self._idle is fut:
+                self._idle = None
+            if self._in_hand is not None:
+                self._in_hand = None
+                if fut.done() and not fut.cancelled():
+                    lane.done()  # handed the lane, then cancelled: pass it on
+            raise
+        item, self._in_hand = self._in_hand, None
+        return item
+
+    def _wake_idle(self, *, claim: bool = False) -> None:
+        """An item was queued: wake the estimate task if it sleeps in :meth:`_next_item`. With
+        ``claim`` (the pushed chunks of one I/O callback, all queued in the same call), the first
+        chunk is taken for it and the lane's turn claimed: the task wakes up with its turn."""
+        fut = self._idle
+        if fut is None:
+            return
+        self._idle = None
+        if fut.done():  # cancelled meanwhile
+            return
+        if claim and self._lane is not None:
+            item = self.queue.get_nowait()
+            assert isinstance(item, tuple)  # (only chunks are pushed)
+            self._in_hand = item
+            self._lane.claim(fut)
+        else:
+            fut.set_result(False)
 
     def _step(self, chunk: bytes | None, arrived: float | None) -> float:
         """Feed one chunk (``None``: the stream broke or ended) and emit the outputs, containing

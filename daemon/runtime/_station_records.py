@@ -7,6 +7,7 @@ import enum
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Protocol
 
+from ionwarden.daemon._records import fast_constructor
 from ionwarden.daemon.ingest import FileSource, StdinSource
 
 from ._stall import StallLimits
@@ -18,7 +19,14 @@ if TYPE_CHECKING:
     from ._core import DecoderCounts
     from ._queues import QueueStatistics
 
-__all__ = ["Settles", "SourceEvent", "StationConfig", "StationState", "StationStatistics"]
+__all__ = [
+    "Settles",
+    "SourceEvent",
+    "StationConfig",
+    "StationState",
+    "StationStatistics",
+    "new_station_statistics",
+]
 
 
 class Settles(Protocol):
@@ -101,3 +109,8 @@ class StationStatistics:
     pipeline_errors_total: int = 0
     #: Times the station's core was reset after repeated pipeline failures.
     pipeline_resets_total: int = 0
+
+
+#: ``StationStatistics(**fields)``, every field given, built without the frozen ``__init__``'s
+#: ``object.__setattr__`` per field (the status tick takes one per station each second).
+new_station_statistics = fast_constructor(StationStatistics)
