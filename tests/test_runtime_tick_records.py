@@ -170,7 +170,7 @@ def test_station_statistics_counts_and_snapshot_as_before() -> None:
         for cfg in cfgs:
             bundle = factory(cfg)
             runner = StationRunner(cfg, bundle.core, emit=lambda _o: None)
-            daemon._stations[cfg.name] = _Running(runner=runner, bundle=bundle)
+            daemon._stations[cfg.name] = _Running(runner=runner, bundle=bundle, alarms=None)
             runners.append(runner)
         chunks = [
             rtcm_frame(1077, b"\x01\x02") + b"junk" + rtcm_frame(1005, b"\x00" * 17),
