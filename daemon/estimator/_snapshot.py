@@ -21,6 +21,7 @@ __all__ = [
     "FixStatus",
     "SatelliteFigures",
     "StationSnapshot",
+    "new_fix_status",
     "new_satellite_figures",
     "new_snapshot",
 ]
@@ -118,3 +119,5 @@ class FixStatus:
 #: ``SatelliteFigures(**values)`` / ``StationSnapshot(**values)`` with every field given (faster).
 new_satellite_figures = fast_constructor(SatelliteFigures)
 new_snapshot = fast_constructor(StationSnapshot)
+#: ``FixStatus(**values)`` with every field given: two a second per station (GGA, then GST).
+new_fix_status = fast_constructor(FixStatus)
