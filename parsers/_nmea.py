@@ -471,8 +471,11 @@ def skipped_sentence(raw: bytes, wanted: Container[str] | None) -> bool:
     # the address is s[1:6].
     if n < 10 or n > MAX_SENTENCE_BYTES or s[n - 3] != 0x2A:
         return False
-    head = bytes(s[:7])  # a key (bytes() of bytes is the same object)
-    formatter = _HEADS.get(head)
+    head = s[:7]
+    try:
+        formatter = _HEADS.get(head)
+    except TypeError:  # a bytearray (unhashable) where bytes are expected: decode_wanted decides
+        return False
     if formatter is None:
         if len(_HEADS) >= _HEADS_SIZE:
             _HEADS.clear()

@@ -215,6 +215,7 @@ def test_skipped_sentence_skips_the_plain_unwanted_ones() -> None:
     assert not skipped_sentence(GGA, wanted)
     assert skipped_sentence(b"$GPXYZ,1,2*00\r\n", None)  # no decoder: NmeaOther, not built
     assert not skipped_sentence(b"$PUBX,00,1*00\r\n", wanted)  # not a 5-character address
+    assert not skipped_sentence(bytearray(gsv), wanted)  # not bytes: decode_wanted decides
 
 
 def test_stream_decoder_counts_as_before() -> None:
