@@ -32,6 +32,7 @@ from pynmeagps.nmeatypes_core import VALNONE
 
 from ._errors import ParseError
 from ._nmea_fast import FAST_BUILDERS
+from ._twin import slots_twin
 
 if TYPE_CHECKING:
     from collections.abc import Container
@@ -61,6 +62,7 @@ __all__ = [
     "decode_wanted",
     "nmea_checksum",
     "nmea_sat_id",
+    "skipped_sentence",
 ]
 
 NAN = math.nan
@@ -188,6 +190,13 @@ class NmeaOther:
 NmeaMessage = (
     GgaFix | RmcFix | GsaDop | GsvPart | GstErrors | GnsFix | VtgVelocity | ZdaTime | NmeaOther
 )
+
+#: Plain twins of the two values built every second (see ``_twin``): the lean GGA/GST builders of
+#: ``_nmea_fast`` store the fields into one and set its class, without the frozen ``__init__``'s
+#: ``object.__setattr__`` per field (~19k → ~4k instructions for a GgaFix). Same type, same
+#: fields, equal values: tests/test_nmea_fast.py compares them with the pynmeagps path's.
+GGA_TWIN = slots_twin(GgaFix)
+GST_TWIN = slots_twin(GstErrors)
 
 # --- helpers over pynmeagps attribute values ("" when the field is empty) -----------------------
 
@@ -428,6 +437,52 @@ def decode_wanted(
     that would drop it anyway. Same checks, same errors, same values otherwise. ``keep_other``
     returns the :class:`NmeaOther` after all (exactly :func:`decode_sentence`)."""
     return _decode(raw, wanted, checked, keep_other)
+
+
+#: 7-byte heads ``$`` + five-character address + ``,`` → their formatter ("" where we decode no
+#: such sentence), or _NOT_PLAIN (another head, or an address ``_address`` rejects). Cleared when
+#: full: a receiver sends a dozen.
+_HEADS: dict[bytes, str] = {}
+_HEADS_SIZE = 256
+_NOT_PLAIN = "\x00"  # no formatter: _address takes alphanumeric ASCII only
+
+
+def _plain_head(head: bytes) -> str:
+    if head[0] != 0x24 or head[6] != 0x2C:  # "$", ","
+        return _NOT_PLAIN
+    try:
+        _, _, formatter, builder = _address(head[1:6])
+    except ParseError:
+        return _NOT_PLAIN
+    return formatter if builder is not None else ""
+
+
+def skipped_sentence(raw: bytes, wanted: Container[str] | None) -> bool:
+    """Whether ``decode_wanted(raw, wanted, checked=True)`` returns ``None`` for a plain reason
+    (a well-formed ``$`` sentence with a five-character address outside ``wanted`` or of a type
+    we do not decode), found without its call chain: the same checks in the same outcome, from a
+    cached head. False also where it would decode, raise, or the sentence is not that plain
+    (``decode_wanted`` then decides). A receiver sends ~10 such sentences a second (GSV, RMC, …)
+    while the estimator wants only GGA/GST (tests/test_nmea_wanted.py compares the two)."""
+    s = raw.rstrip(b"\r\n")
+    n = len(s)
+    # _decode's checks: at most MAX_SENTENCE_BYTES, "$" first (the head), "*" 3 from the end;
+    # with n ≥ 10 the head's comma (index 6) comes before the "*", so it is the first comma and
+    # the address is s[1:6].
+    if n < 10 or n > MAX_SENTENCE_BYTES or s[n - 3] != 0x2A:
+        return False
+    head = s[:7]
+    try:
+        formatter = _HEADS.get(head)
+    except TypeError:  # a bytearray (unhashable) where bytes are expected: decode_wanted decides
+        return False
+    if formatter is None:
+        if len(_HEADS) >= _HEADS_SIZE:
+            _HEADS.clear()
+        formatter = _HEADS[head] = _plain_head(head)
+    if formatter is _NOT_PLAIN:
+        return False
+    return formatter == "" or (wanted is not None and formatter not in wanted)
 
 
 def _decode(

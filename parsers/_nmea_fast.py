@@ -62,6 +62,10 @@ class _OffPathError(Exception):
 
 
 def _time(s: str) -> dt.time | None:
+    global _last_time  # noqa: PLW0603 - a one-entry cache, replaced whole
+    last = _last_time
+    if s == last[0]:
+        return last[1]
     if s == "":
         return None  # pynmeagps: strptime fails → "" → None
     m = _TIME.fullmatch(s)
@@ -71,7 +75,14 @@ def _time(s: str) -> dt.time | None:
     if h > 23 or mi > 59 or sec > 59:  # strptime/datetime rules (leap second 60 → invalid)
         raise _OffPathError
     frac = m[4]
-    return dt.time(h, mi, sec, int(frac.ljust(6, "0")) if frac else 0)
+    t = dt.time(h, mi, sec, int(frac.ljust(6, "0")) if frac else 0)
+    _last_time = (s, t)
+    return t
+
+
+#: The last time text read and its value: a second's GGA, GST (and RMC) carry the same text, and
+#: so do the other stations' sentences of that second (receivers align to the GPS second).
+_last_time: tuple[str, dt.time | None] = ("", None)
 
 
 def _date(s: str) -> dt.date | None:
@@ -131,35 +142,40 @@ def _signed(value: float, hemisphere: str, negative: str) -> float:
 def _gga(talker: str, f: list[str]) -> GgaFix:
     if len(f) < _GGA_FIELDS:
         raise _OffPathError
-    return _nmea.GgaFix(
-        talker=talker,
-        time_utc=_time(f[0]),
-        lat_deg=_signed(_dmm(f[1]), f[2], "S"),
-        lon_deg=_signed(_dmm(f[3]), f[4], "W"),
-        quality=_i(f[5]) or 0,
-        n_sats_used=_i(f[6]),
-        hdop=_f(f[7]),
-        alt_msl_m=_f(f[8]),
-        geoid_sep_m=_f(f[10]),
-        dgps_age_s=_f(f[12]),
-        dgps_station=_i(f[13]),
-    )
+    # GgaFix(talker=…, …) field by field into its twin (see _nmea.GGA_TWIN), in the same order
+    o = _nmea.GGA_TWIN()
+    o.talker = talker
+    o.time_utc = _time(f[0])
+    o.lat_deg = _signed(_dmm(f[1]), f[2], "S")
+    o.lon_deg = _signed(_dmm(f[3]), f[4], "W")
+    o.quality = _i(f[5]) or 0
+    o.n_sats_used = _i(f[6])
+    o.hdop = _f(f[7])
+    o.alt_msl_m = _f(f[8])
+    o.geoid_sep_m = _f(f[10])
+    o.dgps_age_s = _f(f[12])
+    o.dgps_station = _i(f[13])
+    o.__class__ = _nmea.GgaFix
+    gga: GgaFix = o
+    return gga
 
 
 def _gst(talker: str, f: list[str]) -> GstErrors:
     if len(f) < _GST_FIELDS:
         raise _OffPathError
-    return _nmea.GstErrors(
-        talker=talker,
-        time_utc=_time(f[0]),
-        rms_m=_f(f[1]),
-        major_m=_f(f[2]),
-        minor_m=_f(f[3]),
-        orient_deg=_f(f[4]),
-        lat_sigma_m=_f(f[5]),
-        lon_sigma_m=_f(f[6]),
-        alt_sigma_m=_f(f[7]),
-    )
+    o = _nmea.GST_TWIN()  # GstErrors(talker=…, …), as _gga builds its value
+    o.talker = talker
+    o.time_utc = _time(f[0])
+    o.rms_m = _f(f[1])
+    o.major_m = _f(f[2])
+    o.minor_m = _f(f[3])
+    o.orient_deg = _f(f[4])
+    o.lat_sigma_m = _f(f[5])
+    o.lon_sigma_m = _f(f[6])
+    o.alt_sigma_m = _f(f[7])
+    o.__class__ = _nmea.GstErrors
+    gst: GstErrors = o
+    return gst
 
 
 def _gsv_svids(texts: list[str]) -> tuple[int, ...]:

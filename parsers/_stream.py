@@ -70,6 +70,7 @@ from ._nmea import (
     SatellitesInView,
     ZdaTime,
     decode_wanted,
+    skipped_sentence,
 )
 from ._rtcm_misc import DECODERS, DecodeContext
 from ._rtcm_station import ReceiverDescriptor, StationReference
@@ -505,10 +506,15 @@ class StreamDecoder:
 
     # --- NMEA ---------------------------------------------------------------------------------
     def _on_nmea(self, frame: NmeaFrame, out: list[Message]) -> None:
+        wanted = self.nmea_wanted
+        if wanted is not None and self._ref is None:
+            wanted = wanted | _DATE_SENTENCES
+        if not self._emit_nmea_other and skipped_sentence(frame.raw, wanted):
+            # decode_wanted would return None: counted as below, without its call chain
+            self._nmea_ok += 1
+            self._nmea_skipped += 1
+            return
         try:
-            wanted = self.nmea_wanted
-            if wanted is not None and self._ref is None:
-                wanted = wanted | _DATE_SENTENCES
             # Our framer verified the checksum (NmeaFrame): not computed a second time. Without
             # emit_nmea_other, NmeaOther values are not even built (None, counted below).
             msg = decode_wanted(frame.raw, wanted, checked=True, keep_other=self._emit_nmea_other)

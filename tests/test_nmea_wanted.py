@@ -12,6 +12,7 @@ from ionwarden.daemon.bench import demo_capture
 from ionwarden.daemon.estimator import FixStatus, StationPipeline, StationSnapshot
 from ionwarden.parsers import GgaFix, NmeaOther, ParseError, decode_sentence
 from ionwarden.parsers._framer import Framer, NmeaFrame, RtcmFrame
+from ionwarden.parsers._nmea import decode_wanted, skipped_sentence
 
 from .test_nmea import NMEA_FILES, candidates
 
@@ -144,3 +145,101 @@ def test_pipeline_parses_only_routed_sentences_before_orbits() -> None:
     assert snaps
     assert {s.geometry_source for s in snaps[5:]} == {"gsv"}
     assert pipe.decoder.nmea_wanted == frozenset({"GGA", "GST", "GSV"})
+
+
+# -- skipped_sentence: decode_wanted's None for a plain reason, from a cached head ----------------
+_WANTED_SETS = [None, frozenset({"GGA", "GST"}), frozenset({"GGA", "GST", "GSV"}), frozenset()]
+
+
+def _decode_outcome(raw: bytes, wanted: frozenset[str] | None) -> str:
+    """decode_wanted(checked=True)'s result: "None", a value's repr, or the ParseError."""
+    try:
+        return repr(decode_wanted(raw, wanted, checked=True))
+    except ParseError as exc:
+        return f"ParseError({exc.reason!r})"
+
+
+def _check_skipped(raw: bytes) -> None:
+    """skipped_sentence is True only where decode_wanted(checked=True) returns None (the oracle:
+    the previous path, which the stream decoder still takes whenever it is False)."""
+    for wanted in _WANTED_SETS:
+        if skipped_sentence(raw, wanted):
+            assert _decode_outcome(raw, wanted) == "None", (raw, wanted)
+
+
+def test_skipped_sentence_on_real_sentences() -> None:
+    """Every sentence of the real captures in ../shared/data/real/nmea, and the decoder's count
+    of skipped ones matches what decode_wanted alone returns None for."""
+    n_skipped = 0
+    for path in NMEA_FILES:
+        for raw in candidates(path.read_bytes()):
+            _check_skipped(raw)
+            _check_skipped(raw + b"\r\n")
+            n_skipped += skipped_sentence(raw + b"\r\n", frozenset({"GGA", "GST"}))
+    assert n_skipped > 1000  # GSV, RMC, GSA, … of the u-blox extract (PROVENANCE.md)
+
+
+_ADDRESSES = st.sampled_from(
+    ["GPGSV", "GLGSV", "GNRMC", "GPGGA", "GNGST", "GNGSA", "GPZDA", "GPVTG", "GPXYZ", "PUBX",
+     "PABCD", "GP-SV", "GNGSVH", "GP GSV", "gpgsv", "GPGS\u00e9"]
+)  # fmt: skip
+
+
+@settings(max_examples=400)
+@given(
+    _ADDRESSES,
+    st.text(alphabet="0123456789,.*$!ABCNEW \r\n-", max_size=80),
+    st.sampled_from(["*4F", "*", "*4", "4F", ""]),
+    st.sampled_from(["\r\n", "\n", "", "\r", "\n\r", "\r\n\r\n"]),
+    st.sampled_from(["$", "!", ""]),
+)
+def test_skipped_sentence_on_generated_sentences(
+    address: str, body: str, star: str, eol: str, start: str
+) -> None:
+    """Odd addresses, bodies with extra '*'/'$'/CR/LF, short and long sentences, missing or
+    broken checksum fields, every line ending: never True where decode_wanted would not return
+    None."""
+    raw = f"{start}{address},{body}{star}{eol}".encode()
+    _check_skipped(raw)
+    _check_skipped(raw[:9])
+    _check_skipped(raw + b"x" * 250)
+
+
+def test_skipped_sentence_skips_the_plain_unwanted_ones() -> None:
+    """The sentences a receiver sends each second beside GGA/GST are found skipped (the point of
+    the shortcut), and the wanted ones are not."""
+    gsv = b"$GPGSV,3,3,10,26,41,139,45,31,58,071,48*76\r\n"
+    wanted = frozenset({"GGA", "GST"})
+    assert skipped_sentence(gsv, wanted)
+    assert not skipped_sentence(gsv, None)
+    assert not skipped_sentence(GGA, wanted)
+    assert skipped_sentence(b"$GPXYZ,1,2*00\r\n", None)  # no decoder: NmeaOther, not built
+    assert not skipped_sentence(b"$PUBX,00,1*00\r\n", wanted)  # not a 5-character address
+    assert not skipped_sentence(bytearray(gsv), wanted)  # not bytes: decode_wanted decides
+
+
+def test_stream_decoder_counts_as_before() -> None:
+    """StreamDecoder with and without the shortcut: the same messages and statistics on the
+    bundled demo capture (its GSV, RMC, GSA, … skipped once ephemerides give the geometry)."""
+    from unittest import mock
+
+    from ionwarden.parsers import _stream
+
+    def run(shortcut: bool) -> tuple[str, object]:
+        pipe = StationPipeline("demo")
+        outs: list[object] = []
+        with mock.patch.object(
+            _stream, "skipped_sentence", _stream.skipped_sentence if shortcut else _never
+        ):
+            data = demo_capture()
+            for i in range(0, len(data), 4096):
+                outs += pipe.feed(data[i : i + 4096])
+        return repr([o for o in outs if isinstance(o, FixStatus)]), pipe.decoder.statistics()
+
+    with_it, without = run(True), run(False)
+    assert with_it == without
+    assert with_it[1].nmea_skipped > 0  # type: ignore[attr-defined]
+
+
+def _never(_raw: bytes, _wanted: object) -> bool:
+    return False

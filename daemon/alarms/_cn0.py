@@ -502,18 +502,20 @@ class Cn0Baseline:
         epoch_mean = s.take(seen) / n_seen
         mean = self._mean_flat
         count = self._count_flat
-        c = count.take(seen)
+        # count + 1 once, in int64: 1 / (c + 1) divides the same double as 1 / (c + 1.0) did
+        # (c + 1 < 2⁵³ converts exactly), and it is the new count.
+        c1 = np.add(count.take(seen), _ONE_I64)
         w = min(dt / self.time_constant_s, 1.0)
         if self._weight[0] != w:
             self._weight = (w, np.full((), w, np.float64))
-        alpha = np.maximum(np.divide(_ONE, np.add(c, _ONE)), self._weight[1])
+        alpha = np.maximum(np.divide(_ONE, c1), self._weight[1])
         prev = mean.take(seen)
         # prev + alpha·(epoch_mean − prev), in place (the same operations in the same order).
         epoch_mean -= prev
         epoch_mean *= alpha
         epoch_mean += prev
         mean.put(seen, epoch_mean)
-        count.put(seen, np.add(c, _ONE_I64))
+        count.put(seen, c1)
 
 
 #: Judged band keys (ascending), the same as an index array, and their cell counts (floats).

@@ -39,7 +39,7 @@ from ionwarden.parsers import (
 )
 
 from ._estimator import StationEstimator
-from ._snapshot import FixStatus, StationSnapshot
+from ._snapshot import FixStatus, StationSnapshot, new_fix_status
 
 if TYPE_CHECKING:
     from collections.abc import Callable, Iterable, Mapping, Sequence
@@ -59,6 +59,8 @@ _FALLBACK_SENTENCES = _FIX_SENTENCES | {"GSV"}
 _SOURCE_RANK = {"config": 3, "rtcm": 2, "rinex": 2, "gga": 1, "": 0}
 _DAY_BEFORE = _dt.timedelta(days=-1)
 _DAY_AFTER = _dt.timedelta(days=1)
+_HALF_DAY = _dt.timedelta(hours=12)
+_MINUS_HALF_DAY = -_HALF_DAY
 
 
 class StationPipeline:
@@ -231,7 +233,7 @@ class StationPipeline:
         gga = self._gga
         assert gga is not None
         gst = self._gst if gst_ok else None
-        return FixStatus(
+        return new_fix_status(  # FixStatus(…) with every field, built cheaper (_records)
             station=self.station,
             time=self._gga_time,
             quality=gga.quality,
@@ -248,15 +250,17 @@ class StationPipeline:
             return None
         ref = self._last_t.to_utc()
         cand = _dt.datetime.combine(ref.date(), tod, tzinfo=_dt.UTC)
-        # the nearest calendar day to the last epoch (midnight rollover either way); the first
-        # of equally near ones, as min() over the day before, the day and the day after
-        best = cand + _DAY_BEFORE
-        gap = abs((best - ref).total_seconds())
-        for c in (cand, cand + _DAY_AFTER):
-            g = abs((c - ref).total_seconds())
-            if g < gap:
-                best, gap = c, g
-        return utc_to_gps(best)
+        # The nearest calendar day to the last epoch (midnight rollover either way); the first of
+        # equally near ones in the order day before, day, day after. With d = cand − ref, where
+        # −1 d < d < 1 d (same date): the day before is nearest when d ≥ 12 h (a tie keeps it),
+        # the day after when d < −12 h, else the day itself (exact timedelta comparisons; the
+        # min() over the three candidates' |gaps| they replace: tests/test_pipeline_fix_fast.py).
+        d = cand - ref
+        if d >= _HALF_DAY:
+            cand += _DAY_BEFORE
+        elif d < _MINUS_HALF_DAY:
+            cand += _DAY_AFTER
+        return utc_to_gps(cand)
 
     def set_position(self, ecef: npt.ArrayLike, source: str) -> None:
         """Receiver position (ECEF m) from ``source`` ("config", "rtcm", "rinex" header or

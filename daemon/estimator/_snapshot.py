@@ -24,6 +24,7 @@ __all__ = [
     "FixStatus",
     "SatelliteFigures",
     "StationSnapshot",
+    "new_fix_status",
     "new_satellite_figures",
     "new_snapshot",
     "satellite_figures_of",
@@ -154,3 +155,6 @@ def _positional_constructor(cls: type[_T]) -> Callable[..., _T]:
 #: (the per-epoch path's: no keyword matching).
 satellite_figures_of = _positional_constructor(SatelliteFigures)
 snapshot_of = _positional_constructor(StationSnapshot)
+
+#: ``FixStatus(**values)`` with every field given: two a second per station (GGA, then GST).
+new_fix_status = fast_constructor(FixStatus)
