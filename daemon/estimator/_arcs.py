@@ -20,6 +20,7 @@ e(el) = 1 + 2·exp(−el/15°) widens the floor at low elevation, where noise an
 scatters of the test residuals, kept across arcs (they describe the signal's noise, not the arc).
 """
 
+# size: ~400 lines keep the slip tests' cheap screen, exact path and block views together (one per-epoch path).
 from __future__ import annotations
 
 import math
