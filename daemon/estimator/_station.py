@@ -6,6 +6,7 @@ least-squares plane VTEC = v0 + g_e·x + g_n·y over the pierce points, x/y thei
 from the station on the shell (km); it needs at least 4 pierce points.
 """
 
+# size: ~440 lines keep the station figures, their kept selections and the plane fit in one place.
 from __future__ import annotations
 
 import math
