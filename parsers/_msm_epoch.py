@@ -19,8 +19,8 @@ Rows 0–1 plus rows 2–3 give the rough range and the rate; the formulas are t
 ``_msm.decode_msm``, operation for operation, so both give bit-identical values.
 """
 
-# size: ~470 lines: the whole-epoch MSM decode and the layout cache it runs on; the
-# layout and the decode change together.
+# size: ~560 lines: the whole-epoch MSM decode, the layout cache it runs on and the one-epoch
+# plan beside the general path it must equal; the layout and the decode change together.
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -119,6 +119,70 @@ class _EpochLayout:
     #: GLONASS FDMA: (frequencies, multipliers) of every cell, read-only, by the channel bytes of
     #: the epoch's GLONASS messages (receivers keep a satellite's channel for months).
     glo_cache: dict[bytes, tuple[_F64, _F64]]
+    #: The same fields rearranged for ``_decode_one`` (see ``_OnePlan``).
+    one: _OnePlan
+
+
+#: C/N0 by a unified 10-bit code: DF408's (2^-4 dB-Hz, MSM6/7), or DF403's (1 dB-Hz, MSM4/5) read
+#: 4 bits lower so that it is 16 times its value; 0 is "not computed" (NaN) for both. The same
+#: float32 values as scaling in float64 and casting (every value is exact in both).
+_CN0_BY_CODE: Final = np.array([np.nan, *(np.arange(1, 1024) * 2.0**-4)]).astype(np.float32)
+_CN0_BY_CODE.setflags(write=False)
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class _OnePlan:
+    """A layout's fields as ``_decode_one`` reads them: the rows it scales first (``nf`` rows:
+    DF397, [DF399,] DF398, [DF404,] the fine pseudorange and phase range; the rate rows only when
+    a message has them, MSM5/7), then the C/N0 (unified code, see ``_CN0_BY_CODE``), lock-time
+    and half-cycle rows, which are looked up or cast without scaling."""
+
+    bytepos: _IDX
+    lsh: npt.NDArray[np.uint32]
+    rsh: npt.NDArray[np.int32]
+    mask: npt.NDArray[np.int32]
+    #: Scale and invalid code of the first ``nf`` rows.
+    scale: _F64
+    invalid: npt.NDArray[np.int32]
+    #: Scaled rows, and their elements (``nf`` × n).
+    nf: int
+    m: int
+    rate: bool
+    #: NaN per cell, copied as the range rate of layouts without one (read-only).
+    no_rate: _F64
+
+
+def _one_plan(
+    n: int, rate: bool, lock_offset: _IDX, fields: tuple[npt.NDArray[np.generic], ...]
+) -> _OnePlan:
+    """The plan of a layout of ``n`` cells from its per-element fields (bytepos, lsh, rsh, mask,
+    invalid, scale: ``_NROWS`` rows of n) and its cells' lock-time offsets."""
+    bytepos, lsh, rsh, mask, invalid, scale = fields
+    rows = [0, 1, 2, 3, 4, 5] if rate else [0, 2, 4, 5]
+    order = np.concatenate([np.arange(r * n, (r + 1) * n) for r in [*rows, 6, 7, 8]]).astype(
+        np.intp
+    )
+    m = len(rows) * n
+    rsh_one = np.asarray(rsh[order], np.int32)
+    mask_one = np.asarray(mask[order], np.int32)
+    # DF403 cells (MSM4/5: their lock-time offset is DF402's): read 4 bits lower, 16 x the value.
+    df403 = m + np.flatnonzero(lock_offset == _DF402_AT)
+    rsh_one[df403] -= 4
+    mask_one[df403] <<= 4
+    no_rate = np.full(n, np.nan)
+    no_rate.setflags(write=False)
+    return _OnePlan(
+        bytepos=bytepos[order],  # type: ignore[arg-type]
+        lsh=lsh[order],  # type: ignore[arg-type]
+        rsh=rsh_one,
+        mask=mask_one,
+        scale=scale[order[:m]],  # type: ignore[arg-type]
+        invalid=invalid[order[:m]],  # type: ignore[arg-type]
+        nf=len(rows),
+        m=m,
+        rate=rate,
+        no_rate=no_rate,
+    )
 
 
 _LAYOUTS: dict[tuple[tuple[object, int], ...], _EpochLayout] = {}
@@ -210,13 +274,21 @@ def _build(heads: Sequence[MsmHead]) -> _EpochLayout:
     mult[1] = freq * 1e-3
     for arr in (out_sat, out_sig, freq, mult, lli):
         arr.setflags(write=False)  # shared by every epoch with this layout
+    bytepos = rowwise("bytepos", np.intp)
+    lsh = rowwise("lsh", np.uint32)
+    rsh = rowwise("rsh", np.int32)
+    mask = rowwise("mask", np.int32)
+    invalid = rowwise("invalid", np.int32)
+    scale = rowwise("scale", np.float64)
+    rate = any(h.msm_level in (5, 7) for h in heads)
+    one = _one_plan(n, rate, offs, (bytepos, lsh, rsh, mask, invalid, scale))
     return _EpochLayout(
-        bytepos=rowwise("bytepos", np.intp),  # type: ignore[arg-type]
-        lsh=rowwise("lsh", np.uint32),  # type: ignore[arg-type]
-        rsh=rowwise("rsh", np.int32),  # type: ignore[arg-type]
-        mask=rowwise("mask", np.int32),  # type: ignore[arg-type]
-        invalid=rowwise("invalid", np.int32),  # type: ignore[arg-type]
-        scale=rowwise("scale", np.float64),  # type: ignore[arg-type]
+        bytepos=bytepos,  # type: ignore[arg-type]
+        lsh=lsh,  # type: ignore[arg-type]
+        rsh=rsh,  # type: ignore[arg-type]
+        mask=mask,  # type: ignore[arg-type]
+        invalid=invalid,  # type: ignore[arg-type]
+        scale=scale,  # type: ignore[arg-type]
         n=n,
         sat=out_sat,
         sig=out_sig,
@@ -235,6 +307,7 @@ def _build(heads: Sequence[MsmHead]) -> _EpochLayout:
         sources=tuple(h.msg_type for h in heads),
         duplicates=total - n,
         glo_cache={},
+        one=one,
     )
 
 
@@ -292,7 +365,7 @@ def _glo_columns(lay: _EpochLayout, heads: Sequence[MsmHead]) -> tuple[_F64, _F6
     GLONASS FDMA cells, from its messages' channels (``MsmHead.glo_channels``); read-only, cached
     per layout by the channel bytes, which with the layout fix every value."""
     chans = [h.glo_channels for h in heads if h.glo_channels is not None]
-    key = b"".join([c.tobytes() for c in chans])
+    key = chans[0].tobytes() if len(chans) == 1 else b"".join([c.tobytes() for c in chans])
     hit = lay.glo_cache.get(key)
     if hit is not None:
         return hit
@@ -443,33 +516,45 @@ def _epoch(
 
 
 def _decode_one(lay: _EpochLayout, epoch: tuple[Sequence[MsmHead], GpsTime, int]) -> ObsEpoch:
-    """``_decode_group`` of one epoch (k = 1), operation for operation on 2-D (row, cell) arrays
-    instead of 3-D (row, 1, cell) ones: the same values, without the per-epoch views of the
-    columns (tests/test_decode_fixed_single.py compares both)."""
+    """``_decode_group`` of one epoch (k = 1) on the layout's ``_OnePlan``: the same values bit
+    for bit (tests/test_decode_fixed_single.py compares both) from fewer elements. Only the rows
+    that are scaled go through the scaling and the invalid check; C/N0 is one look-up by its
+    unified code instead of a scaled row cast to float32; a layout without rate fields (MSM4/6
+    only) reads no rows of NaN: its rate is a copy of one."""
     heads, time, station = epoch
+    p = lay.one
     n = lay.n
     buf = b"".join([h.payload for h in heads] + [_PAD])
     words = np.ndarray((len(buf) - 3,), _BE32, buf, 0, (1,))
-    left = np.left_shift(words.take(lay.bytepos), lay.lsh, dtype=np.uint32)
-    raw = left.view(np.int32) >> lay.rsh
-    raw &= lay.mask
-    val = raw * lay.scale
-    val[raw == lay.invalid] = np.nan
-    v = val.reshape(_NROWS, n)
-    r = raw.reshape(_NROWS, n)
-    rough_rate = v[0:2] + v[2:4]
-    ranges = v[4:6] + rough_rate[0]
+    # uint32 << uint32 (the loop ``dtype=np.uint32`` would pick; the gathered words are >u4)
+    raw = np.left_shift(words.take(p.bytepos), p.lsh).view(np.int32) >> p.rsh
+    raw &= p.mask
+    m = p.m
+    scaled = raw[:m]
+    val = scaled * p.scale
+    val[scaled == p.invalid] = np.nan
+    if p.rate:
+        v = val.reshape(6, n)
+        rough_rate = v[0:2] + v[2:4]
+        ranges = v[4:6] + rough_rate[0]
+        rate = rough_rate[1]
+    else:
+        v = val.reshape(4, n)
+        ranges = v[2:4] + (v[0] + v[1])
+        rate = p.no_rate.copy()
     if lay.glo_pos.shape[0]:
         freq, mult = _glo_columns(lay, heads)
     else:
         freq, mult = lay.freq_hz, lay.mult
     ranges *= mult
-    lock_raw = r[7]
+    nf = p.nf
+    rows = raw.reshape(nf + 3, n)
+    lock_raw = rows[nf + 1]
     lock_s = lay.lock_table.take(
         lock_raw if lay.lock_offset is None else lock_raw + lay.lock_offset
     )
     return _epoch(
-        lay, time=time, station=station, pr=ranges[0], phase=ranges[1], rate=rough_rate[1],
-        cn0=v[6].astype(np.float32), lock_s=lock_s, lock_ind=lock_raw.astype(np.int16),
-        half=r[8].astype(np.bool_), freq=freq,
+        lay, time=time, station=station, pr=ranges[0], phase=ranges[1], rate=rate,
+        cn0=_CN0_BY_CODE.take(rows[nf]), lock_s=lock_s, lock_ind=lock_raw.astype(np.int16),
+        half=rows[nf + 2].astype(np.bool_), freq=freq,
     )  # fmt: skip

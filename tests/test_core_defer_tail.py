@@ -205,6 +205,30 @@ def test_one_second_chunks_identical_and_tail_waits(seconds):
     assert deferred == len(seconds)
 
 
+def test_cut_hint_taken_and_one_inside_a_frame(seconds, monkeypatch):
+    """FramingCore._cut: the last chunk's sentence start, found past the chunk's last 0xD3, is
+    the cut (the simulator's chunks: every one after the first); a hint that lands inside the
+    last RTCM frame (bytes right after its last 0xD3, forced here) cuts there, and feed() frames
+    the rest too: identical to framing whole chunks either way."""
+    core = FramingCore(_Recorder([], ["feed"]), defer=True)
+    for chunk in seconds[:5]:
+        want = _tail_cut(chunk)
+        assert core._cut(chunk) == want
+        assert core._hint == chunk[want : want + 6]
+    real_cut = FramingCore._cut
+
+    def inside(self: FramingCore, data: bytes) -> int:
+        last = data.rfind(0xD3)
+        if 0 <= last < len(data) - 3:
+            self._hint = data[last + 1 : last + 3]
+        at = real_cut(self, data)
+        assert at == data.find(self._hint, last + 1) or not self._hint
+        return at
+
+    monkeypatch.setattr(FramingCore, "_cut", inside)
+    _assert_identical(seconds[:20])
+
+
 @pytest.mark.parametrize("shift", [-7, -3, -2, -1, 1, 2, 3, 7])
 def test_second_edges_shifted_into_frames(seconds, shift):
     """Chunk edges a few bytes before or after each second's edge: inside its last NMEA sentence

@@ -26,6 +26,8 @@ __all__ = ["DecoderCounts", "FrameConsumer", "FramingCore", "StationCore"]
 _RTCM_MAX_FRAME = MAX_INCOMPLETE_FRAME  # RTCM 10403.3 Table 4-1: at most 3 + 1023 + 3 bytes
 _SENTENCE_START = frozenset(b"$!")  # NMEA 0183 §5.3: a sentence starts with "$" or "!"
 _CUT_TRIES = 16  # 0xD3 bytes _tail_cut looks at, at most (a flood of them is junk: no cut)
+#: Bytes of the last cut's sentence start that ``FramingCore`` looks for in the next chunk.
+_HINT_BYTES = 6
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -199,6 +201,7 @@ class FramingCore:
         self._defer = defer
         self._later: list[Frame] = []  # frames held for settle()
         self._tail = b""  # bytes held for settle(), not framed yet (no 0xD3 in them)
+        self._hint = b""  # the first bytes after the last chunk's cut (see _cut)
         self._framer = Framer()
         self._fed = 0  # bytes given to this framer: the stream offset of the next byte
         self._done = DecoderCounts()  # counts of framers already ended
@@ -226,7 +229,7 @@ class FramingCore:
         frames = self._held() if self._later or self._tail else []
         consumer = self._consumer
         n = len(data)
-        cut = _tail_cut(data) if self._defer and consumer is not None else n
+        cut = self._cut(data) if self._defer and consumer is not None else n
         k = -1  # index after the last epoch of ``frames``; -1: not looked for yet
         if cut < n:
             start = self._fed
@@ -253,6 +256,24 @@ class FramingCore:
                 self._later = frames[k:]
                 frames = frames[:k]
         return consumer.feed_frames(frames)
+
+    def _cut(self, data: bytes) -> int:
+        """Where ``feed`` stops framing ``data``: past its last 0xD3, like :func:`_tail_cut`.
+
+        A receiver sends the same sentence first after its frames every second: the first bytes
+        after the last chunk's cut, found past this chunk's last 0xD3, make a cut at once (any
+        cut past it is safe, see :func:`_tail_cut`; one inside a frame only makes ``feed`` frame
+        the rest as well). Otherwise :func:`_tail_cut`, and its cut's first bytes are kept.
+        """
+        hint = self._hint
+        last = data.rfind(0xD3)
+        if hint and last >= 0:
+            at = data.find(hint, last + 1)
+            if at >= 0:
+                return at
+        cut = _tail_cut(data)
+        self._hint = data[cut : cut + _HINT_BYTES]
+        return cut
 
     def end_stream(self) -> Sequence[object]:
         frames = self._held()
