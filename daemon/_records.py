@@ -20,13 +20,17 @@ __all__ = ["fast_constructor"]
 _T = TypeVar("_T")
 
 
-def fast_constructor(cls: type[_T]) -> Callable[..., _T]:
+def fast_constructor(cls: type[_T], *, positional: bool = False) -> Callable[..., _T]:
     """A constructor of the frozen slots dataclass ``cls`` taking every field by keyword: the
     same object as ``cls(**values)``, without the frozen ``__init__``'s ``object.__setattr__``
     per field (about 5x cheaper). Generated like the dataclass's own ``__init__``: the fields are
     stored into an instance of a plain twin class with the same slots (plain attribute stores),
     whose ``__class__`` is then set to ``cls`` (Python allows it between classes of the same slot
-    layout); where that is refused, each slot is set through its descriptor instead."""
+    layout); where that is refused, each slot is set through its descriptor instead.
+
+    ``positional``: every field by position instead, in field order (``cls(*values)``): CPython
+    3.11 matches each keyword of a call by name for ~600 instructions, ~11k for a snapshot
+    record, more than building it."""
     names = [f.name for f in fields(cls)]  # type: ignore[arg-type]  # a dataclass
     try:
         twin = slots_twin(cls)
@@ -34,13 +38,13 @@ def fast_constructor(cls: type[_T]) -> Callable[..., _T]:
         twin = None
     env: dict[str, Any] = {"_new": object.__new__, "_cls": cls, "_twin": twin}
     env.update({f"_set_{n}": getattr(cls, n).__set__ for n in names})
-    args = ", ".join(names)
+    args = ", ".join(names) if positional else "*, " + ", ".join(names)
     stores = "\n".join(f"    o.{n} = {n}" for n in names)
     sets = "\n".join(f"    _set_{n}(o, {n})" for n in names)
     src = (
-        f"def new_{cls.__name__}(*, {args}):\n    o = _twin()\n{stores}\n    o.__class__ = _cls\n"
+        f"def new_{cls.__name__}({args}):\n    o = _twin()\n{stores}\n    o.__class__ = _cls\n"
         f"    return o\n\n"
-        f"def set_{cls.__name__}(*, {args}):\n    o = _new(_cls)\n{sets}\n    return o\n"
+        f"def set_{cls.__name__}({args}):\n    o = _new(_cls)\n{sets}\n    return o\n"
     )
     exec(src, env)  # noqa: S102 - source built from the dataclass's own field names
     build: Callable[..., _T] = env[f"{'set' if twin is None else 'new'}_{cls.__name__}"]

@@ -115,6 +115,11 @@ def test_fast_constructor_falls_back_to_descriptors_without_class_assignment() -
     got = build(a=1.0, b=2.0)
     assert type(got) is Odd
     assert got == Odd(a=1.0, b=2.0)
+    by_position = fast_constructor(Odd, positional=True)  # fields in field order
+    assert by_position.__name__ == "set_Odd"
+    got = by_position(1.0, 2.0)
+    assert type(got) is Odd
+    assert got == Odd(a=1.0, b=2.0)
 
 
 class _Decorated(StationEstimator):

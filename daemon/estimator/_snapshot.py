@@ -6,18 +6,15 @@ Per-satellite figures are a structure of arrays over the ``m`` satellites that h
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field, fields
-from typing import TYPE_CHECKING, Any, TypeVar
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 import numpy as np
 import numpy.typing as npt
 
 from ionwarden.daemon._records import fast_constructor
-from ionwarden.parsers._twin import slots_twin
 
 if TYPE_CHECKING:
-    from collections.abc import Callable
-
     from ionwarden.parsers import GpsTime
 
 __all__ = [
@@ -32,7 +29,6 @@ __all__ = [
 ]
 
 F64 = npt.NDArray[np.float64]
-_T = TypeVar("_T")
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -126,35 +122,10 @@ class FixStatus:
 new_satellite_figures = fast_constructor(SatelliteFigures)
 new_snapshot = fast_constructor(StationSnapshot)
 
-
-def _positional_constructor(cls: type[_T]) -> Callable[..., _T]:
-    """``cls(*values)`` with every field given, in field order: the object of
-    :func:`fast_constructor` (stores into the slots twin, then its class set), without matching
-    ~20 keywords by name per call (CPython 3.11 pays ~600 instructions a keyword: ~11k a
-    snapshot record, more than building it). Where the twin is refused, the keyword one."""
-    names = [f.name for f in fields(cls)]  # type: ignore[arg-type]  # a dataclass
-    try:
-        twin = slots_twin(cls)
-    except TypeError:  # no __class__ assignment between the two (another Python)
-        by_name = fast_constructor(cls)
-
-        def build(*values: Any) -> _T:
-            return by_name(**dict(zip(names, values, strict=True)))
-
-        return build
-    env: dict[str, Any] = {"_cls": cls, "_twin": twin}
-    stores = "".join(f"    o.{n} = {n}\n" for n in names)
-    src = f"def {cls.__name__}_of({', '.join(names)}):\n    o = _twin()\n{stores}"
-    src += "    o.__class__ = _cls\n    return o\n"
-    exec(src, env)  # noqa: S102 - source built from the dataclass's own field names
-    built: Callable[..., _T] = env[f"{cls.__name__}_of"]
-    return built
-
-
 #: ``SatelliteFigures(*values)`` / ``StationSnapshot(*values)``, every field in field order
 #: (the per-epoch path's: no keyword matching).
-satellite_figures_of = _positional_constructor(SatelliteFigures)
-snapshot_of = _positional_constructor(StationSnapshot)
+satellite_figures_of = fast_constructor(SatelliteFigures, positional=True)
+snapshot_of = fast_constructor(StationSnapshot, positional=True)
 
 #: ``FixStatus(**values)`` with every field given: two a second per station (GGA, then GST).
 new_fix_status = fast_constructor(FixStatus)
