@@ -45,21 +45,20 @@ class DeferredAlarms:
 
     def defer(self, snap: StationSnapshot) -> None:
         """Leave ``snap``'s evaluation for :meth:`settle` (an earlier one still pending, as when
-        one chunk completes two epochs, is evaluated now: the order of inputs is kept)."""
+        one chunk completes two epochs, is evaluated now: the order of inputs is kept; the test
+        spares the urgent step a call)."""
         if self._pending is not None:
             self.flush()
         self._pending = snap
 
     def fix(self, fix: FixStatus) -> None:
         """Evaluate and publish an NMEA fix, after the pending snapshot (an earlier input)."""
-        if self._pending is not None:
-            self.flush()
+        self.flush()
         self._publish(self.alarms.observe_fix(fix))
 
     def stall(self, age_s: float, now: GpsTime) -> None:
         """Evaluate and publish the stream-stall alarm, after the pending snapshot."""
-        if self._pending is not None:
-            self.flush()
+        self.flush()
         self._publish(self.alarms.observe_stall(age_s, now))
 
     def flush(self) -> None:
@@ -75,8 +74,7 @@ class DeferredAlarms:
 
     def settle(self) -> None:
         """The background part: the pending evaluation, then the alarms' own deferred learning."""
-        if self._pending is not None:
-            self.flush()
+        self.flush()
         self.alarms.settle()
 
     def _publish(self, transitions: list[AlarmTransition]) -> None:
