@@ -18,12 +18,25 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from ionwarden.daemon.runtime import FramingCore
-from ionwarden.daemon.runtime._core import DecoderCounts, _add, _after_last_epoch, _tail_cut
+from ionwarden.daemon.runtime._core import DecoderCounts, _after_last_epoch, _tail_cut
 from ionwarden.daemon.sim import Simulator, build_scenario, iter_stream
 from ionwarden.parsers._crc import frame_rtcm
-from ionwarden.parsers._framer import Frame, Framer, RtcmFrame
+from ionwarden.parsers._framer import Frame, Framer, FramerStatistics, RtcmFrame
 
 # --- the reference and the recording consumer ---------------------------------------------------
+
+
+def _add(a: DecoderCounts, s: FramerStatistics) -> DecoderCounts:
+    """The counts as FramingCore added them before (from the framer's ``statistics()``)."""
+    return DecoderCounts(
+        frames_total=a.frames_total + s.rtcm_frames + s.nmea_frames,
+        rtcm_frames_total=a.rtcm_frames_total + s.rtcm_frames,
+        nmea_frames_total=a.nmea_frames_total + s.nmea_frames,
+        crc_errors_total=a.crc_errors_total + s.crc_failures,
+        checksum_errors_total=a.checksum_errors_total + s.nmea_checksum_failures,
+        discarded_bytes_total=a.discarded_bytes_total + s.bytes_discarded,
+        truncated_frames_total=a.truncated_frames_total + s.truncated_at_eof,
+    )
 
 
 class _WholeChunkCore:

@@ -14,7 +14,7 @@ from typing import TYPE_CHECKING, Any, Protocol
 
 from ionwarden.daemon._records import fast_constructor
 from ionwarden.parsers import MSM_TYPES
-from ionwarden.parsers._framer import MAX_INCOMPLETE_FRAME, Framer, FramerStatistics, RtcmFrame
+from ionwarden.parsers._framer import MAX_INCOMPLETE_FRAME, Framer, RtcmFrame
 
 if TYPE_CHECKING:
     from collections.abc import Callable, Mapping, Sequence
@@ -95,22 +95,10 @@ class FrameConsumer(Protocol):
 _new_decoder_counts = fast_constructor(DecoderCounts)
 
 
-def _add(a: DecoderCounts, s: FramerStatistics) -> DecoderCounts:
-    return _new_decoder_counts(
-        frames_total=a.frames_total + s.rtcm_frames + s.nmea_frames,
-        rtcm_frames_total=a.rtcm_frames_total + s.rtcm_frames,
-        nmea_frames_total=a.nmea_frames_total + s.nmea_frames,
-        crc_errors_total=a.crc_errors_total + s.crc_failures,
-        checksum_errors_total=a.checksum_errors_total + s.nmea_checksum_failures,
-        discarded_bytes_total=a.discarded_bytes_total + s.bytes_discarded,
-        truncated_frames_total=a.truncated_frames_total + s.truncated_at_eof,
-    )
-
-
 def _add_framer(a: DecoderCounts, framer: Framer) -> DecoderCounts:
-    """``_add(a, framer.statistics())`` from the framer's ``totals()`` (the same counters,
-    without the copy of its per-type table and the frozen record: the status tick takes a
-    station's counts every second)."""
+    """``a`` plus the framer's counts, read from its ``totals()`` (the counters of its
+    ``statistics()``, without the copy of its per-type table and the frozen record: the status
+    tick takes a station's counts every second)."""
     rtcm, nmea, _empty, crc, nmea_fail, truncated, discarded, _total = framer.totals()
     return _new_decoder_counts(
         frames_total=a.frames_total + rtcm + nmea,
