@@ -155,13 +155,12 @@ class _LeanPaho(mqtt.Client):
         puback = self._iw_puback
         if puback is None:
             return super()._packet_read()
-        after = self._iw_after_read
-        if after is None:
-            return self._iw_read(puback)
         try:
             return self._iw_read(puback)
         finally:
-            after()
+            after = self._iw_after_read
+            if after is not None:
+                after()
 
     def _iw_read(self, puback: Callable[[int], bool]) -> MQTTErrorCode:
         if self._in_packet["command"]:  # paho is in the middle of a packet: let it finish it
