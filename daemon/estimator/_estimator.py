@@ -265,6 +265,23 @@ class StationEstimator:
         if pending is not None:
             with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
                 self._update_receiver_bias(pending[0], **pending[1])
+                self._renew_bias_cache()
+
+    def _renew_bias_cache(self) -> None:
+        """After a fit that changed the bias tables: compute now the correction the next epoch
+        of the same layout would compute in its urgent step (``_dual``), from the same inputs
+        (the layout's bias indices and ``K`` row, the arcs as they stand), so the values are the
+        same bit for bit; an epoch that starts arcs while levelling corrections are held, a new
+        layout or a later change of the tables still computes its own."""
+        blk, cached, ver = self._blk, self._bias_cache, self.biases.version
+        if blk is None or cached is None or cached[0] is not blk.lay or cached[1] == ver:
+            return
+        lay = blk.lay
+        b_sat, total_bias, relevel = self.biases.correction(
+            lay.bias_flat, lay.group, blk.g[K], blk.arc
+        )
+        relevel.setflags(write=False)  # goes into snapshots
+        self._bias_cache = (lay, ver, b_sat, total_bias, relevel)
 
     def add_ephemeris(self, eph: KeplerEphemeris | GlonassEphemeris) -> None:
         """Use a broadcast ephemeris for geometry and its group delays for the satellite bias."""

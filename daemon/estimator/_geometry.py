@@ -28,6 +28,7 @@ __all__ = ["Geometry"]
 
 F64 = npt.NDArray[np.float64]
 Idx = npt.NDArray[np.intp]
+Mask = npt.NDArray[np.bool_]
 #: A GSV elevation older than this is not used (s of data time): receivers send GSV every epoch.
 GSV_MAX_AGE_S = 30.0
 _TWO_PI = 2.0 * np.pi
@@ -35,6 +36,11 @@ _TWO_PI = 2.0 * np.pi
 _RATE_STEP_S = 10.0
 _TWO_PI_0D = np.array(_TWO_PI)
 _PI_0D = np.array(np.pi)
+
+
+#: What :meth:`Geometry.prefetch` computed: (sats, t, inputs, (m, 4) rows, store marks before
+#: and after, (4, m) rate rows for the refresh or None, the version they were computed at).
+_Ahead = tuple[Idx, float, tuple[int, int], F64, "SelectionMark", "SelectionMark", F64 | None, int]
 
 
 class Geometry:
@@ -72,15 +78,23 @@ class Geometry:
         #: an orbit evaluation besides the satellites and the time.
         self._rx_version = 0
         #: Orbit rows computed ahead (:meth:`prefetch`): (sats, t, inputs, rows, store marks
-        #: before and after).
-        self._ahead: tuple[Idx, float, tuple[int, int], F64, SelectionMark, SelectionMark] | None
-        self._ahead = None
+        #: before and after, and the refresh's rate rows with the version they were computed at,
+        #: None when a satellite needs a second evaluation for its rate).
+        self._ahead: _Ahead | None = None
 
     # -- inputs ---------------------------------------------------------------------------------
     def set_receiver_position(self, ecef_m: npt.ArrayLike, source: str) -> None:
         xyz = np.asarray(ecef_m, dtype=np.float64).reshape(3)
         if not np.isfinite(xyz).all() or float(np.linalg.norm(xyz)) < 6.0e6:
             raise ValueError(f"receiver position from {source} is not near the Earth's surface")
+        if (
+            self.rx_ecef is not None
+            and source == self.rx_source
+            and np.array_equal(xyz, self.rx_ecef)
+        ):
+            # The same position again (RTCM 1005/1006 repeat every few seconds): nothing changes,
+            # so the cached geometry stays (a new version would rebuild it the next epoch).
+            return
         moved = self.rx_ecef is None or float(np.linalg.norm(xyz - self.rx_ecef)) > 100.0
         self.rx_ecef = xyz
         self.rx_source = source
@@ -214,7 +228,9 @@ class Geometry:
             self._rows_unused()
         before = self.store.mark()
         rows = self._evaluate(sats, t_s)
-        self._ahead = (sats, t_s, self._inputs(), rows, before, self.store.mark())
+        after = self.store.mark()
+        rate = self._refresh_rates(sats, t_s, rows)
+        self._ahead = (sats, t_s, self._inputs(), rows, before, after, rate, self.version)
 
     def _inputs(self) -> tuple[int, int]:
         return (self._rx_version, self.store.generation)
@@ -259,25 +275,57 @@ class Geometry:
             rate: F64 = diff / span
         return rate
 
+    def _rates(self, sats: Idx, t_s: float, new: F64) -> tuple[F64, Mask, Mask]:
+        """Rates (m, 4) from the cached rows to ``new`` at ``t_s``, whether each is usable (m, 1:
+        the cached rows are recent) and which satellites are cold (m: no usable previous rows
+        but an orbit now)."""
+        span = (t_s - self.t_orbit[sats])[:, None]
+        rate = self._rate(new, self.geo[:, sats].T, span)
+        usable = (span > 0.0) & (span < 4.0 * self.refresh_s)
+        return rate, usable, ~usable[:, 0] & ~np.isnan(new[:, 0])
+
+    def _refresh_rates(self, sats: Idx, t_s: float, new: F64) -> F64 | None:
+        """The (4, m) rates a refresh of ``sats`` at ``t_s`` to rows ``new`` stores, from the
+        cache as it stands; None when a satellite is cold (its rate needs a second evaluation,
+        :meth:`_refresh`)."""
+        rate, usable, cold = self._rates(sats, t_s, new)
+        if np.count_nonzero(cold):
+            return None
+        rows: F64 = np.where(usable & ~np.isnan(rate), rate, 0.0).T
+        return rows
+
     def _refresh(self, sats: Idx, t_s: float) -> None:
         """Recompute orbit geometry for ``sats`` (slots without a usable ephemeris become NaN)
         and the rates used to extrapolate it until the next refresh. A satellite without a
         recent previous refresh (start, restart, rising) gets its rate from a second orbit
         evaluation ``_RATE_STEP_S`` later (rare: otherwise the first ``refresh_s`` after a
         start would extrapolate with rate 0, up to ~0.25° of elevation off at 30 s)."""
-        new = self._rows(sats, t_s)
-        span = (t_s - self.t_orbit[sats])[:, None]
-        rate = self._rate(new, self.geo[:, sats].T, span)
-        usable = (span > 0.0) & (span < 4.0 * self.refresh_s)
-        cold = ~usable[:, 0] & ~np.isnan(new[:, 0])
-        if np.count_nonzero(cold):
-            # All of ``sats`` at t + step, not only the cold ones: the ephemeris selection (and
-            # with it the orbit node tables, GLONASS RK4 included) is cached per satellite list,
-            # so a subset would build and integrate new ones (a new ephemeris made this ~6 ms).
-            ahead = self._rows(sats, t_s + _RATE_STEP_S)[cold]
-            rate[cold] = self._rate(ahead, new[cold], np.full((ahead.shape[0], 1), _RATE_STEP_S))
-            usable[cold] = True
-        self.rate[:, sats] = np.where(usable & ~np.isnan(rate), rate, 0.0).T
+        ahead = self._ahead
+        if (
+            ahead is not None
+            and ahead[6] is not None
+            and ahead[0] is sats
+            and ahead[1] == t_s
+            and ahead[7] == self.version  # (the cache the rates were computed from is as it was)
+            and ahead[2] == self._inputs()
+        ):
+            # Rows and rates computed ahead (:meth:`prefetch`), from the same inputs.
+            self._ahead = None
+            new = ahead[3]
+            self.rate[:, sats] = ahead[6]
+        else:
+            new = self._rows(sats, t_s)
+            rate, usable, cold = self._rates(sats, t_s, new)
+            if np.count_nonzero(cold):
+                # All of ``sats`` at t + step, not only the cold ones: the ephemeris selection
+                # (and with it the orbit node tables, GLONASS RK4 included) is cached per
+                # satellite list, so a subset would build and integrate new ones (a new
+                # ephemeris made this ~6 ms).
+                later = self._rows(sats, t_s + _RATE_STEP_S)[cold]
+                step = np.full((later.shape[0], 1), _RATE_STEP_S)
+                rate[cold] = self._rate(later, new[cold], step)
+                usable[cold] = True
+            self.rate[:, sats] = np.where(usable & ~np.isnan(rate), rate, 0.0).T
         self.geo[:, sats] = new.T
         self.t_orbit[sats] = t_s
         self.version += 1
