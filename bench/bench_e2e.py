@@ -37,7 +37,7 @@ exit status is printed) and the temp files are removed.
 
 Usage: .venv/bin/python bench/bench_e2e.py [--seconds 60] [--stations 20] [--stagger]
            [--scrape-every S] [--keep-log] [--series CSV] [--workers N] [--warm-up S]
-           [--daemon PATH] [--subscriber mosquitto_sub|aiomqtt]
+           [--daemon PATH] [--subscriber mosquitto_sub|aiomqtt] [--runtime KEY=VALUE]
 The daemon is the installed ``.venv/bin/ionwarden`` and inherits this process's environment, so
 ``PYTHONPATH=DIR`` with ``DIR/ionwarden/{daemon,parsers}`` (e.g. ``git archive HEAD daemon parsers``
 unpacked there) measures that code instead of the work tree. Exit status: 0, 1 on a set-up failure
@@ -129,6 +129,7 @@ def write_config(
     prom_port: int,
     state_dir: Path,
     workers: int = 1,
+    runtime: tuple[str, ...] = (),
 ) -> None:
     text = "".join(
         f'[[stations]]\nname = "{n}"\nsource = "tcp://127.0.0.1:{p}"\n\n'
@@ -143,6 +144,7 @@ def write_config(
         f'[runtime]\nstate_dir = "{state_dir}"\n'
         # (only when asked: a daemon from before [runtime] workers refuses the key)
         + (f"workers = {workers}\n" if workers != 1 else "")
+        + "".join(f"{kv}\n" for kv in runtime)
     )
     path.write_text(text)
 
@@ -548,6 +550,7 @@ async def run(args: argparse.Namespace, tmp: Path) -> int:
         prom_port=prom_port,
         state_dir=tmp / "state",
         workers=args.workers,
+        runtime=tuple(args.runtime),
     )
     check = await asyncio.create_subprocess_exec(
         str(args.daemon), "config", "check", str(cfg),
@@ -893,6 +896,11 @@ def main() -> None:
     ap.add_argument(
         "--workers", type=int, default=1, metavar="N",
         help="[runtime] workers of the daemon (default 1: one process)",
+    )  # fmt: skip
+    ap.add_argument(
+        "--runtime", action="append", default=[], metavar="KEY=VALUE",
+        help="another [runtime] setting of the daemon, as a TOML line (repeatable), e.g. "
+        "queue_size=64",
     )  # fmt: skip
     ap.add_argument(
         "--daemon", type=Path, default=DAEMON, metavar="PATH",
