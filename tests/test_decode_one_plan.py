@@ -8,12 +8,10 @@ equal bit for bit, with the same dtypes, shapes, strides and flags (``_assert_sa
 
 Data: the simulator's invented quiet-day stream at MSM4 and MSM7, epochs mixing both levels
 (and MSM4 + MSM7 of one system, whose repeated cells are dropped), and the real captures in
-/work/shared/data/real/rtcm (read in place; skipped where missing).
+../shared/data/real/rtcm (read in place; PROVENANCE.md).
 """
 
 from __future__ import annotations
-
-from pathlib import Path
 
 import numpy as np
 import pytest
@@ -24,17 +22,9 @@ from ionwarden.parsers._crc import frame_rtcm
 from ionwarden.parsers._framer import Frame, Framer, RtcmFrame
 from ionwarden.parsers._msm import MSM_TYPES
 
+from .conftest import REAL_DATA
 from .test_decode_speed_epoch import _assert_same
-
-_REAL = Path("/work/shared/data/real/rtcm")
-_CAPTURES = {
-    # capture → reference time near it (as tests/test_msm_epoch.py, PROVENANCE.md dates)
-    "pygnssutils_ntrip_encode_none.bin": GpsTime(2328, 76_000.0),
-    "RTK134_202102051543.rtcm3": GpsTime(2143, 488_000.0),
-    "pygnssutils_pygpsdata-rtcm3.log": GpsTime(2196, 204_000.0),
-    "pyrtcm_pygpsdata-MIXED-RTCM3.log": GpsTime(2196, 204_000.0),
-    "pyrtcm_pygpsdata-NTRIP-USCL00CHL0.log": GpsTime(2305, 318_000.0),
-}
+from .test_msm_epoch import _CAPTURES  # capture → reference time near it (PROVENANCE.md dates)
 
 
 def _sim_seconds(level: int, seconds: float = 20.0) -> tuple[list[list[RtcmFrame]], GpsTime]:
@@ -68,9 +58,8 @@ def _level(level: int) -> tuple[list[Frame], GpsTime]:
 
 
 def _real(name: str) -> tuple[list[Frame], GpsTime]:
-    path = _REAL / name
-    if not path.exists():
-        pytest.skip(f"real capture {name} not available")
+    path = REAL_DATA / "rtcm" / name
+    assert path.is_file(), f"missing real capture at {path}"  # (as the real_data fixture)
     framer = Framer()
     return framer.feed(path.read_bytes()) + framer.feed(b""), _CAPTURES[name]
 
