@@ -276,12 +276,17 @@ class StationEstimator:
         blk, cached, ver = self._blk, self._bias_cache, self.biases.version
         if blk is None or cached is None or cached[0] is not blk.lay or cached[1] == ver:
             return
-        lay = blk.lay
-        b_sat, total_bias, relevel = self.biases.correction(
-            lay.bias_flat, lay.group, blk.g[K], blk.arc
-        )
+        self._correction(blk.lay, ver, blk.g[K], blk.arc)
+
+    def _correction(
+        self, lay: EpochLayout, ver: int, k: F64, arc: npt.NDArray[np.int32]
+    ) -> tuple[F64, F64, F64]:
+        """The bias tables' correction of ``lay``'s satellites (``BiasModel.correction``), kept
+        as the cache of tables version ``ver``."""
+        b_sat, total_bias, relevel = self.biases.correction(lay.bias_flat, lay.group, k, arc)
         relevel.setflags(write=False)  # goes into snapshots
         self._bias_cache = (lay, ver, b_sat, total_bias, relevel)
+        return b_sat, total_bias, relevel
 
     def add_ephemeris(self, eph: KeplerEphemeris | GlonassEphemeris) -> None:
         """Use a broadcast ephemeris for geometry and its group delays for the satellite bias."""
@@ -608,9 +613,7 @@ class StationEstimator:
         ):
             b_sat, total_bias, relevel = cached[2], cached[3], cached[4]
         else:
-            b_sat, total_bias, relevel = self.biases.correction(lay.bias_flat, lay.group, g[K], arc)
-            relevel.setflags(write=False)  # goes into snapshots
-            self._bias_cache = (lay, ver, b_sat, total_bias, relevel)
+            b_sat, total_bias, relevel = self._correction(lay, ver, g[K], arc)
         stec = stec_raw - total_bias
 
         # ROT over the lag, from the arc-relative levelled phase; ROTI over the window.

@@ -238,13 +238,20 @@ class Geometry:
     def _rows(self, sats: Idx, t_s: float) -> F64:
         """(m, 4) rows (el, az, pierce lat, lon) from the orbits at ``t_s`` (NaN where none),
         evaluated ahead by :meth:`prefetch` when still valid."""
+        ahead = self._take_ahead(sats, t_s)
+        return ahead[3] if ahead is not None else self._evaluate(sats, t_s)
+
+    def _take_ahead(self, sats: Idx, t_s: float) -> _Ahead | None:
+        """What :meth:`prefetch` computed, taken for a refresh of ``sats`` at ``t_s`` when it is
+        still valid (None, and dropped, otherwise)."""
         ahead = self._ahead
-        if ahead is not None:
-            if ahead[0] is sats and ahead[1] == t_s and ahead[2] == self._inputs():
-                self._ahead = None
-                return ahead[3]
-            self._rows_unused()
-        return self._evaluate(sats, t_s)
+        if ahead is None:
+            return None
+        if ahead[0] is sats and ahead[1] == t_s and ahead[2] == self._inputs():
+            self._ahead = None
+            return ahead
+        self._rows_unused()
+        return None
 
     def _rows_unused(self) -> None:
         """Drop the rows evaluated ahead, taking back what evaluating them did to the store (no
@@ -300,21 +307,12 @@ class Geometry:
         recent previous refresh (start, restart, rising) gets its rate from a second orbit
         evaluation ``_RATE_STEP_S`` later (rare: otherwise the first ``refresh_s`` after a
         start would extrapolate with rate 0, up to ~0.25° of elevation off at 30 s)."""
-        ahead = self._ahead
-        if (
-            ahead is not None
-            and ahead[6] is not None
-            and ahead[0] is sats
-            and ahead[1] == t_s
-            and ahead[7] == self.version  # (the cache the rates were computed from is as it was)
-            and ahead[2] == self._inputs()
-        ):
-            # Rows and rates computed ahead (:meth:`prefetch`), from the same inputs.
-            self._ahead = None
-            new = ahead[3]
+        ahead = self._take_ahead(sats, t_s)
+        new = ahead[3] if ahead is not None else self._evaluate(sats, t_s)
+        if ahead is not None and ahead[6] is not None and ahead[7] == self.version:
+            # Rates computed ahead too, from the cache as it still is.
             self.rate[:, sats] = ahead[6]
         else:
-            new = self._rows(sats, t_s)
             rate, usable, cold = self._rates(sats, t_s, new)
             if np.count_nonzero(cold):
                 # All of ``sats`` at t + step, not only the cold ones: the ephemeris selection
