@@ -165,6 +165,12 @@ class StandInCore:
     def settle(self) -> list[object]:
         return []
 
+    def slack_after_s(self) -> float | None:
+        return None
+
+    def settle_slack(self) -> list[object]:
+        return []
+
     def state_dict(self) -> dict[str, Any]:
         return dict(self.state)
 

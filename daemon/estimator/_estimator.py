@@ -251,6 +251,14 @@ class StationEstimator:
         be evaluated ahead by :meth:`prefetch` (``defer_fit``)."""
         return self._pending_fit is not None or self._ahead is not None
 
+    def slack_after_s(self) -> float | None:
+        """How long after its epoch the deferred work (:meth:`settle`, then :meth:`prefetch`) may
+        wait: half the median epoch interval, midway to the next epoch, whose entry would settle
+        it first (same results); None when nothing waits."""
+        if self._pending_fit is None and self._ahead is None:
+            return None
+        return 0.5 * self._interval
+
     def prefetch(self) -> None:
         """Evaluate now the orbits the next epoch will refresh, if it comes at the expected time
         with the same satellites (``defer_fit``; see ``Geometry.prefetch``: same results)."""

@@ -75,6 +75,7 @@ class StationPipeline:
         reference_time: GpsTime | None = None,
         ephemerides_per_sat: int = 3,
         defer: bool = False,
+        slack: bool = False,
     ) -> None:
         """``reference_time`` helps the byte decoder place MSM times of week (the daemon passes
         its clock's reading at start; offline processing leaves it None).
@@ -84,12 +85,20 @@ class StationPipeline:
         GGA/GST, ephemerides sent after the observations) — waits for :meth:`settle`, which the
         runtime calls once other stations' snapshots are out; the next feed settles first if
         it was not called. The figures are the same bit for bit either way, only the order of
-        work within the second changes (tests/test_pipeline_settle.py)."""
+        work within the second changes (tests/test_pipeline_settle.py).
+
+        ``slack`` (with ``defer``; the daemon sets it): of that work, :meth:`settle` does the
+        messages only and leaves the heavy part that may wait longer — the receiver-bias fit and
+        the orbits evaluated ahead — to :meth:`settle_slack`, which the runtime calls midway to
+        the next epoch (:meth:`slack_after_s`), away from the bursts of all stations' epochs.
+        The same figures again: every estimator entry point settles a pending fit first, and
+        orbits evaluated ahead are used only while still valid (tests/test_pipeline_slack.py)."""
         self.station = station
         self.estimator = StationEstimator(
             settings, station=station, ephemerides_per_sat=ephemerides_per_sat, defer_fit=defer
         )
         self._defer = defer
+        self._slack = defer and slack
         self._deferred: list[object] = []
         # NmeaOther has no route here: checked and counted, never built
         self.decoder = StreamDecoder(reference_time, emit_nmea_other=False)
@@ -124,19 +133,36 @@ class StationPipeline:
         return self._route(self.decoder.feed_frames(frames))
 
     def unsettled(self) -> bool:
-        """Work deferred by ``defer`` is pending (see :meth:`settle`)."""
-        return bool(self._deferred) or self.estimator.unsettled()
+        """Work deferred by ``defer`` is pending (see :meth:`settle`; with ``slack``, what
+        :meth:`settle_slack` does is not counted here but by :meth:`slack_after_s`)."""
+        return bool(self._deferred) or (not self._slack and self.estimator.unsettled())
 
     def settle(self) -> list[PipelineOutput]:
         """Do the deferred work (in the order it would have run undeferred) and return the
         outputs it produces (fix reports of the deferred GGA/GST); then evaluate the orbits the
-        next epoch will refresh, if it does (``StationEstimator.prefetch``)."""
+        next epoch will refresh, if it does (``StationEstimator.prefetch``). With ``slack`` the
+        receiver-bias fit and that evaluation are left to :meth:`settle_slack`."""
         out = self._settle_deferred()
+        if not self._slack:
+            self.estimator.prefetch()
+        return out
+
+    def slack_after_s(self) -> float | None:
+        """With ``slack``: how long after its epoch :meth:`settle_slack`'s work may wait (None:
+        none waits, or no ``slack``)."""
+        return self.estimator.slack_after_s() if self._slack else None
+
+    def settle_slack(self) -> list[PipelineOutput]:
+        """Do all deferred work: :meth:`settle`'s, then the receiver-bias fit and the orbits
+        evaluated ahead for the next epoch."""
+        out = self._settle_deferred() if self._deferred else []
+        self.estimator.settle()
         self.estimator.prefetch()
         return out
 
     def _settle_deferred(self) -> list[PipelineOutput]:
-        self.estimator.settle()
+        if not self._slack:  # (with slack the fit waits: the messages' entries settle it first
+            self.estimator.settle()  # where they touch the estimator)
         rest, self._deferred = self._deferred, []
         return self.handle(rest) if rest else []
 

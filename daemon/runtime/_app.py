@@ -155,6 +155,7 @@ def make_factory(
                 position_ecef_m=st.position_ecef_m if st is not None else None,
                 reference_time=utc_to_gps(now()) if live else None,
                 defer=True,  # the runtime settles in a background step (StepLane)
+                slack=True,  # and the fit and orbits ahead midway to the next epoch
             )
 
         return StationBundle(

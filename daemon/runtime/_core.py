@@ -73,6 +73,15 @@ class StationCore(Protocol):
         next ``feed`` does it first when this was not called, so results never depend on it."""
         ...
 
+    def slack_after_s(self) -> float | None:
+        """Deferred work that :meth:`settle` leaves pending waits for :meth:`settle_slack` (or
+        the next ``feed``): how long after the step's bytes arrived it may wait; None: none."""
+        ...
+
+    def settle_slack(self) -> Sequence[object]:
+        """Do all deferred work, :meth:`settle`'s and the slack, and return its outputs."""
+        ...
+
     def state_dict(self) -> dict[str, Any]: ...
 
     def load_state_dict(self, state: Mapping[str, Any], /) -> None: ...
@@ -80,8 +89,8 @@ class StationCore(Protocol):
 
 class FrameConsumer(Protocol):
     """The estimator side: checked frames in, outputs out (the station pipeline). A consumer may
-    also have ``unsettled()`` and ``settle()`` (as :class:`StationCore`), which the core
-    forwards."""
+    also have ``unsettled()`` and ``settle()``, and ``slack_after_s()`` and ``settle_slack()``
+    (as :class:`StationCore`), which the core forwards."""
 
     def feed_frames(self, frames: Sequence[Frame], /) -> Sequence[object]: ...
 
@@ -280,6 +289,8 @@ class FramingCore:
         c = self._consumer
         self._unsettled: Callable[[], bool] | None = getattr(c, "unsettled", None)
         self._settle: Callable[[], Sequence[object]] | None = getattr(c, "settle", None)
+        self._slack_after: Callable[[], float | None] | None = getattr(c, "slack_after_s", None)
+        self._settle_slack: Callable[[], Sequence[object]] | None = getattr(c, "settle_slack", None)
 
     def unsettled(self) -> bool:
         return (
@@ -297,6 +308,15 @@ class FramingCore:
         )
         if self._settle is not None:
             out.extend(self._settle())
+        return out
+
+    def slack_after_s(self) -> float | None:
+        return None if self._slack_after is None else self._slack_after()
+
+    def settle_slack(self) -> Sequence[object]:
+        out = list(self.settle()) if self.unsettled() else []
+        if self._settle_slack is not None:
+            out.extend(self._settle_slack())
         return out
 
     def frames_total(self) -> int:

@@ -102,6 +102,7 @@ _INF = float("inf")
 
 _BREAK = object()  # the connection ended: drop the partial frame, more may follow
 _END = object()  # the source ended for good
+_SLACK = object()  # (from _next_item) the core's slack work is due
 
 
 class StationRunner:
@@ -188,6 +189,14 @@ class StationRunner:
         #: and the chunk taken for it with its claim of the lane (see _wake_idle).
         self._idle: asyncio.Future[bool] | None = None
         self._in_hand: tuple[float, bytes] | None = None
+        #: The core's slack work (``StationCore.slack_after_s``) runs in a background turn of its
+        #: own, midway to the next epoch, when the station has a lane and is not a paced replay
+        #: (whose pacing sleeps in the estimate task); otherwise right after the deferred work.
+        self._midway = lane is not None and self._pacer is None
+        #: When the pending slack work is due (loop time; None: none pending), and whether the
+        #: timer found the estimate task asleep and woke it for it.
+        self._slack_at: float | None = None
+        self._slack_now = False
 
     # -- state ------------------------------------------------------------------------------------
     @property
@@ -431,13 +440,16 @@ class StationRunner:
                 item: object = None
                 if lane is not None and queue.empty():
                     item = await self._next_item(lane)
+                    if item is _SLACK:
+                        await self._run_slack(lane)
+                        continue
                 has_turn = item is not None  # a chunk taken with its turn of the lane
                 if item is None:
                     item = await queue.get()  # (at once after _next_item: an item is queued)
                 if item is _END or item is _BREAK:
                     self._step(None, None)
-                    if self._unsettled():
-                        self._settle()
+                    if self._unsettled(slack=True):
+                        self._settle(slack=True)
                     if item is _END:
                         return
                 else:
@@ -448,11 +460,11 @@ class StationRunner:
                     if lane is not None and not has_turn:
                         await lane.turn()
                     try:
-                        frames_before = self.core.frames_total()
+                        frames_before, epochs_before = self.core.frames_total(), self._epochs
                         delay = self._step(chunk, arrived)
                         if self.core.frames_total() > frames_before:
                             self._detector.saw_frame(loop.time())
-                        unsettled = self._unsettled()
+                        unsettled = self._unsettled(slack=not self._midway)
                     except BaseException:
                         if lane is not None:
                             lane.done()
@@ -466,12 +478,14 @@ class StationRunner:
                         else:
                             await asyncio.sleep(0)  # the outputs go out first
                         try:
-                            self._settle()
+                            self._settle(slack=not self._midway)
                         finally:
                             if lane is not None:
                                 lane.done()
                     elif lane is not None:
                         lane.done()
+                    if self._midway:
+                        self._slack_after(arrived, self._epochs != epochs_before)
                     if delay > 0:  # replay pacing is planned idleness, not a stuck pipeline
                         self._progress = loop.time() + delay
                         await asyncio.sleep(delay)
@@ -486,9 +500,10 @@ class StationRunner:
             if self._on_finished is not None:
                 self._on_finished()
 
-    async def _next_item(self, lane: StepLane) -> tuple[float, bytes] | None:
+    async def _next_item(self, lane: StepLane) -> object:
         """Sleep until an item is queued; return the chunk taken with the lane's turn for it
-        (None: the item is in the queue, and no turn was claimed for it).
+        (None: the item is in the queue, and no turn was claimed for it), or ``_SLACK`` when the
+        core's slack work fell due first (:meth:`_slack_after`).
 
         A chunk pushed while the task sleeps is taken off the queue at once and claims the lane's
         turn for it (:meth:`_wake_idle`, ``StepLane.claim``), so the task wakes up once, holding
@@ -497,6 +512,8 @@ class StationRunner:
         when the task took it itself, one iteration later), one wake-up less."""
         fut: asyncio.Future[bool] = self._loop.create_future()
         self._idle = fut
+        at = self._slack_at
+        timer = None if at is None else self._loop.call_at(at, self._slack_due, fut)
         try:
             await fut
         except asyncio.CancelledError:
@@ -507,8 +524,43 @@ class StationRunner:
                 if fut.done() and not fut.cancelled():
                     lane.done()  # handed the lane, then cancelled: pass it on
             raise
+        finally:
+            if timer is not None:
+                timer.cancel()
+        if self._slack_now:
+            self._slack_now = False
+            return _SLACK
         item, self._in_hand = self._in_hand, None
         return item
+
+    def _slack_due(self, fut: asyncio.Future[bool]) -> None:
+        """The slack timer: wake the estimate task for the slack work if it still sleeps in
+        :meth:`_next_item` (an item queued first takes precedence: its step settles it)."""
+        if self._idle is fut and not fut.done():
+            self._idle = None
+            self._slack_now = True
+            fut.set_result(False)
+
+    def _slack_after(self, arrived: float, epoch: bool) -> None:
+        """After a step (``epoch``: it emitted a snapshot): note when the core's slack work is
+        due, ``slack_after_s`` after the bytes of the epoch that left it arrived. A step without
+        an epoch keeps the time of the work already pending (a serial port's trickle of small
+        reads does not postpone it); an epoch's step settled that work and left its own."""
+        after = self.core.slack_after_s()
+        if after is None:
+            self._slack_at = None
+        elif epoch or self._slack_at is None:
+            self._slack_at = arrived + after
+
+    async def _run_slack(self, lane: StepLane) -> None:
+        """The core's slack work, in a background turn: after every urgent step waiting."""
+        self._slack_at = None
+        await lane.turn(background=True)
+        try:
+            self._contained(self.core.settle_slack, None)
+        finally:
+            lane.done()
+        self._progress = self._loop.time()
 
     def _wake_idle(self, *, claim: bool = False) -> None:
         """An item was queued: wake the estimate task if it sleeps in :meth:`_next_item`. With
@@ -535,16 +587,26 @@ class StationRunner:
             return self._contained(self.core.end_stream, None)
         return self._contained(self.core.feed, arrived, chunk)  # (not a closure per chunk)
 
-    def _unsettled(self) -> bool:
-        return self.core.unsettled() or (self._also is not None and self._also.unsettled())
+    def _unsettled(self, *, slack: bool = True) -> bool:
+        """Deferred work is pending (with ``slack``, the core's slack work counted too)."""
+        return (
+            self.core.unsettled()
+            or (self._also is not None and self._also.unsettled())
+            or (slack and self.core.slack_after_s() is not None)
+        )
 
-    def _settle(self) -> None:
+    def _settle(self, *, slack: bool = True) -> None:
         """The deferred part of the last step (``StationCore.settle``: it decodes the frames held
         back, so its decode errors count as such), then that of the outputs (``also_settle``,
-        after the outputs the core's settle emits), contained like a step."""
+        after the outputs the core's settle emits), contained like a step; with ``slack``, then
+        the core's slack work (``settle_slack``)."""
         self._contained(self.core.settle, None)
         if self._also is not None and self._also.unsettled():
             self._contained(self._settle_also, None)
+        if slack:
+            self._slack_at = None
+            if self.core.slack_after_s() is not None:
+                self._contained(self.core.settle_slack, None)
 
     def settle_outputs(self) -> None:
         """Do the outputs' deferred work (``also_settle``) now, contained like a step: for the

@@ -1,0 +1,219 @@
+"""The station runtime runs the core's slack work (the receiver-bias fit and the orbits evaluated
+ahead, ``StationPipeline(slack=True)``) in a background turn of its own, midway to the next
+epoch: ``slack_after_s`` (half the epoch interval) after the bytes of the epoch that left it
+arrived, away from the bursts of all stations' epochs (issue 8).
+
+The real framer and station pipeline, fed the simulator's invented quiet-day stream (our own
+scenario, daemon/sim) by a scripted transport on the virtual clock (``run_virtual``): one read
+per epoch at the epoch's time. The figures are the plain pipeline's, bit for bit, whenever the
+slack work runs (tests/test_pipeline_slack.py); here: when it runs.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import random
+from typing import Any
+
+import pytest
+
+from ionwarden.daemon.estimator import FixStatus, StationPipeline, StationSnapshot
+from ionwarden.daemon.estimator._estimator import StationEstimator
+from ionwarden.daemon.ingest import TcpSource
+from ionwarden.daemon.runtime import (
+    FramingCore,
+    StallLimits,
+    StationConfig,
+    StationRunner,
+    StepLane,
+    run_virtual,
+)
+from ionwarden.daemon.sim import Simulator, build_scenario, iter_stream
+
+from .test_pipeline_settle import _assert_same_outputs
+
+#: Tolerance (s of the virtual clock) on when a call ran: the clock jumps to the timer, plus the
+#: real time the steps take.
+_SLOP_S = 0.03
+
+
+def _stream(rate_hz: float, seconds: float) -> tuple[list[bytes], object]:
+    sc = build_scenario("quiet-day", duration_s=seconds, rate_hz=rate_hz)
+    return [data for _, data in iter_stream(Simulator(sc), 0)], sc.start
+
+
+class _Transport:
+    """Hands out one chunk per read at the scripted virtual times (s after the first read),
+    then hangs."""
+
+    def __init__(self, chunks: list[bytes], every_s: float):
+        self._chunks, self._every_s = list(chunks), every_s
+        self._t0: float | None = None
+        self._k = 0
+
+    async def read(self, max_bytes: int) -> bytes:
+        loop = asyncio.get_running_loop()
+        if self._t0 is None:
+            self._t0 = loop.time()
+        if self._k == len(self._chunks):
+            await asyncio.sleep(3600)
+        await asyncio.sleep(max(0.0, self._t0 + self._k * self._every_s - loop.time()))
+        self._k += 1
+        return self._chunks[self._k - 1]
+
+    async def aclose(self) -> None:
+        pass
+
+
+class _Recording(FramingCore):
+    """The daemon's core (FramingCore(defer=True) around StationPipeline(defer, slack)), noting
+    (call, loop time) of its steps and the phase any receiver-bias fit ran in."""
+
+    phase = "idle"
+
+    def __init__(self, start: object, log: list[tuple[str, float]]):
+        pipe = StationPipeline("HARC", reference_time=start, defer=True, slack=True)  # type: ignore[arg-type]
+        super().__init__(consumer=pipe, defer=True)
+        self.log = log
+
+    def _noted(self, what: str, work: Any, *a: Any) -> Any:
+        self.log.append((what, asyncio.get_running_loop().time()))
+        _Recording.phase = what
+        try:
+            return work(*a)
+        finally:
+            _Recording.phase = "idle"
+
+    def feed(self, data: bytes) -> Any:
+        return self._noted("feed", super().feed, data)
+
+    def settle(self) -> Any:
+        return self._noted("settle", super().settle)
+
+    def settle_slack(self) -> Any:
+        return self._noted("slack", super().settle_slack)
+
+
+def _run(
+    chunks: list[bytes], start: object, every_s: float, *, lane: bool = True
+) -> tuple[list[tuple[str, float]], list[object], list[str]]:
+    """(core calls with their times, the outputs emitted, the phases of the fits)."""
+    log: list[tuple[str, float]] = []
+    fits: list[str] = []
+    fit = StationEstimator._update_receiver_bias
+
+    def noting_fit(self: StationEstimator, *a: Any, **kw: Any) -> Any:
+        fits.append(_Recording.phase)
+        return fit(self, *a, **kw)
+
+    async def main() -> list[object]:
+        outputs: list[object] = []
+        snapshots = 0
+        all_in = asyncio.Event()
+
+        def emit(item: object) -> None:
+            nonlocal snapshots
+            outputs.append(item)
+            snapshots += isinstance(item, StationSnapshot)
+            if snapshots == len(chunks):
+                all_in.set()
+
+        core = _Recording(start, log)
+        transport = _Transport(chunks, every_s)
+
+        async def opener(_spec: object, _pw: str) -> _Transport:
+            return transport
+
+        cfg = StationConfig(
+            name="HARC",
+            source=TcpSource(host="127.0.0.1", port=9),
+            stall=StallLimits(no_data_s=600, no_frame_s=600, no_epoch_s=600),
+        )
+        runner = StationRunner(
+            cfg,
+            core,
+            emit=emit,
+            opener=opener,
+            rng=random.Random(1),
+            lane=StepLane() if lane else None,
+        )
+        async with asyncio.TaskGroup() as tg:
+            tasks = [tg.create_task(runner.ingest_loop()), tg.create_task(runner.estimate_loop())]
+            async with asyncio.timeout(3 * len(chunks) * every_s + 60):
+                await all_in.wait()
+            await asyncio.sleep(2.0)  # the last epoch's slack work
+            for t in tasks:
+                t.cancel()
+        return [x for x in outputs if isinstance(x, (StationSnapshot, FixStatus))]
+
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setattr(StationEstimator, "_update_receiver_bias", noting_fit)
+        out = run_virtual(main(), real_poll_s=0.001)  # (no real I/O here)
+    return log, out, fits
+
+
+def _plain(chunks: list[bytes], start: object) -> list[object]:
+    pipe = StationPipeline("HARC", reference_time=start)  # type: ignore[arg-type]
+    out: list[object] = []
+    for data in chunks:
+        out += pipe.feed(data)
+    return out
+
+
+def _slack_delays(log: list[tuple[str, float]]) -> list[float]:
+    """For each slack call: the time since the feed before it."""
+    out, fed = [], None
+    for what, t in log:
+        if what == "feed":
+            fed = t
+        elif what == "slack":
+            assert fed is not None
+            out.append(t - fed)
+    return out
+
+
+@pytest.mark.parametrize(("rate_hz", "seconds"), [(1.0, 70.0), (10.0, 8.0)])
+def test_slack_runs_midway_to_the_next_epoch(rate_hz, seconds):
+    """At 1 Hz and at 10 Hz: after each epoch the slack work runs half an epoch interval after
+    its bytes arrived (0.5 s, 0.05 s), before the next epoch's feed, so no receiver-bias fit
+    runs in a feed (past the first epoch's); the outputs are the plain pipeline's."""
+    chunks, start = _stream(rate_hz, seconds)
+    every = 1.0 / rate_hz
+    log, out, fits = _run(chunks, start, every)
+    delays = _slack_delays(log)
+    assert len(delays) >= len(chunks) - 3, (len(delays), len(chunks))
+    assert all(abs(d - every / 2) < _SLOP_S * every for d in delays), delays
+    calls = [what for what, _ in log]
+    for k in range(len(calls) - 1):  # each slack call comes before the next feed
+        if calls[k] == "slack":
+            assert calls[k + 1] == "feed", k
+    # (the first epoch's slack waits half the 1-s interval assumed until a second epoch: at
+    # 10 Hz the next feed settles it; and the start's GSV fallback may settle one)
+    assert fits
+    assert "feed" not in fits[1:], fits
+    assert fits.count("slack") >= len(fits) - 2
+    _assert_same_outputs(_plain(chunks, start), out)
+
+
+def test_epochs_sooner_than_midway_settle_the_slack_themselves():
+    """A 1-Hz stream whose epochs arrive every 0.3 s (a receiver's backlog, say): each epoch's
+    feed settles the slack work of the one before (the estimator's entries settle first), so
+    the timer, renewed by each epoch, fires only after the last; same outputs."""
+    chunks, start = _stream(1.0, 40.0)
+    log, out, fits = _run(chunks, start, 0.3)
+    assert [what for what, _ in log].count("slack") == 1
+    assert _slack_delays(log) == pytest.approx([0.5], abs=_SLOP_S)
+    assert fits.count("feed") >= 10
+    _assert_same_outputs(_plain(chunks, start), out)
+
+
+def test_without_a_lane_slack_runs_with_the_deferred_work():
+    """Without a lane (no midway turn to take) the slack work runs right after each step's
+    deferred work, as all deferred work did before."""
+    chunks, start = _stream(1.0, 20.0)
+    log, out, fits = _run(chunks, start, 1.0, lane=False)
+    delays = _slack_delays(log)
+    assert len(delays) >= len(chunks) - 1
+    assert max(delays) < _SLOP_S
+    assert "feed" not in fits
+    _assert_same_outputs(_plain(chunks, start), out)
