@@ -199,6 +199,12 @@ class _ReadyMadeCore:
     def unsettled(self) -> bool:
         return self._unsettled
 
+    def slack_after_s(self) -> float | None:
+        return None
+
+    def settle_slack(self) -> list[object]:
+        return []
+
     def end_stream(self) -> list[object]:
         return []
 

@@ -195,7 +195,9 @@ def _replayed_stations(
     chunks = [data for _, data in iter_stream(Simulator(sc), 0)]
     names = [f"ST{i:02d}" for i in range(n_stations)]
     # As the daemon builds them (runtime make_factory): the receiver-bias fit and the frames after
-    # each epoch wait for settle(), run once the other stations' snapshots are out.
+    # each epoch wait for settle(), run once the other stations' snapshots are out. (The daemon
+    # also passes slack=True: the fit and the orbits ahead then wait for settle_slack() midway
+    # to the next epoch; here settle() does all of the deferred work, as before.)
     pipes = [
         FramingCore(consumer=StationPipeline(n, reference_time=sc.start, defer=True), defer=True)
         for n in names

@@ -68,7 +68,8 @@ def pipeline_only(data: bytes) -> None:
 
 
 def factory(cfg: StationConfig) -> StationBundle:
-    pipe = StationPipeline(cfg.name, EstimatorSettings(), defer=True)  # as make_factory builds it
+    # as make_factory builds it
+    pipe = StationPipeline(cfg.name, EstimatorSettings(), defer=True, slack=True)
     return StationBundle(core=FramingCore(consumer=pipe, defer=True), produces_epochs=True)
 
 

@@ -5,6 +5,7 @@ from __future__ import annotations
 import asyncio
 import base64
 import contextlib
+import selectors
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -230,3 +231,41 @@ class ScriptedServer:
     def port(self) -> int:
         assert self.server is not None
         return int(self.server.sockets[0].getsockname()[1])
+
+
+class _SelectJumps:
+    """A selector that polls real I/O without waiting and jumps the loop's clock instead."""
+
+    def __init__(self, inner: selectors.BaseSelector, loop: PureVirtualLoop):
+        self._inner, self._loop = inner, loop
+
+    def select(self, timeout: float | None = None) -> list[tuple[selectors.SelectorKey, int]]:
+        if timeout is None:  # nothing scheduled: only real I/O can wake us
+            return self._inner.select(1.0)
+        events = self._inner.select(0)
+        if not events:
+            self._loop.now += timeout
+        return events
+
+    def __getattr__(self, name: str) -> Any:
+        return getattr(self._inner, name)
+
+
+class PureVirtualLoop(asyncio.SelectorEventLoop):
+    """An event loop whose clock moves only when it would wait: no real time leaks into it, so
+    the scripted sources (no real I/O) run the same timeline every time."""
+
+    def __init__(self) -> None:
+        self.now = 0.0
+        inner = selectors.DefaultSelector()
+        super().__init__(inner)
+        self._selector = _SelectJumps(inner, self)
+
+    def time(self) -> float:
+        return self.now
+
+
+def run_pure_virtual(coro: Any) -> Any:
+    """``asyncio.run`` on a :class:`PureVirtualLoop`."""
+    with asyncio.Runner(loop_factory=PureVirtualLoop) as runner:
+        return runner.run(coro)

@@ -6,10 +6,14 @@ seconds set the latency tail). It changes when work runs, never a figure: every 
 point settles a pending fit first, and orbits evaluated ahead are used only while still valid.
 
 Input: the simulator's invented quiet-day stream (our own scenario, daemon/sim), one chunk per
-second (1 Hz by construction), long enough for several fits and refreshes.
+second (1 Hz by construction), long enough for several fits and refreshes; and a real capture
+(RTK134, ../shared/data/real), whose receiver sends its ephemerides after the observations.
 """
 
 from __future__ import annotations
+
+import dataclasses
+import itertools
 
 import pytest
 
@@ -17,8 +21,12 @@ from ionwarden.daemon.estimator import StationPipeline, StationSnapshot
 from ionwarden.daemon.estimator._estimator import StationEstimator
 from ionwarden.daemon.estimator._geometry import Geometry
 from ionwarden.daemon.runtime import FramingCore
+from ionwarden.daemon.runtime._core import _after_last_epoch
 from ionwarden.daemon.sim import Simulator, build_scenario, iter_stream
+from ionwarden.parsers import MSM_TYPES
+from ionwarden.parsers._framer import Framer, RtcmFrame
 
+from .test_msm_epoch import _CAPTURES
 from .test_pipeline_settle import _assert_same_outputs, _same_state
 
 SECONDS = 260
@@ -147,3 +155,88 @@ def test_settle_leaves_the_fit_and_the_orbits_ahead_to_settle_slack(chunks):
     for chunk in data[:40]:
         no_slack.feed(chunk)
         assert no_slack.slack_after_s() is None
+
+
+def _epoch_chunks(data: bytes) -> list[bytes]:
+    """A capture cut as its receiver sent it: each chunk from an epoch's first MSM frame to the
+    next epoch's, so what follows an epoch (here its ephemerides and 1230) rides with it."""
+    cuts, closed = [0], True
+    for f in Framer().feed(data):
+        if type(f) is RtcmFrame and f.msg_type in MSM_TYPES:
+            if closed and f.offset > 0:
+                cuts.append(f.offset)
+            closed = _after_last_epoch([f]) == 1  # its multiple-message bit is 0
+    cuts.append(len(data))
+    return [data[a:b] for a, b in itertools.pairwise(cuts) if b > a]
+
+
+def test_a_real_receivers_order_leaves_the_fits_to_settle_slack(real_data):
+    """The real capture RTK134 (../shared/data/real, PROVENANCE.md) sends its ephemerides after
+    each epoch's observations, so the daemon's ``settle`` routes them. A repeated ephemeris
+    changes nothing and settles nothing: in steady state the fits run in ``settle_slack``
+    (only a new set's satellite delays settle a pending fit first); none runs in ``feed``. The
+    outputs equal the plain pipeline's in the daemon's order and when the slack is never
+    settled (each next entry settles it)."""
+    data = (real_data / "rtcm" / "RTK134_202102051543.rtcm3").read_bytes()
+    ref_t = _CAPTURES["RTK134_202102051543.rtcm3"]
+    chunks = _epoch_chunks(data)
+    assert len(chunks) > 900
+    plain = FramingCore(consumer=_pipe(ref_t, slack=False, defer=False))
+    ref: list[object] = []
+    for chunk in chunks:
+        ref += plain.feed(chunk)
+    ref += plain.end_stream()
+    where, at, fits = "feed", 0, []
+    fit = StationEstimator._update_receiver_bias
+
+    def noting_fit(self: StationEstimator, *a: object, **kw: object) -> object:
+        fits.append((where, at))
+        return fit(self, *a, **kw)  # type: ignore[arg-type]
+
+    for midway in (True, False):
+        fits.clear()
+        core = FramingCore(consumer=_pipe(ref_t, slack=True), defer=True)
+        out: list[object] = []
+        with pytest.MonkeyPatch.context() as mp:
+            mp.setattr(StationEstimator, "_update_receiver_bias", noting_fit)
+            for at, chunk in enumerate(chunks):  # noqa: B007 - noting_fit reads it
+                where = "feed"
+                out += core.feed(chunk)
+                where = "settle"
+                out += core.settle()
+                if midway:
+                    where = "slack"
+                    out += core.settle_slack()
+            out += core.end_stream()
+            out += core.settle_slack()
+        assert sum(isinstance(x, StationSnapshot) for x in ref) > 900
+        _assert_same_outputs(ref, out)
+        if midway:
+            steady = [w for w, k in fits if k >= 300]  # past the first sets of ephemerides
+            assert len(steady) >= 10, fits
+            assert steady.count("slack") >= 0.9 * len(steady), steady
+            assert all(w != "feed" for w, _ in fits), fits
+
+
+def test_a_new_ephemeris_while_a_fit_waits(chunks):
+    """A new broadcast set with other group delays (an invented change of T_GD, IS-GPS-200
+    §20.3.3.3.3.2) while a fit waits for its slack, the fit then settled only by the next
+    epoch: the plain pipeline's outputs, the new delays applied after the fit as undeferred."""
+    data, start = chunks
+    plain = _pipe(start, slack=False, defer=False)
+    pipe = _pipe(start, slack=True)
+    ref: list[object] = []
+    out: list[object] = []
+    injected = 0
+    for k, chunk in enumerate(data):
+        ref += plain.feed(chunk)
+        out += pipe.feed(chunk)
+        out += pipe.settle()
+        if k > 150 and pipe.estimator._pending_fit is not None and injected < 3:
+            gps = [e for e in pipe.estimator._last_eph.values() if hasattr(e, "tgd_s")]
+            eph = dataclasses.replace(gps[injected], tgd_s=(gps[injected].tgd_s[0] + 4e-9, 0.0))
+            plain.estimator.add_ephemeris(eph)
+            pipe.estimator.add_ephemeris(eph)
+            injected += 1
+    assert injected == 3
+    _assert_same_outputs(ref, out)

@@ -9,7 +9,6 @@ import asyncio
 import logging
 import os
 import random
-import selectors
 import socket
 import struct
 import tty
@@ -46,7 +45,7 @@ from ionwarden.daemon.runtime import (
 from ionwarden.daemon.runtime import _station as station_mod
 from ionwarden.daemon.runtime._stall import StallKind
 
-from ._runtime_support import StandInCore, rtcm_frame
+from ._runtime_support import StandInCore, rtcm_frame, run_pure_virtual
 
 T = TypeVar("T")
 
@@ -587,43 +586,6 @@ async def _drive(
     }
 
 
-class _SelectJumps:
-    """A selector that polls real I/O without waiting and jumps the loop's clock instead."""
-
-    def __init__(self, inner: selectors.BaseSelector, loop: _PureVirtualLoop):
-        self._inner, self._loop = inner, loop
-
-    def select(self, timeout: float | None = None) -> list[tuple[selectors.SelectorKey, int]]:
-        if timeout is None:  # nothing scheduled: only real I/O can wake us
-            return self._inner.select(1.0)
-        events = self._inner.select(0)
-        if not events:
-            self._loop.now += timeout
-        return events
-
-    def __getattr__(self, name: str) -> Any:
-        return getattr(self._inner, name)
-
-
-class _PureVirtualLoop(asyncio.SelectorEventLoop):
-    """An event loop whose clock moves only when it would wait: no real time leaks into it, so
-    the scripted sources (no real I/O) run the same timeline every time."""
-
-    def __init__(self) -> None:
-        self.now = 0.0
-        inner = selectors.DefaultSelector()
-        super().__init__(inner)
-        self._selector = _SelectJumps(inner, self)
-
-    def time(self) -> float:
-        return self.now
-
-
-def _run_pure_virtual(coro: Any) -> Any:
-    with asyncio.Runner(loop_factory=_PureVirtualLoop) as runner:
-        return runner.run(coro)
-
-
 def _log_lines(caplog: pytest.LogCaptureFixture) -> list[str]:
     return [r.getMessage() for r in caplog.records if r.name == station_mod.log.name]
 
@@ -641,10 +603,10 @@ def test_station_reads_stalls_and_reconnects_as_before(
     (equal to the previous implementation (oracle copy)); the verdicts follow the configured
     limits (10/30/60 s)."""
     caplog.set_level(logging.INFO, logger=station_mod.log.name)
-    new = _run_pure_virtual(_drive(StationRunner, StepLane, finite=finite, hold=hold))
+    new = run_pure_virtual(_drive(StationRunner, StepLane, finite=finite, hold=hold))
     new_log = _log_lines(caplog)
     caplog.clear()
-    old = _run_pure_virtual(_drive(OldStationRunner, OldStepLane, finite=finite, hold=hold))
+    old = run_pure_virtual(_drive(OldStationRunner, OldStepLane, finite=finite, hold=hold))
     assert new == old
     assert new_log == _log_lines(caplog)
     decode_errors, pipeline_errors, settles = new["counts"][6], new["counts"][9], new["counts"][11]
@@ -771,7 +733,7 @@ def test_stall_timer_tells_its_cancellation_from_an_outside_one(outside_too: boo
         outcome.append(t.cancelled())
         return outcome
 
-    got = _run_pure_virtual(main())
+    got = run_pure_virtual(main())
     if outside_too:
         assert got == ["cancelled from outside", True]
     else:

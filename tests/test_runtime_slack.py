@@ -4,8 +4,9 @@ epoch: ``slack_after_s`` (half the epoch interval) after the bytes of the epoch 
 arrived, away from the bursts of all stations' epochs (issue 8).
 
 The real framer and station pipeline, fed the simulator's invented quiet-day stream (our own
-scenario, daemon/sim) by a scripted transport on the virtual clock (``run_virtual``): one read
-per epoch at the epoch's time. The figures are the plain pipeline's, bit for bit, whenever the
+scenario, daemon/sim) by a scripted transport on a purely virtual clock (``run_pure_virtual``:
+it moves only when the loop would wait, so the steps' own time does not count): one read per
+epoch at the epoch's time. The figures are the plain pipeline's, bit for bit, whenever the
 slack work runs (tests/test_pipeline_slack.py); here: when it runs.
 """
 
@@ -19,22 +20,22 @@ import pytest
 
 from ionwarden.daemon.estimator import FixStatus, StationPipeline, StationSnapshot
 from ionwarden.daemon.estimator._estimator import StationEstimator
-from ionwarden.daemon.ingest import TcpSource
+from ionwarden.daemon.ingest import FileSource, TcpSource
 from ionwarden.daemon.runtime import (
     FramingCore,
     StallLimits,
     StationConfig,
     StationRunner,
     StepLane,
-    run_virtual,
 )
 from ionwarden.daemon.sim import Simulator, build_scenario, iter_stream
+from ionwarden.parsers._framer import Framer, NmeaFrame
 
+from ._runtime_support import run_pure_virtual
 from .test_pipeline_settle import _assert_same_outputs
 
-#: Tolerance (s of the virtual clock) on when a call ran: the clock jumps to the timer, plus the
-#: real time the steps take.
-_SLOP_S = 0.03
+#: Tolerance (s of the virtual clock) on when a call ran (float rounding only).
+_EPS_S = 1e-6
 
 
 def _stream(rate_hz: float, seconds: float) -> tuple[list[bytes], object]:
@@ -46,8 +47,8 @@ class _Transport:
     """Hands out one chunk per read at the scripted virtual times (s after the first read),
     then hangs."""
 
-    def __init__(self, chunks: list[bytes], every_s: float):
-        self._chunks, self._every_s = list(chunks), every_s
+    def __init__(self, chunks: list[bytes], times_s: list[float]):
+        self._chunks, self._times_s = list(chunks), times_s
         self._t0: float | None = None
         self._k = 0
 
@@ -57,7 +58,7 @@ class _Transport:
             self._t0 = loop.time()
         if self._k == len(self._chunks):
             await asyncio.sleep(3600)
-        await asyncio.sleep(max(0.0, self._t0 + self._k * self._every_s - loop.time()))
+        await asyncio.sleep(max(0.0, self._t0 + self._times_s[self._k] - loop.time()))
         self._k += 1
         return self._chunks[self._k - 1]
 
@@ -95,9 +96,17 @@ class _Recording(FramingCore):
 
 
 def _run(
-    chunks: list[bytes], start: object, every_s: float, *, lane: bool = True
+    chunks: list[bytes],
+    start: object,
+    every_s: float,
+    *,
+    lane: bool = True,
+    times_s: list[float] | None = None,
+    paced: bool = False,
+    epochs: int | None = None,
 ) -> tuple[list[tuple[str, float]], list[object], list[str]]:
-    """(core calls with their times, the outputs emitted, the phases of the fits)."""
+    """(core calls with their times, the outputs emitted, the phases of the fits): the chunks
+    read every ``every_s`` (or at ``times_s``), from a TCP source (or a paced file replay)."""
     log: list[tuple[str, float]] = []
     fits: list[str] = []
     fit = StationEstimator._update_receiver_bias
@@ -115,18 +124,18 @@ def _run(
             nonlocal snapshots
             outputs.append(item)
             snapshots += isinstance(item, StationSnapshot)
-            if snapshots == len(chunks):
+            if snapshots == (epochs or len(chunks)):
                 all_in.set()
 
         core = _Recording(start, log)
-        transport = _Transport(chunks, every_s)
+        transport = _Transport(chunks, times_s or [k * every_s for k in range(len(chunks))])
 
         async def opener(_spec: object, _pw: str) -> _Transport:
             return transport
 
         cfg = StationConfig(
             name="HARC",
-            source=TcpSource(host="127.0.0.1", port=9),
+            source=FileSource(path="scripted", speed=1.0) if paced else TcpSource(host="h", port=9),
             stall=StallLimits(no_data_s=600, no_frame_s=600, no_epoch_s=600),
         )
         runner = StationRunner(
@@ -139,7 +148,7 @@ def _run(
         )
         async with asyncio.TaskGroup() as tg:
             tasks = [tg.create_task(runner.ingest_loop()), tg.create_task(runner.estimate_loop())]
-            async with asyncio.timeout(3 * len(chunks) * every_s + 60):
+            async with asyncio.timeout(3 * len(chunks) * max(every_s, 1.0) + 60):
                 await all_in.wait()
             await asyncio.sleep(2.0)  # the last epoch's slack work
             for t in tasks:
@@ -148,7 +157,7 @@ def _run(
 
     with pytest.MonkeyPatch.context() as mp:
         mp.setattr(StationEstimator, "_update_receiver_bias", noting_fit)
-        out = run_virtual(main(), real_poll_s=0.001)  # (no real I/O here)
+        out = run_pure_virtual(main())
     return log, out, fits
 
 
@@ -182,7 +191,7 @@ def test_slack_runs_midway_to_the_next_epoch(rate_hz, seconds):
     log, out, fits = _run(chunks, start, every)
     delays = _slack_delays(log)
     assert len(delays) >= len(chunks) - 3, (len(delays), len(chunks))
-    assert all(abs(d - every / 2) < _SLOP_S * every for d in delays), delays
+    assert delays == pytest.approx([every / 2] * len(delays), abs=_EPS_S)
     calls = [what for what, _ in log]
     for k in range(len(calls) - 1):  # each slack call comes before the next feed
         if calls[k] == "slack":
@@ -202,7 +211,7 @@ def test_epochs_sooner_than_midway_settle_the_slack_themselves():
     chunks, start = _stream(1.0, 40.0)
     log, out, fits = _run(chunks, start, 0.3)
     assert [what for what, _ in log].count("slack") == 1
-    assert _slack_delays(log) == pytest.approx([0.5], abs=_SLOP_S)
+    assert _slack_delays(log) == pytest.approx([0.5], abs=_EPS_S)
     assert fits.count("feed") >= 10
     _assert_same_outputs(_plain(chunks, start), out)
 
@@ -214,6 +223,51 @@ def test_without_a_lane_slack_runs_with_the_deferred_work():
     log, out, fits = _run(chunks, start, 1.0, lane=False)
     delays = _slack_delays(log)
     assert len(delays) >= len(chunks) - 1
-    assert max(delays) < _SLOP_S
+    assert max(delays) < _EPS_S
+    assert "feed" not in fits
+    _assert_same_outputs(_plain(chunks, start), out)
+
+
+def _split_tails(chunks: list[bytes]) -> list[bytes]:
+    """Each second's chunk cut before its first NMEA sentence: the RTCM part (with the epoch),
+    then the sentences (no epoch), as reads of a slow link may cut them."""
+    out = []
+    for chunk in chunks:
+        nmea = [f.offset for f in Framer().feed(chunk) if isinstance(f, NmeaFrame)]
+        cut = nmea[0] if nmea else len(chunk)
+        out += [chunk[:cut], chunk[cut:]] if 0 < cut < len(chunk) else [chunk]
+    return out
+
+
+def test_reads_without_an_epoch_do_not_postpone_the_slack():
+    """Each second's NMEA sentences read 0.3 s after its epoch (a read without an epoch): the
+    slack work still runs 0.5 s after the epoch's bytes, not 0.5 s after the later read."""
+    chunks, start = _stream(1.0, 30.0)
+    pieces = _split_tails(chunks)
+    assert len(pieces) > len(chunks) + 20
+    times, k = [], 0.0
+    for piece in pieces:  # the epoch's part at the second, the sentences 0.3 s later
+        is_tail = piece[:1] == b"$"
+        times.append(k + 0.3 if is_tail else k)
+        k += 1.0 if is_tail else 0.0
+    log, out, _ = _run(pieces, start, 1.0, times_s=times, epochs=len(chunks))
+    fed = [t for what, t in log if what == "feed"]
+    epochs_at = [t for t in fed if abs((t - fed[0]) - round(t - fed[0])) < _EPS_S]  # the seconds
+    slack_at = [t for what, t in log if what == "slack"]
+    assert len(slack_at) >= len(chunks) - 3
+    for t in slack_at:
+        fed = max(e for e in epochs_at if e < t)
+        assert t - fed == pytest.approx(0.5, abs=_EPS_S), (t, fed)
+    _assert_same_outputs(_plain(chunks, start), out)
+
+
+def test_a_paced_replay_runs_the_slack_with_the_deferred_work():
+    """A paced file replay (its pacing sleeps in the estimate task: no midway turn) runs the
+    slack work right after each step's deferred work, as all deferred work did before."""
+    chunks, start = _stream(1.0, 20.0)
+    log, out, fits = _run(chunks, start, 0.0, paced=True)
+    delays = _slack_delays(log)
+    assert len(delays) >= len(chunks) - 1
+    assert max(delays) < _EPS_S
     assert "feed" not in fits
     _assert_same_outputs(_plain(chunks, start), out)

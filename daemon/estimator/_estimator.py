@@ -194,8 +194,13 @@ class StationEstimator:
         day's navigation file is loaded up front, as ``ionwarden process`` does).
 
         ``defer_fit``: the periodic receiver-bias fit of an epoch (it changes only later epochs'
-        figures) waits for :meth:`settle`; every other entry point settles first, so the results
-        are the same bit for bit (the daemon runs it after other stations' snapshots are out)."""
+        figures) waits for :meth:`settle` (the daemon runs it after other stations' snapshots
+        are out, midway to the next epoch). The results are the same bit for bit: the fit reads
+        the epoch's arrays (fresh, or block buffers only :meth:`update` writes), the bias
+        model, the interval and the last ROTI median, never the geometry, and every entry that
+        changes one of those settles it first (:meth:`update`, a new ephemeris's satellite
+        delays in :meth:`add_ephemeris`, :meth:`state_dict`, :meth:`load_state`, :meth:`copy`,
+        a time reset); the receiver position and GSV change the geometry only."""
         cfg = settings or EstimatorSettings()
         self.settings = cfg
         self.station = station
@@ -298,8 +303,6 @@ class StationEstimator:
 
     def add_ephemeris(self, eph: KeplerEphemeris | GlonassEphemeris) -> None:
         """Use a broadcast ephemeris for geometry and its group delays for the satellite bias."""
-        if self._pending_fit is not None:
-            self.settle()
         if not 0 <= eph.sat < MAX_SAT_ID:
             return
         last = self._last_eph.get(eph.sat)
@@ -312,20 +315,20 @@ class StationEstimator:
         self.geometry.add_ephemeris(eph, t)
         delays = band_delays_s(eph)
         if np.isfinite(delays).any():
+            if self._pending_fit is not None:  # (the fit reads the satellite delays)
+                self.settle()
             self.biases.set_delays(eph.sat, delays)
 
     def set_receiver_position(self, ecef_m: npt.ArrayLike, source: str) -> None:
-        """Receiver antenna position (ECEF m) from config, RTCM 1005/1006 or GGA."""
-        if self._pending_fit is not None:
-            self.settle()
+        """Receiver antenna position (ECEF m) from config, RTCM 1005/1006 or GGA (the geometry
+        only: a pending fit reads none of it)."""
         self.geometry.set_receiver_position(ecef_m, source)
 
     def set_gsv(
         self, time: GpsTime, sats: npt.ArrayLike, el_deg: npt.ArrayLike, az_deg: npt.ArrayLike
     ) -> None:
-        """Fallback elevations/azimuths from NMEA GSV (used only where no orbit is known)."""
-        if self._pending_fit is not None:
-            self.settle()
+        """Fallback elevations/azimuths from NMEA GSV (used only where no orbit is known; the
+        geometry only: a pending fit reads none of it)."""
         self.geometry.set_gsv(time.total_s, sats, el_deg, az_deg)
 
     # -- the hot path -------------------------------------------------------------------------------

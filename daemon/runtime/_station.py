@@ -519,6 +519,7 @@ class StationRunner:
         except asyncio.CancelledError:
             if self._idle is fut:
                 self._idle = None
+            self._slack_now = False
             if self._in_hand is not None:
                 self._in_hand = None
                 if fut.done() and not fut.cancelled():
@@ -553,8 +554,11 @@ class StationRunner:
             self._slack_at = arrived + after
 
     async def _run_slack(self, lane: StepLane) -> None:
-        """The core's slack work, in a background turn: after every urgent step waiting."""
+        """The core's slack work, in a background turn: after every urgent step waiting (none
+        when another entry, a checkpoint's say, did it meanwhile)."""
         self._slack_at = None
+        if self.core.slack_after_s() is None:
+            return
         await lane.turn(background=True)
         try:
             self._contained(self.core.settle_slack, None)
