@@ -32,7 +32,8 @@ from ionwarden.daemon.runtime import (
 )
 from ionwarden.daemon.runtime import _station as station_mod
 
-from .test_runtime_machinery_oracle import _DeferringCore, _frames, _run_pure_virtual
+from ._runtime_support import run_pure_virtual
+from .test_runtime_machinery_oracle import _DeferringCore, _frames
 
 READ_SIZE = 64  # small, so that one write of the peer is handed out in several chunks
 
@@ -192,11 +193,11 @@ def test_station_pushed_chunks_equal_read_chunks(
         return ended
 
     monkeypatch.setattr(TcpTransport, "start_push", counted)
-    pushed = _run_pure_virtual(_drive(pushed=True, listen=listen))
+    pushed = run_pure_virtual(_drive(pushed=True, listen=listen))
     assert switched.count(True) == len(SCRIPTS)  # every connection was pushing
     pushed_log = [r.levelname + " " + r.getMessage() for r in caplog.records]
     caplog.clear()
-    read = _run_pure_virtual(_drive(pushed=False, listen=listen))
+    read = run_pure_virtual(_drive(pushed=False, listen=listen))
     read_log = [r.levelname + " " + r.getMessage() for r in caplog.records]
     assert pushed == read
     assert [_ports_out(line) for line in pushed_log] == [_ports_out(line) for line in read_log]
@@ -263,4 +264,4 @@ def test_station_pushed_ingest_cancelled_is_cancelled_not_stalled() -> None:
             StationState.STREAMING,
         ]
 
-    _run_pure_virtual(main())
+    run_pure_virtual(main())
