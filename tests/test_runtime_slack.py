@@ -216,18 +216,6 @@ def test_epochs_sooner_than_midway_settle_the_slack_themselves():
     _assert_same_outputs(_plain(chunks, start), out)
 
 
-def test_without_a_lane_slack_runs_with_the_deferred_work():
-    """Without a lane (no midway turn to take) the slack work runs right after each step's
-    deferred work, as all deferred work did before."""
-    chunks, start = _stream(1.0, 20.0)
-    log, out, fits = _run(chunks, start, 1.0, lane=False)
-    delays = _slack_delays(log)
-    assert len(delays) >= len(chunks) - 1
-    assert max(delays) < _EPS_S
-    assert "feed" not in fits
-    _assert_same_outputs(_plain(chunks, start), out)
-
-
 def _split_tails(chunks: list[bytes]) -> list[bytes]:
     """Each second's chunk cut before its first NMEA sentence: the RTCM part (with the epoch),
     then the sentences (no epoch), as reads of a slow link may cut them."""
@@ -261,11 +249,16 @@ def test_reads_without_an_epoch_do_not_postpone_the_slack():
     _assert_same_outputs(_plain(chunks, start), out)
 
 
-def test_a_paced_replay_runs_the_slack_with_the_deferred_work():
-    """A paced file replay (its pacing sleeps in the estimate task: no midway turn) runs the
-    slack work right after each step's deferred work, as all deferred work did before."""
+@pytest.mark.parametrize("how", ["no lane", "paced replay"])
+def test_without_a_midway_turn_slack_runs_with_the_deferred_work(how):
+    """Without a lane (no turn to take), and for a paced file replay (its pacing sleeps in the
+    estimate task), the slack work runs right after each step's deferred work, as all deferred
+    work did before."""
     chunks, start = _stream(1.0, 20.0)
-    log, out, fits = _run(chunks, start, 0.0, paced=True)
+    if how == "no lane":
+        log, out, fits = _run(chunks, start, 1.0, lane=False)
+    else:
+        log, out, fits = _run(chunks, start, 0.0, paced=True)
     delays = _slack_delays(log)
     assert len(delays) >= len(chunks) - 1
     assert max(delays) < _EPS_S
