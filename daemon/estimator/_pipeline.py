@@ -91,8 +91,9 @@ class StationPipeline:
         messages only and leaves the heavy part that may wait longer — the receiver-bias fit and
         the orbits evaluated ahead — to :meth:`settle_slack`, which the runtime calls midway to
         the next epoch (:meth:`slack_after_s`), away from the bursts of all stations' epochs.
-        The same figures again: every estimator entry point settles a pending fit first, and
-        orbits evaluated ahead are used only while still valid (tests/test_pipeline_slack.py)."""
+        The same figures again: every estimator entry that changes what a pending fit reads
+        settles it first (``StationEstimator``'s ``defer_fit``), and orbits evaluated ahead are
+        used only while still valid (tests/test_pipeline_slack.py)."""
         self.station = station
         self.estimator = StationEstimator(
             settings, station=station, ephemerides_per_sat=ephemerides_per_sat, defer_fit=defer
@@ -161,8 +162,8 @@ class StationPipeline:
         return out
 
     def _settle_deferred(self) -> list[PipelineOutput]:
-        if not self._slack:  # (with slack the fit waits: the messages' entries settle it first
-            self.estimator.settle()  # where they touch the estimator)
+        if not self._slack:  # (with slack the fit waits: an entry that changes what it reads
+            self.estimator.settle()  # settles it first)
         rest, self._deferred = self._deferred, []
         return self.handle(rest) if rest else []
 

@@ -23,7 +23,7 @@ Queue policy: live sources use ``DROP_OLDEST`` (a slow estimator loses the oldes
 the framer resynchronises); file and stdin sources use ``WAIT`` (nothing lost, reading slows).
 """
 
-# size: ~520 lines: one station's ingest and estimate tasks with their containment
+# size: ~710 lines: one station's ingest and estimate tasks with their containment
 # and retry policy (module docstring); the records are in _station_records.py.
 from __future__ import annotations
 
@@ -555,7 +555,7 @@ class StationRunner:
 
     async def _run_slack(self, lane: StepLane) -> None:
         """The core's slack work, in a background turn: after every urgent step waiting (none
-        when another entry, a checkpoint's say, did it meanwhile)."""
+        when another entry, a checkpoint say, did it meanwhile)."""
         self._slack_at = None
         if self.core.slack_after_s() is None:
             return
