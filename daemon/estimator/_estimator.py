@@ -260,9 +260,7 @@ class StationEstimator:
         """How long after its epoch the deferred work (:meth:`settle`, then :meth:`prefetch`) may
         wait: half the median epoch interval, midway to the next epoch, whose entry would settle
         it first (same results); None when nothing waits."""
-        if self._pending_fit is None and self._ahead is None:
-            return None
-        return 0.5 * self._interval
+        return 0.5 * self._interval if self.unsettled() else None
 
     def prefetch(self) -> None:
         """Evaluate now the orbits the next epoch will refresh, if it comes at the expected time
