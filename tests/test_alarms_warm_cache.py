@@ -209,6 +209,58 @@ _GOLDEN_BY_PLATFORM: dict[str, dict[tuple[str, str], tuple[int, str]]] = {
             "7ac4a535ec5191668a1c0254f158eb1abcb041b465acdfb59d8f274a0acbc689",
         ),
     },
+    # x86-64 with AVX-512, AMD EPYC (family 26), captured 2026-12-03 from e44e582^: the coarse
+    # label above matched this machine but its digests did not
+    "5ab1952dc3a158c0": {
+        ("storm-front/HARC", "default"): (
+            1,
+            "97b336fd96118a64b68dfe1c65066db278f19fef9328dd305f054ecca76af9df",
+        ),
+        ("storm-front/HARC", "mid"): (
+            1,
+            "59f00621414e91cd1e55ae3c6da451ae1667f1afc33e9b2a00b17b75eede65c7",
+        ),
+        ("storm-front/HARC", "touchy"): (
+            2,
+            "2b167424cdcc96449ec8d4667abdd30befbe7fc3c1a0a16998ba05d1b38bd172",
+        ),
+        ("storm-front/HRV1", "default"): (
+            1,
+            "54e938bb4c55a8a21b1e97961afdf8669f45cec6556c74ba59c2bc5a54d5a634",
+        ),
+        ("storm-front/HRV1", "mid"): (
+            1,
+            "dcfe5315f08ad41ddc73abab65f328f344159a7cb8f9fb81cc1a5732e4f2694f",
+        ),
+        ("storm-front/HRV1", "touchy"): (
+            2,
+            "a28433aa05f308aceb91620e0933200e4f0ac547148b5481876985637763f1e7",
+        ),
+        ("scintillation/HARC", "default"): (
+            2,
+            "6ec77e28d07c27f00a3dc7ed6700e164b3c5844b01d4a364327e93827addc6c2",
+        ),
+        ("scintillation/HARC", "mid"): (
+            14,
+            "3c53f78180fa04f9daf109e3314b92cf03d137ce51a2397c3eb14d39ecc8773d",
+        ),
+        ("scintillation/HARC", "touchy"): (
+            5,
+            "650caddf6ac633441e00b3ea9f187937bf6697f76eca3ee9e61ca56a2dd371f6",
+        ),
+        ("band-outage/HARC", "default"): (
+            2,
+            "93b41eec2c22e47a8dca9c654a184e9f16f2feb3bd869b444e501991498af88d",
+        ),
+        ("band-outage/HARC", "mid"): (
+            2,
+            "8c292a33129eab27cd8f7bec1e727049419112bce4c0b5b110bff3af2cf67151",
+        ),
+        ("band-outage/HARC", "touchy"): (
+            3,
+            "240348d28c05d269f101bc3690b126151fa2793d6de21f3f31636c7579ffa87e",
+        ),
+    },
 }
 _GOLDEN = golden_for(_GOLDEN_BY_PLATFORM)
 

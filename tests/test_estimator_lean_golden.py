@@ -45,6 +45,13 @@ GOLDEN_BY_PLATFORM: dict[str, dict[str, str]] = {
         "quiet-day": "ac2f078525068c156096efb0864b1c65af134f924101a535803b2c73ef92a11d",
         "synthetic": "6bcfcbdf1785a183970b4eb3bba32b3b27015df099d2788d430f806573cbd2ce",
     },
+    # x86-64 with AVX-512, AMD EPYC (family 26), captured 2026-12-03 from 59a3a98^: the coarse
+    # label above matched this machine but its digests did not
+    "5ab1952dc3a158c0": {
+        "demo": "f37189bd653998d87c813559a8b1003f3a5c4b4183de865cc1e9b614eeadeb7c",
+        "quiet-day": "777d4a0c9ef150ab4b35c71514277b655953ca80940229a7e3d0c506e252d8a8",
+        "synthetic": "7cbafadce654fd0e1f58c376ee33739a79fdee27988282f62c50cf40b2e3adbf",
+    },
 }
 SOURCES = ("demo", "quiet-day", "synthetic")
 GOLDEN = golden_for(GOLDEN_BY_PLATFORM)

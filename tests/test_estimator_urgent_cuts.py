@@ -61,6 +61,13 @@ GOLDEN_BY_PLATFORM: dict[str, dict[str, str]] = {
         "scintillation": "1adec789d8ba92b9c97b0f610f20ffab7f680a696e4902d8797611c70a0774a1",
         "quiet-steady": "5ab01bea17844fac972acfba4d98027df20cb7c8896ee2884d286d91cd16b757",
     },
+    # x86-64 AVX-512 (numpy 2.4), AMD EPYC (family 26), captured 2026-12-03 from 566fd88
+    "5ab1952dc3a158c0": {
+        "storm": "89679b1db65287e416707fd2e1f8fda5d25cd0144ed37e3809148e339083dd8d",
+        "band-outage": "242df4de9376ea842e974d16ed1cb8bcc63e969b24b2866814757169d6f776d8",
+        "scintillation": "2e04c90fc8e880fdc37d083a9b023e72426435eac9767cdf4874dcee9c0b0d21",
+        "quiet-steady": "668a6292fab675efcd94e4f8644bbc90621ac4fe9a669aeb9218dd04320f8a11",
+    },
 }
 SOURCES = ("storm", "band-outage", "scintillation", "quiet-steady")
 GOLDEN = golden_for(GOLDEN_BY_PLATFORM)
