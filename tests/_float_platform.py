@@ -7,9 +7,13 @@ only where it was captured. ``fingerprint()`` hashes the results of the routines
 fixed inputs: two machines with the same fingerprint compute our outputs alike (as far as these
 routines tell; add one here if a digest ever differs between machines that share a fingerprint).
 Golden tests keep one set of digests per fingerprint, each captured from the previous code on
-that platform, and skip (saying so) on a platform they have none for. Digests captured before
-the fingerprint existed are kept under ``simd_label()``, the coarser key they held on: machine,
-numpy release, and whether numpy uses AVX-512 (its vectorised math differs with it).
+that platform, and skip (saying so) on a platform they have none for.
+
+Digests captured before the fingerprint existed were kept under a coarser label (machine, numpy
+release, AVX-512 or not) until 2026-12-03, when an AMD EPYC with AVX-512 matched the label of an
+Intel Xeon with AVX-512 and failed its digests. They are now keyed by the fingerprint of the Xeon
+they passed on (``d82fbd5e3857987e``: its CI ran every golden test, the urgent-cuts ones keyed by
+that fingerprint included), and there is no label fallback.
 """
 
 from __future__ import annotations
@@ -51,20 +55,9 @@ def fingerprint() -> str:
     return h.hexdigest()[:16]
 
 
-def simd_label() -> str:
-    """Machine, numpy's major.minor release, and whether numpy's dispatch found AVX-512."""
-    try:
-        from numpy._core._multiarray_umath import __cpu_features__ as features
-    except ImportError:  # (numpy < 2: only x86-64 with AVX-512 matters here)
-        features = {}
-    avx512 = "AVX-512" if features.get("AVX512_SKX") else "no AVX-512"
-    return f"{platform.machine()} numpy {np.__version__.rsplit('.', 1)[0]} {avx512}"
-
-
 T = TypeVar("T")
 
 
 def golden_for(table: dict[str, T]) -> T | None:
-    """This platform's golden values: by fingerprint, else by ``simd_label()``, else None."""
-    found = table.get(fingerprint())
-    return found if found is not None else table.get(simd_label())
+    """This platform's golden values (by its fingerprint), or None."""
+    return table.get(fingerprint())

@@ -32,9 +32,9 @@ DEMO = Path(__file__).resolve().parents[1] / "daemon" / "data" / "demo.bin"
 #: Golden digests per floating-point platform (tests/_float_platform.py), each captured from our
 #: own previous code (the estimator before the cuts, 59a3a98^) run on that platform.
 GOLDEN_BY_PLATFORM: dict[str, dict[str, str]] = {
-    # captured 2026-12-03 on the earlier sessions' machines, before fingerprints were recorded
-    # (x86-64; with AVX-512, as their results differing from an AVX2 machine's suggest)
-    "x86_64 numpy 2.4 AVX-512": {
+    # x86-64 with AVX-512 (an Intel Xeon), captured 2026-12-03 before fingerprints were recorded,
+    # under a coarser label; keyed by the fingerprint of the machine they passed on since
+    "d82fbd5e3857987e": {
         "demo": "6e74d34044809c3215e4c5f2c212b2694c1da8d5d552325995ad3005d1862bc4",
         "quiet-day": "beb80db0c2ad3555a02cfa90e0d4adfa31485b3100f6c08b8713699800be900f",
         "synthetic": "2e1427f22da570e783e5b573b4078c9139dd0e349c188cb7aea1c8a275443e4a",
@@ -45,8 +45,7 @@ GOLDEN_BY_PLATFORM: dict[str, dict[str, str]] = {
         "quiet-day": "ac2f078525068c156096efb0864b1c65af134f924101a535803b2c73ef92a11d",
         "synthetic": "6bcfcbdf1785a183970b4eb3bba32b3b27015df099d2788d430f806573cbd2ce",
     },
-    # x86-64 with AVX-512, AMD EPYC (family 26), captured 2026-12-03 from 59a3a98^: the coarse
-    # label above matched this machine but its digests did not
+    # x86-64 with AVX-512, AMD EPYC (family 26), captured 2026-12-03 from 59a3a98^
     "5ab1952dc3a158c0": {
         "demo": "f37189bd653998d87c813559a8b1003f3a5c4b4183de865cc1e9b614eeadeb7c",
         "quiet-day": "777d4a0c9ef150ab4b35c71514277b655953ca80940229a7e3d0c506e252d8a8",
@@ -156,11 +155,8 @@ def test_digest_sees_one_bit() -> None:
     assert len({h1.hexdigest(), h2.hexdigest(), h3.hexdigest()}) == 3
 
 
-def test_golden_lookup_takes_the_fingerprint_then_the_coarse_label() -> None:
-    """Golden values are found by this platform's fingerprint first, else by its coarser label
-    (digests captured before fingerprints), else not at all (the golden tests then skip)."""
-    from ._float_platform import simd_label
-
-    assert golden_for({fingerprint(): 1, simd_label(): 2}) == 1
-    assert golden_for({"0000000000000000": 1, simd_label(): 2}) == 2
-    assert golden_for({"0000000000000000": 1}) is None
+def test_golden_lookup_takes_the_fingerprint_only() -> None:
+    """Golden values are found by this platform's fingerprint, else not at all (the golden tests
+    then skip): no coarser key, which once matched a platform whose results differ."""
+    assert golden_for({fingerprint(): 1, "x86_64 numpy 2.4 AVX-512": 2}) == 1
+    assert golden_for({"0000000000000000": 1, "x86_64 numpy 2.4 AVX-512": 2}) is None

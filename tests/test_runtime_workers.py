@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import asyncio
 import contextlib
+import dataclasses
 import datetime as dt
 import json
 import math
@@ -50,7 +51,6 @@ from ionwarden.daemon.runtime._link import (
     Notify,
     Report,
     _dumps,
-    report_view,
 )
 from ionwarden.daemon.runtime._pool import (
     assign_stations,
@@ -225,7 +225,7 @@ def test_a_report_serves_the_same_exporter_page_and_health_as_the_full_snapshot(
     way: the main process's exporter page and health message are byte for byte those the
     one-process daemon serves from the full snapshot (equal to the one-process path)."""
     full = _daemon_snapshot(_real_snapshot())
-    sent = pickle.loads(_dumps(Report(report_view(full, per_satellite=per_satellite))))
+    sent = pickle.loads(_dumps(Report(full), per_satellite))
     assert isinstance(sent, Report)
 
     def page(snap: DaemonSnapshot) -> bytes:
@@ -248,6 +248,76 @@ def test_a_report_serves_the_same_exporter_page_and_health_as_the_full_snapshot(
             assert _same(getattr(figs, name), getattr(full.stations[0].snapshot.satellites, name))
     else:
         assert figs.sat.size == 0
+
+
+def _deep_same(a: object, b: object) -> bool:
+    """``_same`` through tuples, lists and dicts too; arrays equal with their dtype."""
+    if isinstance(a, tuple | list):
+        return (
+            type(a) is type(b)
+            and len(a) == len(b)  # type: ignore[arg-type]
+            and all(_deep_same(x, y) for x, y in zip(a, b, strict=True))  # type: ignore[call-overload]
+        )
+    if isinstance(a, dict):
+        return (
+            isinstance(b, dict) and a.keys() == b.keys() and all(_deep_same(a[k], b[k]) for k in a)
+        )
+    if hasattr(a, "__slots__") and not isinstance(a, str | bytes | int | float):
+        return type(a) is type(b) and all(
+            _deep_same(getattr(a, f), getattr(b, f))
+            for f in type(a).__slots__  # type: ignore[attr-defined]
+        )
+    return _same(a, b)
+
+
+def _previous_report_view(snapshot: DaemonSnapshot, per_satellite: bool) -> DaemonSnapshot:
+    """The report's view as ``runtime/_link.py`` built it before 2026-12-03 (fifth session), copied
+    as the oracle: the slim snapshot as new records (``dataclasses.replace``), then pickled whole."""
+    empty_f64 = np.zeros(0)
+    empty_cells = {
+        "cell_sat": np.zeros(0, np.int16),
+        "cell_sig": np.zeros(0, np.uint16),
+        "cell_el_deg": empty_f64,
+        "cell_cn0_dbhz": np.zeros(0, np.float32),
+    }
+
+    def slim(snap: StationSnapshot) -> StationSnapshot:
+        figs = snap.satellites
+        dropped: dict[str, object] = {}
+        for f in dataclasses.fields(figs):
+            if per_satellite and f.name in REPORT_SATELLITE_FIELDS:
+                continue
+            value = getattr(figs, f.name)
+            if isinstance(value, np.ndarray):
+                dropped[f.name] = value[:0] if value.dtype != np.float64 else empty_f64
+            elif isinstance(value, tuple):
+                dropped[f.name] = ()
+        return dataclasses.replace(
+            snap, satellites=dataclasses.replace(figs, **dropped), **empty_cells
+        )
+
+    return dataclasses.replace(
+        snapshot,
+        stations=tuple(
+            st if st.snapshot is None else dataclasses.replace(st, snapshot=slim(st.snapshot))
+            for st in snapshot.stations
+        ),
+    )
+
+
+@pytest.mark.parametrize("per_satellite", [True, False])
+def test_a_slim_report_equals_the_previous_view(per_satellite: bool) -> None:
+    """The report's view written in the pickling pass unpickles to what the previous code's
+    view (new records, then pickled) did: every record and array, dtypes included (the oracle is
+    our own previous code, copied above). A whole report still carries everything."""
+    full = _daemon_snapshot(_real_snapshot())
+    report = Report(full, (("LNK", 0.004),), (("LNK", 0.006),))
+    now = pickle.loads(_dumps(report, per_satellite))
+    view = _previous_report_view(full, per_satellite)
+    before = pickle.loads(_dumps(Report(view, report.latencies, report.deliveries)))
+    assert _deep_same(now, before)
+    assert _deep_same(pickle.loads(_dumps(report)), report)
+    assert len(_dumps(report, per_satellite)) < len(_dumps(report)) / 2
 
 
 # -- the real daemon with two workers ---------------------------------------------------------------

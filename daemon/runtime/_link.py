@@ -25,19 +25,24 @@ import asyncio
 import contextlib
 import dataclasses
 import io
+import operator
 import pickle
 import struct
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
+import numpy.typing as npt
+
+from ionwarden.daemon._records import fast_constructor
+from ionwarden.daemon.estimator import SatelliteFigures, StationSnapshot
 
 from ._notify import SdNotifier
 
 if TYPE_CHECKING:
     import socket
+    from collections.abc import Callable
 
-    from ionwarden.daemon.estimator import StationSnapshot
     from ionwarden.daemon.outputs import DaemonSnapshot
 
 __all__ = [
@@ -48,7 +53,6 @@ __all__ = [
     "LinkSink",
     "Notify",
     "Report",
-    "report_view",
 ]
 
 _HEADER = struct.Struct(">I")
@@ -85,87 +89,119 @@ class Report:
 #: The per-satellite columns the exporter serves (``outputs/_exporter.py``), with the satellite ids.
 #: A report carries only these: a station's full snapshot has ~25 arrays, and pickling arrays one by
 #: one is most of a report's cost. ``tests/test_runtime_workers.py`` checks that the exporter's page
-#: and the health message are the same from this view as from the full snapshot.
+#: and the health message are the same from a report as from the full snapshot.
 REPORT_SATELLITE_FIELDS = frozenset(
     {"sat", "stec_tecu", "rot_tecu_per_min", "roti_tecu_per_min", "el_deg"}
 )
-_EMPTY_F64 = np.zeros(0)
-_EMPTY_CELLS: dict[str, Any] = {
-    "cell_sat": np.zeros(0, np.int16),
-    "cell_sig": np.zeros(0, np.uint16),
-    "cell_el_deg": _EMPTY_F64,
-    "cell_cn0_dbhz": np.zeros(0, np.float32),
-}
+#: The per-cell arrays of a station snapshot (C/N0 learning's input): never in a report.
+_CELL_FIELDS = frozenset({"cell_sat", "cell_sig", "cell_el_deg", "cell_cn0_dbhz"})
+
+#: Per frozen slots dataclass pickled so far: its field names and a getter of their values in
+#: that order (``False``: not one of those).
+_FIELDS: dict[type, tuple[tuple[str, ...], Callable[[Any], tuple[Any, ...]]] | bool] = {}
+#: Per class and report kind (with or without per-satellite columns): the positions of the fields
+#: a report leaves empty (``()`` when it carries them all).
+_DROPPED: dict[tuple[type, bool], tuple[int, ...]] = {}
+#: One read-only empty array per dtype: what a report carries in place of a dropped array (pickle
+#: writes it once per report and refers back to it after).
+_EMPTY: dict[np.dtype[Any], npt.NDArray[Any]] = {}
 
 
-def _slim(snap: StationSnapshot, per_satellite: bool) -> StationSnapshot:
-    figs = snap.satellites
-    dropped: dict[str, Any] = {}
-    for f in dataclasses.fields(figs):
-        if per_satellite and f.name in REPORT_SATELLITE_FIELDS:
-            continue
-        value = getattr(figs, f.name)
-        if isinstance(value, np.ndarray):
-            dropped[f.name] = value[:0] if value.dtype != np.float64 else _EMPTY_F64
-        elif isinstance(value, tuple):
-            dropped[f.name] = ()
-    return dataclasses.replace(
-        snap, satellites=dataclasses.replace(figs, **dropped), **_EMPTY_CELLS
-    )
-
-
-def report_view(snapshot: DaemonSnapshot, *, per_satellite: bool = True) -> DaemonSnapshot:
-    """What a worker sends of its snapshot: every station figure, counter and alarm; of each
-    station's per-satellite arrays only the exporter's columns (none with ``per_satellite`` off)."""
-    return dataclasses.replace(
-        snapshot,
-        stations=tuple(
-            st
-            if st.snapshot is None
-            else dataclasses.replace(st, snapshot=_slim(st.snapshot, per_satellite))
-            for st in snapshot.stations
-        ),
-    )
-
-
-#: Field names of each frozen slots dataclass pickled so far (``False``: not one of those).
-_FIELDS: dict[type, tuple[str, ...] | bool] = {}
+#: Per frozen slots dataclass unpickled so far: its positional fast constructor.
+_BUILDERS: dict[type, Callable[..., object]] = {}
 
 
 def _rebuild(cls: type, values: tuple[Any, ...]) -> object:
     """Unpickle a frozen slots dataclass from its field values (what ``_Pickler`` wrote)."""
-    obj: object = object.__new__(cls)
-    for name, value in zip(_field_names(cls), values, strict=True):
-        object.__setattr__(obj, name, value)
-    return obj
+    build = _BUILDERS.get(cls)
+    if build is None:
+        build = _BUILDERS[cls] = fast_constructor(cls, positional=True)
+    return build(*values)
 
 
-def _field_names(cls: type) -> tuple[str, ...]:
-    names = _FIELDS.get(cls)
-    if not isinstance(names, tuple):
-        names = _FIELDS[cls] = tuple(f.name for f in dataclasses.fields(cls))
-    return names
+def _layout(cls: type) -> tuple[tuple[str, ...], Callable[[Any], tuple[Any, ...]]] | bool:
+    """``cls``'s field names and values getter (``False`` unless a frozen slots dataclass)."""
+    found = _FIELDS.get(cls)
+    if found is None:
+        if dataclasses.is_dataclass(cls) and "__slots__" in cls.__dict__:
+            names = tuple(f.name for f in dataclasses.fields(cls))
+            get = operator.attrgetter(*names)
+            one = len(names) == 1  # (attrgetter of one name gives the value, not a tuple)
+            found = (names, (lambda obj: (get(obj),)) if one else get)
+        else:
+            found = False
+        _FIELDS[cls] = found
+    return found
+
+
+def _dropped(cls: type, names: tuple[str, ...], per_satellite: bool) -> tuple[int, ...]:
+    """Positions of the fields of ``cls`` (names ``names``) that a report leaves empty."""
+    key = (cls, per_satellite)
+    found = _DROPPED.get(key)
+    if found is None:
+        if cls is SatelliteFigures:
+            keep = REPORT_SATELLITE_FIELDS if per_satellite else frozenset()
+            found = tuple(i for i, n in enumerate(names) if n not in keep)
+        elif cls is StationSnapshot:
+            found = tuple(i for i, n in enumerate(names) if n in _CELL_FIELDS)
+        else:
+            found = ()
+        _DROPPED[key] = found
+    return found
+
+
+def _empty_like(value: object) -> object:
+    """What a report carries for a dropped field: an empty array of its dtype, or ``()``."""
+    if isinstance(value, np.ndarray):
+        empty = _EMPTY.get(value.dtype)
+        if empty is None:
+            empty = _EMPTY[value.dtype] = np.empty(0, value.dtype)
+            empty.setflags(write=False)
+        return empty
+    return () if isinstance(value, tuple) else value
 
 
 class _Pickler(pickle.Pickler):
     """Pickles our frozen slots dataclasses as (class, field values): the standard way calls
     ``dataclasses.fields()`` per object (a generated ``__getstate__``), which was 70% of a report's
-    cost (~140 records per 10 stations)."""
+    cost (~140 records per 10 stations).
+
+    With ``slim`` set (``True``: keep the exporter's per-satellite columns, ``False``: none), it
+    writes a report's view of each station snapshot: every station figure, counter and alarm; of
+    the per-satellite arrays only :data:`REPORT_SATELLITE_FIELDS` (or none); no per-cell arrays.
+    Dropped fields are written as empty arrays of their dtype (or empty tuples), in the same pass
+    (no intermediate copies of the records)."""
+
+    def __init__(self, file: io.BytesIO, slim: bool | None) -> None:
+        super().__init__(file, protocol=5)
+        self._slim = slim
 
     def reducer_override(self, obj: Any) -> Any:
         cls = type(obj)
-        names = _FIELDS.get(cls)
-        if names is None:
-            slotted = dataclasses.is_dataclass(cls) and "__slots__" in cls.__dict__
-            names = _FIELDS[cls] = _field_names(cls) if slotted else False
-        if names is False:
+        found = _FIELDS.get(cls)
+        if found is None:
+            found = _layout(cls)
+        if found is False:
             return NotImplemented
-        return _rebuild, (cls, tuple([getattr(obj, n) for n in names]))  # type: ignore[union-attr]
+        names, get = found  # type: ignore[misc]
+        values = get(obj)
+        slim = self._slim
+        if slim is not None:
+            dropped = _DROPPED.get((cls, slim))
+            if dropped is None:
+                dropped = _dropped(cls, names, slim)
+            if dropped:
+                as_list = list(values)
+                for i in dropped:
+                    as_list[i] = _empty_like(as_list[i])
+                values = tuple(as_list)
+        return _rebuild, (cls, values)
 
 
-def _dumps(message: object) -> bytes:
+def _dumps(message: object, slim: bool | None = None) -> bytes:
+    """``message`` pickled; ``slim``: as a report's view (see :class:`_Pickler`)."""
     buf = io.BytesIO()
-    _Pickler(buf, protocol=5).dump(message)
+    _Pickler(buf, slim).dump(message)
     return buf.getvalue()
 
 
@@ -185,11 +221,13 @@ class Link:
         reader, writer = await asyncio.open_unix_connection(sock=sock)
         return cls(reader, writer)
 
-    def send(self, message: Assign | Notify | Report) -> None:
-        """Queue ``message`` (never blocks; a closed link drops it: the peer is gone)."""
+    def send(self, message: Assign | Notify | Report, *, slim: bool | None = None) -> None:
+        """Queue ``message`` (never blocks; a closed link drops it: the peer is gone). ``slim``:
+        send a report's view of its snapshots (``True``: with the exporter's per-satellite
+        columns, ``False``: without any; ``None``: whole)."""
         if self._writer.is_closing():
             return
-        data = _dumps(message)
+        data = _dumps(message, slim)
         self._writer.write(_HEADER.pack(len(data)) + data)
 
     async def receive(self) -> Assign | Notify | Report | None:
@@ -254,7 +292,7 @@ class LinkSink:
         self._deliveries.append((station, seconds))
 
     def update(self, snapshot: DaemonSnapshot) -> None:
-        view = report_view(snapshot, per_satellite=self._per_satellite)
-        self._link.send(Report(view, tuple(self._latencies), tuple(self._deliveries)))
+        report = Report(snapshot, tuple(self._latencies), tuple(self._deliveries))
+        self._link.send(report, slim=self._per_satellite)
         self._latencies.clear()
         self._deliveries.clear()
