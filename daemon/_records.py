@@ -36,15 +36,20 @@ def fast_constructor(cls: type[_T], *, positional: bool = False) -> Callable[...
         twin = slots_twin(cls)
     except TypeError:  # no __class__ assignment between the two (another Python)
         twin = None
-    env: dict[str, Any] = {"_new": object.__new__, "_cls": cls, "_twin": twin}
-    env.update({f"_set_{n}": getattr(cls, n).__set__ for n in names})
-    args = ", ".join(names) if positional else "*, " + ", ".join(names)
-    stores = "\n".join(f"    o.{n} = {n}" for n in names)
-    sets = "\n".join(f"    _set_{n}(o, {n})" for n in names)
+    # The generated functions' own names start with "__iw_": a field may not (none does).
+    clash = [n for n in names if n.startswith("__iw_")]
+    if clash:
+        raise ValueError(f"{cls.__name__}: field names reserved here: {clash}")
+    env: dict[str, Any] = {"__iw_new": object.__new__, "__iw_cls": cls, "__iw_twin": twin}
+    env.update({f"__iw_set_{n}": getattr(cls, n).__set__ for n in names})
+    args = ", ".join(names) if positional or not names else "*, " + ", ".join(names)
+    stores = "\n".join(f"    __iw_o.{n} = {n}" for n in names)
+    sets = "\n".join(f"    __iw_set_{n}(__iw_o, {n})" for n in names)
     src = (
-        f"def new_{cls.__name__}({args}):\n    o = _twin()\n{stores}\n    o.__class__ = _cls\n"
-        f"    return o\n\n"
-        f"def set_{cls.__name__}({args}):\n    o = _new(_cls)\n{sets}\n    return o\n"
+        f"def new_{cls.__name__}({args}):\n    __iw_o = __iw_twin()\n{stores}\n"
+        f"    __iw_o.__class__ = __iw_cls\n    return __iw_o\n\n"
+        f"def set_{cls.__name__}({args}):\n    __iw_o = __iw_new(__iw_cls)\n{sets}\n"
+        f"    return __iw_o\n"
     )
     exec(src, env)  # noqa: S102 - source built from the dataclass's own field names
     build: Callable[..., _T] = env[f"{'set' if twin is None else 'new'}_{cls.__name__}"]

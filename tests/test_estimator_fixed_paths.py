@@ -122,6 +122,37 @@ def test_fast_constructor_falls_back_to_descriptors_without_class_assignment() -
     assert got == Odd(a=1.0, b=2.0)
 
 
+@pytest.mark.parametrize("positional", [False, True])
+def test_fast_constructor_takes_any_field_name_and_none(positional: bool) -> None:
+    """Fields named like the generated code's locals of before (``o``, ``_cls``, ``_twin``,
+    ``_new``) keep their own values, and a dataclass without fields builds too (source: the
+    dataclass's own __init__); the generated code's own prefix is refused as a field name."""
+
+    @dataclasses.dataclass(frozen=True, slots=True)
+    class Clash:
+        o: float
+        _cls: float
+        _twin: float
+        _new: float
+
+    @dataclasses.dataclass(frozen=True, slots=True)
+    class Empty:
+        pass
+
+    build = fast_constructor(Clash, positional=positional)
+    got = build(1.0, 2.0, 3.0, 4.0) if positional else build(o=1.0, _cls=2.0, _twin=3.0, _new=4.0)
+    assert type(got) is Clash
+    assert got == Clash(1.0, 2.0, 3.0, 4.0)
+    empty = fast_constructor(Empty, positional=positional)()
+    assert type(empty) is Empty
+    assert empty == Empty()
+
+    # (a class body would mangle the name: only make_dataclass can give a field this name)
+    reserved = dataclasses.make_dataclass("Reserved", [("__iw_o", float)], frozen=True, slots=True)
+    with pytest.raises(ValueError, match="reserved"):
+        fast_constructor(reserved, positional=positional)
+
+
 class _Decorated(StationEstimator):
     """The update as before H7: np.errstate as a decorator around ``_update``."""
 

@@ -250,6 +250,11 @@ def test_a_report_serves_the_same_exporter_page_and_health_as_the_full_snapshot(
         assert figs.sat.size == 0
 
 
+@dataclasses.dataclass(frozen=True, slots=True)
+class _NoFields:
+    """A record without fields (pickled by reference: at module level)."""
+
+
 def _deep_same(a: object, b: object) -> bool:
     """``_same`` through tuples, lists and dicts too; arrays equal with their dtype."""
     if isinstance(a, tuple | list):
@@ -308,8 +313,10 @@ def _previous_report_view(snapshot: DaemonSnapshot, per_satellite: bool) -> Daem
 @pytest.mark.parametrize("per_satellite", [True, False])
 def test_a_slim_report_equals_the_previous_view(per_satellite: bool) -> None:
     """The report's view written in the pickling pass unpickles to what the previous code's
-    view (new records, then pickled) did: every record and array, dtypes included (the oracle is
-    our own previous code, copied above). A whole report still carries everything."""
+    view (new records, then pickled) did: every record, field and array, dtypes and shapes
+    included (the oracle is our own previous view code, copied above; both go through today's
+    pickler and rebuild, whose field order the whole report's round trip checks). A whole report
+    still carries everything, and records without fields cross too."""
     full = _daemon_snapshot(_real_snapshot())
     report = Report(full, (("LNK", 0.004),), (("LNK", 0.006),))
     now = pickle.loads(_dumps(report, per_satellite))
@@ -318,6 +325,10 @@ def test_a_slim_report_equals_the_previous_view(per_satellite: bool) -> None:
     assert _deep_same(now, before)
     assert _deep_same(pickle.loads(_dumps(report)), report)
     assert len(_dumps(report, per_satellite)) < len(_dumps(report)) / 2
+    dropped = now.snapshot.stations[0].snapshot.satellites.az_deg
+    assert dropped.size == 0
+    assert dropped.flags.writeable  # (as the previous view's were)
+    assert type(pickle.loads(_dumps((_NoFields(),), per_satellite))[0]) is _NoFields
 
 
 # -- the real daemon with two workers ---------------------------------------------------------------

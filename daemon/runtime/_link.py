@@ -125,17 +125,29 @@ def _layout(cls: type) -> tuple[tuple[str, ...], Callable[[Any], tuple[Any, ...]
     if found is None:
         if dataclasses.is_dataclass(cls) and "__slots__" in cls.__dict__:
             names = tuple(f.name for f in dataclasses.fields(cls))
-            get = operator.attrgetter(*names)
-            one = len(names) == 1  # (attrgetter of one name gives the value, not a tuple)
-            found = (names, (lambda obj: (get(obj),)) if one else get)
+            found = (names, _values_getter(names))
         else:
             found = False
         _FIELDS[cls] = found
     return found
 
 
+def _values_getter(names: tuple[str, ...]) -> Callable[[Any], tuple[Any, ...]]:
+    """A getter of the attributes ``names`` of an object, as a tuple in that order."""
+    if not names:
+        return lambda _obj: ()
+    get = operator.attrgetter(*names)
+    if len(names) == 1:  # (attrgetter of one name gives the value, not a tuple)
+        return lambda obj: (get(obj),)
+    return get
+
+
 def _dropped(cls: type, names: tuple[str, ...], per_satellite: bool) -> tuple[int, ...]:
-    """Positions of the fields of ``cls`` (names ``names``) that a report leaves empty."""
+    """Positions of the fields of ``cls`` (names ``names``) that a report leaves empty.
+
+    By class, wherever the record sits in the message: a report's snapshots are its stations'
+    (``DaemonSnapshot.stations[i].snapshot``), and no other record of a report holds one; a
+    record that ever carries a snapshot the main process needs whole must not go in a report."""
     key = (cls, per_satellite)
     found = _DROPPED.get(key)
     if found is None:
@@ -151,12 +163,13 @@ def _dropped(cls: type, names: tuple[str, ...], per_satellite: bool) -> tuple[in
 
 
 def _empty_like(value: object) -> object:
-    """What a report carries for a dropped field: an empty array of its dtype, or ``()``."""
+    """What a report carries for a dropped field: an empty array of its dtype, or ``()``. (The
+    same array for every field of that dtype: pickle writes it once, and the main process gets
+    one writeable empty array per dtype and report, which no code can write an element into.)"""
     if isinstance(value, np.ndarray):
         empty = _EMPTY.get(value.dtype)
         if empty is None:
             empty = _EMPTY[value.dtype] = np.empty(0, value.dtype)
-            empty.setflags(write=False)
         return empty
     return () if isinstance(value, tuple) else value
 
