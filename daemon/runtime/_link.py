@@ -102,8 +102,8 @@ _FIELDS: dict[type, tuple[tuple[str, ...], Callable[[Any], tuple[Any, ...]]] | b
 #: Per class and report kind (with or without per-satellite columns): the positions of the fields
 #: a report leaves empty (``()`` when it carries them all).
 _DROPPED: dict[tuple[type, bool], tuple[int, ...]] = {}
-#: One read-only empty array per dtype: what a report carries in place of a dropped array (pickle
-#: writes it once per report and refers back to it after).
+#: One empty array per dtype: what a report carries in place of a dropped array (pickle writes it
+#: once per report and refers back to it after).
 _EMPTY: dict[np.dtype[Any], npt.NDArray[Any]] = {}
 
 
