@@ -12,7 +12,9 @@ the time from the first station's ``feed`` to the last station's estimate is tak
 and the slack work run after each burst, untimed. Both orders do the same work on the same
 stations: "phased" only holds each station's epoch (its route swapped for one that keeps it)
 until every station's frames are decoded, then routes the held epochs in station order. No
-publishing: what this measures is the interpreter's and numpy's cost of the order alone.
+publishing: what this measures is the interpreter's and numpy's cost of the order alone. (In the
+daemon, end to end, the order alone did not move the p99: DEVELOPERS.md, "What would reach the
+line".)
 
 Figures depend on the machine and on other load (shared dev boxes: note contention).
 """
