@@ -3,7 +3,8 @@ after the epoch and leaves the heavy part — the receiver-bias fit every 30 s a
 evaluated ahead for the next epoch's refresh — to ``settle_slack``, which the daemon runs midway
 to the next epoch (issue 8: with every station's fit and refresh in the same second, those
 seconds set the latency tail). It changes when work runs, never a figure: every estimator entry
-point settles a pending fit first, and orbits evaluated ahead are used only while still valid.
+that changes what a pending fit reads settles it first, and orbits evaluated ahead are used only
+while still valid.
 
 Input: the simulator's invented quiet-day stream (our own scenario, daemon/sim), one chunk per
 second (1 Hz by construction), long enough for several fits and refreshes; and a real capture
