@@ -14,7 +14,9 @@ release, AVX-512 or not) until 2026-12-03, when an AMD EPYC with AVX-512 matched
 Intel Xeon with AVX-512 and failed its digests. They are now keyed by the fingerprint of the Xeon
 they passed on, ``d82fbd5e3857987e`` (inferred: the last session on that Xeon reported 1,956 tests
 passed with none skipped, so the urgent-cuts digests, kept only under that fingerprint, were found
-there, and the label's digests held there too), and there is no label fallback.
+there, and the label's digests held there too), and there is no label fallback. An AMD EPYC of
+family 25 with AVX-512 (2026-12-04) has that fingerprint too, and every golden test passed there
+(1,960 tests, none skipped): a fingerprint names a floating-point platform, not a CPU.
 """
 
 from __future__ import annotations

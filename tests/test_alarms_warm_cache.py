@@ -107,7 +107,8 @@ _SETTINGS = {
 #: code before this change (e44e582^, equal to the previous implementation) on that platform.
 _GOLDEN_BY_PLATFORM: dict[str, dict[tuple[str, str], tuple[int, str]]] = {
     # x86-64 with AVX-512 (an Intel Xeon), captured 2026-12-03 before fingerprints were recorded,
-    # under a coarser label; keyed by the fingerprint of the machine they passed on since
+    # under a coarser label; keyed by the fingerprint of the machine they passed on since (an AMD
+    # EPYC of family 25 has it too: they passed there, 2026-12-04)
     "d82fbd5e3857987e": {
         ("storm-front/HARC", "default"): (
             1,

@@ -33,7 +33,8 @@ DEMO = Path(__file__).resolve().parents[1] / "daemon" / "data" / "demo.bin"
 #: own previous code (the estimator before the cuts, 59a3a98^) run on that platform.
 GOLDEN_BY_PLATFORM: dict[str, dict[str, str]] = {
     # x86-64 with AVX-512 (an Intel Xeon), captured 2026-12-03 before fingerprints were recorded,
-    # under a coarser label; keyed by the fingerprint of the machine they passed on since
+    # under a coarser label; keyed by the fingerprint of the machine they passed on since (an AMD
+    # EPYC of family 25 has it too: they passed there, 2026-12-04)
     "d82fbd5e3857987e": {
         "demo": "6e74d34044809c3215e4c5f2c212b2694c1da8d5d552325995ad3005d1862bc4",
         "quiet-day": "beb80db0c2ad3555a02cfa90e0d4adfa31485b3100f6c08b8713699800be900f",

@@ -54,7 +54,8 @@ _FIELDS_IN_ORDER = ("vtec_tecu", "roti_max", "roti_median", "rot_max_abs",
 
 #: Golden digests per floating-point platform, captured from 566fd88 (before these cuts).
 GOLDEN_BY_PLATFORM: dict[str, dict[str, str]] = {
-    # x86-64 AVX-512 (numpy 2.4), an Intel Xeon, captured 2026-12-03 from 566fd88
+    # x86-64 AVX-512 (numpy 2.4), an Intel Xeon, captured 2026-12-03 from 566fd88; also an AMD
+    # EPYC of family 25 (2026-12-04), where they passed
     "d82fbd5e3857987e": {
         "storm": "266b839ad43dca718bd1148e51395593641fc21764effbf15af36ee05f0abfe1",
         "band-outage": "aae0b99b95361781f6aaa2bf72cf1a77d2138b4de29285f53b95f0baf635f874",

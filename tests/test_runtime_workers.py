@@ -32,7 +32,7 @@ import numpy as np
 import pytest
 from prometheus_client import CollectorRegistry
 
-from ionwarden.daemon.alarms import StationAlarms
+from ionwarden.daemon.alarms import AlarmStatus, StationAlarms
 from ionwarden.daemon.config import AlarmSettings, EstimatorSettings, PrometheusSettings
 from ionwarden.daemon.estimator import StationPipeline, StationSnapshot
 from ionwarden.daemon.outputs import (
@@ -60,6 +60,7 @@ from ionwarden.daemon.runtime._pool import (
 )
 from ionwarden.daemon.runtime._supervisor import tick_delay_s
 from ionwarden.daemon.sim import Simulator, build_scenario, iter_stream
+from ionwarden.parsers import GpsTime
 
 from ._mqtt_support import BROKER_HOST, BROKER_PORT, need, port_open, unique_prefix
 from .conftest import REPO
@@ -319,6 +320,51 @@ def test_a_slim_report_equals_the_previous_view(per_satellite: bool) -> None:
     assert dropped.size == 0
     assert dropped.flags.writeable  # (as the previous view's were)
     assert type(pickle.loads(_dumps((_NoFields(),), per_satellite))[0]) is _NoFields
+
+
+def test_alarm_statuses_and_queues_cross_as_columns() -> None:
+    """A report's alarm statuses and queue figures (tuples of records of one class) are pickled
+    as one tuple of values per field, not one reduce per record: they unpickle to the same
+    records in the same order (a ``since`` time, NaN values, enums), and so does a tuple that
+    is not all of one class, or too short, or empty."""
+    full = _daemon_snapshot(_real_snapshot())
+    alarms = full.alarms
+    assert len(alarms) >= 4
+    since = GpsTime(2400, 345600.0)
+    varied = (
+        dataclasses.replace(alarms[0], since=since, value=math.nan),
+        *alarms[1:-1],
+        dataclasses.replace(alarms[-1], pending=True, value=-0.0),
+    )
+    queues = (
+        *full.queues,
+        QueueFigures(stage="mqtt", station="", depth=2, capacity=1000, peak=9, dropped_total=4),
+    )
+    for snap in (
+        dataclasses.replace(full, alarms=varied, queues=queues),
+        dataclasses.replace(full, alarms=(*varied, full.queues[0]), queues=()),  # mixed classes
+        dataclasses.replace(full, alarms=varied[:1], queues=queues[:1]),  # one record each
+    ):
+        data = _dumps(Report(snap), True)
+        back = pickle.loads(data)
+        assert _same(back.snapshot.alarms, snap.alarms)
+        assert _same(back.snapshot.queues, snap.queues)
+        signs = [  # (-0.0 stays negative)
+            math.copysign(1.0, a.value)
+            for a in (*back.snapshot.alarms, *snap.alarms)
+            if isinstance(a, AlarmStatus)
+        ]
+        assert signs[: len(signs) // 2] == signs[len(signs) // 2 :]
+        assert _same(pickle.loads(_dumps(snap)), snap)  # (a whole message too)
+    # The columns are what went: one rebuild of the tuple, no reduce per status.
+    columns = pickle.dumps(
+        Report(dataclasses.replace(full, alarms=varied, queues=queues)), protocol=5
+    )
+    assert b"_rebuild_columns" in _dumps(Report(dataclasses.replace(full, alarms=varied)), True)
+    assert b"_rebuild_columns" not in columns  # (the standard pickler, for contrast)
+    assert b"_rebuild_columns" not in _dumps(
+        Report(dataclasses.replace(full, alarms=(*varied, full.queues[0]), queues=())), True
+    )
 
 
 # -- the real daemon with two workers ---------------------------------------------------------------
