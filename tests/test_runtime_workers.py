@@ -357,11 +357,11 @@ def test_alarm_statuses_and_queues_cross_as_columns() -> None:
         assert signs[: len(signs) // 2] == signs[len(signs) // 2 :]
         assert _same(pickle.loads(_dumps(snap)), snap)  # (a whole message too)
     # The columns are what went: one rebuild of the tuple, no reduce per status.
-    columns = pickle.dumps(
+    standard = pickle.dumps(
         Report(dataclasses.replace(full, alarms=varied, queues=queues)), protocol=5
     )
     assert b"_rebuild_columns" in _dumps(Report(dataclasses.replace(full, alarms=varied)), True)
-    assert b"_rebuild_columns" not in columns  # (the standard pickler, for contrast)
+    assert b"_rebuild_columns" not in standard  # (the standard pickler, for contrast)
     assert b"_rebuild_columns" not in _dumps(
         Report(dataclasses.replace(full, alarms=(*varied, full.queues[0]), queues=())), True
     )
