@@ -107,30 +107,34 @@ _DROPPED: dict[tuple[type, bool], tuple[int, ...]] = {}
 _EMPTY: dict[np.dtype[Any], npt.NDArray[Any]] = {}
 
 
+#: Per class and message kind (``slim``): what the pickler writes in place of some of its fields,
+#: as (position, function of the field's value) pairs: a report's dropped fields emptied
+#: (:func:`_empty_like`), tuples of records as columns (:func:`_as_columns`); ``()``: none.
+_FIXUPS: dict[tuple[type, bool | None], tuple[tuple[int, Callable[[Any], object]], ...]] = {}
+
 #: Per frozen slots dataclass unpickled so far: its positional fast constructor.
 _BUILDERS: dict[type, Callable[..., object]] = {}
-#: Per class pickled so far: the positions of its fields whose tuple of records of one class is
-#: pickled as columns (``()``: none; see :class:`_Columns`).
-_COLUMNAR: dict[type, tuple[int, ...]] = {}
 #: A tuple of records goes as columns from this many records on.
 _COLUMNS_FROM = 2
 
 
-def _rebuild(cls: type, values: tuple[Any, ...]) -> object:
-    """Unpickle a frozen slots dataclass from its field values (what ``_Pickler`` wrote)."""
+def _builder(cls: type) -> Callable[..., object]:
+    """``cls``'s positional fast constructor, made at its first use."""
     build = _BUILDERS.get(cls)
     if build is None:
         build = _BUILDERS[cls] = fast_constructor(cls, positional=True)
-    return build(*values)
+    return build
+
+
+def _rebuild(cls: type, values: tuple[Any, ...]) -> object:
+    """Unpickle a frozen slots dataclass from its field values (what ``_Pickler`` wrote)."""
+    return _builder(cls)(*values)
 
 
 def _rebuild_columns(cls: type, columns: tuple[tuple[Any, ...], ...]) -> tuple[object, ...]:
     """Unpickle a tuple of records of ``cls`` from its columns (what ``_Pickler`` wrote for a
     :class:`_Columns`): the same records, in the same order, as one ``_rebuild`` each."""
-    build = _BUILDERS.get(cls)
-    if build is None:
-        build = _BUILDERS[cls] = fast_constructor(cls, positional=True)
-    return tuple(map(build, *columns))
+    return tuple(map(_builder(cls), *columns))
 
 
 class _Columns:
@@ -149,15 +153,25 @@ class _Columns:
 def _columnar(cls: type, names: tuple[str, ...]) -> tuple[int, ...]:
     """Positions of the fields of ``cls`` (names ``names``) pickled as columns when they hold
     records of one class: ``DaemonSnapshot.alarms`` and ``.queues``."""
-    found = _COLUMNAR.get(cls)
-    if found is None:
-        # (imported here: the outputs import the runtime)
-        from ionwarden.daemon.outputs import DaemonSnapshot  # noqa: PLC0415
+    # (imported here: the outputs import the runtime)
+    from ionwarden.daemon.outputs import DaemonSnapshot  # noqa: PLC0415
 
-        found = tuple(
-            i for i, n in enumerate(names) if cls is DaemonSnapshot and n in ("alarms", "queues")
-        )
-        _COLUMNAR[cls] = found
+    if cls is not DaemonSnapshot:
+        return ()
+    return tuple(i for i, n in enumerate(names) if n in ("alarms", "queues"))
+
+
+def _fixups(
+    cls: type, names: tuple[str, ...], slim: bool | None
+) -> tuple[tuple[int, Callable[[Any], object]], ...]:
+    """The entry of ``_FIXUPS`` for ``cls`` (names ``names``) in a message of kind ``slim``."""
+    key = (cls, slim)
+    found = _FIXUPS.get(key)
+    if found is None:
+        dropped = () if slim is None else _dropped(cls, names, slim)
+        fixed = sorted({*dropped, *_columnar(cls, names)})
+        found = tuple((i, _empty_like if i in dropped else _as_columns) for i in fixed)
+        _FIXUPS[key] = found
     return found
 
 
@@ -264,24 +278,15 @@ class _Pickler(pickle.Pickler):
             return NotImplemented
         names, get = found  # type: ignore[misc]
         values = get(obj)
-        columnar = _COLUMNAR.get(cls)
-        if columnar is None:
-            columnar = _columnar(cls, names)
-        if columnar:
-            as_list = list(values)
-            for i in columnar:
-                as_list[i] = _as_columns(as_list[i])
-            values = tuple(as_list)
         slim = self._slim
-        if slim is not None:
-            dropped = _DROPPED.get((cls, slim))
-            if dropped is None:
-                dropped = _dropped(cls, names, slim)
-            if dropped:
-                as_list = list(values)
-                for i in dropped:
-                    as_list[i] = _empty_like(as_list[i])
-                values = tuple(as_list)
+        fixups = _FIXUPS.get((cls, slim))
+        if fixups is None:
+            fixups = _fixups(cls, names, slim)
+        if fixups:
+            as_list = list(values)
+            for i, fix in fixups:
+                as_list[i] = fix(as_list[i])
+            values = tuple(as_list)
         return _rebuild, (cls, values)
 
 
