@@ -16,7 +16,10 @@ they passed on, ``d82fbd5e3857987e`` (inferred: the last session on that Xeon re
 passed with none skipped, so the urgent-cuts digests, kept only under that fingerprint, were found
 there, and the label's digests held there too), and there is no label fallback. An AMD EPYC of
 family 25 with AVX-512 (2026-12-04) has that fingerprint too, and every golden test passed there
-(1,960 tests, none skipped): a fingerprint names a floating-point platform, not a CPU.
+(1,960 tests, none skipped): a fingerprint names a floating-point platform, not a CPU. Another
+family-25 EPYC (2026-12-04, a later session) exposed AVX2 only and gave ``5cbd07108fd657e2``, the
+AVX2 machine's of 2026-12-03, whose lean-golden and warm-cache digests passed there; the
+urgent-cuts digests were captured there from 566fd88.
 """
 
 from __future__ import annotations

@@ -62,6 +62,14 @@ GOLDEN_BY_PLATFORM: dict[str, dict[str, str]] = {
         "scintillation": "1adec789d8ba92b9c97b0f610f20ffab7f680a696e4902d8797611c70a0774a1",
         "quiet-steady": "5ab01bea17844fac972acfba4d98027df20cb7c8896ee2884d286d91cd16b757",
     },
+    # x86-64 AVX2 (numpy 2.4), an AMD EPYC of family 25 without AVX-512, captured 2026-12-04
+    # from 566fd88 (its daemon and parsers, this module's digest)
+    "5cbd07108fd657e2": {
+        "storm": "fda63bb6e4b744fca1084a1887ab1fef59f73c2dcf8d0e107e7530c596406a7b",
+        "band-outage": "8a0a63968b48cfa537a2c35c672faf127fa85baca9cebecd80f3a44ade49972a",
+        "scintillation": "06f7d2ca048bf911ecc78fade0efe5086c6a92ed15a027d062a57d52fe303b71",
+        "quiet-steady": "b7675850e68157c92d914851fed74452097598e0943afed028ecf42799f88213",
+    },
     # x86-64 AVX-512 (numpy 2.4), AMD EPYC (family 26), captured 2026-12-03 from 566fd88
     "5ab1952dc3a158c0": {
         "storm": "89679b1db65287e416707fd2e1f8fda5d25cd0144ed37e3809148e339083dd8d",
