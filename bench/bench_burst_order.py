@@ -28,6 +28,7 @@ import time
 from typing import Any
 
 from ionwarden.daemon.estimator import StationPipeline
+from ionwarden.daemon.estimator._tick import TickBatch
 from ionwarden.daemon.runtime import FramingCore
 from ionwarden.daemon.sim import Simulator, build_scenario, iter_stream
 
@@ -51,9 +52,14 @@ def main() -> None:
     ap.add_argument("--bursts", type=int, default=60, help="bursts of each order (default 60)")
     ap.add_argument("--sleep", type=float, default=0.5, help="seconds before each burst")
     ap.add_argument("--warm-up", type=int, default=330, help="seconds of stream first (330)")
+    ap.add_argument(
+        "--batched",
+        action="store_true",
+        help="a third order: all decoded first, then every estimate as one TickBatch tick",
+    )
     args = ap.parse_args()
 
-    sc = build_scenario("quiet-day", duration_s=args.warm_up + 2 * args.bursts + 5.0)
+    sc = build_scenario("quiet-day", duration_s=args.warm_up + 3 * args.bursts + 5.0)
     chunks = [data for _, data in iter_stream(Simulator(sc), 0)]
     cores = _stations(args.stations, chunks, args.warm_up, sc.start)
     pipes: list[StationPipeline] = [c._consumer for c in cores]  # type: ignore[misc]
@@ -70,11 +76,13 @@ def main() -> None:
         return hold
 
     holders = [holder(i) for i in range(len(pipes))]
-    times: dict[str, list[float]] = {"interleaved": [], "phased": []}
+    orders = ("interleaved", "phased", "batched") if args.batched else ("interleaved", "phased")
+    times: dict[str, list[float]] = {o: [] for o in orders}
+    tick = TickBatch()
     gc.disable()  # (a collection inside one timed burst would count against its order)
     k = args.warm_up
-    for b in range(2 * args.bursts):
-        order = ("interleaved", "phased")[b % 2]
+    for b in range(len(orders) * args.bursts):
+        order = orders[b % len(orders)]
         chunk = chunks[k]
         k += 1
         time.sleep(args.sleep)
@@ -89,8 +97,13 @@ def main() -> None:
             t0 = time.perf_counter()
             for core in cores:
                 core.feed(chunk)
-            for epoch, (_, route) in zip(held, routes, strict=True):
-                route(epoch)
+            if order == "phased":
+                for epoch, (_, route) in zip(held, routes, strict=True):
+                    route(epoch)
+            else:  # the held epochs as one tick (what _on_epoch does besides: the epoch time)
+                tick.update([(p.estimator, e) for p, e in zip(pipes, held, strict=True)])
+                for p, e in zip(pipes, held, strict=True):
+                    p._last_t = e.time
             t1 = time.perf_counter()
             for p, (key, route) in zip(pipes, routes, strict=True):
                 p._routes[key] = route
@@ -108,6 +121,12 @@ def main() -> None:
         print(
             f"  {order:<11}  median {statistics.median(v):.2f} ms  p90 {v[int(0.9 * len(v))]:.2f} ms"
             f"  min {v[0]:.2f} ms"
+        )
+
+    if args.batched:
+        print(
+            f"  (tick: {tick.served_batched} station-epochs by the shared core, "
+            f"{tick.served_alone} by their own paths)"
         )
 
 

@@ -219,6 +219,36 @@ class ArcState:
         lock per satellite (None: none this epoch); ``all_tracked``: every arc has two samples or
         more (None: unknown); ``no_new``: all False, read-only (returned when no arc starts).
         """
+        cont = self.try_continue(b, t, gf_mw, el_rad, el_known, cur, lli_lost, gap_s, all_tracked)
+        if cont is None:
+            return no_new, None
+        dt, screen, all_tracked, tracked = cont
+        out = self._general(b, t=t, dt=dt, gf_mw=gf_mw, res=b.res, jump=b.jump, cur=cur,
+                            lli_lost=lli_lost, gap_s=gap_s, screen=screen,
+                            all_tracked=all_tracked, tracked=tracked)  # fmt: skip
+        b.t_all = float(t)  # (``_general`` writes t into every last_t too)
+        return out
+
+    def try_continue(  # noqa: PLR0917 - called positionally: a keyword costs ~600 instructions
+        self,
+        b: ArcBlock,
+        t: float | F64,
+        gf_mw: F64,
+        el_rad: F64,
+        el_known: bool,
+        cur: F64,
+        lli_lost: Bool | None,
+        gap_s: float,
+        all_tracked: bool | None,
+    ) -> tuple[F64, bool, bool, Bool | None] | None:
+        """:meth:`detect`'s common case: when no test fires and every arc has two samples or
+        more, every arc continues and learns from its residuals (the block updated in place) and
+        None is returned. Otherwise nothing of the block is changed but its work rows and
+        buffers (``DT``, ``GF_PRED``, ``MW_THR``, ``GF_FLOOR``, ``b.diff``, ``b.jump``: what
+        any later test writes again before it reads them) and (dt, screen, all_tracked,
+        tracked) for the general path is returned: the batched tick screens several stations'
+        blocks laid side by side this way and, when one of them needs the general path, runs
+        every station alone (tests/test_estimator_tick.py)."""
         g, d = b.g, b.d
         assert gf_mw.shape == (b.n_ref, d), gf_mw.shape
         assert el_rad.shape == (d,), el_rad.shape
@@ -313,12 +343,8 @@ class ArcState:
             b.last_t.fill(t)
             b.t_all = float(t)
             b.prev[...] = cur
-            return no_new, None
-        out = self._general(b, t=t, dt=dt, gf_mw=gf_mw, res=res, jump=jump, cur=cur,
-                            lli_lost=lli_lost, gap_s=gap_s, screen=bool(screen),
-                            all_tracked=bool(all_tracked), tracked=tracked)  # fmt: skip
-        b.t_all = float(t)  # (``_general`` writes t into every last_t too)
-        return out
+            return None
+        return dt, bool(screen), bool(all_tracked), tracked
 
     def _general(
         self, b: ArcBlock, *, t: float | F64, dt: F64, gf_mw: F64, res: F64, jump: Bool, cur: F64,

@@ -29,7 +29,7 @@ from __future__ import annotations
 
 import copy
 import math
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, Protocol
 
 import numpy as np
 import numpy.typing as npt
@@ -87,6 +87,7 @@ __all__ = ["StationEstimator"]
 
 F64 = npt.NDArray[np.float64]
 Idx = npt.NDArray[np.intp]
+Bool = npt.NDArray[np.bool_]
 N_SIG = 10 * 32  # packed signal codes are band*32 + attribute, bands 0–9
 #: An epoch this much older than the last one restarts the time-dependent state (s).
 _TIME_RESET_S = 3600.0
@@ -107,6 +108,26 @@ _SPREAD = ("stec", "rot", "roti", "iono_l1", "if_code", "if_phase", "hatch", "mp
 #: The figures of :meth:`StationEstimator._dual`, in the order above (a tuple: no dict to build
 #: and read back each epoch).
 _Dual = tuple[npt.NDArray[Any], ...]
+#: :meth:`StationEstimator._pre`'s inputs of an epoch's estimate: (layout, geometry rows, its
+#: source, every elevation known, el and sin(el) of the satellites present, of the
+#: dual-frequency ones).
+_Pre = tuple[EpochLayout, F64, str, bool, F64, F64, F64, F64]
+
+
+class BlockRows(Protocol):
+    """The rows and buffers of a working block that :func:`level` and :func:`smooth` use: a
+    station's ``_Block``, or several stations' blocks side by side (``_tick``)."""
+
+    w: F64
+    lev_sw: F64
+    n: F64
+    means: F64
+    step: F64
+    step_lev: F64
+    step_mp: F64
+    hatch: F64
+    ifl_prev: F64
+    prev: F64
 
 
 #: (reason bit, its counter), in the order of ``REASON_NAMES``.
@@ -126,6 +147,48 @@ def _tally_reasons(counters: dict[str, int], reason: npt.NDArray[np.int64]) -> b
                 if r & bit:
                     counters[key] += 1
     return pair != 0
+
+
+def level(b: BlockRows, sin_el: F64, el: F64, el_known: bool) -> None:
+    """Levelling: the running sin²el-weighted mean of K·(P2 − P1) − K·GF over the arc, and the
+    running arc means of MP1/MP2, as one stack: mean += (sample − mean)·(w/Σw) for the levelling
+    row, (sample − mean)/n for the MP rows (``b.step`` holds the samples minus the means)."""
+    w = np.maximum(sin_el, _LEV_FLOOR, out=b.w)
+    w *= w
+    if not el_known:
+        w = np.where(np.isnan(el), 1.0, w)
+    b.lev_sw += w
+    w /= b.lev_sw
+    b.step_lev *= w
+    b.step_mp /= b.n
+    b.means += b.step
+
+
+def smooth(  # noqa: PLR0917 - called positionally: a keyword costs ~600 instructions
+    b: BlockRows, if_code: F64, if_phase: F64, hc: tuple[float, float, F64, F64],
+    full: bool, new: Bool | None,
+) -> F64:  # fmt: skip
+    """Hatch filter (reset per arc) of the iono-free code: the smoothed code (a new array), the
+    block's HATCH and IFL_PREV rows updated. ``hc``: ``StationEstimator.hatch_consts``; ``full``:
+    every arc is longer than the window (N fixed: the same bits as the general formula, which
+    divides by min(n, N)); ``new``: the arcs that start (None: none)."""
+    prev = np.add(b.hatch, if_phase, b.prev)
+    prev -= b.ifl_prev
+    if full:
+        hatch = if_code / hc[2]
+        prev *= hc[3]
+    else:  # (the 0-d window and one: no Python float to convert per call)
+        n_h = np.minimum(b.n, hc[2])
+        hatch = if_code / n_h
+        q = np.subtract(n_h, _ONE)
+        q /= n_h  # (N − 1)/N
+        prev *= q
+    hatch += prev
+    if new is not None:
+        np.copyto(hatch, if_code, where=new)  # (hatch is this epoch's own array)
+    b.hatch[...] = hatch
+    b.ifl_prev[...] = if_phase
+    return hatch
 
 
 class _Block:
@@ -332,6 +395,23 @@ class StationEstimator:
     # -- the hot path -------------------------------------------------------------------------------
     def update(self, epoch: ObsEpoch) -> StationSnapshot:
         """Process one epoch (time from the epoch) and return the station snapshot."""
+        t = self._begin(epoch)
+        if t is None:  # out of order: counted, the last snapshot again
+            return self._last if self._last is not None else self._empty(epoch)
+        # NaN marks "unknown" throughout: silence the invalid/0-division warnings it causes
+        # (np.errstate(invalid="ignore", divide="ignore", over="ignore"), its state made once).
+        token = _quiet_enter()
+        try:
+            snap = self._update(epoch, t, self._interval)
+        finally:
+            _quiet_exit(token)
+        self._last = snap
+        return snap
+
+    def _begin(self, epoch: ObsEpoch) -> float | None:
+        """:meth:`update`'s bookkeeping before the estimate (a pending fit settled, a loaded
+        state applied, a time reset, the sampling interval, the epoch counters): the epoch's
+        time (s), or None for an epoch out of order (counted, not estimated)."""
         if self._pending_fit is not None:
             self.settle()
         self._ahead = None  # not evaluated ahead: the lookup evaluates it
@@ -344,7 +424,7 @@ class StationEstimator:
             self._restart_time()  # a replay restarted, or the receiver's clock was reset
         elif t <= self._last_epoch_t:
             self.counters["epochs_out_of_order"] += 1
-            return self._last if self._last is not None else self._empty(epoch)
+            return None
         if math.isfinite(self._last_epoch_t):
             dt = t - self._last_epoch_t
             self._intervals[self._n_epochs % _INTERVAL_HISTORY] = dt
@@ -354,21 +434,21 @@ class StationEstimator:
         self._last_epoch_t = t
         self._n_epochs += 1
         self.counters["epochs"] += 1
-        # NaN marks "unknown" throughout: silence the invalid/0-division warnings it causes
-        # (np.errstate(invalid="ignore", divide="ignore", over="ignore"), its state made once).
-        token = _quiet_enter()
-        try:
-            snap = self._update(epoch, t, self._interval)
-        finally:
-            _quiet_exit(token)
-        self._last = snap
-        return snap
+        return t
 
     def _update(self, epoch: ObsEpoch, t: float, interval: float) -> StationSnapshot:
+        pre = self._pre(epoch, t)
+        lay, _, _, el_known, _, _, el, sin_el = pre
+        figs = self._dual(epoch, lay, t, interval, el, sin_el, el_known)  # (positional: cheaper)
+        return self._post(epoch, t, interval, pre, figs)
+
+    def _pre(self, epoch: ObsEpoch, t: float) -> _Pre:
+        """The estimate's inputs before the per-satellite figures: the layout, the geometry (el,
+        az, pierce lat, lon rows), its source, whether every elevation is known, the elevations
+        and sin(el) of every satellite present and of the dual-frequency ones."""
         lay = self.cells.layout(epoch)
         self.counters["cells_unusable"] += lay.n_unusable
         present = lay.present
-        m = present.shape[0]
         geo, geo_source = self.geometry.lookup(present, t)
         el_known = self.geometry.all_known  # orbit geometry for all: no elevation is NaN
         el_all = geo[0]
@@ -376,7 +456,16 @@ class StationEstimator:
         sin_all = np.sin(el_all)
         el = el_all if lay.all_dual else el_all[lay.has]
         sin_el = sin_all if lay.all_dual else sin_all[lay.has]
-        figs = self._dual(epoch, lay, t, interval, el, sin_el, el_known)  # (positional: cheaper)
+        return lay, geo, geo_source, el_known, el_all, sin_all, el, sin_el
+
+    def _post(
+        self, epoch: ObsEpoch, t: float, interval: float, pre: _Pre, figs: _Dual
+    ) -> StationSnapshot:
+        """The snapshot of the epoch from :meth:`_pre`'s inputs and :meth:`_dual`'s figures
+        (the station figures, the receiver-bias fit when due, the records)."""
+        lay, geo, geo_source, el_known, el_all, sin_all, _, _ = pre
+        present = lay.present
+        m = present.shape[0]
         (stec, rot, roti, iono_l1, if_code, if_phase, hatch, mp1, mp2, noise, relevel,
          stec_raw, lev, b_sat, n_arc, arc, new, pair_switch) = figs  # fmt: skip
         if not lay.all_dual:  # per-pair-satellite arrays over every satellite present
@@ -511,6 +600,41 @@ class StationEstimator:
         self._sync()
         return self._st
 
+    def _dual_in(
+        self, epoch: ObsEpoch, lay: EpochLayout, interval: float
+    ) -> tuple[_Block, Bool | None, float]:
+        """The first part of :meth:`_dual`: the layout's block with this epoch's measurements
+        (``meas``: L1, L2 in m, P1, P2) and cell values (``cur``) gathered into its buffers and
+        its smallest arc length known; and the loss-of-lock flags (None: none) and the slip
+        tests' gap (s) of the epoch."""
+        blk = self._block(lay)
+        i12 = blk.i12_2
+        meas_l = epoch.phase_cycles.take(i12, None, blk.meas_l, "clip")  # (out, mode)
+        meas_l *= lay.wavelength_m
+        epoch.pseudorange_m.take(i12, None, blk.meas_p, "clip")
+        lli_lost = None
+        lli = epoch.lli
+        if lli is not self._lli_clear:  # (a read-only array seen all zero: zero still)
+            if _count_nonzero(lli):
+                lli_lost = np.logical_or.reduce(lli[i12] & 1, axis=0)
+            elif not lli.flags.writeable:
+                self._lli_clear = lli
+        gap = self._gap
+        if gap[0] != interval:  # the slip tests' gap (s) at this sampling interval
+            self._gap = gap = (interval, max(self.settings.max_gap_s,
+                                             self.settings.gap_samples * interval))  # fmt: skip
+        # Half-cycle flags, lock indicators and lock times of both bands, in block-row order:
+        # the three cell arrays as float rows, then one gather of both bands.
+        c0, c1, c2 = blk.cell_rows
+        c0[...] = epoch.half_cycle
+        c1[...] = epoch.lock_indicator
+        c2[...] = epoch.lock_time_s
+        blk.cells.take(blk.i12, 1, blk.cur_flags, "clip")  # (axis, out, mode)
+        if math.isnan(blk.n_min):
+            g = blk.g
+            blk.n_min = float(np.minimum.reduce(g[N])) if g.shape[1] else math.inf  # g[N].min()
+        return blk, lli_lost, gap[1]
+
     def _dual(  # noqa: PLR0917 - called positionally: a keyword costs ~600 instructions
         self, epoch: ObsEpoch, lay: EpochLayout, t: float, interval: float, el: F64,
         sin_el: F64, el_known: bool,
@@ -523,44 +647,16 @@ class StationEstimator:
         §3/§9 come out of one product with ``lay.comb``. Arrays returned are new each epoch or
         read-only: snapshots hand them on.
         """
-        blk = self._block(lay)
+        blk, lli_lost, gap_s = self._dual_in(epoch, lay, interval)
         g = blk.g
-        idx = lay.idx
-        i12 = blk.i12_2
-        d = idx.shape[0]
-        meas_l = epoch.phase_cycles.take(i12, None, blk.meas_l, "clip")  # (out, mode)
-        meas_l *= lay.wavelength_m
-        epoch.pseudorange_m.take(i12, None, blk.meas_p, "clip")
         comb = _einsum("kjd,jd->kd", lay.comb, blk.meas)  # (combinations, d)
         gf_tecu = comb[GFT_ROW]
         if_code = comb[IFC_ROW]
         if_phase = comb[IFP_ROW]
-        lli_lost = None
-        lli = epoch.lli
-        if lli is not self._lli_clear:  # (a read-only array seen all zero: zero still)
-            if _count_nonzero(lli):
-                lli_lost = np.logical_or.reduce(lli[i12] & 1, axis=0)
-            elif not lli.flags.writeable:
-                self._lli_clear = lli
-        gap = self._gap
-        if gap[0] != interval:  # the slip tests' gap (s) at this sampling interval
-            self._gap = gap = (interval, max(self.settings.max_gap_s,
-                                             self.settings.gap_samples * interval))  # fmt: skip
-        gap_s = gap[1]
-        # Half-cycle flags, lock indicators and lock times of both bands, in block-row order:
-        # the three cell arrays as float rows, then one gather of both bands.
-        c0, c1, c2 = blk.cell_rows
-        c0[...] = epoch.half_cycle
-        c1[...] = epoch.lock_indicator
-        c2[...] = epoch.lock_time_s
-        cur = blk.cur
-        blk.cells.take(blk.i12, 1, blk.cur_flags, "clip")  # (axis, out, mode)
-        if math.isnan(blk.n_min):
-            blk.n_min = float(np.minimum.reduce(g[N])) if d else math.inf  # g[N].min()
         # One subtraction for the slip tests, the levelling and MP steps and ROT (``_state``).
         # (b, t, gf_mw, el_rad, el_known, cur, lli_lost, gap_s, all_tracked, no_new: positional)
         new, reason = self.arcs.detect(
-            blk.arcs, t, comb[: GFT_ROW + 1], el, el_known, cur, lli_lost, gap_s,
+            blk.arcs, t, comb[: GFT_ROW + 1], el, el_known, blk.cur, lli_lost, gap_s,
             blk.n_min >= 2.0, lay.no_lli,
         )  # fmt: skip
         any_new = reason is not None
@@ -578,40 +674,37 @@ class StationEstimator:
             arc = blk.arc
             blk.n_min += 1.0
         n_arc = blk.n
-        sw = blk.lev_sw
-        lev = blk.lev
-        means = blk.means  # levelling offset, MP1 and MP2 arc means
-        step = blk.step  # their samples minus themselves
-        rel = blk.rel  # K·GF relative to the arc's first
         if any_new:
             # Arc starts reset every per-arc accumulator (levelling, ROT origin, Hatch, MP means).
             # (In place where an arc starts: what ``np.where(~new, row, start)`` gives.)
             lev_mp = comb[LEVX_ROW : MP2_ROW + 1]
             np.copyto(blk.gf0, gf_tecu, where=new)
-            np.copyto(sw, _ZERO, where=new)
-            np.copyto(lev, lev_mp[0], where=new)
+            np.copyto(blk.lev_sw, _ZERO, where=new)
+            np.copyto(blk.lev, lev_mp[0], where=new)
             np.copyto(blk.mp_mean, _ZERO, where=new)
-            np.subtract(lev_mp, means, out=step)
-            np.subtract(gf_tecu, blk.gf0, out=rel)
-
-        # Levelling: running sin²el-weighted mean of K·(P2 − P1) − K·GF over the arc, and the
-        # running arc means of MP1/MP2, as one stack: mean += (sample − mean)·(w/Σw) for the
-        # levelling row, (sample − mean)/n for the MP rows.
-        w = np.maximum(sin_el, _LEV_FLOOR, out=blk.w)
-        w *= w
-        if not el_known:
-            w = np.where(np.isnan(el), 1.0, w)
-        sw += w
-        w /= sw
-        blk.step_lev *= w
-        blk.step_mp /= n_arc
-        means += step
-        stec_raw = gf_tecu + lev
+            np.subtract(lev_mp, blk.means, out=blk.step)
+            np.subtract(gf_tecu, blk.gf0, out=blk.rel)
+        level(blk, sin_el, el, el_known)  # (b, sin_el, el, el_known: positional)
+        stec_raw = gf_tecu + blk.lev
         mp = comb[MP1_ROW : MP2_ROW + 1]
         mp -= blk.mp_mean
         # The bias tables change every receiver_bias_update_s at most: reuse the correction,
         # except when an arc starts while levelling corrections are held (it drops its
         # predecessor's; without any, the correction does not depend on the arcs).
+        b_sat, total_bias, relevel = self.bias_correction(lay, blk, any_new)
+        stec = stec_raw - total_bias
+        rot, roti = self.rot_roti(t, lay.idx, blk.rel, arc, interval)
+        hc = self.hatch_consts(interval)
+        hatch = smooth(blk, if_code, if_phase, hc, not any_new and blk.n_min >= hc[1],
+                       new if any_new else None)  # fmt: skip
+        return (stec, rot, roti, stec * blk.l1m, if_code, if_phase, hatch, comb[MP1_ROW],
+                comb[MP2_ROW], blk.noise, relevel, stec_raw, blk.lev, b_sat, n_arc, arc, new,
+                pair_switch)  # fmt: skip
+
+    def bias_correction(self, lay: EpochLayout, blk: _Block, any_new: bool) -> tuple[F64, F64, F64]:
+        """The bias tables' correction of the block's satellites (b_sat, total, relevel): the
+        cached one of the same layout and tables version, unless an arc starts while levelling
+        corrections are held (it drops its predecessor's)."""
         cached, biases = self._bias_cache, self.biases
         ver = biases.version
         if (
@@ -620,12 +713,14 @@ class StationEstimator:
             and cached[1] == ver
             and not (any_new and biases.per_arc)
         ):
-            b_sat, total_bias, relevel = cached[2], cached[3], cached[4]
-        else:
-            b_sat, total_bias, relevel = self._correction(lay, ver, g[K], arc)
-        stec = stec_raw - total_bias
+            return cached[2], cached[3], cached[4]
+        return self._correction(lay, ver, blk.g[K], blk.arc)
 
-        # ROT over the lag, from the arc-relative levelled phase; ROTI over the window.
+    def rot_roti(
+        self, t: float, idx: Idx, rel: F64, arc: npt.NDArray[np.int32], interval: float
+    ) -> tuple[F64, F64]:
+        """ROT over the lag, from the arc-relative levelled phase ``rel``, and ROTI over the
+        window, of the satellites ``idx`` (new arrays)."""
         lagged, t_lag = self.rot_ring.lag_push(t, idx, rel, arc, interval)
         if math.isfinite(t_lag):
             rot = np.subtract(rel, lagged, lagged)
@@ -635,34 +730,17 @@ class StationEstimator:
             rot *= rs[1]
         else:
             rot = lagged
-        roti = self.roti_window.push_std(t, idx, rot, self.settings.roti_min_samples)
+        return rot, self.roti_window.push_std(t, idx, rot, self.settings.roti_min_samples)
 
-        # Hatch filter (reset per arc) of the iono-free code, code-minus-carrier multipath.
+    def hatch_consts(self, interval: float) -> tuple[float, float, F64, F64]:
+        """The Hatch filter's constants at this sampling interval: (interval, window N, N and
+        (N − 1)/N as 0-d arrays: no Python float to convert per call)."""
         hc = self._hatch_consts
         if hc[0] != interval:
             window = max(self.settings.hatch_window_s / interval, 1.0)
             self._hatch_consts = hc = (interval, window, np.array(window),
                                        np.array((window - 1.0) / window))  # fmt: skip
-        window = hc[1]
-        prev = np.add(blk.hatch, if_phase, blk.prev)
-        prev -= blk.ifl_prev
-        if not any_new and blk.n_min >= window:  # every arc longer than the window: N fixed
-            hatch = if_code / hc[2]
-            prev *= hc[3]
-        else:  # (the 0-d window and one: no Python float to convert per call)
-            n_h = np.minimum(n_arc, hc[2])
-            hatch = if_code / n_h
-            q = np.subtract(n_h, _ONE)
-            q /= n_h  # (N − 1)/N
-            prev *= q
-        hatch += prev
-        if any_new:
-            np.copyto(hatch, if_code, where=new)  # (hatch is this epoch's own array)
-        blk.hatch[...] = hatch
-        blk.ifl_prev[...] = if_phase
-        return (stec, rot, roti, stec * blk.l1m, if_code, if_phase, hatch, comb[MP1_ROW],
-                comb[MP2_ROW], blk.noise, relevel, stec_raw, lev, b_sat, n_arc, arc, new,
-                pair_switch)  # fmt: skip
+        return hc
 
     def _update_receiver_bias(
         self, t: float, *, lay: EpochLayout, stec_raw: F64, lev: F64, b_sat: F64, n_arc: F64,
