@@ -101,6 +101,13 @@ class StationPipeline:
         self._defer = defer
         self._slack = defer and slack
         self._deferred: list[object] = []
+        #: Set by the daemon for its batched tick (``hold``, :meth:`take_held`).
+        self.hold = False
+        #: The last epoch of a chunk, routed and not estimated yet (``hold``).
+        self._held: ObsEpoch | None = None
+        #: Outputs of held epochs estimated by an entry that returns none (a checkpoint's
+        #: ``state_dict``), for the next entry that returns outputs.
+        self._stash: list[PipelineOutput] = []
         # NmeaOther has no route here: checked and counted, never built
         self.decoder = StreamDecoder(reference_time, emit_nmea_other=False)
         self.decoder.nmea_wanted = _FALLBACK_SENTENCES  # the sentences routed below
@@ -136,7 +143,12 @@ class StationPipeline:
     def unsettled(self) -> bool:
         """Work deferred by ``defer`` is pending (see :meth:`settle`; with ``slack``, what
         :meth:`settle_slack` does is not counted here but by :meth:`slack_after_s`)."""
-        return bool(self._deferred) or (not self._slack and self.estimator.unsettled())
+        return (
+            bool(self._deferred)
+            or self._held is not None
+            or bool(self._stash)
+            or (not self._slack and self.estimator.unsettled())
+        )
 
     def settle(self) -> list[PipelineOutput]:
         """Do the deferred work (in the order it would have run undeferred) and return the
@@ -156,16 +168,55 @@ class StationPipeline:
     def settle_slack(self) -> list[PipelineOutput]:
         """Do all deferred work: :meth:`settle`'s, then the receiver-bias fit and the orbits
         evaluated ahead for the next epoch."""
-        out = self._settle_deferred() if self._deferred else []
+        out = (
+            self._settle_deferred()
+            if self._deferred or self._held is not None or self._stash
+            else []
+        )
         self.estimator.settle()
         self.estimator.prefetch()
         return out
 
     def _settle_deferred(self) -> list[PipelineOutput]:
+        out = self._release() if self._held is not None or self._stash else []
         if not self._slack:  # (with slack the fit waits: an entry that changes what it reads
             self.estimator.settle()  # settles it first)
         rest, self._deferred = self._deferred, []
-        return self.handle(rest) if rest else []
+        if rest:
+            out += self.handle(rest)
+        return out
+
+    # -- the daemon's batched tick ------------------------------------------------------------------
+    @property
+    def holding(self) -> bool:
+        """An epoch is held for the tick (``hold``)."""
+        return self._held is not None
+
+    def take_held(self) -> ObsEpoch | None:
+        """The held epoch (``hold``), for the tick to estimate; the tick hands the snapshot back
+        through :meth:`finish_epoch` before any other entry of this pipeline."""
+        epoch, self._held = self._held, None
+        return epoch
+
+    def finish_epoch(self, epoch: ObsEpoch, snap: StationSnapshot) -> StationSnapshot:
+        """What routing ``epoch`` does besides its estimate (``snap``), which is returned."""
+        self._last_t = epoch.time
+        # GSV elevations are only a fallback: while every satellite has ephemeris geometry, parse
+        # just the sentences we route (GGA/GST), which saves most of the NMEA cost per second.
+        self.decoder.nmea_wanted = (
+            _FIX_SENTENCES if snap.geometry_source == "ephemeris" else _FALLBACK_SENTENCES
+        )
+        return snap
+
+    def _release(self) -> list[PipelineOutput]:
+        """Outputs stashed, then the held epoch estimated alone: whatever comes after it in the
+        stream (the next messages, the settle, a checkpoint) sees the estimator after it, and
+        its snapshot goes out before theirs."""
+        out, self._stash = self._stash, []
+        epoch, self._held = self._held, None
+        if epoch is not None:
+            out.append(self.finish_epoch(epoch, self.estimator.update(epoch)))
+        return out
 
     def _route(self, messages: Sequence[object]) -> list[PipelineOutput]:
         if not self._defer:
@@ -173,6 +224,13 @@ class StationPipeline:
         k = len(messages)
         while k and type(messages[k - 1]) is not ObsEpoch:
             k -= 1
+        if k and self.hold:  # the last epoch waits for the tick (take_held)
+            out = self.handle(messages[: k - 1])  # (it releases an epoch still held first)
+            self.counters["messages"] += 1
+            self._held = messages[k - 1]  # type: ignore[assignment]  # (an ObsEpoch)
+            if k < len(messages):
+                self._deferred = list(messages[k:])
+            return out
         if k == 0 or k == len(messages):  # no epoch, or nothing after it: nothing to hold back
             return self.handle(messages)
         out = self.handle(messages[:k])
@@ -181,15 +239,23 @@ class StationPipeline:
 
     def state_dict(self) -> dict[str, Any]:
         """The estimator's persistent state (see :meth:`StationEstimator.state_dict`)."""
+        if self._held is not None:
+            self._stash = self._release()
         return self.estimator.state_dict()
 
     def load_state_dict(self, state: Mapping[str, Any]) -> None:
+        if self._held is not None:
+            self._stash = self._release()
         self.estimator.load_state(dict(state))
 
     def handle(self, messages: Iterable[object]) -> list[PipelineOutput]:
         """Route already-decoded messages; returns the snapshots and fix reports they produce
         (after those of any deferred work, which comes first)."""
-        out: list[PipelineOutput] = self._settle_deferred() if self._deferred else []
+        out: list[PipelineOutput] = (
+            self._settle_deferred()
+            if self._deferred or self._held is not None or self._stash
+            else []
+        )
         # handle_one, inlined (one call less per message): the same counts, routes and order.
         counters, routes = self.counters, self._routes
         for msg in messages:
@@ -213,14 +279,7 @@ class StationPipeline:
 
     # -- routes ---------------------------------------------------------------------------------
     def _on_epoch(self, epoch: ObsEpoch) -> StationSnapshot:
-        self._last_t = epoch.time
-        snap = self.estimator.update(epoch)
-        # GSV elevations are only a fallback: while every satellite has ephemeris geometry, parse
-        # just the sentences we route (GGA/GST), which saves most of the NMEA cost per second.
-        self.decoder.nmea_wanted = (
-            _FIX_SENTENCES if snap.geometry_source == "ephemeris" else _FALLBACK_SENTENCES
-        )
-        return snap
+        return self.finish_epoch(epoch, self.estimator.update(epoch))
 
     def _on_ephemeris(self, eph: KeplerEphemeris | GlonassEphemeris) -> None:
         self.estimator.add_ephemeris(eph)

@@ -129,6 +129,7 @@ def options_from_settings(
         checkpoint_interval_s=rt.checkpoint_interval_s,
         checkpoint_max_age_s=rt.checkpoint_max_age_s,
         summary_interval_s=rt.summary_interval_s,
+        batch_estimates=rt.batch_estimates,
         stop_timeout_s=rt.stop_timeout_s,
     )
 

@@ -204,6 +204,7 @@ class FramingCore:
         self._done = DecoderCounts()  # counts of framers already ended
         self._consumer = consumer
         self._rebuild = rebuild
+        self._hold = False
         self._bind_settle()
         self._frames_total = 0  # every frame the framers returned (= their RTCM + NMEA counts)
 
@@ -322,6 +323,23 @@ class FramingCore:
     def frames_total(self) -> int:
         return self._frames_total
 
+    def hold_epochs(self) -> bool:
+        """Have the consumer hold each chunk's last epoch for the daemon's batched tick (a
+        ``StationPipeline``'s ``hold``, also after a reset rebuilds it); False when it cannot."""
+        if self._consumer is None or not hasattr(self._consumer, "take_held"):
+            return False
+        self._hold = True
+        self._consumer.hold = True  # type: ignore[attr-defined]
+        return True
+
+    def holding(self) -> bool:
+        """The consumer holds an epoch for the tick (see :meth:`hold_epochs`)."""
+        return self._hold and self._consumer.holding  # type: ignore[union-attr]
+
+    @property
+    def consumer(self) -> FrameConsumer | None:
+        return self._consumer
+
     def reset(self) -> None:
         self._held()  # framed and counted as feed would have, then dropped (as held frames are)
         self._done = _add_framer(self._done, self._framer)
@@ -330,6 +348,8 @@ class FramingCore:
         if self._rebuild is not None:
             self._consumer = self._rebuild()
             self._bind_settle()
+            if self._hold:
+                self._consumer.hold = True  # type: ignore[attr-defined]
 
     def state_dict(self) -> dict[str, Any]:
         return {} if self._consumer is None else self._consumer.state_dict()

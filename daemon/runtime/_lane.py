@@ -71,6 +71,11 @@ class StepLane:
         """Steps waiting for their turn (both classes)."""
         return sum(not f.done() for f in self._urgent) + sum(not f.done() for f in self._background)
 
+    @property
+    def urgent_waiting(self) -> bool:
+        """An urgent step waits for its turn (the burst tick runs after the last one)."""
+        return any(not f.done() for f in self._urgent)
+
     async def turn(self, *, background: bool = False) -> None:
         """Return when it is this step's turn (at once when the lane is free)."""
         if not self._busy:  # a free lane has no live waiter (each is handed it on release)

@@ -41,6 +41,7 @@ from ionwarden.daemon.ingest import (
 )
 
 from ._backoff import backoff_delays
+from ._core import FramingCore
 from ._pacer import ReplayPacer
 from ._queues import BoundedQueue, Overflow
 from ._stall import StallDetector, StallKind, StallLimits, StallTimer
@@ -57,8 +58,11 @@ if TYPE_CHECKING:
     import random
     from collections.abc import Awaitable, Callable, Iterator, Sequence
 
+    from ionwarden.daemon.estimator import StationEstimator
     from ionwarden.daemon.ingest import SourceSpec, Transport
+    from ionwarden.parsers import ObsEpoch
 
+    from ._burst import BurstTick
     from ._core import StationCore
     from ._lane import StepLane
 
@@ -124,6 +128,7 @@ class StationRunner:
         on_latency: Callable[[str, float], None] | None = None,
         lane: StepLane | None = None,
         also_settle: Settles | None = None,
+        burst: BurstTick | None = None,
     ):
         self._on_latency = on_latency
         self._lane = lane
@@ -193,6 +198,16 @@ class StationRunner:
         #: own, midway to the next epoch, when the station has a lane and is not a paced replay
         #: (whose pacing sleeps in the estimate task); otherwise right after the deferred work.
         self._midway = lane is not None and self._pacer is None
+        #: The daemon's burst tick (``_burst``): with a lane, for a live source whose core can
+        #: hold its epochs (a paced replay's pacing needs each snapshot in its own step).
+        self._burst = (
+            burst
+            if burst is not None
+            and self._midway
+            and isinstance(core, FramingCore)
+            and core.hold_epochs()
+            else None
+        )
         #: When the pending slack work is due (loop time; None: none pending), and whether the
         #: timer found the estimate task asleep and woke it for it.
         self._slack_at: float | None = None
@@ -462,6 +477,8 @@ class StationRunner:
                     try:
                         frames_before, epochs_before = self.core.frames_total(), self._epochs
                         delay = self._step(chunk, arrived)
+                        if self._burst is not None:
+                            self._burst.stepped(self, arrived, lane.urgent_waiting)  # type: ignore[union-attr]
                         if self.core.frames_total() > frames_before:
                             self._detector.saw_frame(loop.time())
                         unsettled = self._unsettled(slack=not self._midway)
@@ -590,6 +607,30 @@ class StationRunner:
         if chunk is None:
             return self._contained(self.core.end_stream, None)
         return self._contained(self.core.feed, arrived, chunk)  # (not a closure per chunk)
+
+    # -- the burst tick (``_burst``) ------------------------------------------------------------------
+    def core_holding(self) -> bool:
+        """The core holds an epoch for the burst tick."""
+        return self._burst is not None and self.core.holding()  # type: ignore[attr-defined]
+
+    def take_held(self) -> tuple[StationEstimator, ObsEpoch] | None:
+        """The estimator and epoch the core holds, taken for the tick (None: none, or the station
+        stopped meanwhile: its pipeline estimates it alone at its next entry, if any)."""
+        if self.finished.is_set():
+            return None
+        pipe = self.core.consumer  # type: ignore[attr-defined]
+        epoch = pipe.take_held()
+        return None if epoch is None else (pipe.estimator, epoch)
+
+    def tick_done(self, epoch: ObsEpoch, snap: StationSnapshot, arrived: float | None) -> None:
+        """The tick's snapshot of the held epoch: routed and emitted as the step's own would
+        have been (counted, latency observed from ``arrived``, published)."""
+        pipe = self.core.consumer  # type: ignore[attr-defined]
+        self._contained(lambda: [pipe.finish_epoch(epoch, snap)], arrived)
+
+    def tick_failed(self, exc: Exception) -> None:
+        """The tick failed: counted and logged as a failed step of this station."""
+        self._pipeline_failed(exc)
 
     def _unsettled(self, *, slack: bool = True) -> bool:
         """Deferred work is pending (with ``slack``, the core's slack work counted too)."""

@@ -37,6 +37,7 @@ from ionwarden.daemon.estimator import FixStatus, StationSnapshot
 from ionwarden.daemon.outputs import GOODBYE_TIMEOUT_S
 from ionwarden.parsers import utc_to_gps
 
+from ._burst import BurstTick
 from ._checkpoint import load_checkpoint, save_checkpoint
 from ._deferred_alarms import DeferredAlarms
 from ._lane import StepLane
@@ -150,6 +151,8 @@ class DaemonOptions:
     summary_interval_s: float = 10.0
     status_interval_s: float = 1.0
     stop_timeout_s: float = 4.0
+    #: Estimate the epochs of a burst as one tick (``_burst``; live sources).
+    batch_estimates: int = 0
     #: Stop when every station's source has ended (replays, stdin); live sources never end.
     exit_when_sources_end: bool = True
 
@@ -205,6 +208,9 @@ class Daemon:
         self._stations: dict[str, _Running] = {}
         #: One estimate step per loop iteration across stations (see _lane.py).
         self._lane = StepLane()
+        #: Every station's epoch of a burst estimated as one tick (see _burst.py).
+        batch = self.options.batch_estimates
+        self._burst = BurstTick(batch) if batch > 1 else None
         self._stop = asyncio.Event()
         self._reload_requested = asyncio.Event()
         self._wake = asyncio.Event()  # stop, reload or a source ended
@@ -290,6 +296,7 @@ class Daemon:
             on_latency=self._exporter.observe_epoch_latency if self._exporter is not None else None,
             lane=self._lane,
             also_settle=alarms,
+            burst=self._burst,
         )
         running = _Running(runner=runner, bundle=bundle, alarms=alarms)
         self._stations[cfg.name] = running
