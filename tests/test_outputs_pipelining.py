@@ -429,3 +429,56 @@ def test_publish_properties_are_packed_once_with_paho_bytes():
     ref.MessageExpiryInterval = 42
     assert ours.pack() == ref.pack()
     assert ours.pack() is ours.pack()
+
+
+@pytest.mark.integration
+def test_corked_summaries_are_all_delivered_in_order_once_uncorked(tmp_path):
+    """The burst tick's cork (MqttPublisher.cork: Linux TCP_CORK on the client's socket,
+    set while its summaries are queued): against a private Mosquitto, 20 summaries queued while
+    corked are held (the option set on the socket) and, once uncorked, all delivered once, in
+    order, with nothing dropped."""
+    prefix = unique_prefix()
+    with private_broker(tmp_path) as brk:
+        cfg = MqttSettings(host="127.0.0.1", port=brk.port, topic_prefix=prefix, timeout_s=5.0)
+
+        async def main():
+            import aiomqtt
+
+            async with aiomqtt.Client(
+                "127.0.0.1", brk.port, protocol=aiomqtt.ProtocolVersion.V5, timeout=5
+            ) as sub:
+                await sub.subscribe(f"{prefix}/#", qos=1)
+                pub = MqttPublisher(cfg)
+                corked = None
+                async with asyncio.TaskGroup() as tg:
+                    tg.create_task(pub.run(), name="daemon.output[mqtt]")
+                    await asyncio.wait_for(pub.wait_connected(), 10)
+                    for _ in range(1000):  # (its "online" status is sent first)
+                        if pub._live is not None:
+                            break
+                        await asyncio.sleep(0.01)
+                    pub.cork(True)
+                    sock = pub._live._iw_sock
+                    if _client._TCP_CORK is not None:
+                        corked = sock.getsockopt(socket.IPPROTO_TCP, _client._TCP_CORK)
+                    for i in range(20):
+                        pub.publish_snapshot_nowait(make_snapshot("ALPHA", T0 + float(i)))
+                    pub.cork(False)
+                    if _client._TCP_CORK is not None:
+                        assert sock.getsockopt(socket.IPPROTO_TCP, _client._TCP_CORK) == 0
+                    await asyncio.wait_for(pub.wait_drained(), 20)
+                    pub.stop()
+                got = await collect(
+                    sub,
+                    until=lambda g: any(
+                        t.endswith("/_daemon/status") and p.get("state") == "offline"
+                        for t, p, _ in g
+                    ),
+                )
+                return got, corked, pub.statistics()
+
+        got, corked, stats = asyncio.run(main())
+    assert corked in (None, 1)
+    summaries = [p["gps_tow_s"] for t, p, _ in got if t.endswith("/summary")]
+    assert summaries == [T0.tow_s + i for i in range(20)]
+    assert stats.dropped_epoch_total == 0

@@ -217,6 +217,8 @@ class _LeanPaho(mqtt.Client):
 
 #: Linux only; elsewhere the re-arming below is skipped.
 _TCP_QUICKACK: int | None = getattr(socket, "TCP_QUICKACK", None)
+#: Linux: hold partial segments until uncorked (None elsewhere: corking is a no-op).
+_TCP_CORK: int | None = getattr(socket, "TCP_CORK", None)
 _IPPROTO_TCP = socket.IPPROTO_TCP
 
 
@@ -292,6 +294,18 @@ class QuickAckClient(aiomqtt.Client):
             fut.exception()  # seen: the publisher reports the loss as its own MqttError
         if self.iw_on_lost is not None:
             self._loop.call_soon_threadsafe(self.iw_on_lost)
+
+    def iw_cork(self, on: bool) -> None:
+        """Hold what is written until uncorked (Linux ``TCP_CORK``), so that messages written
+        together leave in as few segments as fit, waking the broker once; uncorking sends what
+        is held at once. A no-op elsewhere, or without a TCP socket."""
+        sock = self._iw_sock
+        if _TCP_CORK is None or not isinstance(sock, socket.socket):
+            return
+        try:  # noqa: SIM105 - (not contextlib.suppress: a context manager object per call)
+            sock.setsockopt(_IPPROTO_TCP, _TCP_CORK, 1 if on else 0)
+        except OSError:
+            pass
 
     def _on_socket_open(self, client: Any, userdata: Any, sock: Any) -> None:
         super()._on_socket_open(client, userdata, sock)

@@ -113,6 +113,12 @@ class MqttPublisher(TopicProducers):
                 return  # the pump already sleeps until an older message's deadline
         self._wake.set()
 
+    def cork(self, on: bool) -> None:
+        """While on, messages queued leave the socket together (the burst tick's summaries: one
+        wake-up of the broker; ``QuickAckClient.iw_cork``); off sends what was held at once."""
+        if self._live is not None:
+            self._live.iw_cork(on)
+
     def statistics(self) -> MqttStatistics:
         b = self._buffer
         return MqttStatistics(

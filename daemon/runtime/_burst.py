@@ -6,7 +6,8 @@ Receivers align their epochs to the GPS second, so every station's bytes arrive 
 decodes its chunk and its pipeline holds the chunk's last epoch (``StationPipeline.hold``); the
 step after which no urgent step waits estimates every held epoch as one ``TickBatch`` tick and
 emits each station's snapshot through its own runner (count, latency, publish), in the order the
-stations stepped. The snapshots are those of estimating each station alone, bit for bit
+stations stepped, the publisher corked meanwhile so that those summaries leave the socket
+together (one wake-up of the broker instead of one each). The snapshots are those of estimating each station alone, bit for bit
 (tests/test_estimator_tick.py, tests/test_runtime_burst.py); what changes is when each comes
 out: the first stations of a burst wait for the others' decoding, the last ones come sooner, as
 the tick costs less than the stations' estimates one by one.
@@ -25,6 +26,8 @@ from typing import TYPE_CHECKING
 from ionwarden.daemon.estimator._tick import TickBatch
 
 if TYPE_CHECKING:
+    from collections.abc import Callable
+
     from ._station import StationRunner
 
 __all__ = ["BurstTick"]
@@ -33,11 +36,15 @@ __all__ = ["BurstTick"]
 class BurstTick:
     """The held epochs of the steps since the last tick, and the ``TickBatch`` that runs it."""
 
-    __slots__ = ("_pending", "batch", "most")
+    __slots__ = ("_cork", "_pending", "batch", "most")
 
-    def __init__(self, most: int) -> None:
-        """``most``: stations per tick at most (the tick runs as soon as that many hold one)."""
+    def __init__(self, most: int, cork: Callable[[bool], None] | None = None) -> None:
+        """``most``: stations per tick at most (the tick runs as soon as that many hold one);
+        ``cork``: holds the publisher's writes (True) and releases them (False:
+        ``MqttPublisher.cork``), around the emission of a tick's snapshots: they leave the
+        socket together."""
         self.most = most
+        self._cork = cork
         self.batch = TickBatch()
         #: (runner, when its epoch's bytes arrived) of the stations holding an epoch.
         self._pending: list[tuple[StationRunner, float | None]] = []
@@ -63,8 +70,15 @@ class BurstTick:
         if not items:
             return
         results = self.batch.run(items)  # (a station's failure in its place)
-        for (runner, arrived), (_, epoch), res in zip(owners, items, results, strict=True):
-            if isinstance(res, Exception):
-                runner.tick_failed(res)
-            else:
-                runner.tick_done(epoch, res, arrived)
+        cork = self._cork if len(items) > 1 else None
+        if cork is not None:
+            cork(True)
+        try:
+            for (runner, arrived), (_, epoch), res in zip(owners, items, results, strict=True):
+                if isinstance(res, Exception):
+                    runner.tick_failed(res)
+                else:
+                    runner.tick_done(epoch, res, arrived)
+        finally:
+            if cork is not None:
+                cork(False)

@@ -210,7 +210,8 @@ class Daemon:
         self._lane = StepLane()
         #: Every station's epoch of a burst estimated as one tick (see _burst.py).
         batch = self.options.batch_estimates
-        self._burst = BurstTick(batch) if batch > 1 else None
+        cork = publisher.cork if publisher is not None else None
+        self._burst = BurstTick(batch, cork) if batch > 1 else None
         self._stop = asyncio.Event()
         self._reload_requested = asyncio.Event()
         self._wake = asyncio.Event()  # stop, reload or a source ended
