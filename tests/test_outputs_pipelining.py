@@ -274,6 +274,19 @@ def test_publish_window_setting_is_validated():
         MqttSettings(publish_window=0)
 
 
+async def _drained_then_offline(pub, sub):
+    """Wait until every message is acknowledged, stop the publisher, and collect what ``sub``
+    received up to the daemon's "offline" status."""
+    await asyncio.wait_for(pub.wait_drained(), 20)
+    pub.stop()
+    return await collect(
+        sub,
+        until=lambda g: any(
+            t.endswith("/_daemon/status") and p.get("state") == "offline" for t, p, _ in g
+        ),
+    )
+
+
 @pytest.mark.integration
 @pytest.mark.parametrize("window", [1, 4, 32])
 def test_pipelined_window_delivers_everything_in_order_on_default_broker(tmp_path, window):
@@ -318,15 +331,7 @@ def test_pipelined_window_delivers_everything_in_order_on_default_broker(tmp_pat
                             transitions += tr
                         if i % 25 == 0:
                             await asyncio.sleep(0)
-                    await asyncio.wait_for(pub.wait_drained(), 20)
-                    pub.stop()
-                got = await collect(
-                    sub,
-                    until=lambda g: any(
-                        t.endswith("/_daemon/status") and p.get("state") == "offline"
-                        for t, p, _ in g
-                    ),
-                )
+                    got = await _drained_then_offline(pub, sub)
                 return got, transitions, pub.statistics()
 
         got, transitions, stats = asyncio.run(main())
@@ -466,15 +471,7 @@ def test_corked_summaries_are_all_delivered_in_order_once_uncorked(tmp_path):
                     pub.cork(False)
                     if _client._TCP_CORK is not None:
                         assert sock.getsockopt(socket.IPPROTO_TCP, _client._TCP_CORK) == 0
-                    await asyncio.wait_for(pub.wait_drained(), 20)
-                    pub.stop()
-                got = await collect(
-                    sub,
-                    until=lambda g: any(
-                        t.endswith("/_daemon/status") and p.get("state") == "offline"
-                        for t, p, _ in g
-                    ),
-                )
+                    got = await _drained_then_offline(pub, sub)
                 return got, corked, pub.statistics()
 
         got, corked, stats = asyncio.run(main())
