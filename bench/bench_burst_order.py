@@ -100,10 +100,10 @@ def main() -> None:
             if order == "phased":
                 for epoch, (_, route) in zip(held, routes, strict=True):
                     route(epoch)
-            else:  # the held epochs as one tick (what _on_epoch does besides: the epoch time)
-                tick.update([(p.estimator, e) for p, e in zip(pipes, held, strict=True)])
-                for p, e in zip(pipes, held, strict=True):
-                    p._last_t = e.time
+            else:  # the held epochs as one tick, then what routing each does besides
+                snaps = tick.update([(p.estimator, e) for p, e in zip(pipes, held, strict=True)])
+                for p, e, s in zip(pipes, held, snaps, strict=True):
+                    p.finish_epoch(e, s)
             t1 = time.perf_counter()
             for p, (key, route) in zip(pipes, routes, strict=True):
                 p._routes[key] = route

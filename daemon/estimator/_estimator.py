@@ -29,7 +29,7 @@ from __future__ import annotations
 
 import copy
 import math
-from typing import TYPE_CHECKING, Any, Protocol
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import numpy.typing as npt
@@ -114,22 +114,6 @@ _Dual = tuple[npt.NDArray[Any], ...]
 _Pre = tuple[EpochLayout, F64, str, bool, F64, F64, F64, F64]
 
 
-class BlockRows(Protocol):
-    """The rows and buffers of a working block that :func:`level` and :func:`smooth` use: a
-    station's ``_Block``, or several stations' blocks side by side (``_tick``)."""
-
-    w: F64
-    lev_sw: F64
-    n: F64
-    means: F64
-    step: F64
-    step_lev: F64
-    step_mp: F64
-    hatch: F64
-    ifl_prev: F64
-    prev: F64
-
-
 #: (reason bit, its counter), in the order of ``REASON_NAMES``.
 _REASON_COUNTERS = tuple((bit, f"arcs_{name}") for bit, name in REASON_NAMES.items())
 
@@ -191,7 +175,35 @@ def smooth(  # noqa: PLR0917 - called positionally: a keyword costs ~600 instruc
     return hatch
 
 
-class _Block:
+class BlockRows:
+    """A working block ``g`` (NROW, d): the views of its rows and the work buffers the per-epoch
+    core uses (the slip tests, :func:`level`, :func:`smooth`), made once per block: a station's
+    ``_Block``, or several stations' blocks side by side (``_tick``)."""
+
+    __slots__ = ("arcs", "g", "gf0", "hatch", "ifl_prev", "l1m", "lev", "lev_sw", "means", "meas",
+                 "meas_l", "meas_p", "mp_mean", "n", "prev", "rel", "step", "step_lev",
+                 "step_mp", "w")  # fmt: skip
+
+    def __init__(self, g: F64) -> None:
+        d = g.shape[1]
+        self.g = g  # (NROW, d) state rows, the layout's coefficients, work rows
+        #: the slip tests' views of g; they difference the rows GF_PRED … GF0 (``_state``)
+        self.arcs = ArcBlock(g, GF0 - GF_PRED + 1)
+        self.meas = meas = np.empty((4, d))  # L1, L2 (m), P1, P2 (m)
+        self.meas_l, self.meas_p = meas[:2], meas[2:]
+        self.n, self.lev_sw, self.lev, self.gf0 = g[N], g[LEV_SW], g[LEV_MEAN], g[GF0]
+        self.means = g[LEV_MEAN : MP2 + 1]  # levelling offset, MP1 and MP2 arc means
+        self.mp_mean = g[MP1 : MP2 + 1]
+        self.hatch, self.ifl_prev, self.l1m = g[HATCH], g[IFL_PREV], g[L1M]
+        self.w = np.empty(d)  # levelling weights
+        diff = self.arcs.diff  # rows GF_PRED … GF0 subtracted from the epoch's comb rows
+        self.step = diff[LEV_MEAN - GF_PRED : MP2 - GF_PRED + 1]  # steps of ``means``
+        self.step_lev, self.step_mp = self.step[0], self.step[1:]
+        self.rel = diff[GF0 - GF_PRED]  # K·GF relative to the arc's first
+        self.prev = np.empty(d)  # Hatch: the previous smoothed code carried to this epoch
+
+
+class _Block(BlockRows):
     """The working block of the current layout (see ``_state``), kept while the layout repeats,
     with the views and work buffers of :meth:`StationEstimator._dual`, made once per block.
 
@@ -200,39 +212,23 @@ class _Block:
     buffers are written each epoch before they are read.
     """
 
-    __slots__ = ("arc", "arcs", "cell_pos", "cell_rows", "cells", "cur", "cur_flags", "g", "gf0",
-                 "hatch", "i12", "i12_2", "ifl_prev", "l1m", "lay", "lev", "lev_sw", "means",
-                 "meas", "meas_l", "meas_p", "mp_mean", "n", "n_min", "noise", "prev", "rel",
-                 "step", "step_lev", "step_mp", "w")  # fmt: skip
+    __slots__ = ("arc", "cell_pos", "cell_rows", "cells", "cur", "cur_flags", "i12", "i12_2",
+                 "lay", "n_min", "noise")  # fmt: skip
 
     def __init__(
         self, lay: EpochLayout, g: F64, cur: F64, arc: npt.NDArray[np.int32], n_min: float
     ) -> None:
+        super().__init__(g)
         d = lay.idx.shape[0]
         self.lay = lay
-        self.g = g  # (NROW, d) state rows of lay.idx, the layout's coefficients, work rows
-        #: the slip tests' views of g; they difference the rows GF_PRED … GF0 (``_state``)
-        self.arcs = ArcBlock(g, GF0 - GF_PRED + 1)
         self.cur = cur  # (7, d) this epoch's rank, half-cycle flags, lock indicators, lock times
         self.cur_flags = cur[1:].reshape(3, 2 * d)  # flags, indicators, times: band 1, band 2
         #: (3, n) this epoch's half-cycle flags, lock indicators, lock times per cell
         self.cells = cells = np.empty((3, lay.cell_pos.shape[0]))
         self.cell_rows = (cells[0], cells[1], cells[2])
-        self.meas = meas = np.empty((4, d))  # L1, L2 (m), P1, P2 (m)
-        self.meas_l, self.meas_p = meas[:2], meas[2:]
         self.arc = arc  # (d,) arc ids, read-only (goes into snapshots)
         self.n_min = n_min  # smallest sample count of the arcs (NaN: unknown)
-        self.n, self.lev_sw, self.lev, self.gf0 = g[N], g[LEV_SW], g[LEV_MEAN], g[GF0]
-        self.means = g[LEV_MEAN : MP2 + 1]  # levelling offset, MP1 and MP2 arc means
-        self.mp_mean = g[MP1 : MP2 + 1]
-        self.hatch, self.ifl_prev, self.l1m = g[HATCH], g[IFL_PREV], g[L1M]
         self.noise = lay.coefs[NOISE - F1]  # IF noise factor, read-only (goes into snapshots)
-        self.w = np.empty(d)  # levelling weights
-        diff = self.arcs.diff  # rows GF_PRED … GF0 subtracted from the epoch's comb rows
-        self.step = diff[LEV_MEAN - GF_PRED : MP2 - GF_PRED + 1]  # steps of ``means``
-        self.step_lev, self.step_mp = self.step[0], self.step[1:]
-        self.rel = diff[GF0 - GF_PRED]  # K·GF relative to the arc's first
-        self.prev = np.empty(d)  # Hatch: the previous smoothed code carried to this epoch
         # Private writeable copies of the layout's read-only index arrays for ``take`` (it copies
         # a read-only index array on each call, ~1 µs); never written, never handed out.
         self.i12_2, self.i12 = lay.i12_2.copy(), lay.i12.copy()

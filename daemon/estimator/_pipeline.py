@@ -168,11 +168,7 @@ class StationPipeline:
     def settle_slack(self) -> list[PipelineOutput]:
         """Do all deferred work: :meth:`settle`'s, then the receiver-bias fit and the orbits
         evaluated ahead for the next epoch."""
-        out = (
-            self._settle_deferred()
-            if self._deferred or self._held is not None or self._stash
-            else []
-        )
+        out = self._settle_deferred()  # (nothing when nothing is deferred, held or stashed)
         self.estimator.settle()
         self.estimator.prefetch()
         return out

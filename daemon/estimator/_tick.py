@@ -28,13 +28,12 @@ from typing import TYPE_CHECKING
 import numpy as np
 import numpy.typing as npt
 
-from ._arcs import ArcBlock
 from ._cells import GFT_ROW, IFC_ROW, IFP_ROW, MP1_ROW, MP2_ROW
-from ._estimator import _Block, _Pre, level, smooth
+from ._estimator import BlockRows, _Block, _Pre, level, smooth
 from ._npfast import einsum as _einsum
 from ._npfast import quiet_enter as _quiet_enter
 from ._npfast import quiet_exit as _quiet_exit
-from ._state import GF0, GF_PRED, HATCH, IFL_PREV, L1M, LEV_MEAN, LEV_SW, MP1, MP2, NROW, N
+from ._state import NROW
 
 if TYPE_CHECKING:
     from collections.abc import Sequence
@@ -49,19 +48,18 @@ __all__ = ["TickBatch"]
 F64 = npt.NDArray[np.float64]
 
 
-class _Side:
+class _Side(BlockRows):
     """The working blocks of a tick's stations side by side: one (NROW, D) array ``g`` whose
-    column range ``offs[i]`` is station i's block (its ``_Block`` is rebuilt on that view), the
-    merged rows and buffers the core runs on, and the layouts' coefficients joined."""
+    column range ``offs[i]`` is station i's block (its ``_Block`` is rebuilt on that view), with
+    the rows and buffers the core runs on (``BlockRows``), the stations' epoch values joined
+    (``cur``, el, sin el, total bias) and the layouts' coefficients joined."""
 
-    __slots__ = ("arcs", "blocks", "comb", "cur", "el", "ests", "g", "hatch", "ifl_prev", "l1m",
-                 "lev", "lev_sw", "means", "meas", "mp_mean", "n", "offs", "prev", "rel", "sin",
-                 "step", "step_lev", "step_mp", "total", "w")  # fmt: skip
+    __slots__ = ("blocks", "comb", "cur", "el", "ests", "offs", "sin", "total")
 
     def __init__(self, ests: tuple[StationEstimator, ...], blocks: Sequence[_Block]) -> None:
         widths = [b.g.shape[1] for b in blocks]
         d = sum(widths)
-        self.g = g = np.empty((NROW, d))
+        g = np.empty((NROW, d))
         self.ests = ests
         self.offs: list[slice] = []
         joined: list[_Block] = []
@@ -76,20 +74,11 @@ class _Side:
             joined.append(nb)
             self.offs.append(slice(at, at + w))
             at += w
+        super().__init__(g)
         self.blocks = tuple(joined)
-        self.arcs = ArcBlock(g, GF0 - GF_PRED + 1)
         self.comb = np.concatenate([b.lay.comb for b in joined], axis=2)
-        self.meas = np.empty((4, d))
         self.cur = np.empty((7, d))
         self.el, self.sin, self.total = np.empty(d), np.empty(d), np.empty(d)
-        self.w, self.prev = np.empty(d), np.empty(d)
-        self.n, self.lev_sw, self.lev = g[N], g[LEV_SW], g[LEV_MEAN]
-        self.means, self.mp_mean = g[LEV_MEAN : MP2 + 1], g[MP1 : MP2 + 1]
-        self.hatch, self.ifl_prev, self.l1m = g[HATCH], g[IFL_PREV], g[L1M]
-        diff = self.arcs.diff
-        self.step = diff[LEV_MEAN - GF_PRED : MP2 - GF_PRED + 1]
-        self.step_lev, self.step_mp = self.step[0], self.step[1:]
-        self.rel = diff[GF0 - GF_PRED]
 
     def holds(self, ests: tuple[StationEstimator, ...], blocks: Sequence[_Block]) -> bool:
         """These stations, each still on its block of this side (same order)."""
@@ -284,9 +273,7 @@ class TickBatch:
             est.rot_roti(t, b.lay.idx, side.rel[o], b.arc, interval)
             for est, b, o in zip(ests, blocks, side.offs, strict=True)
         ]
-        hc = ests[0].hatch_consts(interval)
-        for est in ests[1:]:
-            est.hatch_consts(interval)
+        hc = ests[0].hatch_consts(interval)  # (the stations' settings and interval are alike)
         hatch = smooth(side, if_code, if_phase, hc, n_min + 1.0 >= hc[1], None)
         iono_l1 = stec * side.l1m
         mp1, mp2 = comb[MP1_ROW], comb[MP2_ROW]
