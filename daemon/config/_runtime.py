@@ -50,3 +50,9 @@ class RuntimeSettings(Section):
     #: summaries go out. Less CPU; the last stations' summaries come sooner, the first ones'
     #: later (DEVELOPERS.md, "What would reach the line"). Live sources only.
     batch_estimates: int = Field(default=0, ge=0, le=1000)
+    #: Background work (a station's deferred settle and slack work, the status report) waits up
+    #: to this long (ms, each) while the process's MQTT publisher awaits the acknowledgements of
+    #: messages it sent: the broker gets a CPU before that work, and the PUBACKs of a burst's
+    #: summaries are read as they come, not after it (0 = no wait; DEVELOPERS.md, "Scaling
+    #: further").
+    ack_priority_ms: float = Field(default=5.0, ge=0.0, le=1000.0)

@@ -13,6 +13,7 @@ half-sent is replayed behind our back; our buffer is the only source).
 ionwarden only publishes: it never subscribes and takes no commands over MQTT.
 """
 
+# size: ~410 lines keep the session, the in-flight window and its ack hooks in one class.
 from __future__ import annotations
 
 import asyncio
@@ -105,6 +106,9 @@ class MqttPublisher(TopicProducers):
         self._lost = False
         #: (station, seconds) of each acknowledged summary: frame received → PUBACK (the exporter).
         self.on_summary_delivered: Callable[[str, float], None] | None = None
+        #: Called after a read's acknowledgements settled (``StepLane.open``: see
+        #: :meth:`awaiting_acks`).
+        self.on_acked: Callable[[], None] | None = None
 
     def _kick(self) -> None:
         if self._live is not None:
@@ -118,6 +122,11 @@ class MqttPublisher(TopicProducers):
         wake-up of the broker; ``QuickAckClient.iw_cork``); off sends what was held at once."""
         if self._live is not None:
             self._live.iw_cork(on)
+
+    def awaiting_acks(self) -> bool:
+        """Messages sent on a live link wait for their acknowledgement (the step lane holds
+        background work back meanwhile, for the broker's turn on the CPU: ``StepLane``)."""
+        return bool(self._inflight) and self._live is not None and not self._lost
 
     def statistics(self) -> MqttStatistics:
         b = self._buffer
@@ -301,6 +310,8 @@ class MqttPublisher(TopicProducers):
         # spurious wake-up): it needs waking only to see the buffer drained.
         if not self._inflight:
             self._wake.set()
+        if self.on_acked is not None:
+            self.on_acked()
 
     async def _session(self, client: QuickAckClient) -> None:
         online = OutboundMessage(

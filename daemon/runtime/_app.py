@@ -130,6 +130,7 @@ def options_from_settings(
         checkpoint_max_age_s=rt.checkpoint_max_age_s,
         summary_interval_s=rt.summary_interval_s,
         batch_estimates=rt.batch_estimates,
+        ack_priority_s=rt.ack_priority_ms / 1000.0,
         stop_timeout_s=rt.stop_timeout_s,
     )
 

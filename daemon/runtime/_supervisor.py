@@ -153,6 +153,8 @@ class DaemonOptions:
     stop_timeout_s: float = 4.0
     #: Estimate the epochs of a burst as one tick (``_burst``; live sources).
     batch_estimates: int = 0
+    #: Background steps wait up to this long (s) for the publisher's acknowledgements (0: not).
+    ack_priority_s: float = 0.0
     #: Stop when every station's source has ended (replays, stdin); live sources never end.
     exit_when_sources_end: bool = True
 
@@ -206,8 +208,13 @@ class Daemon:
         self._wall = wall_clock
         self._utc_now = utc_now
         self._stations: dict[str, _Running] = {}
-        #: One estimate step per loop iteration across stations (see _lane.py).
-        self._lane = StepLane()
+        #: One estimate step per loop iteration across stations (see _lane.py); background steps
+        #: wait while the publisher awaits acknowledgements, ``ack_priority_s`` at most each.
+        if publisher is not None and options.ack_priority_s > 0:
+            self._lane = StepLane(publisher.awaiting_acks, options.ack_priority_s)
+            publisher.on_acked = self._lane.open
+        else:
+            self._lane = StepLane()
         #: Every station's epoch of a burst estimated as one tick (see _burst.py).
         batch = self.options.batch_estimates
         cork = publisher.cork if publisher is not None else None
