@@ -8,6 +8,9 @@ clock by ``bench_outputs.py`` / ``bench_e2e.py``). What is counted, per ``--what
   estimating) + handing the snapshot to its ``DeferredAlarms`` + the summary's formatting and
   queueing, as the daemon builds them (``defer``), on the simulator's invented quiet-day stream;
   the publisher is not connected;
+* ``urgent-batched`` — ``urgent`` with each station's epoch held and the stations' epochs
+  estimated as one tick (``[runtime] batch_estimates``: ``FramingCore.hold_epochs``, then
+  ``TickBatch.run`` and ``StationPipeline.finish_epoch``), as the daemon's burst tick runs them;
 * ``urgent-mqtt`` — the same with the publisher connected to the broker (IONWARDEN_TEST_MQTT_HOST /
   _PORT, default 127.0.0.1:1883), up to every PUBACK of the second read and settled;
 * ``settle`` — the deferred part of each second, run after every station's urgent step
@@ -111,11 +114,16 @@ async def _pipeline(lib: Any, what: str, n: int, secs: int, warm_up: int) -> int
 
     from ionwarden.daemon.config import MqttSettings
     from ionwarden.daemon.estimator import StationSnapshot
+    from ionwarden.daemon.estimator._tick import TickBatch
     from ionwarden.daemon.outputs import MqttPublisher
     from ionwarden.daemon.runtime._deferred_alarms import DeferredAlarms
 
     chunks, pipes, engines = _replayed_stations(secs + warm_up, n)
     mqtt = what == "urgent-mqtt"
+    tick = TickBatch() if what == "urgent-batched" else None
+    if tick is not None:
+        for p in pipes:
+            p.hold_epochs()
     host = os.environ.get("IONWARDEN_TEST_MQTT_HOST", "127.0.0.1")
     port = int(os.environ.get("IONWARDEN_TEST_MQTT_PORT", "1883"))
     pub = MqttPublisher(MqttSettings(host=host, port=port, topic_prefix=f"iwinstr/{os.getpid()}"))
@@ -135,6 +143,15 @@ async def _pipeline(lib: Any, what: str, n: int, secs: int, warm_up: int) -> int
                 if isinstance(out, StationSnapshot):
                     alarms[i].defer(out)
                     pub.publish_snapshot_nowait(out)
+        if tick is not None:  # the held epochs as one tick, each snapshot handed back
+            cons: list[Any] = [p.consumer for p in pipes]
+            held = [(i, c.take_held()) for i, c in enumerate(cons) if c.holding]
+            snaps = tick.run([(cons[i].estimator, e) for i, e in held])
+            for (i, e), snap in zip(held, snaps, strict=True):
+                assert isinstance(snap, StationSnapshot), snap
+                out = cons[i].finish_epoch(e, snap)
+                alarms[i].defer(out)
+                pub.publish_snapshot_nowait(out)
         if mqtt:
             await asyncio.wait_for(pub.wait_drained(), 60)
         if on:
@@ -291,7 +308,9 @@ def _child(args: argparse.Namespace) -> None:
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument(
-        "--what", choices=("urgent", "urgent-mqtt", "settle", "runtime"), default="urgent"
+        "--what",
+        choices=("urgent", "urgent-batched", "urgent-mqtt", "settle", "runtime"),
+        default="urgent",
     )
     ap.add_argument("--stations", type=int, default=20)
     ap.add_argument("--seconds", type=int, default=8, help="counted seconds (default 8)")

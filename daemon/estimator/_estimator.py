@@ -112,6 +112,10 @@ _Dual = tuple[npt.NDArray[Any], ...]
 #: source, every elevation known, el and sin(el) of the satellites present, of the
 #: dual-frequency ones).
 _Pre = tuple[EpochLayout, F64, str, bool, F64, F64, F64, F64]
+#: An epoch's sky terms (:meth:`StationEstimator._post`): the mapping factor of each satellite
+#: present, the (3, m) pierce-point x, y (km) and VTEC rows (C order: the station figures'
+#: input), el, az, pierce lat, lon in degrees (rows) and the elevation of each cell (degrees).
+_Sky = tuple[F64, F64, F64, F64]
 
 
 #: (reason bit, its counter), in the order of ``REASON_NAMES``.
@@ -454,11 +458,14 @@ class StationEstimator:
         sin_el = sin_all if lay.all_dual else sin_all[lay.has]
         return lay, geo, geo_source, el_known, el_all, sin_all, el, sin_el
 
-    def _post(
-        self, epoch: ObsEpoch, t: float, interval: float, pre: _Pre, figs: _Dual
-    ) -> StationSnapshot:
+    def _post(  # noqa: PLR0917 - called positionally: a keyword costs ~600 instructions
+        self, epoch: ObsEpoch, t: float, interval: float, pre: _Pre, figs: _Dual,
+        sky: _Sky | None = None,
+    ) -> StationSnapshot:  # fmt: skip
         """The snapshot of the epoch from :meth:`_pre`'s inputs and :meth:`_dual`'s figures
-        (the station figures, the receiver-bias fit when due, the records)."""
+        (the station figures, the receiver-bias fit when due, the records); ``sky``: the
+        epoch's sky terms when a tick computed them for its stations together (the same
+        operations on the same elements: ``_tick``), else computed here."""
         lay, geo, geo_source, el_known, el_all, sin_all, _, _ = pre
         present = lay.present
         m = present.shape[0]
@@ -471,14 +478,18 @@ class StationEstimator:
             (stec, rot, roti, iono_l1, if_code, if_phase, hatch, mp1, mp2, noise,
              relevel) = full  # fmt: skip
 
-        mapping = self._sky.mapping(el_all)
-        # Rows x, y (km) of the pierce points and VTEC: the station figures' plane-fit input.
-        pts = np.empty((3, m))
-        self._sky.offsets(self.geometry.lat_rad, self.geometry.lon_rad, geo[2:4], pts[:2])
-        vtec = np.divide(stec, mapping, pts[2])
-        up = el_all > _ZERO
-        if _count_nonzero(up) != m:
-            vtec[~up] = np.nan
+        if sky is None:
+            mapping = self._sky.mapping(el_all)
+            # Rows x, y (km) of the pierce points and VTEC: the station figures' plane-fit input.
+            pts = np.empty((3, m))
+            self._sky.offsets(self.geometry.lat_rad, self.geometry.lon_rad, geo[2:4], pts[:2])
+            vtec = np.divide(stec, mapping, pts[2])
+            up = el_all > _ZERO
+            if _count_nonzero(up) != m:
+                vtec[~up] = np.nan
+        else:
+            mapping, pts, deg, cell_el = sky
+            vtec = pts[2]
         (vtec_st, roti_max, roti_med, rot_max, g_tecu, g_mm, g_az) = station_values(
             el_all, sin_all, el_known, pts, rot, roti, self._mask_rad, self._sky.scratch
         )  # (el_rad, sin_el, el_known, pts, rot, roti, mask_rad, scratch: positional, cheaper)
@@ -509,7 +520,9 @@ class StationEstimator:
         # Degrees once for el, az, pierce lat, lon (rows of deg), and the elevation of each cell.
         blk = self._blk  # the block of ``lay`` (_dual made it): its writeable ``cell_pos``
         assert blk is not None
-        if lay.cells_in_range:  # every cell's satellite is present: a contiguous output
+        if sky is not None:
+            pass  # (the tick's)
+        elif lay.cells_in_range:  # every cell's satellite is present: a contiguous output
             deg = np.degrees(geo)
             cell_el = deg.take(blk.cell_pos)  # row 0: the flat take (cell_pos < m)
         else:  # a NaN slot after the satellites for the cells out of range (cell_pos = m)

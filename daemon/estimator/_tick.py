@@ -29,7 +29,8 @@ import numpy as np
 import numpy.typing as npt
 
 from ._cells import GFT_ROW, IFC_ROW, IFP_ROW, MP1_ROW, MP2_ROW
-from ._estimator import BlockRows, _Block, _Pre, level, smooth
+from ._estimator import BlockRows, _Block, _Pre, _Sky, level, smooth
+from ._npfast import count_nonzero as _count_nonzero
 from ._npfast import einsum as _einsum
 from ._npfast import quiet_enter as _quiet_enter
 from ._npfast import quiet_exit as _quiet_exit
@@ -46,6 +47,7 @@ if TYPE_CHECKING:
 __all__ = ["TickBatch"]
 
 F64 = npt.NDArray[np.float64]
+_ZERO = np.array(0.0)
 
 
 class _Side(BlockRows):
@@ -54,7 +56,8 @@ class _Side(BlockRows):
     the rows and buffers the core runs on (``BlockRows``), the stations' epoch values joined
     (``cur``, el, sin el, total bias) and the layouts' coefficients joined."""
 
-    __slots__ = ("blocks", "comb", "cur", "el", "ests", "offs", "sin", "total")
+    __slots__ = ("blocks", "comb", "cos_lat", "cur", "el", "ests", "lon_lat", "offs", "pos", "sin",
+                 "total")  # fmt: skip
 
     def __init__(self, ests: tuple[StationEstimator, ...], blocks: Sequence[_Block]) -> None:
         widths = [b.g.shape[1] for b in blocks]
@@ -79,6 +82,23 @@ class _Side(BlockRows):
         self.comb = np.concatenate([b.lay.comb for b in joined], axis=2)
         self.cur = np.empty((7, d))
         self.el, self.sin, self.total = np.empty(d), np.empty(d), np.empty(d)
+        #: The stations' positions (lat, lon rad) the rows below were made for, and those rows:
+        #: each column's station longitude and latitude, and the cosine of that latitude.
+        self.pos: tuple[tuple[float, float], ...] = ()
+        self.lon_lat = np.empty((2, d))
+        self.cos_lat = np.empty(d)
+
+    def positions(self) -> tuple[F64, F64]:
+        """Each column's station (lon, lat) rows and cos(lat) row (``SkyTerms.offsets``' column
+        and 0-d factor, per column), renewed when a station's position changed."""
+        pos = tuple((e.geometry.lat_rad, e.geometry.lon_rad) for e in self.ests)
+        if pos != self.pos:
+            for (lat, lon), o in zip(pos, self.offs, strict=True):
+                self.lon_lat[0, o] = lon
+                self.lon_lat[1, o] = lat
+                self.cos_lat[o] = math.cos(lat)
+            self.pos = pos
+        return self.lon_lat, self.cos_lat
 
     def holds(self, ests: tuple[StationEstimator, ...], blocks: Sequence[_Block]) -> bool:
         """These stations, each still on its block of this side (same order)."""
@@ -107,6 +127,48 @@ def _own(
         return est._post(epoch, t, est._interval, pre, dual)
     except Exception as exc:  # the station's own, in its place
         return exc
+
+
+def _sky(
+    side: _Side,
+    ests: tuple[StationEstimator, ...],
+    pres: list[_Pre],
+    stec: F64,
+) -> list[_Sky | None]:
+    """Each station's sky terms (``StationEstimator._post``), computed over the joined columns
+    with the operations of ``SkyTerms.mapping``, ``SkyTerms.offsets``, the VTEC and the degrees,
+    element by element the same (a column's station position a row instead of a 0-d array);
+    None for each when a station has single-frequency satellites or cells out of range (each
+    then computes its own)."""
+    if not all(p[0].all_dual and p[0].cells_in_range for p in pres):
+        return [None] * len(pres)
+    d = side.el.shape[0]
+    sky = ests[0]._sky  # (its constants are the settings', alike)
+    mapping = sky.mapping(side.el)
+    geo = np.concatenate([p[1] for p in pres], axis=1)  # el, az, pierce lat, lon (rad)
+    pts = np.empty((3, d))
+    lon_lat, cos_lat = side.positions()
+    out = pts[:2]
+    np.subtract(geo[3:1:-1], lon_lat, out)  # rows lon, lat
+    dlon = out[0]
+    dlon += sky._pi
+    dlon %= sky._two_pi
+    dlon -= sky._pi
+    out *= sky._r_km
+    dlon *= cos_lat
+    vtec = np.divide(stec, mapping, pts[2])
+    up = side.el > _ZERO
+    if _count_nonzero(up) != d:
+        vtec[~up] = np.nan
+    deg = np.degrees(geo)
+    skies: list[_Sky | None] = []
+    for est, o in zip(ests, side.offs, strict=True):
+        row0 = deg[0, o]
+        blk = est._blk
+        assert blk is not None
+        # (the station figures' input in C order, as the station's own path makes it)
+        skies.append((mapping[o], pts[:, o].copy(), deg[:, o], row0.take(blk.cell_pos)))
+    return skies
 
 
 class TickBatch:
@@ -277,15 +339,16 @@ class TickBatch:
         hatch = smooth(side, if_code, if_phase, hc, n_min + 1.0 >= hc[1], None)
         iono_l1 = stec * side.l1m
         mp1, mp2 = comb[MP1_ROW], comb[MP2_ROW]
+        skies = _sky(side, ests, pres, stec)
         snaps: list[StationSnapshot | Exception] = []
-        for (_, est, epoch, _), pre, b, o, c, r in zip(
-            live, pres, blocks, side.offs, corr, rots, strict=True
+        for (_, est, epoch, _), pre, b, o, c, r, sky in zip(
+            live, pres, blocks, side.offs, corr, rots, skies, strict=True
         ):
             no = b.lay.no_lli
             figs = (stec[o], r[0], r[1], iono_l1[o], if_code[o], if_phase[o], hatch[o], mp1[o],
                     mp2[o], b.noise, c[2], stec_raw[o], b.lev, c[0], b.n, b.arc, no, no)  # fmt: skip
             try:
-                snaps.append(est._post(epoch, t, interval, pre, figs))
+                snaps.append(est._post(epoch, t, interval, pre, figs, sky))
             except Exception as exc:  # the station's own, in its place
                 snaps.append(exc)
         return snaps
