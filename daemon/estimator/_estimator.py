@@ -446,14 +446,22 @@ class StationEstimator:
         """The estimate's inputs before the per-satellite figures: the layout, the geometry (el,
         az, pierce lat, lon rows), its source, whether every elevation is known, the elevations
         and sin(el) of every satellite present and of the dual-frequency ones."""
+        lay = self._layout(epoch)
+        geo, geo_source = self.geometry.lookup(lay.present, t)
+        # sin(el) once: levelling weights, station weights and receiver-bias weights use it.
+        return self._inputs(lay, geo, geo_source, np.sin(geo[0]))
+
+    def _layout(self, epoch: ObsEpoch) -> EpochLayout:
+        """The epoch's layout (:meth:`_pre`), its unusable cells counted."""
         lay = self.cells.layout(epoch)
         self.counters["cells_unusable"] += lay.n_unusable
-        present = lay.present
-        geo, geo_source = self.geometry.lookup(present, t)
+        return lay
+
+    def _inputs(self, lay: EpochLayout, geo: F64, geo_source: str, sin_all: F64) -> _Pre:
+        """:meth:`_pre`'s inputs from the layout and the geometry (``sin_all``: sin of its
+        elevations), right after the geometry's lookup."""
         el_known = self.geometry.all_known  # orbit geometry for all: no elevation is NaN
         el_all = geo[0]
-        # sin(el) once: levelling weights, station weights and receiver-bias weights use it.
-        sin_all = np.sin(el_all)
         el = el_all if lay.all_dual else el_all[lay.has]
         sin_el = sin_all if lay.all_dual else sin_all[lay.has]
         return lay, geo, geo_source, el_known, el_all, sin_all, el, sin_el

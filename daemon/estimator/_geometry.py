@@ -24,10 +24,13 @@ if TYPE_CHECKING:
     from ionwarden.daemon.geo._ephstore import SelectionMark
     from ionwarden.parsers import GlonassEphemeris, KeplerEphemeris
 
-__all__ = ["Geometry"]
+__all__ = ["Cached", "Geometry"]
 
 F64 = npt.NDArray[np.float64]
 Idx = npt.NDArray[np.intp]
+#: :meth:`Geometry.cached`: (sats, version, orbit time (s), rows, rates per second, all known,
+#: source).
+Cached = tuple[Idx, int, float, F64, F64, bool, str]
 Mask = npt.NDArray[np.bool_]
 #: A GSV elevation older than this is not used (s of data time): receivers send GSV every epoch.
 GSV_MAX_AGE_S = 30.0
@@ -73,7 +76,7 @@ class Geometry:
         self.all_known = False
         #: (sats, version, t_orbit, geo rows, rates, all_known, source) of the last satellites
         #: seen when all were refreshed at one time and none fell back to GSV (module doc).
-        self._same: tuple[Idx, int, float, F64, F64, bool, str] | None = None
+        self._same: Cached | None = None
         #: Bumped when the receiver position is set: with the store's generation, the inputs of
         #: an orbit evaluation besides the satellites and the time.
         self._rx_version = 0
@@ -141,18 +144,13 @@ class Geometry:
         than ``refresh_s`` or a satellite has no cached value yet (one vectorised call; the
         ephemeris store's selection cache then hits for the unchanged satellite list).
         """
-        if self._ahead is not None and not self.refresh_due(sats, t_s):
-            self._rows_unused()  # evaluated ahead for a refresh that does not come
-        same = self._same
-        if same is not None and same[0] is sats and same[1] == self.version:
-            dt_s = t_s - same[2]
-            if abs(dt_s) <= self.refresh_s:
-                # The operations of the general case below, with one dt for all satellites.
-                geo = np.multiply(same[4], np.array(dt_s))
-                geo += same[3]
-                self._wrap(geo)
-                self.all_known = same[5]
-                return geo, same[6]
+        same = self.cached(sats, t_s)
+        if same is not None:
+            # The operations of the general case below, with one dt for all satellites.
+            geo = np.multiply(same[4], np.array(t_s - same[2]))
+            geo += same[3]
+            self._wrap(geo)
+            return geo, same[6]
         dt = t_s - self.t_orbit.take(sats)
         orbits = self.rx_ecef is not None and self.has_ephemeris
         m = sats.shape[0]
@@ -191,6 +189,25 @@ class Geometry:
                               self.rate[:, sats], all_known, source)  # fmt: skip
         self._wrap(geo)
         return geo, source
+
+    def cached(self, sats: Idx, t_s: float) -> Cached | None:
+        """The cached rows :meth:`lookup` of ``sats`` at ``t_s`` extrapolates from, when it
+        does: (sats, version, their orbit time (s), rows, rates per second, all known, source),
+        its bookkeeping done (``all_known`` set, rows evaluated ahead for a refresh that does not
+        come dropped); None when :meth:`lookup` takes another path. The rows at ``t_s`` are then
+        ``wrap(rates · (t_s − orbit time) + rows)``."""
+        if self._ahead is not None and not self.refresh_due(sats, t_s):
+            self._rows_unused()  # evaluated ahead for a refresh that does not come
+        same = self._same
+        if (
+            same is not None
+            and same[0] is sats
+            and same[1] == self.version
+            and abs(t_s - same[2]) <= self.refresh_s
+        ):
+            self.all_known = same[5]
+            return same
+        return None
 
     @staticmethod
     def _wrap(geo: F64) -> None:

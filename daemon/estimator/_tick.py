@@ -30,6 +30,7 @@ import numpy.typing as npt
 
 from ._cells import GFT_ROW, IFC_ROW, IFP_ROW, MP1_ROW, MP2_ROW
 from ._estimator import BlockRows, _Block, _Pre, _Sky, level, smooth
+from ._geometry import Cached, Geometry
 from ._npfast import count_nonzero as _count_nonzero
 from ._npfast import einsum as _einsum
 from ._npfast import quiet_enter as _quiet_enter
@@ -41,6 +42,7 @@ if TYPE_CHECKING:
 
     from ionwarden.parsers import ObsEpoch
 
+    from ._cells import EpochLayout
     from ._estimator import StationEstimator
     from ._snapshot import StationSnapshot
 
@@ -182,6 +184,12 @@ class TickBatch:
         self._side: _Side | None = None
         #: The stations whose settings were last found alike (checked when they change).
         self._alike: tuple[StationEstimator, ...] = ()
+        #: The joined geometry caches (``_geometry``): whose (ids), their rows, rates, orbit
+        #: times per column and each station's columns.
+        self._geo_key: tuple[int, ...] = ()
+        self._geo_keep: list[Cached] = []
+        self._geo_rows = self._geo_rates = self._geo_t = np.empty(0)
+        self._geo_offs: list[slice] = []
 
     def update(self, items: Sequence[tuple[StationEstimator, ObsEpoch]]) -> list[StationSnapshot]:
         """The snapshot of each (estimator, epoch), in order: what ``estimator.update(epoch)``
@@ -216,20 +224,42 @@ class TickBatch:
     ) -> list[StationSnapshot | Exception]:
         out: list[StationSnapshot | Exception | None] = []
         live: list[tuple[int, StationEstimator, ObsEpoch, float]] = []
-        pres: list[_Pre] = []
-        for est, epoch in items:
+        lays: list[EpochLayout] = []
+        cached: list[Cached | None] = []
+        for est, epoch in items:  # (each station's _pre, split around its geometry's lookup)
             try:
                 t = est._begin(epoch)
                 if t is None:  # out of order: counted, the last snapshot again
                     out.append(est._last if est._last is not None else est._empty(epoch))
                     continue
-                pre = est._pre(epoch, t)
+                lay = est._layout(epoch)
+                same = est.geometry.cached(lay.present, t)
             except Exception as exc:  # the station's own, in its place
                 out.append(exc)
                 continue
             live.append((len(out), est, epoch, t))
-            pres.append(pre)
+            lays.append(lay)
+            cached.append(same)
             out.append(None)
+        pres: list[_Pre] = []
+        joint = self._geometry(live, cached)
+        if joint is not None:  # the rows of every station from its cache, as one
+            geo, sin_all, offs = joint
+            for (_, est, _, _), lay, same, o in zip(live, lays, cached, offs, strict=True):
+                assert same is not None
+                pres.append(est._inputs(lay, geo[:, o], same[6], sin_all[o]))
+        else:
+            kept = []
+            for x, lay in zip(live, lays, strict=True):
+                est, t = x[1], x[3]
+                try:
+                    geo_i, source = est.geometry.lookup(lay.present, t)
+                    pres.append(est._inputs(lay, geo_i, source, np.sin(geo_i[0])))
+                except Exception as exc:  # the station's own, in its place
+                    out[x[0]] = exc
+                    continue
+                kept.append(x)
+            live = kept
         snaps: list[StationSnapshot | Exception] | None = None
         if len(live) > 1 and all(x[3] == live[0][3] for x in live):
             try:
@@ -250,6 +280,40 @@ class TickBatch:
                 est._last = snap
             out[i] = snap
         return out  # type: ignore[return-value]  # (every None was replaced)
+
+    def _geometry(
+        self,
+        live: list[tuple[int, StationEstimator, ObsEpoch, float]],
+        cached: list[Cached | None],
+    ) -> tuple[F64, F64, list[slice]] | None:
+        """Every station's geometry rows at the tick's time from its cache (``Geometry.cached``)
+        as one (4, D) array, the sin of its elevations and each station's columns: the
+        operations of ``Geometry.lookup``'s cached path element by element (a column's time
+        since its orbits a row instead of a 0-d array), so the same bits. None when a station
+        is not on that path, or the times differ (each then looks its rows up)."""
+        if len(live) < 2 or any(c is None for c in cached):
+            return None
+        t = live[0][3]
+        if not all(x[3] == t for x in live):
+            return None
+        key = tuple(id(c) for c in cached)
+        if key != self._geo_key:
+            sames = [c for c in cached if c is not None]
+            widths = [c[3].shape[1] for c in sames]
+            self._geo_rates = np.concatenate([c[4] for c in sames], axis=1)
+            self._geo_rows = np.concatenate([c[3] for c in sames], axis=1)
+            self._geo_t = np.repeat(np.array([c[2] for c in sames]), widths)
+            offs, at = [], 0
+            for w in widths:
+                offs.append(slice(at, at + w))
+                at += w
+            self._geo_offs = offs
+            self._geo_key = key
+            self._geo_keep = sames  # (the ids above stay theirs while kept)
+        geo = np.multiply(self._geo_rates, np.subtract(t, self._geo_t))
+        geo += self._geo_rows
+        Geometry._wrap(geo)
+        return geo, np.sin(geo[0]), self._geo_offs
 
     def _batched(
         self,
