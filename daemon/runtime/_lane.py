@@ -19,7 +19,8 @@ step), so background work is delayed, never skipped or reordered.
 
 The *gate* (``[runtime] ack_priority_ms``): while the MQTT publisher awaits the acknowledgements
 of what it sent (``MqttPublisher.awaiting_acks``), background steps wait too, each for
-``hold_s`` at most, and ``open()`` (the publisher's ``on_acked``) lets them go. On a machine whose
+``hold_s`` at most (and after a hold ran out, none until the publisher has caught up), and
+``open()`` (the publisher's ``on_acked``) lets them go. On a machine whose
 cores the broker shares, a burst's deferred work would otherwise keep the CPU while the broker
 waits for one, and the PUBACKs of the summaries just sent would be read only after it (a trace
 of a worker's bursts, 2026-12-04: ~1.1 ms of settles before the last PUBACK at the median; none
@@ -64,7 +65,7 @@ class StepLane:
     nobody waits. Each direct hand-over saves that callback and a whole loop iteration."""
 
     __slots__ = ("_background", "_busy", "_deciding", "_gate_timer", "_held_since", "_loop",
-                 "_urgent", "gate", "hold_s")  # fmt: skip
+                 "_spent", "_urgent", "gate", "hold_s")  # fmt: skip
 
     def __init__(self, gate: Callable[[], bool] | None = None, hold_s: float = 0.0) -> None:
         """``gate``: while it returns True (the publisher awaits acknowledgements), background
@@ -74,6 +75,8 @@ class StepLane:
         #: When the gate first held back the background step to come (None: it did not).
         self._held_since: float | None = None
         self._gate_timer: asyncio.TimerHandle | None = None
+        #: A hold ran out since the gate last opened by itself (it holds nothing until then).
+        self._spent = False
         self._busy = False
         #: done() left the choice of the next step to a _hand_on callback still to come.
         self._deciding = False
@@ -171,10 +174,18 @@ class StepLane:
             self._background.appendleft(fut)
 
     def _gated(self) -> bool:
-        """The gate holds background steps back now (for ``hold_s`` at most from the first
-        time it held this one; a timer then opens the lane)."""
+        """The gate holds background steps back now: for ``hold_s`` at most from the first time
+        it held this one (a timer then opens the lane), and not again once a hold ran out until
+        the gate has opened by itself (the publisher awaits nothing): with a distant broker, or
+        at high rates, acknowledgements are always awaited, and background work then never
+        waits for them more than once."""
         gate = self.gate
-        if gate is None or not gate():
+        if gate is None:
+            return False
+        if not gate():
+            self._spent = False
+            return False
+        if self._spent:
             return False
         loop = self._loop or self._bind()
         now = loop.time()
@@ -182,7 +193,10 @@ class StepLane:
             self._held_since = now
             self._gate_timer = loop.call_at(now + self.hold_s, self.open)
             return True
-        return now - self._held_since < self.hold_s
+        if now - self._held_since < self.hold_s:
+            return True
+        self._spent = True
+        return False
 
     def _background_given(self, background: bool) -> None:
         if background and self._held_since is not None:
@@ -202,6 +216,8 @@ class StepLane:
     def open(self) -> None:
         """The gate may have opened (an acknowledgement came, or its time ran out): a free
         lane goes to the first background waiter."""
+        if self._spent and self.gate is not None and not self.gate():
+            self._spent = False  # (opened by itself: it may hold the next one)
         if self._busy or self._deciding:
             return  # (whoever holds it hands it on)
         fut = self._next_background()
