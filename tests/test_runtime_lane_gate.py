@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import asyncio
 import functools
+from collections.abc import Awaitable, Callable
 
 import pytest
 
@@ -22,6 +23,21 @@ from .test_runtime_lane_handover import _order
 from .test_runtime_machinery_oracle import OldStepLane
 
 
+def _shut_lane() -> tuple[list[bool], StepLane, list[str], Callable[[str, bool], Awaitable[None]]]:
+    """A lane whose gate is shut while ``shut[0]`` (holds of a minute), the log of the steps
+    run, and a step: its turn (background or urgent), logged, done."""
+    shut = [True]
+    lane = StepLane(lambda: shut[0], hold_s=60.0)
+    log: list[str] = []
+
+    async def step(name: str, background: bool) -> None:
+        await lane.turn(background=background)
+        log.append(name)
+        lane.done()
+
+    return shut, lane, log, step
+
+
 async def _spin(n: int = 8) -> None:
     for _ in range(n):
         await asyncio.sleep(0)
@@ -33,14 +49,7 @@ def test_background_step_waits_for_the_gate_and_urgent_steps_do_not() -> None:
     opens hands the lane to the background step."""
 
     async def main() -> list[str]:
-        shut = [True]
-        lane = StepLane(lambda: shut[0], hold_s=60.0)
-        log: list[str] = []
-
-        async def step(name: str, background: bool) -> None:
-            await lane.turn(background=background)
-            log.append(name)
-            lane.done()
+        shut, lane, log, step = _shut_lane()
 
         await lane.turn()  # an urgent step holds the lane
         bg = asyncio.create_task(step("settle", True))
@@ -114,14 +123,7 @@ def test_a_free_lane_holds_a_new_background_step_while_the_gate_is_shut() -> Non
     goes first, and the background step runs once the gate opens."""
 
     async def main() -> list[str]:
-        shut = [True]
-        lane = StepLane(lambda: shut[0], hold_s=60.0)
-        log: list[str] = []
-
-        async def step(name: str, background: bool) -> None:
-            await lane.turn(background=background)
-            log.append(name)
-            lane.done()
+        shut, lane, log, step = _shut_lane()
 
         bg = asyncio.create_task(step("status", True))
         await _spin()
