@@ -2,7 +2,7 @@
 every other burst (``bench/paired/sitecustomize.py``), then frame sent → summary delivered split
 by the bursts' state.
 
-    .venv/bin/python bench/bench_paired.py {ack-priority,tick} [bench_e2e.py options]
+    .venv/bin/python bench/bench_paired.py {ack-priority,tick,satellites-later} [bench_e2e.py options]
 
 e.g. ``bench/bench_paired.py tick --warm-up 330 --seconds 60 --workers 2 --runtime
 batch_estimates=10``. Why: the host's load drifts by more than the effects being measured (whole
@@ -53,7 +53,7 @@ def _line(name: str, lat: list[float], last: list[float]) -> str:
 
 
 def main() -> int:
-    if len(sys.argv) < 2 or sys.argv[1] not in ("ack-priority", "tick"):
+    if len(sys.argv) < 2 or sys.argv[1] not in ("ack-priority", "tick", "satellites-later"):
         print(__doc__)
         return 2
     mode, rest = sys.argv[1], sys.argv[2:]

@@ -88,9 +88,26 @@ def _events(messages: list[tuple[str, bytes]]) -> list[tuple[int, str, str]]:
     return out
 
 
+def _satellites(pub: MqttPublisher) -> list[tuple[str, bytes]]:
+    """Satellites messages queued, in order."""
+    return [
+        (m.topic.value, m.payload)
+        for m in pub._buffer._bulk
+        if m.topic.value.endswith("/satellites")
+    ]
+
+
 def _immediate(bundle: StationBundle, chunks: list[bytes]) -> list[tuple[str, bytes]]:
     """The oracle: the daemon's emit before the change (each snapshot's alarms at once, then its
     summary; the core's deferred part after each chunk, then the alarms' learning)."""
+    return _immediate_pub(bundle, chunks)[0]
+
+
+def _immediate_pub(
+    bundle: StationBundle, chunks: list[bytes]
+) -> tuple[list[tuple[str, bytes]], MqttPublisher]:
+    """:func:`_immediate`'s alarm messages, and its publisher (the satellites messages queued
+    with each summary, at once)."""
     pub = _publisher()
     alarms = bundle.alarms
     assert alarms is not None
@@ -112,7 +129,7 @@ def _immediate(bundle: StationBundle, chunks: list[bytes]) -> list[tuple[str, by
         alarms.settle()
     emit(core.end_stream())
     emit(core.settle())
-    return _alarm_messages(pub)
+    return _alarm_messages(pub), pub
 
 
 def _tcp_config(port: int) -> StationConfig:
@@ -260,3 +277,71 @@ def test_daemon_stopping_a_station_evaluates_its_pending_snapshot(
     expected = _immediate(make_factory(settings, utc_now=lambda: start)(_tcp_config(1)), chunks)
     assert _events(expected) == [(1, "rot", "active")]
     assert got == expected
+
+
+def _daemon_run(
+    chunks: list[bytes], start: dt.datetime, *, hold_lane: bool
+) -> tuple[int, int, MqttPublisher]:
+    """The daemon on ``chunks`` (one a second over TCP) with the default settings; with
+    ``hold_lane``, the step lane is taken after the last epoch's urgent step (before the
+    station's background turn) and the station stopped there. The satellites messages and
+    summaries queued by then (all, without ``hold_lane``), and the publisher."""
+
+    async def main() -> tuple[int, int, MqttPublisher]:
+        server = ScriptedServer(lambda _r, w: _one_epoch_a_second(chunks, w))
+        async with server:
+            cfg = _tcp_config(server.port)
+            pub = _publisher(asyncio.get_running_loop().time)
+            opts = DaemonOptions(stations=(cfg,), summary_interval_s=0)
+            watch = _EpochWatch(len(chunks))
+            daemon = Daemon(
+                opts, factory=make_factory(Settings(), utc_now=lambda: start), publisher=pub,
+                exporter=watch,
+            )  # fmt: skip
+            async with asyncio.TaskGroup() as tg:
+                tg.create_task(daemon.run(), name="test.daemon")
+                await watch.reached.wait()
+                if hold_lane:
+                    await daemon._lane.turn()
+                else:
+                    await asyncio.sleep(0.5)  # its background turn
+                sats, summaries = len(_satellites(pub)), _summaries(pub)
+                daemon.request_stop()
+        if hold_lane:
+            daemon._lane.done()
+        return sats, summaries, pub
+
+    return run_virtual(main(), real_poll_s=0.01)
+
+
+def test_daemon_satellites_messages_equal_publishing_them_at_once(
+    demo: tuple[dt.datetime, list[bytes]],
+) -> None:
+    """The satellites messages the daemon formats in each station's background turn are those
+    the summary's publish would have queued at once (same payloads, same order), three of them
+    in 22 s (every ``satellites_interval_s``: 10 s)."""
+    start, chunks = demo
+    chunks = chunks[:22]
+    _, _, pub = _daemon_run(chunks, start, hold_lane=False)
+    _, oracle = _immediate_pub(
+        make_factory(Settings(), utc_now=lambda: start)(_tcp_config(1)), chunks
+    )
+    assert len(_satellites(oracle)) == 3  # (the simulator's demo: found by running it)
+    assert _satellites(pub) == _satellites(oracle)
+
+
+def test_daemon_leaves_a_due_satellites_message_for_the_background_turn(
+    demo: tuple[dt.datetime, list[bytes]],
+) -> None:
+    """The 11th epoch's satellites message is due (10 s after the first): after that epoch's
+    urgent step its summary is queued and its satellites message not yet (the lane held before
+    the station's background turn); stopping the station queues it, as at once."""
+    start, chunks = demo
+    chunks = chunks[:11]
+    sats, summaries, pub = _daemon_run(chunks, start, hold_lane=True)
+    _, oracle = _immediate_pub(
+        make_factory(Settings(), utc_now=lambda: start)(_tcp_config(1)), chunks
+    )
+    assert len(_satellites(oracle)) == 2
+    assert (sats, summaries) == (1, len(chunks))
+    assert _satellites(pub) == _satellites(oracle)

@@ -9,7 +9,10 @@ state are appended to ``$IONWARDEN_PAIRED_DIR/<pid>.txt``. Behaviours (``IONWARD
 * ``ack-priority``: the step lane's gate (``[runtime] ack_priority_ms``) holds background steps
   in "on" bursts only;
 * ``tick``: the burst tick (``[runtime] batch_estimates``) gathers stations in "on" bursts only;
-  in "off" ones each station's held epoch is estimated right after its own step, alone.
+  in "off" ones each station's held epoch is estimated right after its own step, alone;
+* ``satellites-later``: a due satellites message is formatted in the station's background turn
+  in "on" bursts only (``DeferredAlarms.defer_satellites``), at once with its summary in "off"
+  ones.
 """
 
 from __future__ import annotations
@@ -19,7 +22,7 @@ import time
 
 _MODE = os.environ.get("IONWARDEN_PAIRED", "")
 if _MODE:
-    from ionwarden.daemon.runtime import _burst, _lane, _station
+    from ionwarden.daemon.runtime import _burst, _deferred_alarms, _lane, _station
 
     _state = {"last": -1e9, "n": 0, "on": True}
     _path = os.path.join(os.environ.get("IONWARDEN_PAIRED_DIR", "."), f"{os.getpid()}.txt")
@@ -53,5 +56,17 @@ if _MODE:
             _stepped(self, runner, arrived, urgent_waiting and bool(_state["on"]))
 
         _burst.BurstTick.stepped = _stepped_when_on  # type: ignore[method-assign]
+    elif _MODE == "satellites-later":
+        _defer = _deferred_alarms.DeferredAlarms.defer_satellites
+
+        def _defer_when_on(self: _deferred_alarms.DeferredAlarms, snap: object) -> None:
+            if _state["on"]:
+                _defer(self, snap)  # type: ignore[arg-type]
+            elif self._publisher is not None:
+                self._publisher.publish_satellites_nowait(snap)  # type: ignore[arg-type]
+
+        _deferred_alarms.DeferredAlarms.defer_satellites = _defer_when_on  # type: ignore[method-assign]
     else:
-        raise SystemExit(f"IONWARDEN_PAIRED: unknown behaviour {_MODE!r} (ack-priority, tick)")
+        raise SystemExit(
+            f"IONWARDEN_PAIRED: unknown behaviour {_MODE!r} (ack-priority, tick, satellites-later)"
+        )

@@ -166,6 +166,14 @@ class TopicProducers:
     ) -> None:
         """Queue the epoch summary (and the satellite figures when due) of one station;
         ``arrived_s``: when its epoch's last bytes arrived (for :attr:`on_summary_delivered`)."""
+        if self.publish_summary_nowait(snap, arrived_s):
+            self.publish_satellites_nowait(snap)
+
+    def publish_summary_nowait(self, snap: StationSnapshot, arrived_s: float | None = None) -> bool:
+        """Queue the epoch summary of one station (``arrived_s`` as in
+        :meth:`publish_snapshot_nowait`); True when its satellites message is due, which
+        :meth:`publish_satellites_nowait` of the same snapshot then queues (the daemon leaves
+        that for the station's background turn: formatting it costs ~6 summaries)."""
         station = snap.station
         epoch = snap.time
         self._last_epoch[station] = epoch
@@ -190,7 +198,7 @@ class TopicProducers:
         t = epoch.total_s
         due = route.sats_due_s
         if due is not None and route.sats_last_s <= t < due:
-            return  # (most epochs) the satellites message is not due: nothing more to do
+            return False  # (most epochs) the satellites message is not due
         route.sats_last_s = t
         gap = s.satellites_interval_s
         if due is None:
@@ -201,6 +209,12 @@ class TopicProducers:
             gap += self._sats_scheduled % max(int(gap), 1)
             self._sats_scheduled += 1
         route.sats_due_s = t + gap
+        return True
+
+    def publish_satellites_nowait(self, snap: StationSnapshot) -> None:
+        """Queue the satellites message of a snapshot whose summary said it was due."""
+        route = self._routes.get(snap.station) or self._route(snap.station)
+        s = self._s
         self._put(
             route.satellites,
             fmt.satellites_payload(snap),

@@ -260,7 +260,11 @@ class Daemon:
                 pub = self._publisher
                 if pub is not None:
                     arrived = running.runner.epoch_arrived_s if running is not None else None
-                    pub.publish_snapshot_nowait(item, arrived)
+                    if pub.publish_summary_nowait(item, arrived):  # the satellites message due:
+                        if alarms is not None:  # formatted in the background turn too
+                            alarms.defer_satellites(item)
+                        else:
+                            pub.publish_satellites_nowait(item)
             elif isinstance(item, FixStatus):
                 if alarms is not None:
                     alarms.fix(item)
