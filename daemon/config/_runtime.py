@@ -47,9 +47,9 @@ class RuntimeSettings(Section):
     #: most this many stations (0 or 1: each station alone). Each station's bytes are decoded
     #: in its own step; once this many hold an epoch, or no other station's step waits, the held
     #: epochs are estimated at once (the same figures bit for bit, fewer numpy calls) and their
-    #: summaries go out. Less CPU; the last stations' summaries come sooner, the first ones'
-    #: later (DEVELOPERS.md, "What would reach the line"). Live sources only.
-    batch_estimates: int = Field(default=0, ge=0, le=1000)
+    #: summaries go out. Less CPU and a shorter tail; the last stations' summaries come sooner,
+    #: the first ones' later (DEVELOPERS.md, "Scaling further"). Live sources only.
+    batch_estimates: int = Field(default=10, ge=0, le=1000)
     #: Background work (a station's deferred settle and slack work, the status report) waits up
     #: to this long (ms, each) while the process's MQTT publisher awaits the acknowledgements of
     #: messages it sent: the broker gets a CPU before that work, and the PUBACKs of a burst's

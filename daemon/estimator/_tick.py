@@ -7,8 +7,9 @@ of the arrays), not the arithmetic. :meth:`TickBatch.update` lays the working bl
 stations side by side, as column ranges of one (NROW, D) array that each station's own block
 views, and runs the per-satellite core of the estimate once over all of them: the linear
 combinations, the slip tests' common case, the levelling and the Hatch filter. What differs per
-station stays per station: the bookkeeping, the geometry, the bias correction, ROT and ROTI, and
-the station figures and records.
+station stays per station: the bookkeeping, the bias correction, ROT and ROTI, and the station
+figures and records; the geometry's rows and the sky terms are computed over the joined columns
+too where every station allows it (``_tick_sky``).
 
 It gives what ``[est.update(epoch) for est, epoch in items]`` gives, bit for bit: the same
 snapshots, counters and later state (tests/test_estimator_tick.py). Element-wise operations and
@@ -29,13 +30,12 @@ import numpy as np
 import numpy.typing as npt
 
 from ._cells import GFT_ROW, IFC_ROW, IFP_ROW, MP1_ROW, MP2_ROW
-from ._estimator import BlockRows, _Block, _Pre, _Sky, level, smooth
-from ._geometry import Cached, Geometry
-from ._npfast import count_nonzero as _count_nonzero
+from ._estimator import BlockRows, _Block, _Pre, level, smooth
 from ._npfast import einsum as _einsum
 from ._npfast import quiet_enter as _quiet_enter
 from ._npfast import quiet_exit as _quiet_exit
 from ._state import NROW
+from ._tick_sky import JointGeometry, joint_sky
 
 if TYPE_CHECKING:
     from collections.abc import Sequence
@@ -44,12 +44,12 @@ if TYPE_CHECKING:
 
     from ._cells import EpochLayout
     from ._estimator import StationEstimator
+    from ._geometry import Cached
     from ._snapshot import StationSnapshot
 
 __all__ = ["TickBatch"]
 
 F64 = npt.NDArray[np.float64]
-_ZERO = np.array(0.0)
 
 
 class _Side(BlockRows):
@@ -131,48 +131,6 @@ def _own(
         return exc
 
 
-def _sky(
-    side: _Side,
-    ests: tuple[StationEstimator, ...],
-    pres: list[_Pre],
-    stec: F64,
-) -> list[_Sky | None]:
-    """Each station's sky terms (``StationEstimator._post``), computed over the joined columns
-    with the operations of ``SkyTerms.mapping``, ``SkyTerms.offsets``, the VTEC and the degrees,
-    element by element the same (a column's station position a row instead of a 0-d array);
-    None for each when a station has single-frequency satellites or cells out of range (each
-    then computes its own)."""
-    if not all(p[0].all_dual and p[0].cells_in_range for p in pres):
-        return [None] * len(pres)
-    d = side.el.shape[0]
-    sky = ests[0]._sky  # (its constants are the settings', alike)
-    mapping = sky.mapping(side.el)
-    geo = np.concatenate([p[1] for p in pres], axis=1)  # el, az, pierce lat, lon (rad)
-    pts = np.empty((3, d))
-    lon_lat, cos_lat = side.positions()
-    out = pts[:2]
-    np.subtract(geo[3:1:-1], lon_lat, out)  # rows lon, lat
-    dlon = out[0]
-    dlon += sky._pi
-    dlon %= sky._two_pi
-    dlon -= sky._pi
-    out *= sky._r_km
-    dlon *= cos_lat
-    vtec = np.divide(stec, mapping, pts[2])
-    up = side.el > _ZERO
-    if _count_nonzero(up) != d:
-        vtec[~up] = np.nan
-    deg = np.degrees(geo)
-    skies: list[_Sky | None] = []
-    for est, o in zip(ests, side.offs, strict=True):
-        row0 = deg[0, o]
-        blk = est._blk
-        assert blk is not None
-        # (the station figures' input in C order, as the station's own path makes it)
-        skies.append((mapping[o], pts[:, o].copy(), deg[:, o], row0.take(blk.cell_pos)))
-    return skies
-
-
 class TickBatch:
     """The urgent estimates of several stations' epochs of one GPS second, run as one tick where
     they can be (see the module doc); one per daemon process, fed each burst's epochs."""
@@ -184,12 +142,8 @@ class TickBatch:
         self._side: _Side | None = None
         #: The stations whose settings were last found alike (checked when they change).
         self._alike: tuple[StationEstimator, ...] = ()
-        #: The joined geometry caches (``_geometry``): whose (ids), their rows, rates, orbit
-        #: times per column and each station's columns.
-        self._geo_key: tuple[int, ...] = ()
-        self._geo_keep: list[Cached] = []
-        self._geo_rows = self._geo_rates = self._geo_t = np.empty(0)
-        self._geo_offs: list[slice] = []
+        #: The stations' geometry rows from their caches as one (``_tick_sky``).
+        self._geometry = JointGeometry()
 
     def update(self, items: Sequence[tuple[StationEstimator, ObsEpoch]]) -> list[StationSnapshot]:
         """The snapshot of each (estimator, epoch), in order: what ``estimator.update(epoch)``
@@ -242,7 +196,7 @@ class TickBatch:
             cached.append(same)
             out.append(None)
         pres: list[_Pre] = []
-        joint = self._geometry(live, cached)
+        joint = self._geometry.rows(live, cached)
         if joint is not None:  # the rows of every station from its cache, as one
             geo, sin_all, offs = joint
             for (_, est, _, _), lay, same, o in zip(live, lays, cached, offs, strict=True):
@@ -280,40 +234,6 @@ class TickBatch:
                 est._last = snap
             out[i] = snap
         return out  # type: ignore[return-value]  # (every None was replaced)
-
-    def _geometry(
-        self,
-        live: list[tuple[int, StationEstimator, ObsEpoch, float]],
-        cached: list[Cached | None],
-    ) -> tuple[F64, F64, list[slice]] | None:
-        """Every station's geometry rows at the tick's time from its cache (``Geometry.cached``)
-        as one (4, D) array, the sin of its elevations and each station's columns: the
-        operations of ``Geometry.lookup``'s cached path element by element (a column's time
-        since its orbits a row instead of a 0-d array), so the same bits. None when a station
-        is not on that path, or the times differ (each then looks its rows up)."""
-        if len(live) < 2 or any(c is None for c in cached):
-            return None
-        t = live[0][3]
-        if not all(x[3] == t for x in live):
-            return None
-        key = tuple(id(c) for c in cached)
-        if key != self._geo_key:
-            sames = [c for c in cached if c is not None]
-            widths = [c[3].shape[1] for c in sames]
-            self._geo_rates = np.concatenate([c[4] for c in sames], axis=1)
-            self._geo_rows = np.concatenate([c[3] for c in sames], axis=1)
-            self._geo_t = np.repeat(np.array([c[2] for c in sames]), widths)
-            offs, at = [], 0
-            for w in widths:
-                offs.append(slice(at, at + w))
-                at += w
-            self._geo_offs = offs
-            self._geo_key = key
-            self._geo_keep = sames  # (the ids above stay theirs while kept)
-        geo = np.multiply(self._geo_rates, np.subtract(t, self._geo_t))
-        geo += self._geo_rows
-        Geometry._wrap(geo)
-        return geo, np.sin(geo[0]), self._geo_offs
 
     def _batched(
         self,
@@ -403,7 +323,7 @@ class TickBatch:
         hatch = smooth(side, if_code, if_phase, hc, n_min + 1.0 >= hc[1], None)
         iono_l1 = stec * side.l1m
         mp1, mp2 = comb[MP1_ROW], comb[MP2_ROW]
-        skies = _sky(side, ests, pres, stec)
+        skies = joint_sky(side, ests, pres, stec)
         snaps: list[StationSnapshot | Exception] = []
         for (_, est, epoch, _), pre, b, o, c, r, sky in zip(
             live, pres, blocks, side.offs, corr, rots, skies, strict=True
