@@ -167,6 +167,33 @@ def test_a_cancelled_held_background_step_does_not_jam_the_lane() -> None:
     assert not busy
 
 
+def test_a_hold_whose_steps_were_all_cancelled_does_not_disable_the_gate() -> None:
+    """Every background step the gate held is cancelled (a station stopped) and the gate opens:
+    the next background step, once the gate is shut again, is held again (for ``hold_s``), not
+    let through by the old hold's clock."""
+    hold = 0.05
+
+    async def main() -> tuple[list[str], float]:
+        shut, lane, log, step = _shut_lane()
+        lane.hold_s = hold
+        loop = asyncio.get_running_loop()
+        gone = asyncio.create_task(step("gone", True))
+        await _spin()
+        gone.cancel()
+        await _spin()
+        shut[0] = False
+        lane.open()  # the publisher caught up
+        await asyncio.sleep(2 * hold)  # (the old hold would have run out by now)
+        shut[0] = True
+        t0 = loop.time()
+        await asyncio.wait_for(step("next", True), 5)
+        return log, loop.time() - t0
+
+    log, waited = asyncio.run(main())
+    assert log == ["next"]
+    assert waited >= hold  # (a lower bound: how much later a timer fires is the host's)
+
+
 @pytest.mark.parametrize("seed", range(6))
 @pytest.mark.parametrize("stagger", [False, True])
 def test_an_open_gate_serves_steps_in_the_order_of_the_lane_without_one(

@@ -184,6 +184,7 @@ class StepLane:
             return False
         if not gate():
             self._spent = False
+            self._end_hold()  # (a hold whose waiters left meanwhile)
             return False
         if self._spent:
             return False
@@ -196,14 +197,19 @@ class StepLane:
         if now - self._held_since < self.hold_s:
             return True
         self._spent = True
+        self._end_hold()
         return False
 
-    def _background_given(self, background: bool) -> None:
-        if background and self._held_since is not None:
+    def _end_hold(self) -> None:
+        if self._held_since is not None:
             self._held_since = None
             if self._gate_timer is not None:
                 self._gate_timer.cancel()
                 self._gate_timer = None
+
+    def _background_given(self, background: bool) -> None:
+        if background:
+            self._end_hold()
 
     def _next_background(self) -> asyncio.Future[bool] | None:
         if not self._background or self._gated():
