@@ -240,6 +240,41 @@ def test_daemon_evaluates_a_pending_snapshot_before_the_fix_that_follows_it(
     assert got == expected
 
 
+def _daemon_run(
+    chunks: list[bytes], start: dt.datetime, *, hold_lane: bool
+) -> tuple[int, int, list[tuple[int, str, str]], MqttPublisher]:
+    """The daemon on ``chunks`` (one a second over TCP; the default settings); with
+    ``hold_lane``, woken in the iteration after the last urgent step, before the station
+    resumes for its background turn, an urgent step of the test's goes first and holds the
+    lane, and the station is stopped there. The satellites messages, summaries and alarm events
+    queued by then (all, without ``hold_lane``), and the publisher."""
+    factory = make_factory(Settings(), utc_now=lambda: start)
+
+    async def main() -> tuple[int, int, list[tuple[int, str, str]], MqttPublisher]:
+        server = ScriptedServer(lambda _r, w: _one_epoch_a_second(chunks, w))
+        async with server:
+            cfg = _tcp_config(server.port)
+            pub = _publisher(asyncio.get_running_loop().time)
+            opts = DaemonOptions(stations=(cfg,), summary_interval_s=0)
+            watch = _EpochWatch(len(chunks))
+            daemon = Daemon(opts, factory=factory, publisher=pub, exporter=watch)
+            async with asyncio.TaskGroup() as tg:
+                tg.create_task(daemon.run(), name="test.daemon")
+                await watch.reached.wait()
+                if hold_lane:
+                    await daemon._lane.turn()
+                else:
+                    await asyncio.sleep(0.5)  # its background turn
+                sats, summaries = len(_satellites(pub)), _summaries(pub)
+                events = _events(_alarm_messages(pub))
+                daemon.request_stop()
+        if hold_lane:
+            daemon._lane.done()
+        return sats, summaries, events, pub
+
+    return run_virtual(main(), real_poll_s=0.01)
+
+
 def test_daemon_stopping_a_station_evaluates_its_pending_snapshot(
     demo: tuple[dt.datetime, list[bytes]],
 ) -> None:
@@ -249,69 +284,13 @@ def test_daemon_stopping_a_station_evaluates_its_pending_snapshot(
     start, chunks = demo
     chunks = chunks[: ROT_EPOCH + 1]
     settings = Settings()
-
-    async def main() -> tuple[bool, int, MqttPublisher]:
-        server = ScriptedServer(lambda _r, w: _one_epoch_a_second(chunks, w))
-        async with server:
-            cfg = _tcp_config(server.port)
-            pub = _publisher(asyncio.get_running_loop().time)
-            opts = DaemonOptions(stations=(cfg,), summary_interval_s=0)
-            watch = _EpochWatch(len(chunks))
-            factory = make_factory(settings, utc_now=lambda: start)
-            daemon = Daemon(opts, factory=factory, publisher=pub, exporter=watch)
-            async with asyncio.TaskGroup() as tg:
-                tg.create_task(daemon.run(), name="test.daemon")
-                await watch.reached.wait()
-                # Woken in the iteration after the last urgent step, before the station resumes
-                # for its background turn: an urgent step of ours goes first and holds the lane.
-                await daemon._lane.turn()
-                summaries = _summaries(pub)
-                evaluated = any(e[1] == "rot" for e in _events(_alarm_messages(pub)))
-                daemon.request_stop()
-        daemon._lane.done()
-        return evaluated, summaries, pub
-
-    evaluated, summaries, pub = run_virtual(main(), real_poll_s=0.01)
+    _, summaries, events, pub = _daemon_run(chunks, start, hold_lane=True)
+    evaluated = any(e[1] == "rot" for e in events)
     assert (evaluated, summaries) == (False, len(chunks))
     got = _alarm_messages(pub)
     expected = _immediate(make_factory(settings, utc_now=lambda: start)(_tcp_config(1)), chunks)
     assert _events(expected) == [(1, "rot", "active")]
     assert got == expected
-
-
-def _daemon_run(
-    chunks: list[bytes], start: dt.datetime, *, hold_lane: bool
-) -> tuple[int, int, MqttPublisher]:
-    """The daemon on ``chunks`` (one a second over TCP) with the default settings; with
-    ``hold_lane``, the step lane is taken after the last epoch's urgent step (before the
-    station's background turn) and the station stopped there. The satellites messages and
-    summaries queued by then (all, without ``hold_lane``), and the publisher."""
-
-    async def main() -> tuple[int, int, MqttPublisher]:
-        server = ScriptedServer(lambda _r, w: _one_epoch_a_second(chunks, w))
-        async with server:
-            cfg = _tcp_config(server.port)
-            pub = _publisher(asyncio.get_running_loop().time)
-            opts = DaemonOptions(stations=(cfg,), summary_interval_s=0)
-            watch = _EpochWatch(len(chunks))
-            daemon = Daemon(
-                opts, factory=make_factory(Settings(), utc_now=lambda: start), publisher=pub,
-                exporter=watch,
-            )  # fmt: skip
-            async with asyncio.TaskGroup() as tg:
-                tg.create_task(daemon.run(), name="test.daemon")
-                await watch.reached.wait()
-                if hold_lane:
-                    await daemon._lane.turn()
-                else:
-                    await asyncio.sleep(0.5)  # its background turn
-                sats, summaries = len(_satellites(pub)), _summaries(pub)
-                daemon.request_stop()
-        if hold_lane:
-            daemon._lane.done()
-        return sats, summaries, pub
-
-    return run_virtual(main(), real_poll_s=0.01)
 
 
 def test_daemon_satellites_messages_equal_publishing_them_at_once(
@@ -322,7 +301,7 @@ def test_daemon_satellites_messages_equal_publishing_them_at_once(
     in 22 s (every ``satellites_interval_s``: 10 s)."""
     start, chunks = demo
     chunks = chunks[:22]
-    _, _, pub = _daemon_run(chunks, start, hold_lane=False)
+    _, _, _, pub = _daemon_run(chunks, start, hold_lane=False)
     _, oracle = _immediate_pub(
         make_factory(Settings(), utc_now=lambda: start)(_tcp_config(1)), chunks
     )
@@ -338,7 +317,7 @@ def test_daemon_leaves_a_due_satellites_message_for_the_background_turn(
     the station's background turn); stopping the station queues it, as at once."""
     start, chunks = demo
     chunks = chunks[:11]
-    sats, summaries, pub = _daemon_run(chunks, start, hold_lane=True)
+    sats, summaries, _, pub = _daemon_run(chunks, start, hold_lane=True)
     _, oracle = _immediate_pub(
         make_factory(Settings(), utc_now=lambda: start)(_tcp_config(1)), chunks
     )
