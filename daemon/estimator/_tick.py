@@ -196,7 +196,10 @@ class TickBatch:
             cached.append(same)
             out.append(None)
         pres: list[_Pre] = []
-        joint = self._geometry.rows(live, cached)
+        try:
+            joint = self._geometry.rows(live, cached)
+        except Exception:  # each station's own lookup says whose it is
+            joint = None
         if joint is not None:  # the rows of every station from its cache, as one
             geo, sin_all, offs = joint
             for (_, est, _, _), lay, same, o in zip(live, lays, cached, offs, strict=True):
