@@ -51,8 +51,8 @@ class RuntimeSettings(Section):
     #: the first ones' later (DEVELOPERS.md, "Scaling further"). Live sources only.
     batch_estimates: int = Field(default=10, ge=0, le=1000)
     #: Background work (a station's deferred settle and slack work, the status report) waits up
-    #: to this long (ms, each) while the process's MQTT publisher awaits the acknowledgements of
-    #: messages it sent: the broker gets a CPU before that work, and the PUBACKs of a burst's
-    #: summaries are read as they come, not after it (0 = no wait; DEVELOPERS.md, "Scaling
-    #: further").
+    #: to this long (ms) while the process's MQTT publisher awaits the acknowledgements of
+    #: messages it sent, and once a wait ran out, not again until the publisher has caught up:
+    #: the broker gets a CPU before that work, and the PUBACKs of a burst's summaries are read as
+    #: they come, not after it (0 = no wait; DEVELOPERS.md, "Scaling further").
     ack_priority_ms: float = Field(default=5.0, ge=0.0, le=1000.0)

@@ -209,7 +209,7 @@ class Daemon:
         self._utc_now = utc_now
         self._stations: dict[str, _Running] = {}
         #: One estimate step per loop iteration across stations (see _lane.py); background steps
-        #: wait while the publisher awaits acknowledgements, ``ack_priority_s`` at most each.
+        #: wait while the publisher awaits acknowledgements, ``ack_priority_s`` at most a hold.
         if publisher is not None and options.ack_priority_s > 0:
             self._lane = StepLane(publisher.awaiting_acks, options.ack_priority_s)
             publisher.on_acked = self._lane.open
