@@ -446,7 +446,10 @@ class StationEstimator:
         """The estimate's inputs before the per-satellite figures: the layout, the geometry (el,
         az, pierce lat, lon rows), its source, whether every elevation is known, the elevations
         and sin(el) of every satellite present and of the dual-frequency ones."""
-        lay = self._layout(epoch)
+        return self._looked_up(self._layout(epoch), t)
+
+    def _looked_up(self, lay: EpochLayout, t: float) -> _Pre:
+        """:meth:`_pre` after the layout: the geometry looked up, then :meth:`_inputs`."""
         geo, geo_source = self.geometry.lookup(lay.present, t)
         # sin(el) once: levelling weights, station weights and receiver-bias weights use it.
         return self._inputs(lay, geo, geo_source, np.sin(geo[0]))

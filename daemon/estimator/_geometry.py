@@ -147,10 +147,7 @@ class Geometry:
         same = self.cached(sats, t_s)
         if same is not None:
             # The operations of the general case below, with one dt for all satellites.
-            geo = np.multiply(same[4], np.array(t_s - same[2]))
-            geo += same[3]
-            self._wrap(geo)
-            return geo, same[6]
+            return self.extrapolate(same[4], np.array(t_s - same[2]), same[3]), same[6]
         dt = t_s - self.t_orbit.take(sats)
         orbits = self.rx_ecef is not None and self.has_ephemeris
         m = sats.shape[0]
@@ -208,6 +205,15 @@ class Geometry:
             self.all_known = same[5]
             return same
         return None
+
+    @staticmethod
+    def extrapolate(rates: F64, dt_s: F64, rows: F64) -> F64:
+        """Rows ``rates · dt_s + rows``, wrapped (a new array): :meth:`cached`'s rows at a time
+        ``dt_s`` (0-d, or a row per column) after their orbits."""
+        geo = np.multiply(rates, dt_s)
+        geo += rows
+        Geometry._wrap(geo)
+        return geo
 
     @staticmethod
     def _wrap(geo: F64) -> None:

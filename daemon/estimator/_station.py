@@ -180,13 +180,20 @@ class SkyTerms:
             self._lon, self._lat = lon_rad, lat_rad
             self._lon_lat = np.array([[lon_rad], [lat_rad]])
             self._cos_lat = np.array(math.cos(lat_rad))
-        np.subtract(ipp_lat_lon[::-1], self._lon_lat, out)  # rows lon, lat
+        self.offsets_from(self._lon_lat, self._cos_lat, ipp_lat_lon, out)
+
+    def offsets_from(self, lon_lat: F64, cos_lat: F64, ipp_lat_lon: F64, out: F64) -> None:
+        """:meth:`offsets` from the station's (lon, lat) as a (2, 1) column and cos(lat) 0-d,
+        or, for several stations' pierce points side by side (the batched tick), each column's
+        station (lon, lat) as (2, n) rows and cos(lat) as a row: the same operations on each
+        element."""
+        np.subtract(ipp_lat_lon[::-1], lon_lat, out)  # rows lon, lat
         dlon = out[0]
         dlon += self._pi
         dlon %= self._two_pi
         dlon -= self._pi
         out *= self._r_km
-        dlon *= self._cos_lat
+        dlon *= cos_lat
 
 
 def station_figures(

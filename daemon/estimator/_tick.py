@@ -208,10 +208,8 @@ class TickBatch:
         else:
             kept = []
             for x, lay in zip(live, lays, strict=True):
-                est, t = x[1], x[3]
                 try:
-                    geo_i, source = est.geometry.lookup(lay.present, t)
-                    pres.append(est._inputs(lay, geo_i, source, np.sin(geo_i[0])))
+                    pres.append(x[1]._looked_up(lay, x[3]))
                 except Exception as exc:  # the station's own, in its place
                     out[x[0]] = exc
                     continue

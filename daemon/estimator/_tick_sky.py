@@ -45,14 +45,7 @@ def joint_sky(
     geo = np.concatenate([p[1] for p in pres], axis=1)  # el, az, pierce lat, lon (rad)
     pts = np.empty((3, d))
     lon_lat, cos_lat = side.positions()
-    out = pts[:2]
-    np.subtract(geo[3:1:-1], lon_lat, out)  # rows lon, lat
-    dlon = out[0]
-    dlon += sky._pi
-    dlon %= sky._two_pi
-    dlon -= sky._pi
-    out *= sky._r_km
-    dlon *= cos_lat
+    sky.offsets_from(lon_lat, cos_lat, geo[2:4], pts[:2])
     vtec = np.divide(stec, mapping, pts[2])
     up = side.el > _ZERO
     if _count_nonzero(up) != d:
@@ -73,8 +66,7 @@ class JointGeometry:
     station's changes at its 30-s refresh)."""
 
     def __init__(self) -> None:
-        #: Whose caches (ids), their rows, rates, orbit times per column, each station's columns.
-        self._key: tuple[int, ...] = ()
+        #: Whose caches, their rows, rates, orbit times per column, each station's columns.
         self._keep: list[Cached] = []
         self._rows = self._rates = self._t = np.empty(0)
         self._offs: list[slice] = []
@@ -94,8 +86,8 @@ class JointGeometry:
         t = live[0][3]
         if not all(x[3] == t for x in live):
             return None
-        key = tuple(id(c) for c in cached)
-        if key != self._key:
+        keep = self._keep
+        if len(keep) != len(cached) or any(a is not b for a, b in zip(keep, cached, strict=True)):
             sames = [c for c in cached if c is not None]
             widths = [c[3].shape[1] for c in sames]
             self._rates = np.concatenate([c[4] for c in sames], axis=1)
@@ -106,9 +98,6 @@ class JointGeometry:
                 offs.append(slice(at, at + w))
                 at += w
             self._offs = offs
-            self._key = key
-            self._keep = sames  # (the ids above stay theirs while kept)
-        geo = np.multiply(self._rates, np.subtract(t, self._t))
-        geo += self._rows
-        Geometry._wrap(geo)
+            self._keep = sames
+        geo = Geometry.extrapolate(self._rates, np.subtract(t, self._t), self._rows)
         return geo, np.sin(geo[0]), self._offs

@@ -104,7 +104,8 @@ class StepLane:
         if not self._busy and not (background and self._gated()):
             # (a free lane has no live waiter but background ones the gate holds)
             self._busy = True
-            self._background_given(background)
+            if background:
+                self._end_hold()
             return
         fut: asyncio.Future[bool] = (self._loop or self._bind()).create_future()
         (self._background if background else self._urgent).append(fut)
@@ -207,16 +208,12 @@ class StepLane:
                 self._gate_timer.cancel()
                 self._gate_timer = None
 
-    def _background_given(self, background: bool) -> None:
-        if background:
-            self._end_hold()
-
     def _next_background(self) -> asyncio.Future[bool] | None:
         if not self._background or self._gated():
             return None
         fut = _first_live(self._background)
         if fut is not None:
-            self._background_given(True)
+            self._end_hold()
         return fut
 
     def open(self) -> None:
