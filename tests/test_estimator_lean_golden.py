@@ -30,25 +30,29 @@ from ._float_platform import fingerprint, golden_for
 DEMO = Path(__file__).resolve().parents[1] / "daemon" / "data" / "demo.bin"
 
 #: Golden digests per floating-point platform (tests/_float_platform.py), each captured from our
-#: own previous code (the estimator before the cuts, 59a3a98^) run on that platform.
+#: own previous code (the estimator before the cuts, 59a3a98^) run on that platform. The demo's
+#: changed on purpose on 2026-12-04 (new ephemerides no longer force an orbit refresh in the
+#: epoch they arrive with: _geometry.py): captured again on d82fbd5e3857987e only, the
+#: other platforms' dropped (the test skips there, saying so) until a session there captures it.
 GOLDEN_BY_PLATFORM: dict[str, dict[str, str]] = {
     # x86-64 with AVX-512 (an Intel Xeon), captured 2026-12-03 before fingerprints were recorded,
     # under a coarser label; keyed by the fingerprint of the machine they passed on since (an AMD
     # EPYC of family 25 has it too: they passed there, 2026-12-04)
     "d82fbd5e3857987e": {
-        "demo": "6e74d34044809c3215e4c5f2c212b2694c1da8d5d552325995ad3005d1862bc4",
+        # the demo's from this session's code (2026-12-04, an AMD EPYC of family 25 with
+        # AVX-512): the new geometry-refresh rule (daemon/estimator/_geometry.py) moves its VTEC
+        # by <= 9.2e-5 TECU against 59a3a98^
+        "demo": "4b72443ca0c08a8c9d4ebfbdc3a98142707cb2196d2747337446ab61fd400411",
         "quiet-day": "beb80db0c2ad3555a02cfa90e0d4adfa31485b3100f6c08b8713699800be900f",
         "synthetic": "2e1427f22da570e783e5b573b4078c9139dd0e349c188cb7aea1c8a275443e4a",
     },
     # x86-64, AVX2 without AVX-512 (numpy 2.4: X86_V3), captured 2026-12-03
     "5cbd07108fd657e2": {
-        "demo": "1431b27f927b4f13e339b630b7590357136c9e5943df8bf2c515577c70a7be4e",
         "quiet-day": "ac2f078525068c156096efb0864b1c65af134f924101a535803b2c73ef92a11d",
         "synthetic": "6bcfcbdf1785a183970b4eb3bba32b3b27015df099d2788d430f806573cbd2ce",
     },
     # x86-64 with AVX-512, AMD EPYC (family 26), captured 2026-12-03 from 59a3a98^
     "5ab1952dc3a158c0": {
-        "demo": "f37189bd653998d87c813559a8b1003f3a5c4b4183de865cc1e9b614eeadeb7c",
         "quiet-day": "777d4a0c9ef150ab4b35c71514277b655953ca80940229a7e3d0c506e252d8a8",
         "synthetic": "7cbafadce654fd0e1f58c376ee33739a79fdee27988282f62c50cf40b2e3adbf",
     },
@@ -144,6 +148,8 @@ def test_outputs_equal_golden_digest(source: str) -> None:
     """Every snapshot field, array (dtype, value), counter and the final state_dict equal the
     previous code's, bit for bit (golden digest of our own previous code)."""
     assert GOLDEN is not None
+    if source not in GOLDEN:  # the demo's, since the geometry-refresh rule of 2026-12-04
+        pytest.skip(f"no golden digest of {source!r} for platform {fingerprint()}: capture one")
     assert digest(source) == GOLDEN[source]
 
 

@@ -8,6 +8,14 @@ the last two refreshes). While the satellites repeat and all of them were refres
 their cached rows and rates are kept as (4, m) arrays, so an epoch costs two operations plus the
 angle wraps; satellites without an orbit stay NaN rows of that cache as long as none of them has
 a GSV elevation to fall back to.
+
+Orbits are re-evaluated only in an epoch before which the ephemeris store did not change (since
+the previous epoch's lookup), so that a station's deferred step can evaluate them ahead
+(:meth:`Geometry.prefetch`) with the store the epoch will use: a new broadcast set does not force
+a re-evaluation in the epoch it arrives with (a satellite with rows keeps them until its next
+refresh; one without rows gets them at the first such epoch), and a refresh that falls due while
+new sets arrive waits for one, ``_POSTPONE_MAX`` × ``refresh_s`` at most. Satellites never
+evaluated (start-up, rising) and a moved receiver are evaluated at once.
 """
 
 from __future__ import annotations
@@ -37,13 +45,19 @@ GSV_MAX_AGE_S = 30.0
 _TWO_PI = 2.0 * np.pi
 #: Step of the second orbit evaluation that gives a cold satellite its extrapolation rate (s).
 _RATE_STEP_S = 10.0
+#: A refresh postponed while new ephemerides arrive runs anyway once the rows are this many
+#: ``refresh_s`` old (our choice: the demo's elevations moved ≤ 0.006° against the old rule).
+_POSTPONE_MAX = 2.0
 _TWO_PI_0D = np.array(_TWO_PI)
 _PI_0D = np.array(np.pi)
 
 
-#: What :meth:`Geometry.prefetch` computed: (sats, t, inputs, (m, 4) rows, store marks before
-#: and after, (4, m) rate rows for the refresh or None, the version they were computed at).
-_Ahead = tuple[Idx, float, tuple[int, int], F64, "SelectionMark", "SelectionMark", F64 | None, int]
+#: What :meth:`Geometry.prefetch` computed: (sats, t, inputs, (m, 4) rows, store marks before,
+#: between the rows' evaluation and the rates' (a second one for cold satellites) and after,
+#: (4, m) rate rows for the refresh, the version they were computed at).
+_Ahead = tuple[
+    Idx, float, tuple[int, int], F64, "SelectionMark", "SelectionMark", "SelectionMark", F64, int
+]
 
 
 class Geometry:
@@ -81,9 +95,15 @@ class Geometry:
         #: an orbit evaluation besides the satellites and the time.
         self._rx_version = 0
         #: Orbit rows computed ahead (:meth:`prefetch`): (sats, t, inputs, rows, store marks
-        #: before and after, and the refresh's rate rows with the version they were computed at,
-        #: None when a satellite needs a second evaluation for its rate).
+        #: before, between and after, and the refresh's rate rows with the version they were
+        #: computed at).
         self._ahead: _Ahead | None = None
+        #: Satellites without rows at their last refresh that have an ephemeris since: refreshed
+        #: at the next epoch before which the store did not change; their number.
+        self._want = np.zeros(n_slots, np.bool_)
+        self._wants = 0
+        #: The store's generation at the last epoch's lookup (see the module doc).
+        self._gen_seen = -1
 
     # -- inputs ---------------------------------------------------------------------------------
     def set_receiver_position(self, ecef_m: npt.ArrayLike, source: str) -> None:
@@ -131,8 +151,12 @@ class Geometry:
             return
         if added:
             self.has_ephemeris = True
-            self.t_orbit[eph.sat] = np.nan
-            self.version += 1
+            sat = eph.sat
+            # A satellite with rows keeps them until its next refresh (the module doc); one
+            # refreshed without rows asks for one.
+            if math.isnan(self.geo[0, sat]) and not math.isnan(self.t_orbit[sat]):
+                self._want[sat] = True
+                self._wants += 1
 
     # -- lookup ---------------------------------------------------------------------------------
     def lookup(self, sats: Idx, t_s: float) -> tuple[F64, str]:
@@ -151,9 +175,13 @@ class Geometry:
         dt = t_s - self.t_orbit.take(sats)
         orbits = self.rx_ecef is not None and self.has_ephemeris
         m = sats.shape[0]
-        if orbits and np.count_nonzero(np.abs(dt) <= self.refresh_s) < m:
-            self._refresh(sats, t_s)
-            dt = t_s - self.t_orbit.take(sats)
+        if orbits and self._due(sats, dt):
+            if self._refresh_now(dt):
+                self._refresh(sats, t_s)
+                dt = t_s - self.t_orbit.take(sats)
+            elif self._ahead is not None:
+                self._rows_unused()  # evaluated ahead for a refresh postponed
+        self._gen_seen = self.store.generation
         # Linear extrapolation from the last refresh: second-order error < 0.001° over 30 s.
         geo = self.rate.take(sats, axis=1)
         geo *= dt
@@ -201,8 +229,10 @@ class Geometry:
             and same[0] is sats
             and same[1] == self.version
             and abs(t_s - same[2]) <= self.refresh_s
+            and not self._wants
         ):
             self.all_known = same[5]
+            self._gen_seen = self.store.generation
             return same
         return None
 
@@ -230,14 +260,34 @@ class Geometry:
 
     # -- orbit evaluation ahead of time ---------------------------------------------------------
     def refresh_due(self, sats: Idx, t_s: float) -> bool:
-        """Whether :meth:`lookup` of ``sats`` at ``t_s`` would re-evaluate the orbits now."""
+        """Whether :meth:`lookup` of ``sats`` at ``t_s`` would re-evaluate the orbits now, if the
+        ephemeris store does not change before it."""
         if self.rx_ecef is None or not self.has_ephemeris or not sats.shape[0]:
             return False
         same = self._same
-        if same is not None and same[0] is sats and same[1] == self.version:
+        if same is not None and same[0] is sats and same[1] == self.version and not self._wants:
             return abs(t_s - same[2]) > self.refresh_s
-        dt = np.abs(t_s - self.t_orbit.take(sats))
-        return bool(np.count_nonzero(dt <= self.refresh_s) < sats.shape[0])
+        return self._due(sats, t_s - self.t_orbit.take(sats))
+
+    def _due(self, sats: Idx, dt: F64) -> bool:
+        """Rows older than ``refresh_s`` (``dt``: ages, NaN if never evaluated), or asked for."""
+        if np.count_nonzero(np.abs(dt) <= self.refresh_s) < sats.shape[0]:
+            return True
+        if self._wants:
+            if np.count_nonzero(self._want.take(sats)):
+                return True
+            self._want.fill(False)  # (asked by satellites gone: they are refreshed on return)
+            self._wants = 0
+        return False
+
+    def _refresh_now(self, dt: F64) -> bool:
+        """A due refresh runs now if the store did not change since the last epoch, a satellite
+        was never evaluated (or the receiver moved) or the rows are ``_POSTPONE_MAX`` ×
+        ``refresh_s`` old (the module doc)."""
+        if self.store.generation == self._gen_seen:
+            return True
+        age = np.abs(dt)
+        return bool(np.isnan(age).any() or age.max() > _POSTPONE_MAX * self.refresh_s)
 
     def prefetch(self, sats: Idx, t_s: float) -> None:
         """Evaluate now the orbit rows a refresh of ``sats`` at ``t_s`` will need (the daemon
@@ -251,18 +301,13 @@ class Geometry:
             self._rows_unused()
         before = self.store.mark()
         rows = self._evaluate(sats, t_s)
-        after = self.store.mark()
+        mid = self.store.mark()
         rate = self._refresh_rates(sats, t_s, rows)
-        self._ahead = (sats, t_s, self._inputs(), rows, before, after, rate, self.version)
+        after = self.store.mark()
+        self._ahead = (sats, t_s, self._inputs(), rows, before, mid, after, rate, self.version)
 
     def _inputs(self) -> tuple[int, int]:
         return (self._rx_version, self.store.generation)
-
-    def _rows(self, sats: Idx, t_s: float) -> F64:
-        """(m, 4) rows (el, az, pierce lat, lon) from the orbits at ``t_s`` (NaN where none),
-        evaluated ahead by :meth:`prefetch` when still valid."""
-        ahead = self._take_ahead(sats, t_s)
-        return ahead[3] if ahead is not None else self._evaluate(sats, t_s)
 
     def _take_ahead(self, sats: Idx, t_s: float) -> _Ahead | None:
         """What :meth:`prefetch` computed, taken for a refresh of ``sats`` at ``t_s`` when it is
@@ -281,7 +326,7 @@ class Geometry:
         selection ran since: every orbit evaluation comes through here first)."""
         ahead, self._ahead = self._ahead, None
         if ahead is not None:
-            self.store.take_back(ahead[4], ahead[5])
+            self.store.take_back(ahead[4], ahead[6])
 
     def _evaluate(self, sats: Idx, t_s: float) -> F64:
         assert self.rx_ecef is not None
@@ -310,43 +355,46 @@ class Geometry:
         the cached rows are recent) and which satellites are cold (m: no usable previous rows
         but an orbit now)."""
         span = (t_s - self.t_orbit[sats])[:, None]
-        rate = self._rate(new, self.geo[:, sats].T, span)
-        usable = (span > 0.0) & (span < 4.0 * self.refresh_s)
+        old = self.geo[:, sats].T
+        rate = self._rate(new, old, span)
+        usable = (span > 0.0) & (span < 4.0 * self.refresh_s) & ~np.isnan(old[:, :1])
         return rate, usable, ~usable[:, 0] & ~np.isnan(new[:, 0])
 
-    def _refresh_rates(self, sats: Idx, t_s: float, new: F64) -> F64 | None:
+    def _refresh_rates(self, sats: Idx, t_s: float, new: F64) -> F64:
         """The (4, m) rates a refresh of ``sats`` at ``t_s`` to rows ``new`` stores, from the
-        cache as it stands; None when a satellite is cold (its rate needs a second evaluation,
-        :meth:`_refresh`)."""
+        cache as it stands. A satellite without usable previous rows (start, restart, rising,
+        a first usable ephemeris) gets its rate from a second orbit evaluation ``_RATE_STEP_S``
+        later (rare: otherwise the first ``refresh_s`` after a start would extrapolate with
+        rate 0, up to ~0.25° of elevation off at 30 s)."""
         rate, usable, cold = self._rates(sats, t_s, new)
         if np.count_nonzero(cold):
-            return None
+            # All of ``sats`` at t + step, not only the cold ones: the ephemeris selection (and
+            # with it the orbit node tables, GLONASS RK4 included) is cached per satellite list,
+            # so a subset would build and integrate new ones (a new ephemeris made this ~6 ms).
+            later = self._evaluate(sats, t_s + _RATE_STEP_S)[cold]
+            step = np.full((later.shape[0], 1), _RATE_STEP_S)
+            rate[cold] = self._rate(later, new[cold], step)
+            usable[cold] = True
         rows: F64 = np.where(usable & ~np.isnan(rate), rate, 0.0).T
         return rows
 
     def _refresh(self, sats: Idx, t_s: float) -> None:
-        """Recompute orbit geometry for ``sats`` (slots without a usable ephemeris become NaN)
-        and the rates used to extrapolate it until the next refresh. A satellite without a
-        recent previous refresh (start, restart, rising) gets its rate from a second orbit
-        evaluation ``_RATE_STEP_S`` later (rare: otherwise the first ``refresh_s`` after a
-        start would extrapolate with rate 0, up to ~0.25° of elevation off at 30 s)."""
+        """Orbit rows of ``sats`` (NaN without a usable ephemeris) and their rates
+        (:meth:`_refresh_rates`), from :meth:`prefetch` when still valid."""
         ahead = self._take_ahead(sats, t_s)
-        new = ahead[3] if ahead is not None else self._evaluate(sats, t_s)
-        if ahead is not None and ahead[6] is not None and ahead[7] == self.version:
-            # Rates computed ahead too, from the cache as it still is.
-            self.rate[:, sats] = ahead[6]
-        else:
-            rate, usable, cold = self._rates(sats, t_s, new)
-            if np.count_nonzero(cold):
-                # All of ``sats`` at t + step, not only the cold ones: the ephemeris selection
-                # (and with it the orbit node tables, GLONASS RK4 included) is cached per
-                # satellite list, so a subset would build and integrate new ones (a new
-                # ephemeris made this ~6 ms).
-                later = self._rows(sats, t_s + _RATE_STEP_S)[cold]
-                step = np.full((later.shape[0], 1), _RATE_STEP_S)
-                rate[cold] = self._rate(later, new[cold], step)
-                usable[cold] = True
-            self.rate[:, sats] = np.where(usable & ~np.isnan(rate), rate, 0.0).T
+        if ahead is None:
+            new = self._evaluate(sats, t_s)
+            self.rate[:, sats] = self._refresh_rates(sats, t_s, new)
+        elif ahead[8] == self.version:
+            new = ahead[3]
+            self.rate[:, sats] = ahead[7]  # computed ahead from the cache as it still is
+        else:  # the cache changed since (GSV): the rates again, as if the rows were new now
+            new = ahead[3]
+            self.store.take_back(ahead[5], ahead[6])
+            self.rate[:, sats] = self._refresh_rates(sats, t_s, new)
+        if self._wants:
+            self._want[sats] = False
+            self._wants = int(np.count_nonzero(self._want))
         self.geo[:, sats] = new.T
         self.t_orbit[sats] = t_s
         self.version += 1
