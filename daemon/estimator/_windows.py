@@ -517,11 +517,14 @@ class SlotStd:
         if all(p is None for p in self._gaps):
             self.acc[2] = np.bincount(sats, minlength=self.n_slots)
         else:
-            pres = [
-                np.ones(e.shape[0]) if p is None else p
-                for e, p in zip(self._sats, self._gaps, strict=True)
-            ]
-            self.acc[2] = np.bincount(sats, np.concatenate(pres), self.n_slots)
+            # The presence weights: 1.0 for each value of an entry without gaps, its presence
+            # row otherwise (the same weights as one 1.0 array per entry joined, written once).
+            pres = np.ones(sats.shape[0])
+            ends = np.cumsum(n).tolist()
+            for r, p in enumerate(self._gaps):
+                if p is not None:
+                    pres[ends[r] - int(n[r]) : ends[r]] = p
+            self.acc[2] = np.bincount(sats, pres, self.n_slots)
 
     def _presence(self, sats: npt.NDArray[np.intp], nan: npt.NDArray[np.bool_]) -> F64:
         """1.0 where a value is, 0.0 at ``nan``, read-only; the same object as last time for the
