@@ -299,6 +299,8 @@ class Geometry:
             return
         if self._ahead is not None:
             self._rows_unused()
+        if not self._refresh_now(t_s - self.t_orbit.take(sats)):
+            return  # a set stored since the last epoch: it waits for a quiet one (module doc)
         before = self.store.mark()
         rows = self._evaluate(sats, t_s)
         mid = self.store.mark()
@@ -362,15 +364,13 @@ class Geometry:
 
     def _refresh_rates(self, sats: Idx, t_s: float, new: F64) -> F64:
         """The (4, m) rates a refresh of ``sats`` at ``t_s`` to rows ``new`` stores, from the
-        cache as it stands. A satellite without usable previous rows (start, restart, rising,
-        a first usable ephemeris) gets its rate from a second orbit evaluation ``_RATE_STEP_S``
-        later (rare: otherwise the first ``refresh_s`` after a start would extrapolate with
-        rate 0, up to ~0.25° of elevation off at 30 s)."""
+        cache as it stands; a satellite without usable previous rows (start, rising, a first
+        usable ephemeris) from a second evaluation ``_RATE_STEP_S`` later (else rate 0: up to
+        ~0.25° of elevation off at 30 s)."""
         rate, usable, cold = self._rates(sats, t_s, new)
         if np.count_nonzero(cold):
-            # All of ``sats`` at t + step, not only the cold ones: the ephemeris selection (and
-            # with it the orbit node tables, GLONASS RK4 included) is cached per satellite list,
-            # so a subset would build and integrate new ones (a new ephemeris made this ~6 ms).
+            # All of ``sats``, not only the cold ones: the ephemeris selection (and its orbit
+            # node tables) is cached per satellite list; a subset would build new ones (~6 ms).
             later = self._evaluate(sats, t_s + _RATE_STEP_S)[cold]
             step = np.full((later.shape[0], 1), _RATE_STEP_S)
             rate[cold] = self._rate(later, new[cold], step)
