@@ -69,7 +69,7 @@ class EstimatorSettings(Section):
     geometry_refresh_s: float = Field(
         default=30.0,
         gt=0.0,
-        description="Recompute orbit geometry when older than this (data time); extrapolated linearly in between.",
+        description="Recompute orbit geometry when older than this (data time); extrapolated linearly in between. A new broadcast ephemeris takes effect at the next recompute, which waits while new ones arrive (up to twice this).",
     )
     roti_sample_s: float = Field(
         default=1.0,
