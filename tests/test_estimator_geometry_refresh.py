@@ -15,12 +15,12 @@ import numpy as np
 import pytest
 
 from ionwarden.daemon.estimator._geometry import Geometry
-from ionwarden.daemon.geo import geodetic_to_ecef
 from ionwarden.daemon.sim._constellation import build_constellation
 from ionwarden.parsers import KeplerEphemeris
+from tests.test_estimator_station_shortcuts import T0
+from tests.test_estimator_station_shortcuts import _geometry as _shortcuts_geometry
 
-T0 = 2350 * 604800.0 + 200_000.0
-RX = geodetic_to_ecef(np.radians(46.5), np.radians(7.5), 600.0)  # invented site
+#: The refresh interval of the shortcuts tests' geometry (``Geometry(400, 30.0, …)``).
 REFRESH_S = 30.0
 
 
@@ -46,10 +46,9 @@ def sets() -> tuple[np.ndarray, dict[int, KeplerEphemeris]]:
 
 
 def _geometry(ephs: Any) -> Geometry:
-    g = Geometry(400, REFRESH_S, shell_m=350e3, keep_per_sat=20)
-    g.set_receiver_position(RX, "config")
-    for e in ephs:
-        g.add_ephemeris(e, T0)
+    """The shortcuts tests' geometry (invented site, ephemerides added at T0)."""
+    g = _shortcuts_geometry(list(ephs))
+    assert g.refresh_s == REFRESH_S
     return g
 
 
